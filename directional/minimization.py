@@ -1,0 +1,263 @@
+"""`minimize` and `line_minimum`: the public entry points that put search and driver together."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Generator, Sequence
+
+import numpy as np
+
+from .driver import Driver, Objective
+from .errors import ObjectiveError, ProblemError
+from .linesearch import LineResult, line_search
+from .records import Batch, Curvature, Halt, Outcome, Stop, Verdict
+from .search import Settings, powell
+from .solution import Solution
+from .space import Space, build_space
+from .directions import DirectionSet, hessian_estimate
+
+
+def default_budget(n: int) -> int:
+    """Evaluations allowed when the caller sets no budget: 1000 (n + 1)."""
+    return 1000 * (n + 1)
+
+
+def minimize(
+    objective: Objective,
+    start: object,
+    bounds: object = None,
+    names: Sequence[str] | None = None,
+    budget: int | None = None,
+    *,
+    point_tolerance: float = 1e-6,
+    value_tolerance: float = 1e-10,
+    time_limit: float | None = None,
+    journal: object = None,
+    check: bool | str = True,
+    executor: object = None,
+    progress: bool = False,
+) -> Solution:
+    """Return the minimum of ``objective`` found from ``start``, without derivatives.
+
+    Powell's conjugate-direction search with safeguarded parabolic line searches (see
+    `directional.search`), inside the bounds, in scaled coordinates.
+
+    >>> import directional as dl
+    >>> sol = dl.minimize(lambda x: (x[0] - 1) ** 2 + 10 * (x[1] - x[0] ** 2) ** 2, [-1.2, 1.0])
+    >>> [round(v, 4) for v in sol.point]
+    [1.0, 1.0]
+
+    Parameters
+    ----------
+    objective
+        Called with one float array of the parameters; returns a number.  An exception, NaN or
+        inf marks that point failed (the search avoids it); the start point must not fail.
+    start
+        Numbers, or a list of `Parameter` (then ``bounds`` and ``names`` stay None).
+    bounds
+        One ``(lower, upper)`` pair per parameter, None or inf for no bound.
+    budget
+        The most evaluations to spend (default 1000 (n + 1)).
+    point_tolerance, value_tolerance
+        Stop when, on two consecutive cycles, no scaled coordinate moved more than
+        ``point_tolerance`` and the value fell by less than ``value_tolerance * max(1, |f|)``.
+    time_limit
+        Seconds of wall time after which no new evaluation starts.
+
+    Raises
+    ------
+    ProblemError
+        For a bad start, bounds, names, budget or tolerance, before any evaluation.
+    ObjectiveError
+        When the start point fails, or the objective returns something that is not a number.
+    """
+    if not callable(objective):
+        raise ProblemError(f"objective must be callable, got {objective!r}")
+    space = build_space(start, bounds, names)
+    settings = _settings(point_tolerance, value_tolerance)
+    budget = _budget(budget, space.size)
+    if time_limit is not None and not (isinstance(time_limit, int | float) and time_limit > 0):
+        raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
+    driver = Driver(objective=objective, budget=budget, time_limit=time_limit)
+    outcome = driver.run(powell(space, settings))
+    return _solution(space, settings, driver, outcome)
+
+
+def _settings(point_tolerance: float, value_tolerance: float) -> Settings:
+    for key, value in (("point_tolerance", point_tolerance), ("value_tolerance", value_tolerance)):
+        if isinstance(value, bool) or not isinstance(value, int | float) or not value > 0:
+            raise ProblemError(f"{key} must be a positive number, got {value!r}")
+        if not math.isfinite(value):
+            raise ProblemError(f"{key} must be finite, got {value!r}")
+    return Settings(point_tolerance=float(point_tolerance), value_tolerance=float(value_tolerance))
+
+
+def _budget(budget: int | None, n: int) -> int:
+    if budget is None:
+        return default_budget(n)
+    if isinstance(budget, bool) or not isinstance(budget, int | np.integer):
+        raise ProblemError(f"budget must be a whole number of evaluations, got {budget!r}")
+    if budget < n + 1:
+        raise ProblemError(
+            f"budget must allow at least n + 1 = {n + 1} evaluations, got {budget!r}"
+        )
+    return int(budget)
+
+
+def _solution(space: Space, settings: Settings, driver: Driver, outcome: Outcome) -> Solution:
+    log = driver.log
+    if not log.evaluations:
+        raise ObjectiveError("no evaluation was made")
+    first = log.evaluations[0]
+    if first.status != "ok" and outcome.cycles == 0 and outcome.stop is Stop.STALLED:
+        raise ObjectiveError(
+            f"the objective failed at the start point {first.point.tolist()!r}: "
+            f"{first.detail or first.status}"
+        )
+    best = log.best
+    if best is None:
+        raise ObjectiveError(
+            f"every evaluation failed ({len(log.evaluations)}); last error: "
+            f"{log.evaluations[-1].detail}"
+        )
+    free = hessian_estimate(
+        DirectionSet(
+            vectors=outcome.directions,
+            curvatures=outcome.curvatures,
+            steps=np.zeros(space.size),
+        )
+    )
+    return Solution(
+        point=best.point.copy(),
+        value=best.value,
+        evaluations=len(log.evaluations),
+        cycles=outcome.cycles,
+        stop=outcome.stop,
+        verdict=Verdict.UNCHECKED,
+        active=_active(space, best.point, settings),
+        curvature=None if free is None else _free_curvature(space, free),
+        uncertainty=None,
+        directions=_directions_in_search_coordinates(space, outcome.directions),
+        names=space.names,
+        units=tuple(p.unit for p in space.parameters),
+        lower=space.lower.copy(),
+        upper=space.upper.copy(),
+        reason=outcome.reason,
+        history=tuple(log.evaluations),
+    )
+
+
+def _active(space: Space, point: np.ndarray, settings: Settings) -> tuple[str, ...]:
+    flags = space.on_bound(point, 10.0 * settings.point_tolerance)
+    return tuple(name for name, flag in zip(space.names, flags) if flag)
+
+
+def _directions_in_search_coordinates(space: Space, directions: np.ndarray) -> np.ndarray:
+    rows = directions * space.scale
+    return rows / np.linalg.norm(rows, axis=1, keepdims=True)
+
+
+def _free_curvature(space: Space, scaled_hessian: np.ndarray) -> Curvature:
+    """The free Hessian estimate, moved from scaled to search coordinates."""
+    inverse_scale = 1.0 / space.scale
+    hessian = scaled_hessian * np.outer(inverse_scale, inverse_scale)
+    return curvature_record(hessian, None, "free")
+
+
+def curvature_record(hessian: np.ndarray, error: np.ndarray | None, source: str) -> Curvature:
+    """Eigen-decompose a symmetric Hessian into a `Curvature` record."""
+    eigenvalues, eigenvectors = np.linalg.eigh(hessian)
+    top = np.max(np.abs(eigenvalues))
+    low = np.min(np.abs(eigenvalues))
+    condition = math.inf if low == 0.0 else float(top / low)
+    return Curvature(
+        hessian=hessian,
+        error=error,
+        eigenvalues=eigenvalues,
+        eigenvectors=eigenvectors,
+        condition=condition,
+        source=source,
+    )
+
+
+def line_minimum(
+    f: Callable[[float], object],
+    lower: float,
+    upper: float,
+    start: float | None = None,
+    *,
+    tolerance: float = 1e-8,
+    budget: int = 100,
+) -> LineResult:
+    """Return the minimum of a function of one variable on ``[lower, upper]``.
+
+    Bracketing from ``start`` (default: the golden-section point of the interval), then Brent's
+    safeguarded successive parabolic interpolation to ``tolerance * (|t| + (upper - lower) / 1000)``
+    (`directional.linesearch`).  A failed evaluation counts as ``+inf``.
+
+    >>> r = line_minimum(lambda t: (t - 2.0) ** 2 + 1.0, 0.0, 5.0)
+    >>> round(r.point, 6), round(r.value, 6)
+    (2.0, 1.0)
+
+    Raises
+    ------
+    ProblemError
+        For ``lower >= upper``, non-finite bounds, a start outside them, a bad tolerance or budget.
+    ObjectiveError
+        When ``f`` returns something that is not a number.
+    """
+    if not callable(f):
+        raise ProblemError(f"f must be callable, got {f!r}")
+    lower, upper = float(lower), float(upper)
+    if not (math.isfinite(lower) and math.isfinite(upper)) or not lower < upper:
+        raise ProblemError(f"need finite lower < upper, got [{lower!r}, {upper!r}]")
+    if start is None:
+        start = lower + 0.3819660112501051 * (upper - lower)
+    if not lower <= start <= upper:
+        raise ProblemError(f"start {start!r} lies outside [{lower!r}, {upper!r}]")
+    if not (isinstance(tolerance, int | float) and 0 < tolerance < 1):
+        raise ProblemError(f"tolerance must lie in (0, 1), got {tolerance!r}")
+    if isinstance(budget, bool) or not isinstance(budget, int) or budget < 3:
+        raise ProblemError(f"budget must be a whole number of at least 3, got {budget!r}")
+    driver = Driver(objective=lambda x: f(float(x[0])), budget=budget)
+    search = line_search(
+        {},
+        lower,
+        upper,
+        step=0.1 * (upper - lower),
+        tolerance=1e-3 * tolerance * (upper - lower),
+        relative=tolerance,
+        start=float(start),
+        limit=budget,
+        exact=True,
+    )
+    return _drive_line(driver, search)
+
+
+def _drive_line(driver: Driver, search: Generator[np.ndarray, np.ndarray, LineResult]) -> LineResult:
+    """Run a scalar line search through the driver (budget, failures, cache)."""
+
+    def as_points() -> Generator[Batch, np.ndarray, LineResult | None]:
+        ts = next(search)
+        try:
+            while True:
+                values = yield Batch(points=ts[:, None].copy(), purpose="line")
+                ts = search.send(values)
+        except StopIteration as done:
+            return done.value
+        except Halt:
+            return None
+
+    result = driver.run(as_points())
+    best = driver.log.best
+    if best is None:
+        raise ObjectiveError("every evaluation of f failed")
+    if result is None:
+        return LineResult(
+            point=float(best.point[0]),
+            value=best.value,
+            bracket=(float(best.point[0]), float(best.point[0])),
+            curvature=math.nan,
+            evaluations=driver.spent,
+        )
+    return result

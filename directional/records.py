@@ -1,0 +1,97 @@
+"""Small frozen records that cross the boundary between the pure search and the driver.
+
+The search yields a `Batch` of points to evaluate and receives their values (a float array; a failed
+evaluation arrives as ``+inf``).  When the driver must end a search early (budget spent, time up,
+Ctrl-C) it throws `Halt` into the generator, which returns its `Outcome` with that stop reason.
+"""
+
+from __future__ import annotations
+
+import enum
+from dataclasses import dataclass, field
+
+import numpy as np
+
+
+class Stop(enum.Enum):
+    """Why a search ended."""
+
+    CONVERGED = "converged"
+    BUDGET = "budget"
+    INTERRUPTED = "interrupted"
+    STALLED = "stalled"
+
+
+class Verdict(enum.Enum):
+    """What the curvature check says about the returned point."""
+
+    MINIMUM = "minimum"
+    SADDLE = "saddle"
+    MAXIMUM = "maximum"
+    FLAT = "flat"
+    UNCHECKED = "unchecked"
+
+
+class Halt(Exception):
+    """Thrown into a search generator by the driver to end it with the given stop reason."""
+
+    def __init__(self, stop: Stop, reason: str = "") -> None:
+        super().__init__(stop, reason)
+        self.stop = stop
+        self.reason = reason
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Batch:
+    """Points the search wants evaluated, one per row, in the user's coordinates.
+
+    ``purpose`` says what the points are for ("start", "line", "probe", "hessian", ...), for the
+    journal and for people reading it; it never changes what the driver does.
+    """
+
+    points: np.ndarray
+    purpose: str = "line"
+
+    def __post_init__(self) -> None:
+        points = np.array(self.points, dtype=float, copy=True)
+        if points.ndim != 2 or points.shape[0] == 0:
+            raise ValueError(f"a batch needs a (k, n) array with k >= 1, got shape {points.shape!r}")
+        points.setflags(write=False)
+        object.__setattr__(self, "points", points)
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Outcome:
+    """What a search generator returns: its best point and what it learned on the way.
+
+    ``curvatures[i]`` is the second derivative of the objective along ``directions[i]`` (a unit
+    vector in scaled coordinates) measured by the last line search along it, ``nan`` if unknown.
+    """
+
+    point: np.ndarray
+    value: float
+    stop: Stop
+    cycles: int
+    directions: np.ndarray
+    curvatures: np.ndarray
+    reason: str = ""
+    notes: tuple[str, ...] = field(default=())
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Curvature:
+    """The Hessian at the returned point, in search coordinates, and what it says.
+
+    Search coordinates are the parameters themselves, or their natural logarithms for log-scaled
+    parameters.  ``error`` is the element-wise error estimate (None for the free estimate, which
+    has none); ``source`` says where the matrix came from: "free" (the line searches' curvatures
+    along conjugate directions, no extra evaluation), "quick" (central differences) or
+    "extrapolated" (numdifftools' Richardson extrapolation).
+    """
+
+    hessian: np.ndarray
+    error: np.ndarray | None
+    eigenvalues: np.ndarray
+    eigenvectors: np.ndarray
+    condition: float
+    source: str

@@ -1,0 +1,199 @@
+"""The outer loop: Powell's conjugate-direction search, written as a generator.
+
+Theory of operation.  The search owns all decisions and does no I/O: it yields `Batch` records of
+points (user coordinates) and receives their values; the driver evaluates them.  It works in the
+scaled coordinates of `space.Space`, starting from the principal axes.
+
+- A cycle line-searches each direction of the set in turn from the current point (`linesearch`),
+  reusing the curvature each direction showed last time, so that on a quadratic a line search
+  costs two evaluations.
+- At the end of a cycle the point extrapolated as far again along the cycle's overall step is
+  evaluated.  If Powell's (1964) test accepts, the overall step becomes a new direction: it is
+  line-searched (the three points on it are already known) and replaces the direction of largest
+  decrease, which keeps the set from collapsing (Zangwill 1967).
+- When the set nevertheless becomes nearly dependent it is reset to the principal axes (Brent
+  1973, ch. 7).
+- The search stops when, on two consecutive cycles, the point moved less than ``point_tolerance``
+  (scaled, infinity norm) and the value fell by less than ``value_tolerance * max(1, |f|)``.
+  The driver ends it early by throwing `records.Halt` (budget, time, interrupt); it then returns
+  its best point with that reason.
+
+On a quadratic in n variables the directions become mutually conjugate, and the minimum is
+reached after n cycles with exact line searches (Powell 1964).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Generator
+from dataclasses import dataclass
+
+import numpy as np
+
+from .directions import (
+    DirectionSet,
+    degenerate,
+    powell_accepts,
+    principal_axes,
+    replaced,
+)
+from .linesearch import LineResult, line_search
+from .records import Batch, Halt, Outcome, Stop
+from .space import Space
+
+Search = Generator[Batch, np.ndarray, Outcome]
+
+FIRST_STEP = 0.1  # first probe along an axis, in scaled units (a tenth of the problem's size)
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Settings:
+    """Tolerances of the direction-set search (see the module docstring)."""
+
+    point_tolerance: float = 1e-6
+    value_tolerance: float = 1e-10
+    line_limit: int = 40
+
+    @property
+    def line_tolerance(self) -> float:
+        """Resolution of each line search: finer than the point tolerance, so that a converged
+        cycle moves less than it (common practice, no source)."""
+        return 0.1 * self.point_tolerance
+
+
+class _Tracker:
+    """The current point and value, updated as soon as a better evaluation arrives."""
+
+    def __init__(self, u: np.ndarray, value: float) -> None:
+        self.u = u
+        self.value = value
+
+
+def powell(space: Space, settings: Settings, start: np.ndarray | None = None) -> Search:
+    """Minimize over ``space`` from its start (or ``start``, scaled coordinates)."""
+    n = space.size
+    u = np.zeros(n) if start is None else np.array(start, dtype=float)
+    values = yield Batch(points=space.to_user(u)[None, :], purpose="start")
+    best = _Tracker(u, float(values[0]))
+    directions = principal_axes(n, FIRST_STEP)
+    cycles = 0
+    if not math.isfinite(best.value):
+        return _outcome(best, Stop.STALLED, cycles, directions, "the start point failed")
+    try:
+        calm = 0
+        while calm < 2:
+            cycles += 1
+            directions, moved, dropped = yield from _cycle(space, settings, best, directions)
+            small = moved <= settings.point_tolerance and dropped <= (
+                settings.value_tolerance * max(1.0, abs(best.value))
+            )
+            calm = calm + 1 if small else 0
+    except Halt as halt:
+        return _outcome(best, halt.stop, cycles, directions, halt.reason)
+    return _outcome(best, Stop.CONVERGED, cycles, directions, "")
+
+
+def _cycle(
+    space: Space, settings: Settings, best: _Tracker, directions: DirectionSet
+) -> Generator[Batch, np.ndarray, tuple[DirectionSet, float, float]]:
+    """One cycle: a line search along each direction, then Powell's replacement test."""
+    u0, f0 = best.u.copy(), best.value
+    largest, largest_drop = 0, 0.0
+    for i, d in enumerate(directions.vectors):
+        before = best.value
+        result = yield from _line(space, settings, best, d, directions.steps[i], directions.curvatures[i])
+        directions = directions.measured(i, result.curvature, _next_step(result, settings))
+        if before - best.value > largest_drop:
+            largest, largest_drop = i, before - best.value
+    overall = best.u - u0
+    length = float(np.linalg.norm(overall))
+    if length > settings.line_tolerance:
+        directions = yield from _replace(
+            space, settings, best, directions, overall / length, length, f0, largest, largest_drop
+        )
+    if degenerate(directions):
+        directions = principal_axes(space.size, FIRST_STEP)
+    moved = float(np.max(np.abs(best.u - u0)))
+    return directions, moved, f0 - best.value
+
+
+def _replace(
+    space: Space,
+    settings: Settings,
+    best: _Tracker,
+    directions: DirectionSet,
+    d: np.ndarray,
+    length: float,
+    f0: float,
+    largest: int,
+    largest_drop: float,
+) -> Generator[Batch, np.ndarray, DirectionSet]:
+    """Powell's test on the cycle's overall step ``length * d``; line search and swap if accepted."""
+    lo, hi = space.segment(best.u, d)
+    if hi < length:
+        return directions  # the extrapolated point is infeasible: keep the set
+    fn = best.value
+    values = yield Batch(points=space.to_user(best.u + length * d)[None, :], purpose="extrapolate")
+    fe = float(values[0])
+    if not powell_accepts(f0, fn, fe, largest_drop):
+        if fe < best.value:
+            best.u, best.value = best.u + length * d, fe
+        return directions
+    known = {-length: f0, 0.0: fn, length: fe}
+    result = yield from _line(space, settings, best, d, length, math.nan, known=known)
+    return replaced(directions, largest, d, result.curvature, _next_step(result, settings))
+
+
+def _line(
+    space: Space,
+    settings: Settings,
+    best: _Tracker,
+    d: np.ndarray,
+    step: float,
+    curvature: float,
+    known: dict[float, float] | None = None,
+) -> Generator[Batch, np.ndarray, LineResult]:
+    """Line search from the current point along ``d``; moves ``best`` to its minimum."""
+    base = best.u
+    lo, hi = space.segment(base, d)
+    search = line_search(
+        known if known is not None else {0.0: best.value},
+        lo,
+        hi,
+        step=step,
+        curvature=curvature,
+        tolerance=settings.line_tolerance,
+        limit=settings.line_limit,
+    )
+    try:
+        ts = next(search)
+        while True:
+            values = yield Batch(points=space.to_user(base + ts[:, None] * d), purpose="line")
+            for t, value in zip(ts, values):
+                if value < best.value:
+                    best.u, best.value = base + t * d, float(value)
+            ts = search.send(values)
+    except StopIteration as stop:
+        result: LineResult = stop.value
+    if result.value <= best.value:
+        best.u, best.value = base + result.point * d, result.value
+    return result
+
+
+def _next_step(result: LineResult, settings: Settings) -> float:
+    """Probe length for the next search along the same direction: the last move, not too small."""
+    return max(abs(result.point), 100.0 * settings.line_tolerance)
+
+
+def _outcome(
+    best: _Tracker, stop: Stop, cycles: int, directions: DirectionSet, reason: str
+) -> Outcome:
+    return Outcome(
+        point=best.u.copy(),
+        value=best.value,
+        stop=stop,
+        cycles=cycles,
+        directions=directions.vectors.copy(),
+        curvatures=directions.curvatures.copy(),
+        reason=reason,
+    )
