@@ -43,7 +43,8 @@ class Evaluation:
     purpose: str = ""
     started: float = 0.0
     seconds: float = 0.0
-    search: int = 0
+    search: int = 0  # which search of a multi-start run asked for it
+    sequence: int = 0  # its place among that search's evaluations
 
 
 @dataclass(slots=True, kw_only=True)
