@@ -44,6 +44,7 @@ import numpy as np
 
 GOLDEN = 0.5 * (3.0 - math.sqrt(5.0))  # 0.381966..., the golden-section fraction (Kiefer 1953)
 EXPAND = 0.5 * (1.0 + math.sqrt(5.0))  # 1.618..., growth of a plain bracketing step
+EPSILON = float(np.finfo(float).eps)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -102,12 +103,14 @@ def line_search(
     growth: float = 100.0,
     limit: int = 60,
     exact: bool = False,
+    parabolic: bool = True,
 ) -> LineSearch:
     """Search ``[lower, upper]`` for a minimum, as a generator (see the module docstring).
 
     ``known`` maps ``t`` to already-known values (the base point, usually); when it is empty,
     ``start`` is evaluated first.  ``tolerance + relative * |t|`` is the resolution in ``t``.
-    ``limit`` caps the evaluations this line search spends.
+    ``limit`` caps the evaluations this line search spends.  ``parabolic=False`` turns every
+    parabolic step into a golden-section one (an ablation for the benchmarks, not for users).
     """
     points = {float(t): float(v) for t, v in known.items()}
     spent = 0
@@ -130,7 +133,7 @@ def line_search(
         values = yield np.array([t1])
         f1 = points[t1] = float(values[0])
         spent += 1
-        if curvature > 0.0 and math.isfinite(f1) and math.isfinite(f0):
+        if parabolic and curvature > 0.0 and math.isfinite(f1) and math.isfinite(f0):
             vertex = 0.5 * (t0 + t1) - (f1 - f0) / (t1 - t0) / curvature
             reach = growth * abs(t1 - t0)
             t2 = min(max(vertex, lower, t0 - reach), upper, t0 + reach)
@@ -145,27 +148,31 @@ def line_search(
         ts = sorted(points)
         fs = [points[t] for t in ts]
         i = min(range(len(ts)), key=fs.__getitem__)
-        x, fx = ts[i], fs[i]
+        x = ts[i]
         tx = tol(x)
-        vertex, c = _model(points, x)
+        vertex, c = _model(points, x) if parabolic else (math.nan, math.nan)
         if not exact and c > 0.0 and abs(vertex - x) <= tx:
             break
         left = ts[i - 1] if i > 0 else None
         right = ts[i + 1] if i + 1 < len(ts) else None
         at_lower, at_upper = x - lower <= tx, upper - x <= tx
         if right is None and not at_upper:
-            u = _extend(ts, fs, i, +1, upper, growth)
+            u = _extend(ts, fs, i, +1, upper, growth, parabolic)
         elif left is None and not at_lower:
-            u = _extend(ts, fs, i, -1, lower, growth)
+            u = _extend(ts, fs, i, -1, lower, growth, parabolic)
         else:
             a = x if left is None else left
             b = x if right is None else right
             if _rises_inward(x, vertex, c, a, b, tx):
                 break
-            m = 0.5 * (a + b)
-            if abs(x - m) <= 2.0 * tx - 0.5 * (b - a):
+            if _indistinct(points, a, x, b):
                 break
-            u, last, before_last = _brent_step(points, x, a, b, tx, last, before_last)
+            m = 0.5 * (a + b)
+            if abs(x - m) <= 2.0 * tx - 0.5 * (b - a) or (not parabolic and b - a <= 4.0 * tx):
+                break
+            u, last, before_last = _brent_step(
+                points, x, a, b, tx, last, before_last, parabolic
+            )
         if not fresh(u):
             break
         values = yield np.array([u])
@@ -193,13 +200,15 @@ def _model(points: dict[float, float], x: float) -> tuple[float, float]:
     return parabola([tx, tw, tv], [fx, fw, fv])
 
 
-def _extend(ts: list[float], fs: list[float], i: int, sign: int, end: float, growth: float) -> float:
+def _extend(
+    ts: list[float], fs: list[float], i: int, sign: int, end: float, growth: float, parabolic: bool
+) -> float:
     """Next bracketing point beyond the outermost best point ``ts[i]``, towards ``end``."""
     x = ts[i]
     back = ts[i - sign]
     stride = abs(x - back)
     guess = x + sign * EXPAND * stride
-    if 0 <= i - 2 * sign < len(ts):
+    if parabolic and 0 <= i - 2 * sign < len(ts):
         far = ts[i - 2 * sign]
         vertex, c = parabola([x, back, far], [fs[i], fs[i - sign], fs[i - 2 * sign]])
         if c > 0.0 and sign * (vertex - x) > 0.0:
@@ -207,6 +216,15 @@ def _extend(ts: list[float], fs: list[float], i: int, sign: int, end: float, gro
     reach = x + sign * growth * stride
     guess = min(guess, reach) if sign > 0 else max(guess, reach)
     return min(guess, end) if sign > 0 else max(guess, end)
+
+
+def _indistinct(points: dict[float, float], a: float, x: float, b: float) -> bool:
+    """True when the bracket's values differ from the best by rounding only: no information is
+    left to refine with (the resolution limit of Brent 1973, ch. 5, sec. 5.4)."""
+    fx = points[x]
+    floor = 16.0 * EPSILON * abs(fx) + 1e-300
+    sides = [points[t] for t in (a, b) if t != x]
+    return bool(sides) and all(abs(f - fx) <= floor for f in sides)
 
 
 def _rises_inward(x: float, vertex: float, c: float, a: float, b: float, tol: float) -> bool:
@@ -220,14 +238,21 @@ def _rises_inward(x: float, vertex: float, c: float, a: float, b: float, tol: fl
 
 
 def _brent_step(
-    points: dict[float, float], x: float, a: float, b: float, tol: float, last: float, before: float
+    points: dict[float, float],
+    x: float,
+    a: float,
+    b: float,
+    tol: float,
+    last: float,
+    before: float,
+    parabolic: bool = True,
 ) -> tuple[float, float, float]:
     """One step of Brent's (1973, ch. 5) safeguarded iteration inside ``[a, b]``.
 
     Returns the new point and the updated last and before-last step lengths.
     """
     m = 0.5 * (a + b)
-    vertex, c = _model(points, x)
+    vertex, c = _model(points, x) if parabolic else (math.nan, math.nan)
     if abs(before) > tol and c > 0.0 and math.isfinite(vertex):
         step = vertex - x
         if abs(step) < 0.5 * abs(before) and a < vertex < b:

@@ -7,6 +7,7 @@ from collections.abc import Callable, Generator, Sequence
 
 import numpy as np
 
+from .directions import DirectionSet, hessian_estimate
 from .driver import Driver, Objective
 from .errors import ObjectiveError, ProblemError
 from .linesearch import LineResult, line_search
@@ -14,7 +15,6 @@ from .records import Batch, Curvature, Halt, Outcome, Stop, Verdict
 from .search import Settings, powell
 from .solution import Solution
 from .space import Space, build_space
-from .directions import DirectionSet, hessian_estimate
 
 
 def default_budget(n: int) -> int:
@@ -192,7 +192,8 @@ def line_minimum(
     """Return the minimum of a function of one variable on ``[lower, upper]``.
 
     Bracketing from ``start`` (default: the golden-section point of the interval), then Brent's
-    safeguarded successive parabolic interpolation to ``tolerance * (|t| + (upper - lower) / 1000)``
+    safeguarded successive parabolic interpolation to ``tolerance * (|t| + (upper - lower) / 1000)``,
+    with ``tolerance`` no finer than the square root of the machine precision (Brent 1973, ch. 5)
     (`directional.linesearch`).  A failed evaluation counts as ``+inf``.
 
     >>> r = line_minimum(lambda t: (t - 2.0) ** 2 + 1.0, 0.0, 5.0)
@@ -219,14 +220,15 @@ def line_minimum(
         raise ProblemError(f"tolerance must lie in (0, 1), got {tolerance!r}")
     if isinstance(budget, bool) or not isinstance(budget, int) or budget < 3:
         raise ProblemError(f"budget must be a whole number of at least 3, got {budget!r}")
+    relative = max(float(tolerance), math.sqrt(np.finfo(float).eps))
     driver = Driver(objective=lambda x: f(float(x[0])), budget=budget)
     search = line_search(
         {},
         lower,
         upper,
         step=0.1 * (upper - lower),
-        tolerance=1e-3 * tolerance * (upper - lower),
-        relative=tolerance,
+        tolerance=1e-3 * relative * (upper - lower),
+        relative=relative,
         start=float(start),
         limit=budget,
         exact=True,

@@ -53,6 +53,10 @@ class Settings:
     point_tolerance: float = 1e-6
     value_tolerance: float = 1e-10
     line_limit: int = 40
+    # Ablations, for the benchmarks only: each switches off one idea of the method.
+    parabolic: bool = True  # False: golden-section line searches
+    replace_directions: bool = True  # False: keep the principal axes (no conjugate directions)
+    reuse_curvature: bool = True  # False: every line search starts without a known curvature
 
     @property
     def line_tolerance(self) -> float:
@@ -101,13 +105,14 @@ def _cycle(
     largest, largest_drop = 0, 0.0
     for i, d in enumerate(directions.vectors):
         before = best.value
-        result = yield from _line(space, settings, best, d, directions.steps[i], directions.curvatures[i])
+        known_curvature = directions.curvatures[i] if settings.reuse_curvature else math.nan
+        result = yield from _line(space, settings, best, d, directions.steps[i], known_curvature)
         directions = directions.measured(i, result.curvature, _next_step(result, settings))
         if before - best.value > largest_drop:
             largest, largest_drop = i, before - best.value
     overall = best.u - u0
     length = float(np.linalg.norm(overall))
-    if length > settings.line_tolerance:
+    if settings.replace_directions and length > settings.line_tolerance:
         directions = yield from _replace(
             space, settings, best, directions, overall / length, length, f0, largest, largest_drop
         )
@@ -164,6 +169,7 @@ def _line(
         curvature=curvature,
         tolerance=settings.line_tolerance,
         limit=settings.line_limit,
+        parabolic=settings.parabolic,
     )
     try:
         ts = next(search)

@@ -1,0 +1,118 @@
+"""The line search on its own: outside checks are analytic minima and Jarratt's (1967) order."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+import directional as dl
+from directional.linesearch import line_search, parabola
+
+
+def drive(f, search):
+    """Run a line-search generator against ``f`` with no driver at all (a fake partner)."""
+    seen = []
+    try:
+        ts = next(search)
+        while True:
+            seen.extend(ts.tolist())
+            ts = search.send(np.array([f(t) for t in ts]))
+    except StopIteration as done:
+        return done.value, seen
+
+
+def test_parabola_vertex_and_curvature_analytic():
+    # (t - 2)^2 + 1 through t = 0, 1, 3: vertex 2, second derivative 2 (analytic).
+    vertex, curvature = parabola([0.0, 1.0, 3.0], [5.0, 2.0, 2.0])
+    assert vertex == pytest.approx(2.0)
+    assert curvature == pytest.approx(2.0)
+
+
+@pytest.mark.parametrize(
+    "f, lower, upper, minimum",
+    [
+        (lambda t: math.exp(t) - 2.0 * t, -1.0, 3.0, math.log(2.0)),  # analytic: e^t = 2
+        (lambda t: -math.cos(t - 0.7), -2.0, 3.0, 0.7),  # analytic
+        (lambda t: t**4 - 2.0 * t**2, 0.2, 3.0, 1.0),  # analytic: 4t^3 = 4t
+        (lambda t: abs(t - 0.3) ** 1.5, -1.0, 1.0, 0.3),  # analytic, not twice differentiable
+    ],
+)
+def test_line_minimum_reaches_analytic_minimum(f, lower, upper, minimum):
+    result = dl.line_minimum(f, lower, upper, tolerance=1e-8)
+    assert result.point == pytest.approx(minimum, abs=1e-6)
+    assert result.bracket[0] <= result.point <= result.bracket[1]
+
+
+def test_minimum_at_the_end_of_the_segment_is_accepted():
+    # f(t) = t falls towards the lower end: the minimum of [-1, 5] is -1 (analytic).
+    result = dl.line_minimum(lambda t: t, -1.0, 5.0)
+    assert result.point == -1.0
+    assert result.evaluations <= 6
+
+
+def test_straddled_maximum_still_gives_a_minimum():
+    # f = -t^2 + t^4/10 has a maximum at 0 and minima at ±sqrt(5) (analytic).  Start on the
+    # maximum, so the first parabola opens downward: the safeguards must not step to it.
+    result = dl.line_minimum(lambda t: -(t**2) + 0.1 * t**4, -4.0, 4.0, start=0.0)
+    assert abs(result.point) == pytest.approx(math.sqrt(5.0), abs=1e-6)
+    assert result.value == pytest.approx(-2.5, abs=1e-10)
+
+
+def test_order_of_convergence_is_jarratts():
+    # Jarratt (1967): successive parabolic interpolation converges with order 1.3247, the real
+    # root of t^3 = t + 1.  Measured over the asymptotic phase of several smooth functions.
+    cases = [
+        (lambda t: math.exp(t) - 2.0 * t, -1.0, 3.0, 2.0, math.log(2.0)),
+        (lambda t: math.cosh(t - 0.4) + 0.1 * (t - 0.4) ** 3, -2.0, 2.0, 1.5, 0.4),
+        (lambda t: t * math.log(t), 0.05, 2.0, 1.9, math.exp(-1.0)),
+        (lambda t: (t - 1.0) ** 2 + 0.5 * (t - 1.0) ** 3 + (t - 1.0) ** 4, -1.0, 3.0, 2.5, 1.0),
+    ]
+    orders = []
+    for f, lower, upper, start, minimum in cases:
+        seen = []
+        dl.line_minimum(lambda t, f=f, seen=seen: seen.append(t) or f(t), lower, upper, start=start)
+        errors = [abs(t - minimum) for t in seen]
+        for e0, e1, e2 in zip(errors, errors[1:], errors[2:]):
+            if 1e-7 < e2 < e1 < e0 < 1e-1:
+                orders.append(math.log(e2 / e1) / math.log(e1 / e0))
+    assert len(orders) >= 4
+    assert float(np.median(orders)) == pytest.approx(1.3247, abs=0.15)
+
+
+def test_known_curvature_makes_a_quadratic_cost_two_evaluations():
+    # On a quadratic with known second derivative 4 the parabola through the base point and one
+    # probe is the function itself (analytic), so the second point is the minimum.
+    f = lambda t: 2.0 * (t - 3.0) ** 2  # noqa: E731
+    result, seen = drive(
+        f, line_search({0.0: f(0.0)}, -10.0, 10.0, step=0.1, curvature=4.0, tolerance=1e-9)
+    )
+    assert len(seen) == 2
+    assert result.point == pytest.approx(3.0, abs=1e-12)
+    assert result.curvature == pytest.approx(4.0, rel=1e-8)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    lower=st.floats(-50, 0),
+    width=st.floats(1e-3, 100),
+    centre=st.floats(-100, 100),
+    power=st.sampled_from([2, 4]),
+    start_fraction=st.floats(0, 1),
+)
+def test_never_evaluates_outside_the_segment(lower, width, centre, power, start_fraction):
+    upper = lower + width
+    start = lower + start_fraction * width
+    seen = []
+
+    def f(t):
+        seen.append(t)
+        return (t - centre) ** power
+
+    result = dl.line_minimum(f, lower, upper, start=start)
+    assert all(lower <= t <= upper for t in seen)
+    assert len(seen) == len(set(seen))  # never the same point twice
+    assert result.value == min((t - centre) ** power for t in seen)
