@@ -169,6 +169,8 @@ def _bound_pairs(bounds: object, n: int, names: Sequence[str]) -> list[tuple[flo
         try:
             lo, hi = row
         except (TypeError, ValueError):
-            raise ProblemError(f"parameter {name!r}: bounds must be a (lower, upper) pair, got {row!r}") from None
+            raise ProblemError(
+                f"parameter {name!r}: bounds must be a (lower, upper) pair, got {row!r}"
+            ) from None
         pairs.append((-np.inf if lo is None else lo, np.inf if hi is None else hi))
     return pairs
