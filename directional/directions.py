@@ -16,7 +16,7 @@ References
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -38,7 +38,7 @@ class DirectionSet:
         if np.isfinite(curvature) and curvature > 0.0:
             curvatures[index] = curvature
         steps[index] = step
-        return replace(self, curvatures=curvatures, steps=steps)
+        return DirectionSet(vectors=self.vectors, curvatures=curvatures, steps=steps)
 
 
 def principal_axes(n: int, step: float) -> DirectionSet:
@@ -83,6 +83,26 @@ def replaced(
 def degenerate(directions: DirectionSet) -> bool:
     """True when the directions are close to linearly dependent (Brent 1973 ch. 7)."""
     return bool(np.linalg.cond(directions.vectors) > DEGENERATE)
+
+
+def principal_axes_of_estimate(directions: DirectionSet) -> DirectionSet | None:
+    """The eigenvectors of the free Hessian estimate, as a new orthogonal set (Brent 1973, ch. 7).
+
+    When the set is conjugate the eigenvectors are both orthogonal and conjugate, and their
+    eigenvalues are the curvatures along them, so nothing learned is lost.  Directions of
+    non-positive estimated curvature get an unknown curvature.  None while a curvature is unknown.
+    """
+    h = hessian_estimate(directions)
+    if h is None:
+        return None
+    eigenvalues, eigenvectors = np.linalg.eigh(h)
+    curvatures = np.where(eigenvalues > 0.0, eigenvalues, np.nan)
+    step = float(np.median(directions.steps))
+    return DirectionSet(
+        vectors=eigenvectors.T.copy(),
+        curvatures=curvatures,
+        steps=np.full(len(curvatures), step),
+    )
 
 
 def hessian_estimate(directions: DirectionSet) -> np.ndarray | None:

@@ -11,8 +11,9 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   evaluated.  If Powell's (1964) test accepts, the overall step becomes a new direction: it is
   line-searched (the three points on it are already known) and replaces the direction of largest
   decrease, which keeps the set from collapsing (Zangwill 1967).
-- When the set nevertheless becomes nearly dependent it is reset to the principal axes (Brent
-  1973, ch. 7).
+- When the set nevertheless becomes nearly dependent it is reset to principal axes (Brent 1973,
+  ch. 7): the eigenvectors of the free Hessian estimate when every curvature is known, else the
+  coordinate axes.
 - The search stops when, on two consecutive cycles, the point moved less than ``point_tolerance``
   (scaled, infinity norm) and the value fell by less than ``value_tolerance * max(1, |f|)``.
   The driver ends it early by throwing `records.Halt` (budget, time, interrupt); it then returns
@@ -35,6 +36,7 @@ from .directions import (
     degenerate,
     powell_accepts,
     principal_axes,
+    principal_axes_of_estimate,
     replaced,
 )
 from .linesearch import LineResult, line_search
@@ -117,7 +119,7 @@ def _cycle(
             space, settings, best, directions, overall / length, length, f0, largest, largest_drop
         )
     if degenerate(directions):
-        directions = principal_axes(space.size, FIRST_STEP)
+        directions = principal_axes_of_estimate(directions) or principal_axes(space.size, FIRST_STEP)
     moved = float(np.max(np.abs(best.u - u0)))
     return directions, moved, f0 - best.value
 

@@ -44,9 +44,10 @@ class Space:
     def to_user(self, u: np.ndarray) -> np.ndarray:
         """Map scaled points (shape (..., n)) to user coordinates, clipped to the bounds."""
         u = np.asarray(u, dtype=float)
-        y = self.origin + self.scale * u
-        x = np.where(self.log, np.exp(np.where(self.log, y, 0.0)), y)
-        x = np.clip(x, self.lower, self.upper)
+        x = self.origin + self.scale * u
+        if self.log.any():
+            x = np.where(self.log, np.exp(np.where(self.log, x, 0.0)), x)
+        x = np.minimum(np.maximum(x, self.lower), self.upper)
         return np.where(u == 0.0, self.start, x)
 
     def to_scaled(self, x: np.ndarray) -> np.ndarray:
