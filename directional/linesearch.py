@@ -147,7 +147,7 @@ def line_search(
     while spent < limit:
         ts = sorted(points)
         fs = [points[t] for t in ts]
-        i = min(range(len(ts)), key=fs.__getitem__)
+        i = _best(ts, fs)
         x = ts[i]
         tx = tol(x)
         vertex, c = _model(points, x) if parabolic else (math.nan, math.nan)
@@ -179,6 +179,12 @@ def line_search(
         points[u] = float(values[0])
         spent += 1
     return _result(points, None, spent)
+
+
+def _best(ts: list[float], fs: list[float]) -> int:
+    """Index of the lowest value; among equal values the point nearest the base ``t = 0``, so that
+    a flat stretch is never mistaken for a descent."""
+    return min(range(len(ts)), key=lambda k: (fs[k], abs(ts[k])))
 
 
 def _probe(t0: float, lower: float, upper: float, step: float, tol: float) -> float | None:
@@ -271,7 +277,7 @@ def _brent_step(
 def _result(points: dict[float, float], x: float | None, spent: int) -> LineResult:
     ts = sorted(points)
     fs = [points[t] for t in ts]
-    i = ts.index(x) if x is not None else min(range(len(ts)), key=fs.__getitem__)
+    i = ts.index(x) if x is not None else _best(ts, fs)
     _, c = _model(points, ts[i])
     lo = ts[i - 1] if i > 0 else ts[i]
     hi = ts[i + 1] if i + 1 < len(ts) else ts[i]

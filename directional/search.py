@@ -46,6 +46,7 @@ from .space import Space
 Search = Generator[Batch, np.ndarray, Outcome]
 
 FIRST_STEP = 0.1  # first probe along an axis, in scaled units (a tenth of the problem's size)
+FARTHEST = 1e10  # no line search goes farther, in scaled units: a descent to infinity stops there
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -163,6 +164,7 @@ def _line(
     """Line search from the current point along ``d``; moves ``best`` to its minimum."""
     base = best.u
     lo, hi = space.segment(base, d)
+    lo, hi = max(lo, -FARTHEST), min(hi, FARTHEST)
     search = line_search(
         known if known is not None else {0.0: best.value},
         lo,
