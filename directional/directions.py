@@ -61,9 +61,11 @@ def powell_accepts(f0: float, fn: float, fe: float, largest_drop: float) -> bool
     """
     if not fe < f0:
         return False
-    lhs = 2.0 * (f0 - 2.0 * fn + fe) * (f0 - fn - largest_drop) ** 2
-    rhs = largest_drop * (f0 - fe) ** 2
-    return bool(lhs < rhs)
+    # Both sides are cubic in value differences: scale them to order one so that nothing
+    # overflows for objectives of size 1e300.
+    scale = max(f0 - fe, f0 - fn, largest_drop)
+    a, b, c = (f0 - 2.0 * fn + fe) / scale, (f0 - fn - largest_drop) / scale, (f0 - fe) / scale
+    return bool(2.0 * a * b * b < (largest_drop / scale) * c * c)
 
 
 def replaced(

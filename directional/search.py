@@ -68,6 +68,10 @@ class Settings:
         return 0.1 * self.point_tolerance
 
 
+class _Endless(Exception):
+    """A line search ran out to `FARTHEST` and was still going down."""
+
+
 class _Tracker:
     """The current point and value, updated as soon as a better evaluation arrives."""
 
@@ -97,6 +101,12 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             calm = calm + 1 if small else 0
     except Halt as halt:
         return _outcome(best, halt.stop, cycles, directions, halt.reason)
+    except _Endless:
+        reason = (
+            f"the objective kept decreasing out to {FARTHEST:g} scaled units along a line: its "
+            "minimum lies at infinity, or it is unbounded below"
+        )
+        return _outcome(best, Stop.STALLED, cycles, directions, reason)
     return _outcome(best, Stop.CONVERGED, cycles, directions, "")
 
 
@@ -187,6 +197,8 @@ def _line(
         result: LineResult = stop.value
     if result.value <= best.value:
         best.u, best.value = base + result.point * d, result.value
+    if abs(result.point) >= 0.5 * FARTHEST:
+        raise _Endless
     return result
 
 
