@@ -1,0 +1,355 @@
+"""The ``directional`` command: demo, run, resume, show, check, bench.
+
+Exit codes: 0 when the search ended at a verified minimum (verdict ``minimum``; for ``check``: the
+start point evaluated), 1 when it ended without one (stopped early, interrupted, a saddle, a flat
+direction, no check made, the objective failed), 2 for bad input (arguments, problem file,
+journal).  Messages go to standard error; the summary to standard output.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+import time
+from collections.abc import Sequence
+from pathlib import Path
+from typing import TextIO
+
+import numpy as np
+
+from .driver import call
+from .errors import JournalError, ObjectiveError, ProblemError
+from .problemfile import Problem
+from .records import Stop, Verdict
+from .solution import CAUTION, Solution
+
+OK, UNVERIFIED, BAD_INPUT = 0, 1, 2
+EXTRA = 500  # report-only evaluations the plots may spend, by default
+
+_CODES = """\
+exit codes: 0 a verified minimum, 1 the search ended without one (or was interrupted),
+            2 bad input (arguments, problem file, journal)"""
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line with ``argv`` (default ``sys.argv[1:]``); return the exit code."""
+    parser = _parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return BAD_INPUT
+    try:
+        return args.handler(args)
+    except (ProblemError, JournalError) as error:
+        print(f"directional: error: {error}", file=sys.stderr)
+        return BAD_INPUT
+    except ObjectiveError as error:
+        print(f"directional: the objective failed: {error}", file=sys.stderr)
+        return UNVERIFIED
+    except KeyboardInterrupt:
+        print("directional: interrupted", file=sys.stderr)
+        return UNVERIFIED
+
+
+# ----------------------------------------------------------------------------- the parser
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="directional",
+        description="Minimize the output of a simulation without derivatives, keep every "
+        "evaluation in a journal, and say whether the answer is a true minimum.",
+        epilog=_CODES,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument("--version", action="version", version=f"%(prog)s {_version()}")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    def command(name: str, summary: str, description: str) -> argparse.ArgumentParser:
+        sub = commands.add_parser(
+            name, help=summary, description=description, epilog=_CODES,
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
+        return sub
+
+    demo = command(
+        "demo", "run the bundled scenario end to end",
+        "Calibrate a batch-bioreactor model (Monod growth) to an invented, noisy data set and "
+        "write the problem file, journal, summary, JSON and plots into ./directional-demo/.",
+    )
+    demo.add_argument("--folder", default="directional-demo", help="where to write (default: %(default)s)")
+    demo.add_argument("--quiet", action="store_true", help="no progress bar")
+    demo.set_defaults(handler=_demo)
+
+    run = command(
+        "run", "run the search a problem file describes",
+        "Run one search (or many starts) on PROBLEM.toml, keeping its journal; print the summary.",
+    )
+    run.add_argument("problem", metavar="PROBLEM.toml", help="the problem file")
+    run.add_argument("--budget", type=_positive, metavar="N", help="most evaluations (overrides the file)")
+    run.add_argument("--starts", type=_positive, metavar="K",
+                     help="searches from K starts (overrides the file)")
+    run.add_argument("--workers", type=_positive, metavar="W", help="processes for many starts")
+    where = run.add_mutually_exclusive_group()
+    where.add_argument("--journal", metavar="FILE", help="journal file (overrides the file's)")
+    where.add_argument("--no-journal", action="store_true", help="keep no journal")
+    _outputs(run)
+    run.set_defaults(handler=_run)
+
+    resume = command(
+        "resume", "finish an interrupted run from its journal",
+        "Continue the run kept in JOURNAL: stored evaluations are replayed, none is repeated.",
+    )
+    resume.add_argument("journal", metavar="JOURNAL.sqlite", help="the journal of the run")
+    resume.add_argument("--problem", metavar="FILE", help="the problem file, if it has moved")
+    resume.add_argument("--budget", type=_positive, metavar="N",
+                        help="most evaluations in all, the stored ones included")
+    _outputs(resume)
+    resume.set_defaults(handler=_resume)
+
+    show = command(
+        "show", "summary and plots from a journal",
+        "Print the summary of the run kept in JOURNAL, as far as it went; evaluates nothing "
+        "(plots may, see --plot-evaluations).",
+    )
+    show.add_argument("journal", metavar="JOURNAL.sqlite", help="the journal of the run")
+    show.add_argument("--problem", metavar="FILE", help="the problem file, if it has moved")
+    _outputs(show, progress=False)
+    show.set_defaults(handler=_show)
+
+    check = command(
+        "check", "validate a problem file and evaluate its start once",
+        "Read PROBLEM.toml strictly (unknown keys, types, placeholders) and evaluate the start "
+        "point once.",
+    )
+    check.add_argument("problem", metavar="PROBLEM.toml", help="the problem file")
+    check.set_defaults(handler=_check)
+
+    bench = command(
+        "bench", "run the standard test problems",
+        "Run the benchmarks on the standard test problems and write their tables.",
+    )
+    bench.add_argument("--quick", action="store_true", help="a short smoke run")
+    bench.add_argument("rest", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
+    bench.set_defaults(handler=_bench)
+    return parser
+
+
+def _outputs(sub: argparse.ArgumentParser, progress: bool = True) -> None:
+    sub.add_argument("--json", metavar="OUT", help="write the solution as JSON to OUT")
+    sub.add_argument("--plots", metavar="DIR", help="write PNG plots into DIR")
+    sub.add_argument(
+        "--plot-evaluations", type=_count, default=EXTRA, metavar="N",
+        help="most report-only evaluations for maps and profiles, not journaled "
+        "(default: %(default)s; 0: none)",
+    )
+    if progress:
+        sub.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def _positive(text: str) -> int:
+    value = _count(text)
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, got {text!r}")
+    return value
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"must be a whole number, got {text!r}") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"must be >= 0, got {text!r}")
+    return value
+
+
+def _version() -> str:
+    from . import __version__
+
+    return __version__
+
+
+# ----------------------------------------------------------------------------- the commands
+
+
+def load_problem(path: str | Path) -> Problem:
+    """Read a problem file (a ProblemError names the file, line and key)."""
+    return Problem.from_file(path)
+
+
+def _demo(args: argparse.Namespace) -> int:
+    from .demo import run
+
+    return run(args.folder, quiet=args.quiet)
+
+
+def _run(args: argparse.Namespace) -> int:
+    import dataclasses
+
+    from .runs import solve
+
+    problem = load_problem(args.problem)
+    search = problem.search
+    if args.starts is not None or args.workers is not None:
+        search = dataclasses.replace(
+            search,
+            starts=search.starts if args.starts is None else args.starts,
+            workers=search.workers if args.workers is None else args.workers,
+        )
+        problem = dataclasses.replace(problem, search=search)
+    journal: Path | bool | None = True
+    if args.no_journal:
+        journal = None
+    elif args.journal:
+        journal = Path(args.journal).absolute()
+    sol = solve(problem, journal=journal, budget=args.budget, quiet=args.quiet)
+    used = problem.journal if journal is True else journal
+    return finish(sol, problem, json_path=args.json, plots=args.plots, journal=used,
+                  extra=args.plot_evaluations)
+
+
+def _resume(args: argparse.Namespace) -> int:
+    from .runs import problem_of_journal, resume
+
+    problem = problem_of_journal(args.journal, args.problem)
+    sol = resume(args.journal, problem, budget=args.budget, quiet=args.quiet)
+    return finish(sol, problem, json_path=args.json, plots=args.plots,
+                  journal=Path(args.journal), extra=args.plot_evaluations)
+
+
+def _show(args: argparse.Namespace) -> int:
+    from .runs import PROBLEM_KEY, replay
+
+    sol, contents = replay(args.journal)
+    problem = None
+    noted = args.problem or contents.header.info.get(PROBLEM_KEY)
+    if noted:
+        try:
+            problem = load_problem(noted)
+        except ProblemError as error:
+            print(f"directional: note: {error}; plots without report-only evaluations",
+                  file=sys.stderr)
+    parameters = contents.header.parameters
+    return finish(sol, problem, json_path=args.json, plots=args.plots, journal=Path(args.journal),
+                  extra=args.plot_evaluations, parameters=parameters)
+
+
+def _check(args: argparse.Namespace) -> int:
+    problem = load_problem(args.problem)
+    objective = problem.make_objective()
+    start = np.array([p.start for p in problem.parameters])
+    print(f"{args.problem}: the problem file is valid")
+    print(f"  title: {problem.title or '(none)'}")
+    print(f"  parameters: {', '.join(problem.names)}")
+    spec = problem.objective
+    what = spec.function if spec.function else " ".join(spec.command or ())
+    print(f"  objective ({spec.kind}): {what}")
+    if problem.journal is not None:
+        print(f"  journal: {problem.journal}")
+    tick = time.perf_counter()
+    if spec.kind == "residuals":
+        value, status, detail, count = _residuals_once(objective, start)
+    else:
+        value, status, detail = call(objective, start)
+        count = None
+    seconds = time.perf_counter() - tick
+    if status != "ok":
+        print(f"  the start point failed ({status}) after {seconds:.3g} s: {detail}")
+        return UNVERIFIED
+    extra = f" from {count} residuals" if count is not None else ""
+    print(f"  value at the start: {value!r}{extra} ({seconds:.3g} s)")
+    return OK
+
+
+def _residuals_once(objective, start: np.ndarray) -> tuple[float, str, str, int | None]:
+    try:
+        r = np.asarray(objective(start.copy()), dtype=float).ravel()
+    except Exception as error:  # the objective's failure is what check reports
+        return math.inf, "failed", f"{type(error).__name__}: {error}", None
+    if r.size == 0 or not np.all(np.isfinite(r)):
+        return math.inf, "failed", f"the residuals are empty or not finite: {r[:10]!r}", None
+    return float(r @ r), "ok", "", int(r.size)
+
+
+def _bench(args: argparse.Namespace) -> int:
+    try:
+        from .benchmarking import main as bench_main
+    except ImportError:
+        print("directional bench: not yet available in this version")
+        return OK
+    rest = list(args.rest or [])
+    if args.quick:
+        rest.insert(0, "--quick")
+    return int(bench_main(rest))
+
+
+# ----------------------------------------------------------------------------- reports
+
+
+def exit_code(sol: Solution) -> int:
+    """0 for a verified minimum, else 1."""
+    return OK if sol.verdict is Verdict.MINIMUM else UNVERIFIED
+
+
+def finish(
+    sol: Solution,
+    problem: Problem | None,
+    *,
+    json_path: str | Path | None = None,
+    plots: str | Path | None = None,
+    summary: str | Path | None = None,
+    journal: Path | None = None,
+    extra: int = EXTRA,
+    parameters: Sequence | None = None,
+    out: TextIO | None = None,
+    show_files: bool = False,
+) -> int:
+    """Print the summary, write the requested files, say where they are; return the exit code."""
+    from . import report
+
+    out = sys.stdout if out is None else out
+    title = problem.title if problem is not None else ""
+    parameters = list(problem.parameters) if problem is not None else parameters
+    print(report.summary_text(sol, title), file=out)
+    if sol.stop is Stop.INTERRUPTED and journal is not None:
+        print(f"\nTo continue: directional resume {journal}", file=out)
+    written: list[Path] = []
+    if journal is not None and show_files:
+        written.append(Path(journal))
+    if summary is not None:
+        written.append(report.write_summary(sol, summary, title=title))
+    if json_path is not None:
+        written.append(report.write_json(sol, json_path, title=title, parameters=parameters))
+    if plots is not None:
+        written += _plots(sol, problem, Path(plots), extra, parameters)
+    if written:
+        print("\nFiles:", file=out)
+        for path in written:
+            print(f"  {path}", file=out)
+    if problem is not None and problem.objective.kind == "residuals":
+        print(f"\n{CAUTION}", file=out)
+    return exit_code(sol)
+
+
+def _plots(
+    sol: Solution, problem: Problem | None, folder: Path, extra: int, parameters: Sequence | None
+) -> list[Path]:
+    from .plots import write_plots
+
+    objective = fit = None
+    kind = "value"
+    if problem is not None:
+        kind = problem.objective.kind
+        if extra > 0:
+            objective = problem.make_objective()
+        fit = problem.make_fit()
+    return write_plots(
+        sol, folder, parameters=parameters, objective=objective, kind=kind, fit=fit,
+        extra=extra, title=problem.title if problem is not None else "",
+    )
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,226 @@
+"""Running a `Problem`: one search, a calibration or many starts, with journal and progress bar.
+
+This is what ``directional run``, ``resume``, ``show`` and ``demo`` share.  A run keeps its
+journal as a `journal.Target` whose header notes the problem file, so that ``directional resume
+JOURNAL`` can rebuild the objective from the journal alone.
+
+``show`` must not evaluate anything.  It replays a *copy* of the journal (SQLite's backup, so a
+journal being written is read consistently) with a budget of exactly the stored evaluations and an
+objective that refuses to run: the search takes every value from the journal and stops where the
+journal ends, which gives the solution as the run had it at that moment.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import io
+import math
+import os
+import sqlite3
+import tempfile
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from . import journal as journals
+from .errors import ObjectiveError, ProblemError
+from .problemfile import Problem
+from .progress import Progress
+from .records import Stop
+from .solution import Solution
+
+PROBLEM_KEY = "problem"  # header note: the absolute path of the problem file
+
+
+def entry_point(problem: Problem) -> Callable[..., Any]:
+    """The library function that runs ``problem``: minimize, calibrate or explore.
+
+    Raises
+    ------
+    ProblemError
+        When the function the problem needs is not in this version of the package.
+    """
+    if problem.search.starts > 1:
+        from .explore import explore
+
+        if problem.objective.kind == "residuals":
+            raise ProblemError(
+                f"{problem.where('search.starts')}: many starts of a residuals objective are not "
+                "supported; use kind = \"value\" with the sum of squares, or starts = 1"
+            )
+        return explore
+    if problem.objective.kind == "residuals":
+        try:
+            from .calibration import calibrate
+        except ImportError:
+            raise ProblemError(
+                f"{problem.where('objective.kind')}: kind = \"residuals\" needs dl.calibrate, "
+                "which this version does not have yet"
+            ) from None
+        return calibrate
+    from .minimization import minimize
+
+    return minimize
+
+
+def solve(
+    problem: Problem,
+    *,
+    journal: Path | None | bool = True,
+    budget: int | None = None,
+    quiet: bool = False,
+    objective: Callable[[np.ndarray], Any] | None = None,
+) -> Solution:
+    """Run ``problem`` and return the solution (for many starts: the best minimum).
+
+    ``journal=True`` uses the problem's own journal path (if any), a path overrides it, None or
+    False keeps none.  ``budget`` overrides the problem's.  The progress bar goes to standard
+    error when it is a terminal and ``quiet`` is false.
+
+    Raises
+    ------
+    ProblemError, ObjectiveError, JournalError
+        As the library function that runs the problem.
+    """
+    run = entry_point(problem)
+    spec = problem.search
+    objective = problem.make_objective() if objective is None else objective
+    path = problem.journal if journal is True else (journal or None)
+    budget = spec.budget if budget is None else budget
+    options: dict[str, Any] = {
+        "point_tolerance": spec.point_tolerance,
+        "value_tolerance": spec.value_tolerance,
+        "time_limit": spec.time_limit,
+        "check": spec.check,
+    }
+    if path is not None:
+        options["journal"] = journals.Target(path, {PROBLEM_KEY: str(problem.source or "")})
+    many = problem.search.starts > 1
+    if many:
+        options.update(starts=spec.starts, seed=spec.seed)
+        if spec.workers > 1:
+            options["workers"] = spec.workers
+        options["budget"] = budget
+        bounds = list(problem.parameters)
+        bar_total = None
+    else:
+        options["budget"] = budget
+        bar_total = budget or 1000 * (len(problem.parameters) + 1)
+    wrapped = objective
+    bar = None
+    if not (many and spec.workers > 1):
+        bar = Progress(objective, budget=bar_total, kind=problem.objective.kind,
+                       enabled=False if quiet else None)
+        wrapped = bar
+    try:
+        if many:
+            result = run(wrapped, bounds, **options)
+            return result.best
+        return run(wrapped, list(problem.parameters), **options)
+    finally:
+        if bar is not None:
+            bar.close()
+
+
+def problem_of_journal(path: str | os.PathLike[str], problem_file: str | Path | None = None) -> Problem:
+    """The problem a journal was written for: ``problem_file``, else the file its header notes.
+
+    Raises
+    ------
+    JournalError
+        When the journal cannot be read.
+    ProblemError
+        When the header notes no problem file (give one) or the file cannot be read.
+    """
+    contents = journals.read(path)
+    if problem_file is None:
+        noted = contents.header.info.get(PROBLEM_KEY, "")
+        if not noted:
+            raise ProblemError(
+                f"journal {str(path)!r} does not say which problem file it belongs to: "
+                "give it with --problem FILE"
+            )
+        problem_file = noted
+    return Problem.from_file(problem_file)
+
+
+def resume(
+    path: str | os.PathLike[str],
+    problem: Problem,
+    *,
+    budget: int | None = None,
+    quiet: bool = False,
+) -> Solution:
+    """Continue the run in the journal at ``path`` with ``problem``'s objective.
+
+    Raises
+    ------
+    JournalError
+        When the journal is not one, is damaged, in use, or the run asks for other points.
+    ProblemError, ObjectiveError
+        As the library function that runs the problem.
+    """
+    contents = journals.read(path)
+    done = sum(1 for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    objective = problem.make_objective()
+    total = budget or contents.header.budget
+    bar = Progress(objective, budget=total, kind=problem.objective.kind,
+                   enabled=False if quiet else None, done=done)
+    try:
+        result = journals.resume(path, bar, budget=budget)
+    finally:
+        bar.close()
+    return getattr(result, "best", result)
+
+
+def replay(path: str | os.PathLike[str]) -> tuple[Solution, journals.Contents]:
+    """The solution held in the journal at ``path``, evaluating nothing (see the module docstring).
+
+    Raises
+    ------
+    JournalError
+        When the journal cannot be read or does not replay.
+    """
+    contents = journals.read(path)
+    stored = sum(1 for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    if stored == 0:
+        raise ObjectiveError(f"journal {str(path)!r} holds no evaluation yet")
+    with tempfile.TemporaryDirectory(prefix="directional-show-") as folder:
+        copy = Path(folder) / "journal.sqlite"
+        _copy_database(Path(path), copy)
+        with contextlib.redirect_stderr(io.StringIO()):
+            result = journals.resume(copy, _refuse, budget=stored)
+    sol = getattr(result, "best", result)
+    last = contents.sessions[-1] if contents.sessions else {}
+    if sol.stop is Stop.BUDGET and last.get("stop") != "budget":
+        how = last.get("stop") or "still running, or killed"
+        sol = dataclasses.replace(
+            sol,
+            stop=Stop.INTERRUPTED,
+            reason=f"the journal ends here (last run: {how}); continue with directional resume",
+        )
+    return sol, contents
+
+
+def _refuse(x: np.ndarray) -> float:
+    raise ObjectiveError("show evaluates nothing")  # never called: the budget ends first
+
+
+def _copy_database(source: Path, target: Path) -> None:
+    uri = source.resolve().as_uri() + "?mode=ro"
+    with contextlib.closing(sqlite3.connect(uri, uri=True)) as src, contextlib.closing(
+        sqlite3.connect(target)
+    ) as dst:
+        src.backup(dst)
+
+
+def value_of(result: Any, kind: str) -> float:
+    """One objective result as a number (the sum of squares for residuals); nan if not one."""
+    if kind == "residuals":
+        r = np.asarray(result, dtype=float).ravel()
+        return float(r @ r)
+    value = float(np.asarray(result, dtype=float).reshape(()))
+    return value if math.isfinite(value) else math.nan
