@@ -5,6 +5,7 @@ runs of somebody else's code: few evaluations, bounds respected, every evaluatio
 """
 
 from .errors import JournalError, ObjectiveError, ProblemError
+from .journal import resume
 from .linesearch import LineResult
 from .minimization import line_minimum, minimize
 from .parameters import Parameter
@@ -25,4 +26,5 @@ __all__ = [
     "Verdict",
     "line_minimum",
     "minimize",
+    "resume",
 ]

@@ -13,19 +13,41 @@ The search is halted by throwing `Halt` into it when the budget of evaluations i
 (BUDGET), the time limit has passed (BUDGET), Ctrl-C arrives (INTERRUPTED) or the last
 ``stall_after`` evaluations all failed (STALLED).  A partial batch is never sent back; the points of
 it that were evaluated still count and still reach the log, so nothing computed is lost.
+
+Every evaluation carries the id of the search that asked for it (``run(..., search=k)``, 0 by
+default) and its ``sequence``, its place among that search's evaluations; several generators run
+one after another under the same id (the search, then the curvature check) continue its sequence.
+
+Replay (resuming a journal).  ``replay`` holds stored evaluations per search id, in sequence order.
+While a search has stored evaluations left, the point it asks for is compared bit for bit with the
+stored one (a difference raises `JournalError`: the journal was written for other settings or by
+another version), and the stored value is sent without calling the objective.  A replayed
+evaluation is logged, cached and counted against the budget like a live one, but not recorded
+again.  The search is deterministic given its values, so it then goes on live from exactly where
+the journal ends.
+
+Ctrl-C.  When the run is in the main thread and SIGINT has Python's default handler, the driver
+installs its own for the duration of `Driver.run`: a Ctrl-C while the objective runs raises
+`KeyboardInterrupt` there as usual (the evaluation is recorded with status ``interrupted`` and no
+value, and is made again on resume); a Ctrl-C at any other moment is noted, and the run halts
+before the next evaluation.  So an interrupt never lands in the middle of the driver's or the
+journal's bookkeeping.
 """
 
 from __future__ import annotations
 
 import math
+import signal
+import threading
 import time
 import traceback
-from collections.abc import Callable, Generator
-from dataclasses import dataclass, field
+from collections.abc import Callable, Generator, Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from types import FrameType
 
 import numpy as np
 
-from .errors import ObjectiveError
+from .errors import JournalError, ObjectiveError
 from .records import Batch, Halt, Outcome, Stop
 
 Objective = Callable[[np.ndarray], object]
@@ -38,7 +60,7 @@ class Evaluation:
     index: int
     point: np.ndarray
     value: float  # +inf when failed
-    status: str  # "ok", "failed", "timed-out"
+    status: str  # "ok", "failed", "timed-out"; "interrupted" (journal only, never in the log)
     detail: str = ""
     purpose: str = ""
     started: float = 0.0
@@ -110,9 +132,11 @@ def _describe(error: BaseException) -> str:
 
 @dataclass(slots=True, kw_only=True)
 class Driver:
-    """Runs one search generator against a plain Python callable (see the module docstring).
+    """Runs search generators against a plain Python callable (see the module docstring).
 
-    ``record`` is called with each new `Evaluation` as soon as it exists (the journal's hook).
+    ``record`` is called with each new `Evaluation` as soon as it exists (the journal's hook);
+    ``replay`` holds the evaluations of a journal being resumed, per search id, in sequence order.
+    ``replayed`` counts the evaluations taken from it.
     """
 
     objective: Objective
@@ -120,32 +144,46 @@ class Driver:
     time_limit: float | None = None
     stall_after: int = 50
     record: Callable[[Evaluation], None] | None = None
+    replay: Mapping[int, Sequence[Evaluation]] = field(default_factory=dict)
     log: Log = field(default_factory=Log)
+    replayed: int = 0
     _cache: dict[bytes, float] = field(default_factory=dict)
+    _sequence: dict[int, int] = field(default_factory=dict)
     _failures_in_a_row: int = 0
     _clock_start: float = field(default_factory=time.monotonic)
+    _interrupts: _Interrupts = field(default_factory=lambda: _Interrupts())
 
     @property
     def spent(self) -> int:
-        """Evaluations spent so far (cache hits excluded)."""
+        """Evaluations spent so far, replayed ones included (cache hits excluded)."""
         return len(self.log.evaluations)
 
-    def run(self, search: Generator[Batch, np.ndarray, Outcome]) -> Outcome:
-        """Drive ``search`` to its end and return its outcome."""
-        batch = next(search)
-        while True:
-            try:
-                values = self._evaluate(batch)
-            except Halt as halt:
-                return _halt(search, halt)
-            except KeyboardInterrupt:
-                return _halt(search, Halt(Stop.INTERRUPTED, "interrupted by the user"))
-            try:
-                batch = search.send(values)
-            except StopIteration as done:
-                return done.value
+    def run(self, generator: Generator[Batch, np.ndarray, Outcome], *, search: int = 0) -> Outcome:
+        """Drive ``generator`` to its end and return its outcome; its evaluations carry ``search``.
 
-    def _evaluate(self, batch: Batch) -> np.ndarray:
+        Raises
+        ------
+        ObjectiveError
+            When the objective returns something that is not a number.
+        JournalError
+            When a replayed search asks for a point other than the stored one, or a row cannot
+            be written.
+        """
+        with self._interrupts:
+            batch = next(generator)
+            while True:
+                try:
+                    values = self._evaluate(batch, search)
+                except Halt as halt:
+                    return _halt(generator, halt)
+                except KeyboardInterrupt:  # only without our handler (not the main thread)
+                    return _halt(generator, Halt(Stop.INTERRUPTED, "interrupted by the user"))
+                try:
+                    batch = generator.send(values)
+                except StopIteration as done:
+                    return done.value
+
+    def _evaluate(self, batch: Batch, search: int) -> np.ndarray:
         values = np.empty(len(batch.points))
         for k, x in enumerate(batch.points):
             key = x.tobytes()
@@ -154,27 +192,75 @@ class Driver:
                 values[k] = self._cache[key]
                 continue
             self._check_limits()
-            values[k] = self._cache[key] = self._one(x, batch.purpose)
+            values[k] = self._cache[key] = self._one(x, batch.purpose, search)
         return values
 
     def _check_limits(self) -> None:
+        if self._interrupts.pending:
+            raise Halt(Stop.INTERRUPTED, "interrupted by the user")
         if self.spent >= self.budget:
             raise Halt(Stop.BUDGET, f"the budget of {self.budget} evaluations is spent")
         if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
             raise Halt(Stop.BUDGET, f"the time limit of {self.time_limit:g} s has passed")
-        if self._failures_in_a_row >= self.stall_after:
-            last = self.log.evaluations[-1]
+
+    def _one(self, x: np.ndarray, purpose: str, search: int) -> float:
+        sequence = self._sequence.get(search, 0)
+        self._sequence[search] = sequence + 1
+        stored = self._stored(search, sequence)
+        if stored is not None:
+            evaluation = _replayed(stored, x, purpose, self.spent)
+            self.replayed += 1
+            self.log.add(evaluation)
+        else:
+            evaluation = self._live(x, purpose, search, sequence)
+            self.log.add(evaluation)
+            if self.record is not None:
+                self.record(evaluation)
+        value = evaluation.value
+        self._failures_in_a_row = 0 if evaluation.status == "ok" else self._failures_in_a_row + 1
+        if value == -math.inf:
+            raise Halt(
+                Stop.STALLED,
+                f"the objective returned -inf at {x.tolist()!r}: it is unbounded below there",
+            )
+        if self._failures_in_a_row >= self.stall_after:  # at once, not at the next request
             raise Halt(
                 Stop.STALLED,
                 f"the last {self._failures_in_a_row} evaluations all failed; last error: "
-                f"{last.detail or last.status}",
+                f"{evaluation.detail or evaluation.status}",
             )
+        return value
 
-    def _one(self, x: np.ndarray, purpose: str) -> float:
+    def _stored(self, search: int, sequence: int) -> Evaluation | None:
+        stored = self.replay.get(search, ())
+        return stored[sequence] if sequence < len(stored) else None
+
+    def _live(self, x: np.ndarray, purpose: str, search: int, sequence: int) -> Evaluation:
         started = time.time()
         tick = time.perf_counter()
-        value, status, detail = call(self.objective, x)
-        evaluation = Evaluation(
+        self._interrupts.inside = True
+        try:
+            value, status, detail = call(self.objective, x)
+        except KeyboardInterrupt:
+            if self.record is not None:
+                self.record(
+                    Evaluation(
+                        index=self.spent,
+                        point=x.copy(),
+                        value=math.inf,
+                        status="interrupted",
+                        detail="interrupted by the user",
+                        purpose=purpose,
+                        started=started,
+                        seconds=time.perf_counter() - tick,
+                        search=search,
+                        sequence=sequence,
+                    )
+                )
+            raise Halt(Stop.INTERRUPTED, "interrupted by the user") from None
+        finally:
+            self._interrupts.inside = False
+        return Evaluation(
             index=self.spent,
             point=x.copy(),
             value=value,
@@ -183,17 +269,58 @@ class Driver:
             purpose=purpose,
             started=started,
             seconds=time.perf_counter() - tick,
+            search=search,
+            sequence=sequence,
         )
-        self.log.add(evaluation)
-        if self.record is not None:
-            self.record(evaluation)
-        self._failures_in_a_row = 0 if status == "ok" else self._failures_in_a_row + 1
-        if value == -math.inf:
-            raise Halt(
-                Stop.STALLED,
-                f"the objective returned -inf at {x.tolist()!r}: it is unbounded below there",
-            )
-        return value
+
+
+def _replayed(stored: Evaluation, x: np.ndarray, purpose: str, index: int) -> Evaluation:
+    """The stored evaluation as the answer to ``x``, after checking that it is for ``x``.
+
+    Raises
+    ------
+    JournalError
+        When the stored point differs from ``x`` in any bit.
+    """
+    if stored.point.tobytes() != x.tobytes():
+        raise JournalError(
+            f"the journal does not match this run at search {stored.search}, evaluation "
+            f"{stored.sequence}: the journal holds the point {stored.point.tolist()!r} but the "
+            f"search asks for {x.tolist()!r}; the journal was written for other settings or by "
+            "another version of directional"
+        )
+    return replace(stored, index=index, point=x.copy(), purpose=purpose or stored.purpose)
+
+
+class _Interrupts:
+    """Ctrl-C during `Driver.run`: raised inside the objective, noted anywhere else."""
+
+    def __init__(self) -> None:
+        self.pending = False  # a Ctrl-C arrived: halt before the next evaluation
+        self.inside = False  # the objective is running: raise KeyboardInterrupt in it
+        self._previous: object = None
+        self._depth = 0
+
+    def __enter__(self) -> _Interrupts:
+        self._depth += 1
+        if (
+            self._depth == 1
+            and threading.current_thread() is threading.main_thread()
+            and signal.getsignal(signal.SIGINT) is signal.default_int_handler
+        ):
+            self._previous = signal.signal(signal.SIGINT, self._handle)
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self._depth -= 1
+        if self._depth == 0 and self._previous is not None:
+            signal.signal(signal.SIGINT, self._previous)  # type: ignore[arg-type]
+            self._previous = None
+
+    def _handle(self, signum: int, frame: FrameType | None) -> None:
+        self.pending = True
+        if self.inside:
+            raise KeyboardInterrupt
 
 
 def _halt(search: Generator[Batch, np.ndarray, Outcome], halt: Halt) -> Outcome:

@@ -10,6 +10,7 @@ import numpy as np
 from .directions import DirectionSet, hessian_estimate
 from .driver import Driver, Objective
 from .errors import ObjectiveError, ProblemError
+from .journal import journal_for, run_identity
 from .linesearch import LineResult, line_search
 from .records import Batch, Curvature, Halt, Outcome, Stop, Verdict
 from .search import Settings, powell
@@ -63,6 +64,11 @@ def minimize(
         ``point_tolerance`` and the value fell by less than ``value_tolerance * max(1, |f|)``.
     time_limit
         Seconds of wall time after which no new evaluation starts.
+    journal
+        Path of an SQLite file that keeps every evaluation as it completes (`directional.journal`).
+        An existing journal of the same problem is resumed, not overwritten: its evaluations are
+        replayed, not repeated (a line on stderr says so); the budget counts them too, and may
+        differ from the first run's.  A journal of another problem raises `JournalError`.
 
     Raises
     ------
@@ -70,6 +76,8 @@ def minimize(
         For a bad start, bounds, names, budget or tolerance, before any evaluation.
     ObjectiveError
         When the start point fails, or the objective returns something that is not a number.
+    JournalError
+        When ``journal`` is not a journal, is damaged, is in use, or belongs to another problem.
     """
     if not callable(objective):
         raise ProblemError(f"objective must be callable, got {objective!r}")
@@ -78,9 +86,15 @@ def minimize(
     budget = _budget(budget, space.size)
     if time_limit is not None and not (isinstance(time_limit, int | float) and time_limit > 0):
         raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
-    driver = Driver(objective=objective, budget=budget, time_limit=time_limit)
-    outcome = driver.run(powell(space, settings))
-    return _solution(space, settings, driver, outcome)
+    identity = run_identity(
+        "minimize", space.parameters, settings,
+        point_tolerance=point_tolerance, value_tolerance=value_tolerance, check=check,
+    )
+    with journal_for(journal, identity, budget=budget) as book:
+        driver = Driver(objective=objective, budget=budget, time_limit=time_limit, **book.hooks())
+        outcome = driver.run(powell(space, settings))
+        book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
+        return _solution(space, settings, driver, outcome)
 
 
 def _settings(point_tolerance: float, value_tolerance: float) -> Settings:
