@@ -1,0 +1,484 @@
+"""`explore`: many searches from a space-filling design of starts, and the distinct minima found.
+
+Calibration objectives often have several local minima; which one a search reaches depends on
+where it starts.  `explore` starts one direction-set search (`search.powell`) from each point of
+a scrambled Sobol design in the bounds (Sobol 1967; scrambling by Owen 1998, as
+`scipy.stats.qmc` does it), plus the user's start when given, runs them all at once on an
+executor (`pool.Runner`), groups the end points into distinct minima and checks each one.
+
+Two end points are the same minimum when their distance in scaled coordinates (each parameter,
+or its logarithm when log-scaled, divided by the width of its bounds) is below ``same_point``
+and their values agree within ``same_value * max(1, |f1|, |f2|)`` (common practice, no source).
+
+References
+----------
+.. [1] I. M. Sobol', "On the distribution of points in a cube and the approximate evaluation of
+   integrals", *USSR Computational Mathematics and Mathematical Physics* 7 (1967) 86-112.
+.. [2] A. B. Owen, "Scrambling Sobol' and Niederreiter-Xing points", *Journal of Complexity* 14
+   (1998) 466-489.
+.. [3] D. M. Himmelblau, *Applied Nonlinear Programming*, McGraw-Hill, 1972 (the four-minimum
+   test function used in the tests).
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.stats import qmc
+
+from .directions import DirectionSet, hessian_estimate
+from .driver import Evaluation, Objective
+from .errors import ProblemError
+from .journal import journal_for, run_identity
+from .minimization import (  # the same checks and records as minimize
+    _active,
+    _budget,
+    _directions_in_search_coordinates,
+    _free_curvature,
+    _settings,
+)
+from .parameters import Parameter
+from .pool import Runner, check_picklable
+from .records import Outcome, Stop, Verdict
+from .search import Settings, powell
+from .solution import Solution
+from .space import Space, build_space, space_from_parameters
+
+SAME_POINT = 1e-3  # scaled distance below which two end points are one minimum
+SAME_VALUE = 1e-6  # relative agreement of their values
+
+
+# ------------------------------------------------------------------------------------- design
+
+
+def design(space: Space, starts: int, seed: object = 0, *, include_start: bool = False) -> np.ndarray:
+    """Return ``starts`` start points in scaled coordinates, filling the bounds.
+
+    A scrambled Sobol sequence (Sobol 1967, Owen 1998) in the box of the scaled coordinates, so
+    that log-scaled parameters are spread evenly in their logarithm.  With ``include_start`` the
+    first point is the space's own start (``u = 0``) and the sequence fills the rest.  The same
+    ``seed`` (None, an int or a `numpy.random.Generator`) gives the same points, and a longer
+    design begins with the points of a shorter one.
+
+    >>> from directional.space import build_space
+    >>> space = build_space([0.5, 0.5], [(0, 1), (0, 1)])
+    >>> design(space, 4, seed=0).shape
+    (4, 2)
+
+    Raises
+    ------
+    ProblemError
+        For ``starts`` below 1, or a parameter without finite bounds (naming it).
+    """
+    if isinstance(starts, bool) or not isinstance(starts, int | np.integer) or starts < 1:
+        raise ProblemError(f"starts must be a whole number of at least 1, got {starts!r}")
+    for name, lo, hi in zip(space.names, space.lower_u, space.upper_u):
+        if not (math.isfinite(lo) and math.isfinite(hi)):
+            raise ProblemError(
+                f"parameter {name!r}: exploring needs finite lower and upper bounds"
+            )
+    drawn = int(starts) - (1 if include_start else 0)
+    points = np.zeros((0, space.size))
+    if drawn > 0:
+        unit = _sobol(space.size, drawn, seed)
+        points = space.lower_u + unit * (space.upper_u - space.lower_u)
+    if include_start:
+        points = np.vstack([np.zeros((1, space.size)), points])
+    return points
+
+
+def _sobol(n: int, count: int, seed: object) -> np.ndarray:
+    """The first ``count`` points of a scrambled Sobol sequence in [0, 1)^n."""
+    rng = np.random.default_rng(seed)  # type: ignore[arg-type]
+    try:
+        engine = qmc.Sobol(d=n, scramble=True, rng=rng)
+    except TypeError:  # scipy before 1.15 calls it seed
+        engine = qmc.Sobol(d=n, scramble=True, seed=rng)
+    return engine.random_base2(max(0, math.ceil(math.log2(count))))[:count]
+
+
+# ---------------------------------------------------------------------------------- clusters
+
+
+def cluster(
+    points: np.ndarray,
+    values: np.ndarray,
+    same_point: float = SAME_POINT,
+    same_value: float = SAME_VALUE,
+) -> tuple[list[int], list[int]]:
+    """Group end points into distinct minima, best first.
+
+    ``points`` are scaled (k, n), ``values`` their objective values (non-finite: a failed search,
+    in no group).  Returns ``(leaders, label)``: the index of each group's best point, best group
+    first, and for each point the number of its group (-1 for a failed search).  A point joins the
+    first (best) group whose leader is within ``same_point`` (Euclidean, scaled) and whose value
+    agrees within ``same_value * max(1, |f1|, |f2|)``.
+
+    >>> cluster(np.array([[0.0], [0.5], [1e-5]]), np.array([1.0, 0.0, 1.0]))
+    ([1, 0], [1, 0, 1])
+    """
+    order = sorted(
+        (i for i in range(len(values)) if math.isfinite(values[i])), key=lambda i: (values[i], i)
+    )
+    leaders: list[int] = []
+    label = [-1] * len(values)
+    for i in order:
+        for g, j in enumerate(leaders):
+            near = float(np.linalg.norm(points[i] - points[j])) < same_point
+            scale = max(1.0, abs(values[i]), abs(values[j]))
+            if near and abs(values[i] - values[j]) <= same_value * scale:
+                label[i] = g
+                break
+        else:
+            label[i] = len(leaders)
+            leaders.append(i)
+    return leaders, label
+
+
+# --------------------------------------------------------------------------------- landscape
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Landscape:
+    """What many searches from many starts found: the distinct minima and who reached which.
+
+    ``minima`` are best first, each a `Solution` (its ``history`` holds the evaluations of the
+    searches that reached it); ``counts[i]`` starts reached ``minima[i]``; ``starts`` holds the
+    start points (user coordinates, one row per search) and ``ends`` where each search ended;
+    ``reached[j]`` is the index of the minimum search ``j`` reached, -1 when its start failed;
+    ``evaluations`` counts every objective call of the run (repeats answered from the cache not
+    counted), ``failures`` the failed ones.
+    """
+
+    minima: tuple[Solution, ...]
+    counts: tuple[int, ...]
+    starts: np.ndarray
+    ends: np.ndarray
+    reached: tuple[int, ...]
+    evaluations: int
+    failures: int
+    names: tuple[str, ...]
+    scales: tuple[str, ...]
+    lower: np.ndarray
+    upper: np.ndarray
+    stops: tuple[Stop, ...] = ()
+    notes: tuple[str, ...] = ()
+    history: tuple[Evaluation, ...] = field(default=(), repr=False)
+
+    @property
+    def best(self) -> Solution:
+        """The best minimum found.
+
+        Raises
+        ------
+        ValueError
+            When every search failed at its start (no minimum).
+        """
+        if not self.minima:
+            raise ValueError("no search got past its start: there is no minimum")
+        return self.minima[0]
+
+    def summary(self) -> str:
+        """A plain-text table of the distinct minima, for people."""
+        return "\n".join(_summary_lines(self))
+
+
+def _summary_lines(land: Landscape) -> list[str]:
+    k = len(land.starts)
+    lines = [
+        f"directional explore: {k} starts reached {len(land.minima)} distinct "
+        f"minim{'um' if len(land.minima) == 1 else 'a'} with {land.evaluations} evaluations"
+        + (f" ({land.failures} failed)" if land.failures else "")
+    ]
+    lost = sum(1 for r in land.reached if r < 0)
+    if lost:
+        lines.append(f"  {lost} start{'s' if lost > 1 else ''} failed at the first evaluation")
+    unfinished = sum(
+        1 for s, r in zip(land.stops, land.reached) if r >= 0 and s is not Stop.CONVERGED
+    )
+    if unfinished:
+        lines.append(
+            f"  {unfinished} search{'es' if unfinished > 1 else ''} stopped before converging "
+            "(budget, time, interrupt or failures): its minimum may not be one"
+        )
+    widths = [max(12, len(n)) for n in land.names]
+    head = "  ".join(f"{n:>{w}}" for n, w in zip(land.names, widths))
+    lines += ["", f"  {'#':>3}  {'value':>14}  {'starts':>6}  {'verdict':<9}  {head}"]
+    for i, (sol, count) in enumerate(zip(land.minima, land.counts)):
+        row = "  ".join(f"{v:>{w}.8g}" for v, w in zip(sol.point, widths))
+        lines.append(
+            f"  {i + 1:>3}  {sol.value:>14.8g}  {count:>6}  {sol.verdict.value:<9}  {row}"
+        )
+    for note in land.notes:
+        lines.append(f"  note: {note}")
+    return lines
+
+
+# ----------------------------------------------------------------------------------- explore
+
+
+def explore(
+    objective: Objective,
+    bounds: object,
+    starts: int = 16,
+    executor: cf.Executor | None = None,
+    workers: int | None = None,
+    seed: object = 0,
+    *,
+    start: object = None,
+    names: Sequence[str] | None = None,
+    include_start: bool | None = None,
+    budget: int | None = None,
+    total_budget: int | None = None,
+    point_tolerance: float = 1e-6,
+    value_tolerance: float = 1e-10,
+    time_limit: float | None = None,
+    journal: object = None,
+    check: bool = True,
+    same_point: float = SAME_POINT,
+    same_value: float = SAME_VALUE,
+) -> Landscape:
+    """Return the distinct minima that searches from ``starts`` start points reach.
+
+    The starts fill the bounds (`design`); each runs the same search as `minimize`, all at once:
+    with no ``executor`` and no ``workers`` one evaluation at a time in this process; with
+    ``workers=W`` on a process pool of W processes (the objective must then be picklable: a
+    function at the top level of a module); with an ``executor`` (any
+    `concurrent.futures.Executor`, e.g. a Dask cluster's ``Client(address).get_executor()``) on
+    that executor as it is, at most ``workers`` evaluations in flight (None: no limit).  The
+    minima are the same whichever way the run is made (`pool`).
+
+    >>> import directional as dl
+    >>> def two_wells(x):
+    ...     return (x[0] ** 2 - 1.0) ** 2 + x[1] ** 2
+    >>> land = dl.explore(two_wells, [(-2, 2), (-1, 1)], starts=4, check=False)
+    >>> sorted(round(float(m.point[0]), 4) for m in land.minima)
+    [-1.0, 1.0]
+
+    Parameters
+    ----------
+    objective
+        Called with one float array of the parameters; returns a number (as for `minimize`).
+    bounds
+        One finite ``(lower, upper)`` pair per parameter, or a list of `Parameter` (their
+        scales are honoured).
+    starts
+        How many searches, the user's start included when it is used (``include_start``).
+    seed
+        Makes the design reproducible (None, an int or a `numpy.random.Generator`; an int when
+        a journal is kept).
+    start, names, include_start
+        A start point and names for plain ``bounds``.  ``include_start`` says whether the start
+        (``start``, or the starts of the `Parameter` list) is the first of the starts; by
+        default it is when one is given.
+    budget, total_budget
+        The most evaluations for each search (default 1000 (n + 1)) and for the whole run
+        (default: no limit beyond the searches' own), journaled evaluations included.  Neither
+        is part of the journal's identity: run again with a larger one to go on.
+    journal
+        A path: every evaluation is kept there as it completes; calling `explore` again with the
+        same arguments and journal (or `resume`) replays it and goes on, nothing evaluated twice.
+    check
+        Check the curvature at each distinct minimum (not available yet: the verdict is
+        UNCHECKED and a note says so).
+    same_point, same_value
+        When two end points are one minimum (module docstring).
+
+    Raises
+    ------
+    ProblemError
+        For bad bounds, starts, workers, executor, budget or tolerances, before any evaluation.
+    ObjectiveError
+        When the objective returns something that is not a number.
+    JournalError
+        When the journal belongs to another problem or is damaged.
+    """
+    if not callable(objective):
+        raise ProblemError(f"objective must be callable, got {objective!r}")
+    space, given = _space(bounds, start, names)
+    include = given if include_start is None else bool(include_start)
+    settings = _settings(point_tolerance, value_tolerance)
+    budget = _budget(budget, space.size)
+    total_budget = _total(total_budget, space.size)
+    _options(executor, workers, time_limit, same_point, same_value)
+    if journal is not None and (isinstance(seed, bool) or not isinstance(seed, int | np.integer)):
+        raise ProblemError(f"seed must be a whole number when a journal is kept, got {seed!r}")
+    scaled_starts = design(space, starts, seed, include_start=include)
+    identity = run_identity(
+        "explore",
+        space.parameters,
+        settings,
+        starts=int(starts),
+        seed=int(seed) if isinstance(seed, int | np.integer) else None,
+        include_start=include,
+        point_tolerance=settings.point_tolerance,
+        value_tolerance=settings.value_tolerance,
+        check=bool(check),
+        same_point=float(same_point),
+        same_value=float(same_value),
+    )
+    made = None
+    if executor is None and workers is not None:
+        check_picklable(objective)
+        executor = made = cf.ProcessPoolExecutor(max_workers=workers)
+    try:
+        with journal_for(journal, identity, budget=budget) as kept:
+            with Runner(
+                objective=objective,
+                budget=budget,
+                total=total_budget,
+                time_limit=time_limit,
+                executor=executor,
+                workers=workers,
+                record=kept.hooks().get("record"),
+                known=kept.stored,
+            ) as runner:
+                outcomes = runner.run(
+                    {j: powell(space, settings, start=u) for j, u in enumerate(scaled_starts)}
+                )
+                stops = {o.stop for o in outcomes.values()}
+                stop = next(
+                    (s for s in (Stop.INTERRUPTED, Stop.BUDGET, Stop.STALLED) if s in stops),
+                    Stop.CONVERGED,
+                )
+                kept.finish(stop, "", replayed=runner.replayed)
+    finally:
+        if made is not None:
+            made.shutdown(wait=True, cancel_futures=True)
+    return _landscape(space, settings, runner, scaled_starts, outcomes, check, same_point, same_value)
+
+
+def _space(bounds: object, start: object, names: Sequence[str] | None) -> tuple[Space, bool]:
+    """The search space and whether its start is one of the starts."""
+    if isinstance(bounds, Parameter) or (
+        isinstance(bounds, Sequence)
+        and len(bounds) > 0
+        and all(isinstance(p, Parameter) for p in bounds)
+    ):
+        if start is not None or names is not None:
+            raise ProblemError("give start and names inside each Parameter, not as arguments too")
+        parameters = [bounds] if isinstance(bounds, Parameter) else list(bounds)
+        return space_from_parameters(parameters), True
+    if bounds is None:
+        raise ProblemError("exploring needs bounds: one (lower, upper) pair per parameter")
+    if start is not None:
+        return build_space(start, bounds, names), True
+    try:
+        pairs = np.array(
+            [[np.nan if v is None else v for v in row] for row in bounds], dtype=float  # type: ignore[union-attr]
+        )
+    except (TypeError, ValueError):
+        raise ProblemError(
+            f"bounds must be one (lower, upper) pair per parameter, got {bounds!r}"
+        ) from None
+    if pairs.ndim != 2 or pairs.shape[1] != 2 or pairs.shape[0] == 0:
+        raise ProblemError(f"bounds must be one (lower, upper) pair per parameter, got {bounds!r}")
+    labels = list(names) if names is not None else [f"x{i}" for i in range(len(pairs))]
+    for name, (lo, hi) in zip(labels, pairs):
+        if not (math.isfinite(lo) and math.isfinite(hi)):
+            raise ProblemError(f"parameter {name!r}: exploring needs finite lower and upper bounds")
+    centre = 0.5 * (pairs[:, 0] + pairs[:, 1])
+    return build_space(centre, [tuple(p) for p in pairs], names), False
+
+
+def _total(total_budget: int | None, n: int) -> int | None:
+    if total_budget is None:
+        return None
+    if isinstance(total_budget, bool) or not isinstance(total_budget, int | np.integer):
+        raise ProblemError(f"total_budget must be a whole number of evaluations, got {total_budget!r}")
+    if total_budget < n + 1:
+        raise ProblemError(
+            f"total_budget must allow at least n + 1 = {n + 1} evaluations, got {total_budget!r}"
+        )
+    return int(total_budget)
+
+
+def _options(
+    executor: object, workers: object, time_limit: object, same_point: object, same_value: object
+) -> None:
+    if executor is not None and not isinstance(executor, cf.Executor) and not hasattr(executor, "submit"):
+        raise ProblemError(f"executor must be a concurrent.futures.Executor, got {executor!r}")
+    if workers is not None and (
+        isinstance(workers, bool) or not isinstance(workers, int | np.integer) or workers < 1
+    ):
+        raise ProblemError(f"workers must be a whole number of at least 1, got {workers!r}")
+    if time_limit is not None and (
+        isinstance(time_limit, bool) or not isinstance(time_limit, int | float) or not time_limit > 0
+    ):
+        raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
+    for key, value in (("same_point", same_point), ("same_value", same_value)):
+        if isinstance(value, bool) or not isinstance(value, int | float) or not value >= 0:
+            raise ProblemError(f"{key} must be a number of at least 0, got {value!r}")
+
+
+def _landscape(
+    space: Space,
+    settings: Settings,
+    runner: Runner,
+    scaled_starts: np.ndarray,
+    outcomes: dict[int, Outcome],
+    check: bool,
+    same_point: float,
+    same_value: float,
+) -> Landscape:
+    k = len(scaled_starts)
+    ends = np.array([outcomes[j].point for j in range(k)])
+    values = np.array([outcomes[j].value for j in range(k)])
+    leaders, label = cluster(ends, values, same_point, same_value)
+    evaluations = runner.log.evaluations
+    minima = []
+    for g, j in enumerate(leaders):
+        outcome = outcomes[j]
+        members = {i for i in range(k) if label[i] == g}
+        point = space.to_user(outcome.point)
+        free = hessian_estimate(
+            DirectionSet(
+                vectors=outcome.directions,
+                curvatures=outcome.curvatures,
+                steps=np.zeros(space.size),
+            )
+        )
+        history = tuple(e for e in evaluations if e.search in members)
+        minima.append(
+            Solution(
+                point=point,
+                value=outcome.value,
+                evaluations=len(history),
+                cycles=outcome.cycles,
+                stop=outcome.stop,
+                verdict=Verdict.UNCHECKED,
+                active=_active(space, point, settings),
+                curvature=None if free is None else _free_curvature(space, free),
+                uncertainty=None,
+                directions=_directions_in_search_coordinates(space, outcome.directions),
+                names=space.names,
+                units=tuple(p.unit for p in space.parameters),
+                lower=space.lower.copy(),
+                upper=space.upper.copy(),
+                reason=outcome.reason,
+                history=history,
+            )
+        )
+    notes = ()
+    if check:
+        notes = ("the curvature check is not available yet: every verdict is unchecked",)
+    return Landscape(
+        minima=tuple(minima),
+        counts=tuple(sum(1 for x in label if x == g) for g in range(len(leaders))),
+        starts=space.to_user(scaled_starts),
+        ends=space.to_user(ends),
+        reached=tuple(label),
+        evaluations=len(evaluations),
+        failures=sum(1 for e in evaluations if e.status != "ok"),
+        names=space.names,
+        scales=tuple(p.scale for p in space.parameters),
+        lower=space.lower.copy(),
+        upper=space.upper.copy(),
+        stops=tuple(outcomes[j].stop for j in range(k)),
+        notes=notes,
+        history=tuple(evaluations),
+    )
