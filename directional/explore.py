@@ -30,7 +30,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.stats import qmc
 
-from .directions import DirectionSet, hessian_estimate
+from .curvature import Settled, check_method, escape_count, settle, settled_solution
 from .driver import Evaluation, Objective
 from .errors import ProblemError
 from .journal import journal_for, run_identity
@@ -38,12 +38,12 @@ from .minimization import (  # the same checks and records as minimize
     _active,
     _budget,
     _directions_in_search_coordinates,
-    _free_curvature,
     _settings,
 )
+from .noise import floored, noise_level, noise_option
 from .parameters import Parameter
 from .pool import Runner, check_picklable
-from .records import Outcome, Stop, Verdict
+from .records import Stop, Verdict
 from .search import Settings, powell
 from .solution import Solution
 from .space import Space, build_space, space_from_parameters
@@ -238,7 +238,9 @@ def explore(
     value_tolerance: float = 1e-10,
     time_limit: float | None = None,
     journal: object = None,
-    check: bool = True,
+    check: bool | str = True,
+    escapes: int = 3,
+    noise: float | str | None = None,
     same_point: float = SAME_POINT,
     same_value: float = SAME_VALUE,
 ) -> Landscape:
@@ -250,14 +252,16 @@ def explore(
     function at the top level of a module); with an ``executor`` (any
     `concurrent.futures.Executor`, e.g. a Dask cluster's ``Client(address).get_executor()``) on
     that executor as it is, at most ``workers`` evaluations in flight (None: no limit).  The
-    minima are the same whichever way the run is made (`pool`).
+    minima are the same whichever way the run is made (`pool`).  Each distinct minimum is then
+    checked as `minimize` checks its point (`curvature.settle`: Hessian, verdict, escape from a
+    saddle), its Hessian stencil evaluated as one batch on the executor.
 
     >>> import directional as dl
     >>> def two_wells(x):
     ...     return (x[0] ** 2 - 1.0) ** 2 + x[1] ** 2
-    >>> land = dl.explore(two_wells, [(-2, 2), (-1, 1)], starts=4, check=False)
-    >>> sorted(round(float(m.point[0]), 4) for m in land.minima)
-    [-1.0, 1.0]
+    >>> land = dl.explore(two_wells, [(-2, 2), (-1, 1)], starts=4)
+    >>> sorted((round(float(m.point[0]), 4), m.verdict.value) for m in land.minima)
+    [(-1.0, 'minimum'), (1.0, 'minimum')]
 
     Parameters
     ----------
@@ -276,15 +280,17 @@ def explore(
         (``start``, or the starts of the `Parameter` list) is the first of the starts; by
         default it is when one is given.
     budget, total_budget
-        The most evaluations for each search (default 1000 (n + 1)) and for the whole run
-        (default: no limit beyond the searches' own), journaled evaluations included.  Neither
-        is part of the journal's identity: run again with a larger one to go on.
+        The most evaluations for each search, its check included (default 1000 (n + 1)), and
+        for the whole run (default: no limit beyond the searches' own), journaled evaluations
+        included.  Neither is part of the journal's identity: run again with a larger one to go
+        on.
     journal
         A path: every evaluation is kept there as it completes; calling `explore` again with the
         same arguments and journal (or `resume`) replays it and goes on, nothing evaluated twice.
-    check
-        Check the curvature at each distinct minimum (not available yet: the verdict is
-        UNCHECKED and a note says so).
+    check, escapes, noise
+        As for `minimize`: how each distinct minimum is checked, how often a saddle is escaped,
+        the objective's noise level (``"estimate"``: measured once at the centre of the bounds,
+        or at the start).
     same_point, same_value
         When two end points are one minimum (module docstring).
 
@@ -304,6 +310,7 @@ def explore(
     settings = _settings(point_tolerance, value_tolerance)
     budget = _budget(budget, space.size)
     total_budget = _total(total_budget, space.size)
+    method, escapes, noise = check_method(check), escape_count(escapes), noise_option(noise)
     _options(executor, workers, time_limit, same_point, same_value)
     if journal is not None and (isinstance(seed, bool) or not isinstance(seed, int | np.integer)):
         raise ProblemError(f"seed must be a whole number when a journal is kept, got {seed!r}")
@@ -317,7 +324,9 @@ def explore(
         include_start=include,
         point_tolerance=settings.point_tolerance,
         value_tolerance=settings.value_tolerance,
-        check=bool(check),
+        check=check,
+        escapes=escapes,
+        noise=noise,
         same_point=float(same_point),
         same_value=float(same_value),
     )
@@ -325,31 +334,119 @@ def explore(
     if executor is None and workers is not None:
         check_picklable(objective)
         executor = made = cf.ProcessPoolExecutor(max_workers=workers)
+    plan = _Plan(space, settings, method, escapes, float(same_point), float(same_value))
     try:
-        with journal_for(journal, identity, budget=budget) as kept:
-            with Runner(
-                objective=objective,
-                budget=budget,
-                total=total_budget,
-                time_limit=time_limit,
-                executor=executor,
-                workers=workers,
-                record=kept.hooks().get("record"),
-                known=kept.stored,
-            ) as runner:
-                outcomes = runner.run(
-                    {j: powell(space, settings, start=u) for j, u in enumerate(scaled_starts)}
-                )
-                stops = {o.stop for o in outcomes.values()}
-                stop = next(
-                    (s for s in (Stop.INTERRUPTED, Stop.BUDGET, Stop.STALLED) if s in stops),
-                    Stop.CONVERGED,
-                )
-                kept.finish(stop, "", replayed=runner.replayed)
+        with journal_for(journal, identity, budget=budget) as kept, Runner(
+            objective=objective,
+            budget=budget,
+            total=total_budget,
+            time_limit=time_limit,
+            executor=executor,
+            workers=workers,
+            record=kept.hooks().get("record"),
+            known=kept.stored,
+        ) as runner:
+            land = _explore(plan, runner, scaled_starts, noise)
+            kept.finish(_overall(land.stops), "", replayed=runner.replayed)
     finally:
         if made is not None:
             made.shutdown(wait=True, cancel_futures=True)
-    return _landscape(space, settings, runner, scaled_starts, outcomes, check, same_point, same_value)
+    return land
+
+
+@dataclass(frozen=True, slots=True)
+class _Plan:
+    space: Space
+    settings: Settings
+    method: str | None
+    escapes: int
+    same_point: float
+    same_value: float
+
+
+def _overall(stops: Sequence[Stop]) -> Stop:
+    """How the run as a whole ended, for the journal: the most serious of the searches' stops."""
+    return next(
+        (s for s in (Stop.INTERRUPTED, Stop.BUDGET, Stop.STALLED) if s in stops), Stop.CONVERGED
+    )
+
+
+def _explore(
+    plan: _Plan, runner: Runner, scaled_starts: np.ndarray, noise: float | str | None
+) -> Landscape:
+    """The searches, then the check of each distinct minimum, then the landscape."""
+    space = plan.space
+    k = len(scaled_starts)
+    lane = runner.lane()
+    level, noted = noise_level(lane, space, noise, search=k)  # id k: after the searches
+    settings = floored(plan.settings, level)
+    outcomes = runner.run({j: powell(space, settings, start=u) for j, u in enumerate(scaled_starts)})
+    ends = np.array([outcomes[j].point for j in range(k)])
+    values = np.array([outcomes[j].value for j in range(k)])
+    leaders, label = cluster(ends, values, plan.same_point, plan.same_value)
+    interrupted = any(o.stop is Stop.INTERRUPTED for o in outcomes.values())
+    method = None if interrupted else plan.method
+    settled = {
+        j: settle(lane, space, settings, outcomes[j], check=method, escapes=plan.escapes,
+                  noise=level, search=j)
+        for j in leaders
+    }
+    # An escape moves a minimum, maybe onto another: group again by where each start ended up.
+    final_u, final_f = ends.copy(), values.copy()
+    for j in range(k):
+        if label[j] >= 0:
+            final = settled[leaders[label[j]]].outcome
+            final_u[j], final_f[j] = final.point, final.value
+    groups, reached = cluster(final_u, final_f, plan.same_point, plan.same_value)
+    evaluations = runner.log.evaluations
+    minima = []
+    for g, j in enumerate(groups):
+        members = {i for i in range(k) if reached[i] == g}
+        history = tuple(e for e in evaluations if e.search in members)
+        minima.append(_minimum(space, settings, settled[leaders[label[j]]], history))
+    return Landscape(
+        minima=tuple(minima),
+        counts=tuple(reached.count(g) for g in range(len(groups))),
+        starts=space.to_user(scaled_starts),
+        ends=space.to_user(ends),
+        reached=tuple(reached),
+        evaluations=len(evaluations),
+        failures=sum(1 for e in evaluations if e.status != "ok"),
+        names=space.names,
+        scales=tuple(p.scale for p in space.parameters),
+        lower=space.lower.copy(),
+        upper=space.upper.copy(),
+        stops=tuple(outcomes[j].stop for j in range(k)),
+        notes=noted,
+        history=tuple(evaluations),
+    )
+
+
+def _minimum(
+    space: Space, settings: Settings, settled: Settled, history: tuple[Evaluation, ...]
+) -> Solution:
+    """One distinct minimum as a `Solution`, with the verdict and notes of its check."""
+    outcome = settled.outcome
+    point = space.to_user(outcome.point)
+    solution = Solution(
+        point=point,
+        value=outcome.value,
+        evaluations=len(history),
+        cycles=outcome.cycles,
+        stop=outcome.stop,
+        verdict=Verdict.UNCHECKED,
+        active=_active(space, point, settings),
+        curvature=None,
+        uncertainty=None,
+        directions=_directions_in_search_coordinates(space, outcome.directions),
+        names=space.names,
+        units=tuple(p.unit for p in space.parameters),
+        lower=space.lower.copy(),
+        upper=space.upper.copy(),
+        reason=outcome.reason,
+        history=history,
+    )
+    return settled_solution(solution, settled)
 
 
 def _space(bounds: object, start: object, names: Sequence[str] | None) -> tuple[Space, bool]:
@@ -413,72 +510,3 @@ def _options(
     for key, value in (("same_point", same_point), ("same_value", same_value)):
         if isinstance(value, bool) or not isinstance(value, int | float) or not value >= 0:
             raise ProblemError(f"{key} must be a number of at least 0, got {value!r}")
-
-
-def _landscape(
-    space: Space,
-    settings: Settings,
-    runner: Runner,
-    scaled_starts: np.ndarray,
-    outcomes: dict[int, Outcome],
-    check: bool,
-    same_point: float,
-    same_value: float,
-) -> Landscape:
-    k = len(scaled_starts)
-    ends = np.array([outcomes[j].point for j in range(k)])
-    values = np.array([outcomes[j].value for j in range(k)])
-    leaders, label = cluster(ends, values, same_point, same_value)
-    evaluations = runner.log.evaluations
-    minima = []
-    for g, j in enumerate(leaders):
-        outcome = outcomes[j]
-        members = {i for i in range(k) if label[i] == g}
-        point = space.to_user(outcome.point)
-        free = hessian_estimate(
-            DirectionSet(
-                vectors=outcome.directions,
-                curvatures=outcome.curvatures,
-                steps=np.zeros(space.size),
-            )
-        )
-        history = tuple(e for e in evaluations if e.search in members)
-        minima.append(
-            Solution(
-                point=point,
-                value=outcome.value,
-                evaluations=len(history),
-                cycles=outcome.cycles,
-                stop=outcome.stop,
-                verdict=Verdict.UNCHECKED,
-                active=_active(space, point, settings),
-                curvature=None if free is None else _free_curvature(space, free),
-                uncertainty=None,
-                directions=_directions_in_search_coordinates(space, outcome.directions),
-                names=space.names,
-                units=tuple(p.unit for p in space.parameters),
-                lower=space.lower.copy(),
-                upper=space.upper.copy(),
-                reason=outcome.reason,
-                history=history,
-            )
-        )
-    notes = ()
-    if check:
-        notes = ("the curvature check is not available yet: every verdict is unchecked",)
-    return Landscape(
-        minima=tuple(minima),
-        counts=tuple(sum(1 for x in label if x == g) for g in range(len(leaders))),
-        starts=space.to_user(scaled_starts),
-        ends=space.to_user(ends),
-        reached=tuple(label),
-        evaluations=len(evaluations),
-        failures=sum(1 for e in evaluations if e.status != "ok"),
-        names=space.names,
-        scales=tuple(p.scale for p in space.parameters),
-        lower=space.lower.copy(),
-        upper=space.upper.copy(),
-        stops=tuple(outcomes[j].stop for j in range(k)),
-        notes=notes,
-        history=tuple(evaluations),
-    )

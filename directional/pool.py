@@ -189,13 +189,18 @@ class Runner:
     def __exit__(self, *exc: object) -> None:
         self.close()
 
+    def lane(self) -> Lane:
+        """This runner seen as a `driver.Driver` that runs one generator at a time."""
+        return Lane(self)
+
     # ----------------------------------------------------------------------------- the loop
 
     def run(self, searches: Mapping[int, Search]) -> dict[int, Outcome]:
         """Drive every search to its end; their outcomes by id.
 
-        Ids must be new to this runner (a runner can run several groups one after another, e.g.
-        the searches and then the curvature checks, with one cache, log and journal).
+        A runner can run several groups one after another (the searches, then the curvature
+        checks) with one cache, log and journal; a generator run under the id of a search that
+        has ended continues that search's budget, sequence and journal.
 
         Raises
         ------
@@ -206,12 +211,16 @@ class Runner:
         """
         tasks = []
         for ident, search in searches.items():
-            if ident in self._tasks:
-                raise ValueError(f"search id {ident!r} was already run")
-            task = self._tasks[ident] = _Task(ident=ident, search=search)
-            own = self._journal.get(ident, {})
-            task.journaled = set(own)
-            task.sequence = 1 + max(own.values(), default=-1)  # the journal's are 0, 1, ...
+            task = self._tasks.get(ident)
+            if task is None:
+                task = self._tasks[ident] = _Task(ident=ident, search=search)
+                own = self._journal.get(ident, {})
+                task.journaled = set(own)
+                task.sequence = 1 + max(own.values(), default=-1)  # the journal's are 0, 1, ...
+            elif task.outcome is None:
+                raise ValueError(f"search {ident!r} is still running")
+            else:
+                task.search, task.outcome, task.batch = search, None, None
             tasks.append(task)
         try:
             for task in tasks:
@@ -461,3 +470,25 @@ class Runner:
 def _describe(error: BaseException) -> str:
     lines = traceback.format_exception_only(type(error), error)
     return "".join(lines).strip()[-2000:]
+
+
+class Lane:
+    """A `Runner` with the interface of `driver.Driver` that `curvature.settle` uses.
+
+    ``run(generator, search=k)`` drives one generator under search id ``k`` (its points still go
+    to the executor, a batch such as a Hessian stencil in parallel); ``spent`` counts evaluations.
+    """
+
+    def __init__(self, runner: Runner) -> None:
+        self.runner = runner
+
+    @property
+    def spent(self) -> int:
+        return self.runner.spent
+
+    @property
+    def replayed(self) -> int:
+        return self.runner.replayed
+
+    def run(self, generator: Search, *, search: int = 0) -> Outcome:
+        return self.runner.run({search: generator})[search]

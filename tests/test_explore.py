@@ -108,6 +108,29 @@ def test_sixteen_starts_find_the_four_minima_of_himmelblau(sequential):
     assert land.best is land.minima[0]
 
 
+def himmelblau_hessian(x: np.ndarray) -> np.ndarray:
+    """The analytic Hessian of Himmelblau's function."""
+    a, b = x[0] ** 2 + x[1] - 11.0, x[0] + x[1] ** 2 - 7.0
+    xy = 4.0 * x[0] + 4.0 * x[1]
+    return np.array([[8.0 * x[0] ** 2 + 4.0 * a + 2.0, xy], [xy, 8.0 * x[1] ** 2 + 4.0 * b + 2.0]])
+
+
+def test_each_minimum_is_checked_against_the_analytic_hessian(sequential):
+    """The curvature check at each minimum agrees with the analytic Hessian (positive definite)."""
+    for m in sequential.minima:
+        assert m.verdict is dl.Verdict.MINIMUM
+        assert m.curvature is not None and m.curvature.source == "extrapolated"
+        exact = himmelblau_hessian(m.point)
+        assert np.all(np.linalg.eigvalsh(exact) > 0)
+        assert np.allclose(m.curvature.hessian, exact, rtol=1e-4, atol=1e-4)
+        assert any(e.purpose == "hessian" for e in m.history) or m.curvature.evaluations > 0
+
+
+def test_without_the_check_the_verdicts_stay_unchecked():
+    land = dl.explore(himmelblau, BOX, starts=4, seed=0, check=False)
+    assert all(m.verdict is dl.Verdict.UNCHECKED for m in land.minima)
+
+
 def test_each_end_point_is_its_minimum(sequential):
     """Every search ended within the clustering distance of the minimum it is said to reach."""
     land = sequential
@@ -555,3 +578,49 @@ def test_bad_arguments_are_refused_before_any_evaluation(kwargs, message, tmp_pa
 def test_an_unpicklable_objective_is_refused_for_a_process_pool():
     with pytest.raises(dl.ProblemError, match="picklable"):
         dl.explore(lambda x: float(x[0] ** 2), [(-1, 1)], starts=2, workers=2)
+
+
+# ------------------------------------------------------------------------------ start map
+
+
+def test_start_map_is_drawn_from_the_evaluations_made_without_new_ones(tmp_path, sequential):
+    from directional.explore_plots import start_map
+
+    path = start_map(sequential, None, tmp_path / "starts.png")
+    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_start_map_spends_at_most_extra_report_evaluations(tmp_path, sequential):
+    from directional.explore_plots import start_map
+
+    calls = []
+
+    def counting(x):
+        calls.append(x.copy())
+        return himmelblau(x)
+
+    start_map(sequential, counting, tmp_path / "starts.png", extra=100)
+    assert 25 <= len(calls) <= 100
+    assert all(-5.0 <= x[0] <= 5.0 and -5.0 <= x[1] <= 5.0 for x in calls)
+
+
+def test_start_map_of_log_parameters_and_bad_pairs(tmp_path):
+    from directional.explore_plots import start_map
+
+    params = [
+        dl.Parameter("rate", 1.0, 0.01, 100.0, scale="log"),
+        dl.Parameter("gain", 0.0, -2.0, 2.0),
+        dl.Parameter("lag", 0.0, -2.0, 2.0),
+    ]
+
+    def bowl(x):
+        return float(np.log10(x[0]) ** 2 + (x[1] - 0.5) ** 2 + x[2] ** 2)
+
+    land = dl.explore(bowl, params, starts=4, seed=0, check=False)
+    assert np.allclose(land.best.point, [1.0, 0.5, 0.0], atol=1e-4)
+    start_map(land, bowl, tmp_path / "log.png", pair=(0, 2), extra=36)
+    with pytest.raises(dl.ProblemError, match="pair"):
+        start_map(land, bowl, tmp_path / "bad.png", pair=(1, 1))
+    one = dl.explore(lambda x: float(x[0] ** 2), [(-1, 1)], starts=2, check=False)
+    with pytest.raises(dl.ProblemError, match="two parameters"):
+        start_map(one, None, tmp_path / "one.png")
