@@ -1,0 +1,1 @@
+"""Benchmarks of `directional`; run ``python -m benchmarks`` (or ``directional bench``)."""

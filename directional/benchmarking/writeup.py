@@ -1,0 +1,293 @@
+"""The text of RESULTS.md: tables in Markdown, the targets checked, the machine described."""
+
+from __future__ import annotations
+
+import math
+import os
+import platform
+import subprocess
+from collections.abc import Sequence
+from datetime import UTC, datetime
+from pathlib import Path
+
+import numpy as np
+
+from . import profiles
+from .scaling import Count, LineCount, Overhead
+from .study import DATA_BUDGETS, Study
+
+TABLE_BUDGETS = (1, 2, 5, 10, 20, 50, 100)  # data-profile table columns, in units of n + 1
+TABLE_FACTORS = (1.0, 2.0, 4.0, 8.0, 16.0, math.inf)  # performance-profile table columns
+HEADLINE_TAU = 1e-5
+
+
+def table(header: Sequence[str], rows: Sequence[Sequence[object]]) -> list[str]:
+    """A Markdown table; numbers are written as given (format them first)."""
+    lines = ["| " + " | ".join(header) + " |", "|" + "|".join("---" for _ in header) + "|"]
+    lines += ["| " + " | ".join(str(c) for c in row) + " |" for row in rows]
+    return lines
+
+
+def percent(x: float) -> str:
+    return f"{100.0 * x:.0f} %"
+
+
+def whole(x: float) -> str:
+    return "—" if not math.isfinite(x) else f"{x:.0f}"
+
+
+# ---------------------------------------------------------------------------- machine
+
+
+def machine(load: tuple[float, float, float] | None) -> list[str]:
+    """A description of where the numbers were measured."""
+    cpu = platform.processor() or platform.machine()
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                cpu = line.split(":", 1)[1].strip()
+                break
+    except OSError:
+        pass
+    lines = [
+        f"- Processor: {cpu}, {os.cpu_count()} logical cores",
+        f"- System: {platform.system()} {platform.release()}",
+        f"- Python {platform.python_version()}, numpy {np.__version__}",
+    ]
+    if load is not None:
+        lines.append(
+            f"- Load average when the run began: {load[0]:.2f} (1 min), {load[1]:.2f} (5 min): "
+            "the machine is shared, so absolute times are indicative; ratios measured in the "
+            "same run are the firmer numbers"
+        )
+    commit = _commit()
+    if commit:
+        lines.append(f"- Code: commit {commit}")
+    return lines
+
+
+def _commit() -> str:
+    try:
+        done = subprocess.run(
+            ["git", "rev-parse", "--short", "HEAD"],
+            capture_output=True, text=True, timeout=5, cwd=Path(__file__).parent,
+        )
+    except (OSError, subprocess.SubprocessError):
+        return ""
+    return done.stdout.strip() if done.returncode == 0 else ""
+
+
+def stamp() -> str:
+    return datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
+
+
+# ---------------------------------------------------------------------------- profiles
+
+
+def profile_tables(study: Study, groups: Sequence[str]) -> list[str]:
+    """Data-profile and performance-profile tables for the solvers of ``groups``."""
+    chosen = study.select(groups)
+    names = [study.names[i] for i in chosen]
+    sizes = [p.n for p in study.pairs]
+    lines = ["Data profiles: fraction of pairs solved within the budget (units of n + 1 "
+             "evaluations).", ""]
+    rows = []
+    for tau in profiles.TAUS:
+        counts = study.counts(tau)[:, chosen]
+        d = profiles.data_profile(counts, sizes, TABLE_BUDGETS)
+        for s, name in enumerate(names):
+            rows.append([f"{tau:.0e}", name, *[percent(x) for x in d[:, s]]])
+    lines += table(["τ", "solver", *[f"{b}" for b in TABLE_BUDGETS]], rows)
+    lines += ["", "Performance profiles: fraction of pairs on which the solver needs at most "
+              "α times the evaluations of the fastest (α = ∞: solved at all).", ""]
+    rows = []
+    for tau in profiles.TAUS:
+        counts = study.counts(tau)[:, chosen]
+        r = profiles.performance_profile(counts, TABLE_FACTORS)
+        for s, name in enumerate(names):
+            rows.append([f"{tau:.0e}", name, *[percent(x) for x in r[:, s]]])
+    lines += table(["τ", "solver", *["∞" if math.isinf(a) else f"{a:g}" for a in TABLE_FACTORS]],
+                   rows)
+    return lines
+
+
+def solver_summary(study: Study) -> list[str]:
+    """Evaluations and optimizer time per solver, over all pairs."""
+    rows = []
+    counts = study.counts(HEADLINE_TAU)
+    for s, solver in enumerate(study.solvers):
+        runs = [row[s] for row in study.runs]
+        spent = sum(r.values.size for r in runs)
+        own = sum(r.seconds - r.objective_seconds for r in runs)
+        early = sum(
+            1 for r, pair in zip(runs, study.pairs) if r.values.size < study.units * (pair.n + 1)
+        )
+        solved = counts[:, s]
+        median = np.median(solved[np.isfinite(solved)]) if np.any(np.isfinite(solved)) else math.nan
+        rows.append([
+            solver.name, solver.group, f"{np.mean(np.isfinite(solved)) * 100:.0f} %",
+            whole(median), f"{spent}", f"{early}", f"{1e6 * own / max(spent, 1):.0f}",
+        ])
+    return table(
+        ["solver", "kind", f"solved (τ = {HEADLINE_TAU:.0e})", "median evaluations when solved",
+         "evaluations spent", "runs that stopped before the budget",
+         "optimizer µs per evaluation"],
+        rows,
+    )
+
+
+def unsolved(study: Study) -> list[str]:
+    """The pairs `directional` does not solve at the headline accuracy, and who does."""
+    counts = study.counts(HEADLINE_TAU)
+    lowest = study.lowest()
+    ours = study.names.index("directional")
+    rows = []
+    for p, pair in enumerate(study.pairs):
+        if math.isfinite(counts[p, ours]):
+            continue
+        run = study.runs[p][ours]
+        best = float(np.min(run.values)) if run.values.size else math.inf
+        others = [name for s, name in enumerate(study.names)
+                  if s != ours and math.isfinite(counts[p, s])]
+        stopped = ("stopped itself after " + str(run.values.size)
+                   if run.values.size < study.units * (pair.n + 1) else "budget spent")
+        rows.append([
+            pair.label, f"{pair.f0:.4g}", f"{lowest[p]:.6g}", f"{best:.6g}",
+            "—" if pair.problem.fmin is None else f"{pair.problem.fmin:.6g}", stopped,
+            ", ".join(others) or "none",
+        ])
+    if not rows:
+        return ["`directional` solves every pair at this accuracy."]
+    return table(["pair", "f(x0)", "f_L (best of all)", "directional's best",
+                  "paper's minimum", "directional", "solved by"], rows)
+
+
+def pair_table(study: Study) -> list[str]:
+    """Every pair: its values, and each solver's evaluations to solve it at the headline τ."""
+    counts = study.counts(HEADLINE_TAU)
+    lowest = study.lowest()
+    rows = []
+    for p, pair in enumerate(study.pairs):
+        rows.append([pair.label, f"{pair.f0:.4g}", f"{lowest[p]:.6g}",
+                     "—" if pair.problem.fmin is None else f"{pair.problem.fmin:.6g}",
+                     *[whole(c) for c in counts[p]]])
+    return table(["pair", "f(x0)", "f_L", "paper's minimum", *study.names], rows)
+
+
+# ---------------------------------------------------------------------------- targets
+
+
+def profile_target(study: Study) -> tuple[str, str, bool, str]:
+    """τ = 1e-5, budget 100 (n + 1): share solved, and ahead of every baseline at every budget."""
+    counts = study.counts(HEADLINE_TAU)
+    sizes = [p.n for p in study.pairs]
+    d = profiles.data_profile(counts, sizes, DATA_BUDGETS)
+    ours = study.names.index("directional")
+    share = d[-1, ours]
+    behind = []
+    for s in study.select(["baseline"]):
+        lagging = [int(a) for a, row in zip(DATA_BUDGETS, d) if row[s] > row[ours]]
+        if lagging:
+            gap = max(row[s] - row[ours] for row in d)
+            behind.append(f"{study.names[s]} ahead at {len(lagging)} budgets "
+                          f"({_ranges(lagging)}; by up to {100 * gap:.0f} points)")
+    met = share >= 0.85 and not behind
+    measured = f"{percent(share)} solved" + ("; " + "; ".join(behind) if behind else
+                                             "; never behind a baseline")
+    return ("MGH profiles: ≥ 85 % solved at τ = 1e-5 within 100 (n + 1), ahead of every "
+            "baseline at every budget", measured, met,
+            f"{len(study.pairs)} pairs")
+
+
+def _ranges(values: list[int]) -> str:
+    out, start = [], values[0]
+    for a, b in zip(values, values[1:] + [None]):
+        if b != a + 1:
+            out.append(f"{start}" if start == a else f"{start}–{a}")
+            if b is not None:
+                start = b
+    return ", ".join(out)
+
+
+def quadratic_target(counts: Sequence[Count]) -> list[tuple[str, str, bool, str]]:
+    out = []
+    for n in (20, 50):
+        ratios = [c.ratio for c in counts if c.n == n and c.label.startswith("quadratic")]
+        if ratios:
+            worst = max(ratios)
+            out.append((f"quadratics n = {n}: evaluations / ((n+1)(n+2)/2) ≤ 4",
+                        f"{np.median(ratios):.2f} median, {worst:.2f} worst", worst <= 4.0,
+                        f"{len(ratios)} seeds"))
+    return out
+
+
+def overhead_target(rows: Sequence[Overhead]) -> list[tuple[str, str, bool, str]]:
+    out = []
+    for n, limit in ((10, 30e-6), (100, 300e-6)):
+        mine = [r for r in rows if r.solver == "directional" and r.n == n]
+        if mine:
+            t = mine[0].per_evaluation
+            out.append((f"overhead at n = {n} ≤ {limit * 1e6:.0f} µs per evaluation",
+                        f"{t * 1e6:.0f} µs", t <= limit, f"{mine[0].evaluations} evaluations"))
+    return out
+
+
+def line_target(rows: Sequence[LineCount], order: float, pairs: int) -> list[
+    tuple[str, str, bool, str]
+]:
+    ours = sum(r.reached for r in rows if r.method.startswith("parabolic"))
+    golden = sum(r.reached for r in rows if r.method == "golden section")
+    out = []
+    if golden > 0:
+        out.append(("line search: ≤ half the evaluations of golden section to 1e-8",
+                    f"{ours:.0f} vs {golden:.0f} ({ours / golden:.2f})", ours <= 0.5 * golden,
+                    "summed over the functions"))
+    out.append(("line search: measured order 1.3 ± 0.1 (Jarratt 1967: 1.3247)",
+                f"{order:.2f}", abs(order - 1.3) <= 0.1, f"{pairs} consecutive pairs"))
+    return out
+
+
+def target_table(targets: Sequence[tuple[str, str, bool, str]]) -> list[str]:
+    return table(["target", "measured", "met", "basis"],
+                 [[t, m, "yes" if ok else "**no**", b] for t, m, ok, b in targets])
+
+
+# ---------------------------------------------------------------------------- scaling tables
+
+
+def quadratic_table(counts: Sequence[Count]) -> list[str]:
+    rows = []
+    for c in counts:
+        base = (c.n + 1) * (c.n + 2) / 2
+        rows.append([c.label, c.n, f"{base:.0f}", whole(c.reached),
+                     "—" if not math.isfinite(c.reached) else f"{c.ratio:.2f}", c.spent, c.stop,
+                     f"{c.cycles}", f"{c.spent / max(c.cycles, 1):.1f}",
+                     f"{c.spent / max(c.cycles, 1) / (c.n + 1):.2f}"])
+    return table(["function", "n", "(n+1)(n+2)/2", "evaluations to 1e-8", "ratio",
+                  "evaluations to stop", "stop", "cycles", "evaluations per cycle",
+                  "per cycle / (n+1)"], rows)
+
+
+def overhead_table(rows: Sequence[Overhead]) -> list[str]:
+    return table(["solver", "n", "evaluations", "runs", "optimizer µs per evaluation",
+                  "objective µs per evaluation"],
+                 [[r.solver, r.n, r.evaluations, r.runs, f"{r.per_evaluation * 1e6:.1f}",
+                   f"{r.objective_per_evaluation * 1e6:.1f}"] for r in rows])
+
+
+def line_table(rows: Sequence[LineCount], orders: dict[str, tuple[float, int]]) -> list[str]:
+    by_function: dict[str, dict[str, LineCount]] = {}
+    for r in rows:
+        by_function.setdefault(r.function, {})[r.method] = r
+    out = []
+    for name, methods in by_function.items():
+        ours = methods.get("parabolic (directional)")
+        golden = methods.get("golden section")
+        order, pairs = orders.get(name, (math.nan, 0))
+        out.append([name, whole(ours.reached) if ours else "—", ours.spent if ours else "—",
+                    f"{ours.error:.1e}" if ours else "—",
+                    whole(golden.reached) if golden else "—", golden.spent if golden else "—",
+                    f"{golden.error:.1e}" if golden else "—",
+                    "—" if not math.isfinite(order) else f"{order:.2f} ({pairs})"])
+    return table(["function", "parabolic: to 1e-8", "parabolic: to stop", "error",
+                  "golden: to 1e-8", "golden: to stop", "error", "order (pairs)"], out)
