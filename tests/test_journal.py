@@ -366,6 +366,31 @@ def test_a_damaged_journal_is_refused(tmp_path):
         dl.resume(path, rosenbrock)
 
 
+@pytest.mark.parametrize(
+    ("edit", "message"),
+    [
+        ("DELETE FROM evaluation WHERE sequence = 5", "evaluation number 5 is missing"),
+        (
+            "INSERT INTO evaluation (search, sequence, point, value, status, detail, purpose, "
+            "started, ended, session) SELECT search, sequence, point, value, status, detail, "
+            "purpose, started, ended, session FROM evaluation WHERE sequence = 3",
+            "evaluation number 3 is twice",
+        ),
+        ("UPDATE evaluation SET point = x'00' WHERE sequence = 2", "damaged evaluation in row 3"),
+    ],
+)
+def test_damaged_rows_are_refused(tmp_path, edit, message):
+    path = tmp_path / "run.sqlite"
+    dl.minimize(rosenbrock, START, budget=10, journal=path)
+    with sqlite3.connect(path) as db:
+        db.execute(edit)
+    db.close()
+    objective = Counting()
+    with pytest.raises(dl.JournalError, match=message):
+        dl.resume(path, objective)
+    assert objective.calls == 0
+
+
 def test_an_edited_header_is_refused(tmp_path):
     path = tmp_path / "run.sqlite"
     dl.minimize(rosenbrock, START, budget=10, journal=path)
