@@ -15,6 +15,8 @@ STYLES = {  # one look per solver, kept across figures
     "golden section only": dict(color="tab:red", linestyle="--"),
     "no direction replacement": dict(color="tab:purple", linestyle="-."),
     "no curvature reuse": dict(color="tab:brown", linestyle=":"),
+    "driver + search": dict(color="tab:gray", linestyle="--"),
+    "search alone": dict(color="tab:olive", linestyle=":"),
 }
 
 
@@ -76,7 +78,8 @@ def scaling(
         n, ratio = np.array(quadratic, dtype=float).T
         a.plot(n, ratio, "o", color="black", label="directional")
         grid = np.linspace(n.min(), n.max(), 100)
-        a.plot(grid, 4 * grid / (grid + 2), color="tab:gray", label="ideal 4n/(n+2)")
+        ideal = 2 * grid * (2 * grid + 3) / ((grid + 1) * (grid + 2))
+        a.plot(grid, ideal, color="tab:gray", label="n cycles of 2(n+1)+1")
         a.axhline(4.0, color="tab:red", linestyle="--", label="target 4")
         a.legend(fontsize=8)
     a.set_xlabel("n")

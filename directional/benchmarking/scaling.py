@@ -34,8 +34,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..driver import Driver
 from ..linesearch import line_search
 from ..minimization import line_minimum, minimize
+from ..search import Settings, powell
+from ..space import build_space
 from ..testproblems import mgh
 from . import baselines
 from .solvers import Recorder
@@ -129,6 +132,10 @@ class Overhead:
 def overhead(sizes: Sequence[int], evaluations: int, nelder_mead: bool = True) -> list[Overhead]:
     """Optimizer time per evaluation, over runs repeated until ``evaluations`` are spent.
 
+    Besides `directional.minimize` the same search is timed inside a bare `Driver` and driven by
+    a plain loop with no driver at all, which shows where the time goes: the search generator,
+    the driver (cache, records, budget) or `minimize` (checks, building the solution).
+
     Each run minimizes a random convex quadratic (condition 1e3, a fresh seed each time, the
     objective costs one matrix-vector product) from 0 with the evaluations still to spend, and
     stops on its own or at that budget; so short runs (small n) carry their start-up cost, as
@@ -136,7 +143,8 @@ def overhead(sizes: Sequence[int], evaluations: int, nelder_mead: bool = True) -
     """
     out = []
     for n in sizes:
-        runs = [("directional", _run_ours)]
+        runs = [("directional", _run_ours), ("driver + search", _run_driver),
+                ("search alone", _run_search)]
         if nelder_mead:
             runs.append(("Nelder-Mead", _run_nelder_mead))
         for name, run in runs:
@@ -158,6 +166,24 @@ def overhead(sizes: Sequence[int], evaluations: int, nelder_mead: bool = True) -
 
 def _run_ours(f: Callable, start: np.ndarray, budget: int) -> None:
     minimize(f, start, budget=budget, check=False)
+
+
+def _run_driver(f: Callable, start: np.ndarray, budget: int) -> None:
+    Driver(objective=f, budget=budget).run(powell(build_space(start), Settings()))
+
+
+def _run_search(f: Callable, start: np.ndarray, budget: int) -> None:
+    search = powell(build_space(start), Settings())
+    spent = 0
+    try:
+        batch = next(search)
+        while spent + len(batch.points) <= budget:
+            values = np.array([f(x) for x in batch.points])
+            spent += len(values)
+            batch = search.send(values)
+    except StopIteration:
+        return
+    search.close()
 
 
 def _run_nelder_mead(f: Callable, start: np.ndarray, budget: int) -> None:

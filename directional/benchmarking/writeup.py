@@ -162,6 +162,29 @@ def unsolved(study: Study) -> list[str]:
                   "paper's minimum", "directional", "solved by"], rows)
 
 
+def slower(study: Study, factor: float = 3.0) -> list[str]:
+    """The pairs both solve at the headline τ where a baseline needs ``factor`` times fewer
+    evaluations than `directional`: where the method has the most to gain."""
+    counts = study.counts(HEADLINE_TAU)
+    ours = study.names.index("directional")
+    rivals = study.select(["baseline"])
+    rows = []
+    for p, pair in enumerate(study.pairs):
+        if not rivals:
+            break
+        s = min(rivals, key=lambda k: counts[p, k])
+        if math.isfinite(counts[p, ours]) and counts[p, ours] > factor * counts[p, s]:
+            rows.append((counts[p, ours] / counts[p, s], [
+                pair.label, whole(counts[p, ours]), study.names[s], whole(counts[p, s]),
+                f"{counts[p, ours] / counts[p, s]:.1f}",
+            ]))
+    if not rows:
+        return [f"No pair where a baseline is {factor:g} times faster."]
+    rows.sort(key=lambda r: -r[0])
+    return table(["pair", "directional", "fastest baseline", "its evaluations", "ratio"],
+                 [r[1] for r in rows])
+
+
 def pair_table(study: Study) -> list[str]:
     """Every pair: its values, and each solver's evaluations to solve it at the headline τ."""
     counts = study.counts(HEADLINE_TAU)
