@@ -33,13 +33,17 @@ from __future__ import annotations
 
 import collections
 import concurrent.futures as cf
+import contextlib
 import math
 import pickle
+import signal
+import threading
 import time
 import traceback
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
+from types import FrameType
 
 import numpy as np
 
@@ -96,6 +100,50 @@ def check_picklable(objective: Objective) -> None:
         ) from None
 
 
+class _Interrupts:
+    """Ctrl-C during `Runner.run`: raised while waiting on the executor or while the objective
+    runs in process, only noted at any other moment, so that the bookkeeping and the journal are
+    never cut in half; the run then halts before the next evaluation."""
+
+    def __init__(self) -> None:
+        self.pending = False
+        self._inside = False
+        self._previous: object = None
+        self._depth = 0
+
+    def __enter__(self) -> _Interrupts:
+        self._depth += 1
+        if (
+            self._depth == 1
+            and threading.current_thread() is threading.main_thread()
+            and signal.getsignal(signal.SIGINT) is signal.default_int_handler
+        ):
+            self._previous = signal.signal(signal.SIGINT, self._handle)
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self._depth -= 1
+        if self._depth == 0 and self._previous is not None:
+            signal.signal(signal.SIGINT, self._previous)  # type: ignore[arg-type]
+            self._previous = None
+
+    @contextlib.contextmanager
+    def raising(self) -> Iterator[None]:
+        """A stretch where Ctrl-C raises `KeyboardInterrupt` at once."""
+        if self.pending:
+            raise KeyboardInterrupt
+        self._inside = True
+        try:
+            yield
+        finally:
+            self._inside = False
+
+    def _handle(self, signum: int, frame: FrameType | None) -> None:
+        self.pending = True
+        if self._inside:
+            raise KeyboardInterrupt
+
+
 @dataclass(slots=True, kw_only=True)
 class _Task:
     """One search and the batch it is waiting on."""
@@ -131,10 +179,12 @@ class _Pending:
 class Runner:
     """Runs many searches against ``objective`` on ``executor`` (see the module docstring).
 
-    ``executor`` None runs in process, one evaluation at a time.  ``replace`` makes a fresh pool
-    when a worker death breaks ``executor`` (None: a process pool of ``workers`` workers when
-    ``executor`` is one, else the breakage is an error).  Pools made here are shut down by
-    `close`; the caller's executor is left running.
+    ``executor`` None runs in process, one evaluation at a time.  ``workers`` caps the
+    evaluations in flight (None: the executor's own number of workers when it says, as
+    `concurrent.futures` pools do; else no cap, every ready point is submitted).  ``replace``
+    makes a fresh pool when a worker death breaks ``executor`` (None: a process pool of
+    ``workers`` workers when ``executor`` is one, else the breakage is an error).  Pools made
+    here are shut down by `close`; the caller's executor is left running.
     """
 
     objective: Objective
@@ -149,6 +199,8 @@ class Runner:
     replace: Callable[[], cf.Executor] | None = None
     log: Log = field(default_factory=Log)
     replayed: int = 0
+    interrupted: bool = False
+    _interrupts: _Interrupts = field(default_factory=lambda: _Interrupts())
     _cache: dict[bytes, float] = field(default_factory=dict)
     _journal: dict[int, dict[bytes, int]] = field(default_factory=dict)  # search -> point -> seq
     _tasks: dict[int, _Task] = field(default_factory=dict)
@@ -162,6 +214,8 @@ class Runner:
         if self.executor is None:
             self.executor = InProcess()
             self.workers = 1
+        if self.workers is None:  # a pool's own size, where it has one (not Dask's executor)
+            self.workers = getattr(self.executor, "_max_workers", None)
         if self.replace is None and isinstance(self.executor, cf.ProcessPoolExecutor):
             size = self.workers or self.executor._max_workers
             self.replace = lambda: cf.ProcessPoolExecutor(max_workers=size)
@@ -223,19 +277,22 @@ class Runner:
                 task.search, task.outcome, task.batch = search, None, None
             tasks.append(task)
         try:
-            for task in tasks:
-                self._start(task)
-            while any(task.outcome is None for task in tasks) or self._flying:
-                self._fill()
-                if not self._flying:
-                    if any(task.outcome is None for task in tasks):
-                        raise RuntimeError("searches wait on points that nobody evaluates")  # a bug
-                    break
-                done, _ = cf.wait(list(self._flying), return_when=cf.FIRST_COMPLETED)
-                for future in done:
-                    if future in self._flying:
-                        self._collect(future)
+            with self._interrupts:
+                for task in tasks:
+                    self._start(task)
+                while any(task.outcome is None for task in tasks) or self._flying:
+                    self._fill()
+                    if not self._flying:
+                        if any(task.outcome is None for task in tasks):
+                            raise RuntimeError("searches wait on points nobody evaluates")  # a bug
+                        break
+                    with self._interrupts.raising():
+                        done, _ = cf.wait(list(self._flying), return_when=cf.FIRST_COMPLETED)
+                    for future in done:
+                        if future in self._flying:
+                            self._collect(future)
         except KeyboardInterrupt:
+            self.interrupted = True
             self._abandon()
             for task in tasks:
                 if task.outcome is None:
@@ -301,6 +358,8 @@ class Runner:
             task.seen.add(key)
 
     def _limits(self, task: _Task, fresh: bool) -> None:
+        if self.interrupted or self._interrupts.pending:
+            raise Halt(Stop.INTERRUPTED, "interrupted by the user")
         if fresh and len(task.seen) >= self.budget:
             raise Halt(Stop.BUDGET, f"the budget of {self.budget} evaluations is spent")
         if self.total is not None and self.spent + len(self._pending) >= self.total:
@@ -380,7 +439,8 @@ class Runner:
             if pending.suspect and self._flying:
                 return
             try:
-                future = self.executor.submit(evaluate, self.objective, pending.point)  # type: ignore[union-attr]
+                with self._interrupts.raising():  # an in-process objective runs in submit
+                    future = self.executor.submit(evaluate, self.objective, pending.point)  # type: ignore[union-attr]
             except cf.BrokenExecutor:
                 self._broken()
                 continue

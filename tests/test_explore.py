@@ -318,16 +318,18 @@ def test_process_pool_and_sequential_give_the_same_landscape(sequential):
     _same_landscape(sequential, pooled)
 
 
-def test_dask_local_cluster_gives_the_same_landscape(sequential):
+def test_dask_local_cluster_gives_the_same_landscape():
     distributed = pytest.importorskip("distributed")
+    alone = dl.explore(himmelblau, BOX, starts=8, seed=0, check="quick")
     with distributed.LocalCluster(
-        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0"
     ) as cluster_, distributed.Client(cluster_) as client:
         land = dl.explore(
-            himmelblau, BOX, starts=16, seed=0, executor=client.get_executor()
+            himmelblau, BOX, starts=8, seed=0, check="quick", executor=client.get_executor()
         )
         used = {worker for worker in client.run(os.getpid).values()}
-    _same_landscape(sequential, land)
+    _same_landscape(alone, land)
+    assert [m.verdict for m in land.minima] == [m.verdict for m in alone.minima]
     assert os.getpid() not in used
 
 
@@ -493,6 +495,33 @@ def test_killed_exploration_resumes_to_the_same_landscape(tmp_path, sequential):
     assert [e.point.tobytes() for e in after[: len(before)]] == [
         e.point.tobytes() for e in before
     ]
+
+
+class InterruptsOnce:
+    """Himmelblau that sends Ctrl-C (SIGINT) to this process at its ``at``-th call."""
+
+    def __init__(self, at: int) -> None:
+        self.at = at
+        self.calls = 0
+
+    def __call__(self, x: np.ndarray) -> float:
+        self.calls += 1
+        if self.calls == self.at:
+            os.kill(os.getpid(), signal.SIGINT)
+        return himmelblau(x)
+
+
+def test_ctrl_c_halts_every_search_and_the_journal_resumes(tmp_path, sequential):
+    path = tmp_path / "explore.sqlite"
+    cut = dl.explore(InterruptsOnce(200), BOX, starts=16, seed=0, journal=path)
+    assert dl.Stop.INTERRUPTED in cut.stops
+    assert all(m.verdict is dl.Verdict.UNCHECKED for m in cut.minima)  # no check after Ctrl-C
+    kept = journal_module.read(path)
+    assert len(kept.evaluations) == cut.evaluations < 210
+    assert kept.sessions[-1]["stop"] == "interrupted"
+    done = dl.explore(himmelblau, BOX, starts=16, seed=0, journal=path)
+    _same_landscape(sequential, done)
+    assert len(journal_module.read(path).evaluations) == sequential.evaluations
 
 
 def test_resume_continues_an_exploration_from_its_journal(tmp_path, sequential):
