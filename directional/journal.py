@@ -48,8 +48,6 @@ the same journal is refused with `JournalError`.
 from __future__ import annotations
 
 import contextlib
-import dataclasses
-import hashlib
 import importlib
 import json
 import math
@@ -66,12 +64,22 @@ import numpy as np
 
 from .driver import Evaluation
 from .errors import JournalError, ProblemError
+from .identity import canonical, describe_place, difference, digest, run_identity
+from .lockfile import Lock
 from .parameters import Parameter
 
-try:  # POSIX; elsewhere journals are not locked against a second run
-    import fcntl
-except ImportError:  # pragma: no cover
-    fcntl = None  # type: ignore[assignment]
+__all__ = [
+    "ENTRY_POINTS",
+    "INTERRUPTED",
+    "Contents",
+    "Header",
+    "Journal",
+    "Target",
+    "journal_for",
+    "read",
+    "resume",
+    "run_identity",
+]
 
 FORMAT = "directional journal"
 FORMAT_VERSION = 1
@@ -121,103 +129,6 @@ _INSERT = (
 )
 
 
-# ----------------------------------------------------------------------------- identity
-
-
-def run_identity(
-    kind: str,
-    parameters: Sequence[Parameter],
-    settings: object = None,
-    **arguments: object,
-) -> dict[str, Any]:
-    """Return the identity of a run: what must agree for its journal to be resumed.
-
-    ``kind`` names the entry point (a key of `ENTRY_POINTS`); ``arguments`` are the keyword
-    arguments of that entry point that change the search, other than the parameters, the budget
-    and the time limit (e.g. ``point_tolerance``, ``check``, ``seed``, ``starts``); ``settings``
-    is the search's settings dataclass, stored in full so that a change of a default is caught.
-
-    >>> run_identity("minimize", [Parameter("k", 1.0, 0.0, 2.0)], point_tolerance=1e-6)["kind"]
-    'minimize'
-    """
-    identity = {
-        "kind": str(kind),
-        "parameters": [
-            {
-                "name": p.name,
-                "start": p.start,
-                "lower": p.lower,
-                "upper": p.upper,
-                "scale": p.scale,
-                "unit": p.unit,
-            }
-            for p in parameters
-        ],
-        "arguments": dict(arguments),
-        "settings": dataclasses.asdict(settings) if dataclasses.is_dataclass(settings) else {},
-    }
-    return json.loads(_canonical(identity))
-
-
-def _canonical(value: object) -> str:
-    """The identity as canonical JSON text (sorted keys, exact floats; inf as ``Infinity``)."""
-    return json.dumps(value, sort_keys=True, separators=(",", ":"), default=_plain)
-
-
-def _plain(value: object) -> object:
-    if isinstance(value, np.bool_):
-        return bool(value)
-    if isinstance(value, np.integer):
-        return int(value)
-    if isinstance(value, np.floating):
-        return float(value)
-    if isinstance(value, np.ndarray):
-        return value.tolist()
-    if isinstance(value, tuple | set | frozenset):
-        return list(value)
-    if isinstance(value, os.PathLike):
-        return os.fspath(value)
-    return repr(value)
-
-
-def _digest(identity: Mapping[str, Any]) -> str:
-    return hashlib.sha256(_canonical(identity).encode()).hexdigest()
-
-
-def _difference(old: object, new: object, where: str = "") -> tuple[str, object, object] | None:
-    """The first place where two JSON values differ: ``(path, old, new)``, or None."""
-    if isinstance(old, dict) and isinstance(new, dict):
-        for key in sorted(set(old) | set(new), key=str):
-            here = f"{where}.{key}" if where else str(key)
-            if key not in old or key not in new:
-                return here, old.get(key, "(absent)"), new.get(key, "(absent)")
-            found = _difference(old[key], new[key], here)
-            if found:
-                return found
-        return None
-    if isinstance(old, list) and isinstance(new, list):
-        for i, (a, b) in enumerate(zip(old, new)):
-            found = _difference(a, b, f"{where}[{i}]")
-            if found:
-                return found
-        if len(old) != len(new):
-            return f"{where} (length)", len(old), len(new)
-        return None
-    same = old == new and type(old) is type(new)
-    if isinstance(old, float) and isinstance(new, float):
-        same = old == new or (math.isnan(old) and math.isnan(new))
-    return None if same else (where, old, new)
-
-
-def _name_parameters(where: str, identity: Mapping[str, Any]) -> str:
-    """``parameters[1].lower`` -> ``parameters[1].lower (parameter 'k')``, for people."""
-    if where.startswith("parameters["):
-        index = where[len("parameters[") :].split("]", 1)[0]
-        if index.isdigit() and int(index) < len(identity.get("parameters", [])):
-            return f"{where} (parameter {identity['parameters'][int(index)]['name']!r})"
-    return where
-
-
 # ----------------------------------------------------------------------------- the journal
 
 
@@ -263,7 +174,7 @@ class Journal:
         self,
         path: Path,
         connection: sqlite3.Connection,
-        lock: _Lock,
+        lock: Lock,
         header: Header,
         stored: tuple[Evaluation, ...],
         session: int,
@@ -309,14 +220,14 @@ class Journal:
         if sync not in SYNC_MODES:
             raise ProblemError(f"sync must be one of {SYNC_MODES!r}, got {sync!r}")
         path = _journal_path(path)
-        identity = json.loads(_canonical(identity))
+        identity = json.loads(canonical(identity))
         if path.exists() and not path.is_file():
             raise JournalError(f"journal {str(path)!r} is not a file")
         try:
             path.parent.mkdir(parents=True, exist_ok=True)
         except OSError as error:
             raise JournalError(f"cannot make the folder of journal {str(path)!r}: {error}") from None
-        lock = _Lock.take(path)
+        lock = Lock.take(path)
         connection = None
         try:
             connection = _connect(path)
@@ -657,11 +568,11 @@ def _create(
 ) -> Header:
     header = Header(
         identity=dict(identity),
-        digest=_digest(identity),
+        digest=digest(identity),
         version=_package_version(),
         created=time.time(),
         budget=None if budget is None else int(budget),
-        info=json.loads(_canonical(dict(info))),
+        info=json.loads(canonical(dict(info))),
     )
     connection.execute("BEGIN IMMEDIATE")
     try:
@@ -674,10 +585,10 @@ def _create(
                 "format_version": str(FORMAT_VERSION),
                 "version": header.version,
                 "created": repr(header.created),
-                "identity": _canonical(header.identity),
+                "identity": canonical(header.identity),
                 "identity_sha256": header.digest,
                 "budget": "" if budget is None else str(int(budget)),
-                "info": _canonical(header.info),
+                "info": canonical(header.info),
             },
         )
         connection.execute("COMMIT")
@@ -717,13 +628,13 @@ def _read_header(connection: sqlite3.Connection, path: Path) -> Header:
         info = json.loads(items.get("info", "{}"))
         budget = int(items["budget"]) if items.get("budget") else None
         created = float(items.get("created", "nan"))
-        digest = items["identity_sha256"]
+        stored_digest = items["identity_sha256"]
         if not isinstance(identity, dict) or not isinstance(identity.get("parameters"), list):
             raise ValueError("the identity is not a JSON object with parameters")
         parameters = [Parameter(**row) for row in identity["parameters"]]
     except (KeyError, ValueError, TypeError) as error:
         raise JournalError(f"journal {str(path)!r} has a damaged header: {error}") from None
-    if _digest(identity) != digest:
+    if digest(identity) != stored_digest:
         raise JournalError(
             f"journal {str(path)!r} has a damaged header: the identity does not match its SHA-256"
         )
@@ -731,7 +642,7 @@ def _read_header(connection: sqlite3.Connection, path: Path) -> Header:
         raise JournalError(f"journal {str(path)!r} has a damaged header: no parameters")
     return Header(
         identity=identity,
-        digest=digest,
+        digest=stored_digest,
         version=items.get("version", "?"),
         created=created,
         budget=budget,
@@ -740,9 +651,9 @@ def _read_header(connection: sqlite3.Connection, path: Path) -> Header:
 
 
 def _compare(path: Path, header: Header, identity: Mapping[str, Any]) -> None:
-    if header.digest == _digest(identity):
+    if header.digest == digest(identity):
         return
-    found = _difference(header.identity, dict(identity)) or ("identity", "?", "?")
+    found = difference(header.identity, dict(identity)) or ("identity", "?", "?")
     where, old, new = found
     if where == "kind":
         raise JournalError(
@@ -750,7 +661,7 @@ def _compare(path: Path, header: Header, identity: Mapping[str, Any]) -> None:
             f"the same kind of run (dl.resume picks it)"
         )
     raise JournalError(
-        f"journal {str(path)!r} belongs to another problem: {_name_parameters(where, header.identity)} "
+        f"journal {str(path)!r} belongs to another problem: {describe_place(where, header.identity)} "
         f"is {old!r} in the journal but {new!r} now; use another journal file, or the same "
         "settings to resume"
     )
@@ -815,60 +726,3 @@ def _package_version() -> str:
     from . import __version__  # at call time: the package is fully imported by then
 
     return __version__
-
-
-# ----------------------------------------------------------------------------- the lock
-
-
-class _Lock:
-    """An exclusive ``flock`` on ``<journal>.lock``, holding the owner's process id."""
-
-    def __init__(self, path: Path, descriptor: int | None) -> None:
-        self.path = path
-        self._descriptor = descriptor
-
-    @classmethod
-    def take(cls, journal: Path) -> _Lock:
-        """Lock ``journal`` for this process.
-
-        Raises
-        ------
-        JournalError
-            When another run holds the lock, or the lock file cannot be made.
-        """
-        path = journal.with_name(journal.name + ".lock")
-        if fcntl is None:  # pragma: no cover
-            return cls(path, None)
-        for _ in range(100):
-            try:
-                descriptor = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
-            except OSError as error:
-                raise JournalError(f"cannot lock journal {str(journal)!r}: {error}") from None
-            try:
-                fcntl.flock(descriptor, fcntl.LOCK_EX | fcntl.LOCK_NB)
-            except OSError:
-                owner = os.read(descriptor, 64).decode(errors="replace").strip()
-                os.close(descriptor)
-                raise JournalError(
-                    f"journal {str(journal)!r} is in use by another run"
-                    + (f" (process {owner})" if owner else "")
-                ) from None
-            # The holder before us may have removed the file after we opened it: lock it again.
-            try:
-                same = os.stat(path).st_ino == os.fstat(descriptor).st_ino
-            except FileNotFoundError:
-                same = False
-            if same:
-                os.ftruncate(descriptor, 0)
-                os.write(descriptor, str(os.getpid()).encode())
-                return cls(path, descriptor)
-            os.close(descriptor)
-        raise JournalError(f"cannot lock journal {str(journal)!r}: the lock file keeps changing")
-
-    def release(self) -> None:
-        if self._descriptor is None:
-            return
-        with contextlib.suppress(OSError):
-            os.unlink(self.path)
-        os.close(self._descriptor)
-        self._descriptor = None

@@ -1,0 +1,73 @@
+"""A lock file that keeps a second run off a journal: ``flock`` on ``<journal>.lock``.
+
+``fcntl.flock`` is released by the operating system when its process dies, however it dies, so a
+killed run leaves no stale lock; the file holds the owner's process id, for the message.  POSIX;
+where ``fcntl`` is missing, nothing is locked.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+from pathlib import Path
+
+from .errors import JournalError
+
+try:
+    import fcntl
+except ImportError:  # pragma: no cover
+    fcntl = None  # type: ignore[assignment]
+
+
+class Lock:
+    """An exclusive ``flock`` on ``<journal>.lock``, holding the owner's process id."""
+
+    def __init__(self, path: Path, descriptor: int | None) -> None:
+        self.path = path
+        self._descriptor = descriptor
+
+    @classmethod
+    def take(cls, journal: Path) -> Lock:
+        """Lock ``journal`` for this process.
+
+        Raises
+        ------
+        JournalError
+            When another run holds the lock, or the lock file cannot be made.
+        """
+        path = journal.with_name(journal.name + ".lock")
+        if fcntl is None:  # pragma: no cover
+            return cls(path, None)
+        for _ in range(100):
+            try:
+                descriptor = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
+            except OSError as error:
+                raise JournalError(f"cannot lock journal {str(journal)!r}: {error}") from None
+            try:
+                fcntl.flock(descriptor, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            except OSError:
+                owner = os.read(descriptor, 64).decode(errors="replace").strip()
+                os.close(descriptor)
+                raise JournalError(
+                    f"journal {str(journal)!r} is in use by another run"
+                    + (f" (process {owner})" if owner else "")
+                ) from None
+            # The holder before us may have removed the file after we opened it: lock it again.
+            try:
+                same = os.stat(path).st_ino == os.fstat(descriptor).st_ino
+            except FileNotFoundError:
+                same = False
+            if same:
+                os.ftruncate(descriptor, 0)
+                os.write(descriptor, str(os.getpid()).encode())
+                return cls(path, descriptor)
+            os.close(descriptor)
+        raise JournalError(f"cannot lock journal {str(journal)!r}: the lock file keeps changing")
+
+    def release(self) -> None:
+        if self._descriptor is None:
+            return
+        with contextlib.suppress(OSError):
+            os.unlink(self.path)
+        os.close(self._descriptor)
+        self._descriptor = None
