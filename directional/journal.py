@@ -183,6 +183,7 @@ class Journal:
         self.path = path
         self.header = header
         self.stored = stored
+        self.resumed = session > 1  # the file held a journal of this run already
         self.written = 0
         self._connection = connection
         self._lock = lock
@@ -299,6 +300,14 @@ class Journal:
             raise JournalError(f"cannot write to journal {str(self.path)!r}: {error}") from None
         self.written += 1
 
+    def last_stop(self) -> str:
+        """How the session before this one ended ("" when it was killed)."""
+        row = self._connection.execute(
+            "SELECT stop FROM session WHERE session < ? ORDER BY session DESC LIMIT 1",
+            (self._session,),
+        ).fetchone()
+        return str(row[0] or "") if row else ""
+
     def _adapt(self, full: bool) -> None:
         if full != self._full:
             self._connection.execute(f"PRAGMA synchronous={'FULL' if full else 'NORMAL'}")
@@ -396,22 +405,15 @@ def journal_for(
     if not isinstance(journal, str | os.PathLike) or not os.fspath(journal):
         raise ProblemError(f"journal must be a file path or None, got {journal!r}")
     opened = Journal.open(journal, identity, budget=budget, info=info)
-    if opened.stored:
-        done = [s for s in _sessions(opened) if s["stop"]]
+    if opened.resumed:
+        last = opened.last_stop()
         print(
             f"directional: resuming journal {str(opened.path)!r}: {len(opened.stored)} "
-            f"evaluations stored are replayed, not repeated"
-            + (f" (last run: {done[-1]['stop']})" if done else ""),
+            "evaluations stored are replayed, not repeated; the last run "
+            + (f"ended: {last}" if last else "did not end cleanly (killed?)"),
             file=stderr if stderr is not None else sys.stderr,
         )
     return opened
-
-
-def _sessions(journal: Journal) -> list[dict[str, Any]]:
-    cursor = journal._connection.execute(  # noqa: SLF001
-        "SELECT stop FROM session WHERE session < ? ORDER BY session", (journal._session,)  # noqa: SLF001
-    )
-    return [{"stop": row[0]} for row in cursor]
 
 
 # ----------------------------------------------------------------------------- reading

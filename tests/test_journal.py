@@ -145,7 +145,7 @@ def test_resuming_a_finished_run_evaluates_nothing(tmp_path, reference, capsys):
     sol = dl.resume(path, objective)
     assert objective.calls == 0
     same_solution(sol, reference)
-    assert "resuming journal" in capsys.readouterr().err
+    assert "the last run ended: converged" in capsys.readouterr().err
     assert len(rows(path)) == reference.evaluations
     sessions = jr.read(path).sessions
     assert [s["replayed"] for s in sessions] == [0, reference.evaluations]

@@ -153,7 +153,7 @@ def kill_points(reference: dl.Solution) -> dict[str, int]:
         "last",
     ],
 )
-def test_sigkill_then_resume(tmp_path, reference, where):
+def test_sigkill_then_resume(tmp_path, reference, where, capsys):
     at = kill_points(reference)[where]
     child = start_child(tmp_path, "kill", at)
     out, err = child.communicate(timeout=120)
@@ -164,6 +164,9 @@ def test_sigkill_then_resume(tmp_path, reference, where):
     assert all(status == "ok" for _, status, _ in rows)
     assert Path(str(path) + ".lock").exists()  # left behind, but no longer locked
     resume_and_compare(path, reference, at - 1)
+    message = capsys.readouterr().err
+    assert f"resuming journal {str(path)!r}: {at - 1} evaluations stored" in message
+    assert "the last run did not end cleanly" in message
 
 
 def test_sigkill_at_a_random_moment_then_resume(tmp_path, reference):
