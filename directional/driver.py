@@ -9,10 +9,11 @@ back a float array of the same length, until the generator returns its `Outcome`
   a value that is not a real number raises `ObjectiveError` at once (a programming error);
 - ``-inf`` means the objective is unbounded below: the search is halted (STALLED, with the point).
 
-The search is halted by throwing `Halt` into it when the budget of evaluations is spent
-(BUDGET), the time limit has passed (BUDGET), Ctrl-C arrives (INTERRUPTED) or the last
-``stall_after`` evaluations all failed (STALLED).  A partial batch is never sent back; the points of
-it that were evaluated still count and still reach the log, so nothing computed is lost.
+The search is halted by throwing `Halt` into it when the budget of evaluations is spent (BUDGET),
+the time limit has passed (BUDGET), Ctrl-C arrives (INTERRUPTED) or the last ``stall_after``
+evaluations all failed (STALLED, at once after the failure that makes them so). A partial batch is
+never sent back; the points of it that were evaluated still count and still reach the log, so
+nothing computed is lost.
 
 Every evaluation carries the id of the search that asked for it (``run(..., search=k)``, 0 by
 default) and its ``sequence``, its place among that search's evaluations; several generators run
@@ -26,12 +27,13 @@ evaluation is logged, cached and counted against the budget like a live one, but
 again.  The search is deterministic given its values, so it then goes on live from exactly where
 the journal ends.
 
-Ctrl-C.  When the run is in the main thread and SIGINT has Python's default handler, the driver
+Ctrl-C. When the run is in the main thread and SIGINT has Python's default handler, the driver
 installs its own for the duration of `Driver.run`: a Ctrl-C while the objective runs raises
 `KeyboardInterrupt` there as usual (the evaluation is recorded with status ``interrupted`` and no
-value, and is made again on resume); a Ctrl-C at any other moment is noted, and the run halts
-before the next evaluation.  So an interrupt never lands in the middle of the driver's or the
-journal's bookkeeping.
+value, and is made again on resume; so is one that failed in any way after the Ctrl-C, e.g. an
+objective that turned the interrupt into its own error); a Ctrl-C at any other moment is noted, and
+the run halts before the next evaluation. So an interrupt never lands in the middle of the driver's
+or the journal's bookkeeping.
 """
 
 from __future__ import annotations
@@ -242,25 +244,12 @@ class Driver:
         try:
             value, status, detail = call(self.objective, x)
         except KeyboardInterrupt:
-            if self.record is not None:
-                self.record(
-                    Evaluation(
-                        index=self.spent,
-                        point=x.copy(),
-                        value=math.inf,
-                        status="interrupted",
-                        detail="interrupted by the user",
-                        purpose=purpose,
-                        started=started,
-                        seconds=time.perf_counter() - tick,
-                        search=search,
-                        sequence=sequence,
-                    )
-                )
-            raise Halt(Stop.INTERRUPTED, "interrupted by the user") from None
+            value, status, detail = math.inf, "interrupted", "interrupted by the user"
         finally:
             self._interrupts.inside = False
-        return Evaluation(
+        if status != "ok" and self._interrupts.pending:  # failed because of the Ctrl-C
+            value, status = math.inf, "interrupted"
+        evaluation = Evaluation(
             index=self.spent,
             point=x.copy(),
             value=value,
@@ -272,6 +261,11 @@ class Driver:
             search=search,
             sequence=sequence,
         )
+        if status == "interrupted":  # journaled, to be made again on resume; never logged
+            if self.record is not None:
+                self.record(evaluation)
+            raise Halt(Stop.INTERRUPTED, "interrupted by the user")
+        return evaluation
 
 
 def _replayed(stored: Evaluation, x: np.ndarray, purpose: str, index: int) -> Evaluation:

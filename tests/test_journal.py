@@ -223,6 +223,32 @@ def test_ctrl_c_outside_the_objective_halts_before_the_next_evaluation():
     assert signal.getsignal(signal.SIGINT) is signal.default_int_handler  # put back
 
 
+def test_an_objective_that_turns_ctrl_c_into_its_own_error(tmp_path, reference):
+    """The failure that follows a Ctrl-C is the interrupt's doing: made again on resume."""
+    import signal
+
+    calls = 0
+
+    def objective(x):
+        nonlocal calls
+        calls += 1
+        if calls == 40:
+            try:
+                signal.raise_signal(signal.SIGINT)
+            except KeyboardInterrupt:
+                raise RuntimeError("solver aborted") from None
+        return rosenbrock(x)
+
+    path = tmp_path / "run.sqlite"
+    sol = dl.minimize(objective, START, journal=path)
+    assert sol.stop is Stop.INTERRUPTED and sol.evaluations == 39 and sol.failures == 0
+    assert [row[4] for row in rows(path)][-2:] == ["ok", "interrupted"]
+    assert rows(path)[-1][5] == "RuntimeError: solver aborted"
+    counting = Counting()
+    same_solution(dl.resume(path, counting), reference)
+    assert counting.calls == reference.evaluations - 39
+
+
 def test_stored_value_is_fed_back_without_calling_the_objective():
     """Replay at the driver: values come from the journal, repeats from the cache."""
     stored = [
