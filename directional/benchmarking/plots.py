@@ -97,7 +97,7 @@ def scaling(
     b.set_xticks(sizes, [str(k) for k in sizes])
     b.minorticks_off()
     b.set_xlabel("n")
-    b.set_ylabel("µs per evaluation, outside the objective")
+    b.set_ylabel("processor µs per evaluation, outside the objective")
     b.set_title("optimizer overhead")
     b.grid(True, alpha=0.3)
     if overhead:

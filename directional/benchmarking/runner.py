@@ -1,6 +1,6 @@
 """`directional bench`: run the benchmarks, write RESULTS.md and the figures.
 
-Three sizes of run share one code path: ``full`` (the default; about ten minutes on two cores),
+Three sizes of run share one code path: ``full`` (the default; a few minutes on two cores),
 ``--quick`` (a subset, under two minutes) and ``--smoke`` (a few seconds, for the test suite).
 """
 
@@ -177,7 +177,7 @@ def _scaling_figure(out: Path, quadratics, overhead, function) -> None:
         out / "scaling.png",
         [(c.n, c.ratio) for c in quadratics
          if c.label.startswith("quadratic") and np.isfinite(c.reached)],
-        [(o.solver, o.n, o.per_evaluation * 1e6) for o in overhead],
+        [(o.solver, o.n, o.cpu_per_evaluation * 1e6) for o in overhead],
         line_errors,
     )
 
@@ -282,7 +282,9 @@ def _scaling_section(quadratics, overhead, line, orders, order, order_pairs) -> 
         "",
         "### Optimizer overhead",
         "",
-        "Wall time minus the time inside the objective, per evaluation, on random convex "
+        "Total time minus the time inside the objective, per evaluation, as processor time of "
+        "the benchmark process (what the targets use: other processes on the shared machine "
+        "do not inflate it) and as wall time, on random convex "
         "quadratics (condition 1e3, one matrix-vector product per evaluation), runs repeated "
         "until the evaluations are spent; a run stops on its own or when the evaluations left "
         "are spent, so at small n many short runs carry their start-up cost. To show where the "

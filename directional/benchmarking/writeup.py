@@ -261,9 +261,10 @@ def overhead_target(rows: Sequence[Overhead]) -> list[tuple[str, str, bool, str]
     for n, limit in ((10, 30e-6), (100, 300e-6)):
         mine = [r for r in rows if r.solver == "directional" and r.n == n]
         if mine:
-            t = mine[0].per_evaluation
+            t = mine[0].cpu_per_evaluation
             out.append((f"overhead at n = {n} ≤ {limit * 1e6:.0f} µs per evaluation",
-                        f"{t * 1e6:.0f} µs", t <= limit, f"{mine[0].evaluations} evaluations"))
+                        f"{t * 1e6:.0f} µs processor time ({mine[0].per_evaluation * 1e6:.0f} µs "
+                        "wall)", t <= limit, f"{mine[0].evaluations} evaluations"))
     return out
 
 
@@ -304,10 +305,11 @@ def quadratic_table(counts: Sequence[Count]) -> list[str]:
 
 
 def overhead_table(rows: Sequence[Overhead]) -> list[str]:
-    return table(["solver", "n", "evaluations", "runs", "optimizer µs per evaluation",
-                  "objective µs per evaluation"],
-                 [[r.solver, r.n, r.evaluations, r.runs, f"{r.per_evaluation * 1e6:.1f}",
-                   f"{r.objective_per_evaluation * 1e6:.1f}"] for r in rows])
+    return table(["solver", "n", "evaluations", "runs", "optimizer µs per evaluation (processor)",
+                  "(wall)", "objective µs per evaluation (wall)"],
+                 [[r.solver, r.n, r.evaluations, r.runs, f"{r.cpu_per_evaluation * 1e6:.1f}",
+                   f"{r.per_evaluation * 1e6:.1f}", f"{r.objective_per_evaluation * 1e6:.1f}"]
+                  for r in rows])
 
 
 def line_table(rows: Sequence[LineCount], orders: dict[str, tuple[float, int]]) -> list[str]:
