@@ -215,6 +215,12 @@ def _summary_lines(land: Landscape) -> list[str]:
         )
     for note in land.notes:
         lines.append(f"  note: {note}")
+    for i, sol in enumerate(land.minima):
+        for note in sol.notes:
+            lines.append(f"  #{i + 1}: {note}")
+        if sol.curvature is not None and sol.verdict is Verdict.FLAT:
+            for combination in getattr(sol.curvature, "undetermined", ()):
+                lines.append(f"  #{i + 1}: not determined: {combination}")
     return lines
 
 

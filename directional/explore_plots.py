@@ -74,8 +74,11 @@ def start_map(
         grid = _grid(landscape, objective, (i, j), log, kind, extra)
         if grid is not None:
             _contours(fig, ax, *grid)
+            where = "map: a slice through the best minimum"
         else:
-            _scattered(fig, ax, landscape, (i, j), log)
+            drawn = _scattered(fig, ax, landscape, (i, j), log)
+            where = "map: the evaluations made, seen along the other parameters" if drawn else ""
+
         _starts(ax, landscape, i, j)
         if log[0]:
             ax.set_xscale("log")
@@ -85,12 +88,14 @@ def start_map(
         ax.set_ylim(landscape.lower[j], landscape.upper[j])
         ax.set_xlabel(landscape.names[i] + (" (log scale)" if log[0] else ""))
         ax.set_ylabel(landscape.names[j] + (" (log scale)" if log[1] else ""))
+        count = len(landscape.minima)
         heading = (
-            f"Start map: {len(landscape.starts)} starts, {len(landscape.minima)} distinct minima\n"
+            f"Start map: {len(landscape.starts)} starts, {count} distinct "
+            f"minim{'um' if count == 1 else 'a'}\n"
             "each start coloured by the minimum its search reached"
         )
-        if len(landscape.names) > 2:
-            heading += "\n(map: a slice through the best minimum)"
+        if len(landscape.names) > 2 and where:
+            heading += f"\n({where})"
         ax.set_title(f"{title}\n{heading}" if title else heading)
         ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.11), ncol=2, framealpha=0.9)
         path = Path(path)
@@ -185,14 +190,14 @@ def _contours(fig: Figure, ax: Any, gx: np.ndarray, gy: np.ndarray, values: np.n
 
 def _scattered(
     fig: Figure, ax: Any, landscape: Landscape, pair: tuple[int, int], log: list[bool]
-) -> None:
-    """Contours through the evaluated points themselves (no new evaluation)."""
+) -> bool:
+    """Contours through the evaluated points themselves (no new evaluation); False if none."""
     from matplotlib.tri import Triangulation
 
     i, j = pair
     seen = [e for e in landscape.history if e.status == "ok"]
     if len(seen) < 8:
-        return
+        return False
     points = np.array([e.point for e in seen])
     values = np.array([e.value for e in seen])
     x, y = points[:, i], points[:, j]
@@ -200,11 +205,11 @@ def _scattered(
     _, keep = np.unique(np.round(np.column_stack([tx, ty]), 12), axis=0, return_index=True)
     levels = _levels(values[keep], floor=0.3)  # most evaluations sit near the minima
     if levels is None or keep.size < 4:
-        return
+        return False
     try:
         triangles = Triangulation(tx[keep], ty[keep]).triangles
     except (ValueError, RuntimeError):  # all points on a line: no map
-        return
+        return False
     mesh = Triangulation(x[keep], y[keep], triangles)
     from matplotlib.colors import BoundaryNorm
 
@@ -213,6 +218,7 @@ def _scattered(
         alpha=0.55,
     )
     fig.colorbar(filled, ax=ax, format="%.3g", label="objective (from the evaluations made)")
+    return True
 
 
 def _starts(ax: Any, landscape: Landscape, i: int, j: int) -> None:

@@ -1,4 +1,4 @@
-"""Explore the bioreactor calibration from 8 starts on a Dask cluster.
+"""Explore the bioreactor calibration from 4 starts on a Dask cluster.
 
     python explore_on_dask.py                          # a LocalCluster of 2 workers, made here
     python explore_on_dask.py tcp://scheduler:8786     # your running Dask scheduler
@@ -36,7 +36,7 @@ def main(address: str | None) -> None:
             land = dl.explore(
                 bioreactor.misfit,
                 bioreactor.PARAMETERS,  # bounds and log scales; the first start is their start
-                starts=8,
+                starts=4,
                 seed=0,
                 executor=client.get_executor(),
                 journal=HERE / "runs" / "explore-bioreactor.sqlite",
