@@ -29,16 +29,17 @@ larger budget to go further (the budget counts the journaled evaluations too).
 An evaluation interrupted by Ctrl-C is stored with status ``interrupted`` and no value; it is
 informative only and is evaluated again on resume.
 
-Durability.  The journal runs in WAL mode with ``synchronous=NORMAL`` by default, and switches to
+Durability. The journal runs in WAL mode with ``synchronous=NORMAL`` by default, and switches to
 ``synchronous=FULL`` for the commit of any evaluation that took at least `SYNC_AFTER` seconds
-("adaptive").  A NORMAL commit is in the operating system's hands when it returns, so it survives
-the death of the process; it may be lost in a power cut, which never corrupts the file but can
-drop the last commits (always a suffix, so the journal stays a valid prefix of the run and the
-lost evaluations are simply made again on resume).  A FULL commit is on the disk when it
-returns, and with it every commit before it.  So an evaluation that cost real time is never lost,
-even to a power cut, while a cheap objective pays about 15 µs per evaluation instead of an
-``fsync`` (0.1 ms on a fast SSD, milliseconds on a disk).  ``sync="full"`` or ``"normal"`` force
-one mode (see ``benchmarks/journal_overhead.py``).
+("adaptive"). A NORMAL commit is in the operating system's hands when it returns, so it survives
+the death of the process; it may be lost in a power cut, which never corrupts the file but can drop
+the last commits (always a suffix, so the journal stays a valid prefix of the run and the lost
+evaluations are simply made again on resume). A FULL commit is on the disk when it returns, and
+with it every commit before it; so is everything once the run closes the journal (the final
+checkpoint syncs the log and the file). So an evaluation that cost real time is never lost, even to
+a power cut, while a cheap objective pays some 10 to 30 µs per evaluation instead of an ``fsync``
+(0.1 ms to several ms; measured in ``benchmarks/results/journal.md``). ``sync="full"`` or
+``"normal"`` force one mode (see ``benchmarks/journal_overhead.py``).
 
 A journal is locked while a run writes it (``fcntl.flock`` on ``<journal>.lock``, released by the
 operating system when the process dies, so a killed run leaves no stale lock); a second run on
@@ -300,6 +301,12 @@ class Journal:
             raise JournalError(f"cannot write to journal {str(self.path)!r}: {error}") from None
         self.written += 1
 
+    @property
+    def synchronous(self) -> str:
+        """SQLite's ``synchronous`` setting now: "NORMAL" or "FULL" (see the module docstring)."""
+        level = self._connection.execute("PRAGMA synchronous").fetchone()[0]
+        return {0: "OFF", 1: "NORMAL", 2: "FULL", 3: "EXTRA"}[int(level)]
+
     def last_stop(self) -> str:
         """How the session before this one ended ("" when it was killed)."""
         row = self._connection.execute(
@@ -328,8 +335,7 @@ class Journal:
         if error is not None:
             stop = stop or ("interrupted" if isinstance(error, KeyboardInterrupt) else "error")
             reason = reason or f"{type(error).__name__}: {error}"[:2000]
-        try:
-            self._adapt(True)
+        try:  # closing checkpoints the log into the file, with an fsync of both: all durable
             self._connection.execute(
                 "UPDATE session SET closed = ?, replayed = ?, evaluated = ?, stop = ?, reason = ? "
                 "WHERE session = ?",

@@ -135,6 +135,29 @@ def test_points_and_values_round_trip_bit_for_bit(tmp_path_factory, point, value
     assert np.float64(back.value).tobytes() == np.float64(value).tobytes()
 
 
+@pytest.mark.parametrize(
+    ("sync", "seconds", "expected"),
+    [
+        ("adaptive", [0.001, 5.0, 0.001], ["NORMAL", "FULL", "NORMAL"]),
+        ("normal", [0.001, 5.0], ["NORMAL", "NORMAL"]),
+        ("full", [0.001, 5.0], ["FULL", "FULL"]),
+    ],
+)
+def test_a_long_evaluation_is_committed_to_the_disk(tmp_path, sync, seconds, expected):
+    """Adaptive sync: an evaluation that took SYNC_AFTER or longer gets an fsync'd commit."""
+    identity = jr.run_identity("minimize", [dl.Parameter("x0", 0.0)])
+    seen = []
+    with jr.Journal.open(tmp_path / "run.sqlite", identity, sync=sync) as journal:
+        for i, spent in enumerate(seconds):
+            journal.append(
+                Evaluation(index=i, point=np.array([i]), value=1.0, status="ok", seconds=spent,
+                           sequence=i)
+            )
+            seen.append(journal.synchronous)
+    assert seen == expected
+    assert jr.SYNC_AFTER <= 5.0
+
+
 # ----------------------------------------------------------------------------- resume
 
 
