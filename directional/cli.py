@@ -25,7 +25,7 @@ from .records import Stop, Verdict
 from .solution import CAUTION, Solution
 
 OK, UNVERIFIED, BAD_INPUT = 0, 1, 2
-EXTRA = 500  # report-only evaluations the plots may spend, by default
+PLOT_SECONDS = 20.0  # by default, plots spend report-only evaluations worth about this long
 
 _CODES = """\
 exit codes: 0 a verified minimum, 1 the search ended without one (or was interrupted),
@@ -34,6 +34,9 @@ exit codes: 0 a verified minimum, 1 the search ended without one (or was interru
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line with ``argv`` (default ``sys.argv[1:]``); return the exit code."""
+    argv = list(sys.argv[1:] if argv is None else argv)
+    if argv[:1] == ["bench"]:
+        return _bench(argv[1:])
     parser = _parser()
     args = parser.parse_args(argv)
     if args.command is None:
@@ -126,13 +129,11 @@ def _parser() -> argparse.ArgumentParser:
     check.add_argument("problem", metavar="PROBLEM.toml", help="the problem file")
     check.set_defaults(handler=_check)
 
-    bench = command(
+    command(
         "bench", "run the standard test problems",
-        "Run the benchmarks on the standard test problems and write their tables.",
+        "Run the benchmarks on the standard test problems and write their tables "
+        "(directional bench --help lists their options).",
     )
-    bench.add_argument("--quick", action="store_true", help="a short smoke run")
-    bench.add_argument("rest", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
-    bench.set_defaults(handler=_bench)
     return parser
 
 
@@ -140,9 +141,9 @@ def _outputs(sub: argparse.ArgumentParser, progress: bool = True) -> None:
     sub.add_argument("--json", metavar="OUT", help="write the solution as JSON to OUT")
     sub.add_argument("--plots", metavar="DIR", help="write PNG plots into DIR")
     sub.add_argument(
-        "--plot-evaluations", type=_count, default=EXTRA, metavar="N",
+        "--plot-evaluations", type=_count, default=None, metavar="N",
         help="most report-only evaluations for maps and profiles, not journaled "
-        "(default: %(default)s; 0: none)",
+        f"(default: what fits in about {PLOT_SECONDS:g} s, at most 500; 0: none)",
     )
     if progress:
         sub.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -273,16 +274,21 @@ def _residuals_once(objective, start: np.ndarray) -> tuple[float, str, str, int 
     return float(r @ r), "ok", "", int(r.size)
 
 
-def _bench(args: argparse.Namespace) -> int:
+def _bench(argv: list[str]) -> int:
+    """Hand the arguments to `directional.benchmarking.main` as they are."""
     try:
         from .benchmarking import main as bench_main
     except ImportError:
-        print("directional bench: not yet available in this version")
+        if "-h" in argv or "--help" in argv:
+            print("usage: directional bench [--quick]\n\nRun the benchmarks on the standard test "
+                  "problems (not yet available in this version).")
+        else:
+            print("directional bench: not yet available in this version")
         return OK
-    rest = list(args.rest or [])
-    if args.quick:
-        rest.insert(0, "--quick")
-    return int(bench_main(rest))
+    try:
+        return int(bench_main(argv) or 0)
+    except SystemExit as done:  # its own argument parser: --help, or a bad option
+        return int(done.code or 0)
 
 
 # ----------------------------------------------------------------------------- reports
@@ -301,10 +307,11 @@ def finish(
     plots: str | Path | None = None,
     summary: str | Path | None = None,
     journal: Path | None = None,
-    extra: int = EXTRA,
+    extra: int | None = None,
     parameters: Sequence | None = None,
     out: TextIO | None = None,
     show_files: bool = False,
+    inputs: Sequence[Path] = (),
 ) -> int:
     """Print the summary, write the requested files, say where they are; return the exit code."""
     from . import report
@@ -315,7 +322,7 @@ def finish(
     print(report.summary_text(sol, title), file=out)
     if sol.stop is Stop.INTERRUPTED and journal is not None:
         print(f"\nTo continue: directional resume {journal}", file=out)
-    written: list[Path] = []
+    written: list[Path] = list(inputs)
     if journal is not None and show_files:
         written.append(Path(journal))
     if summary is not None:
@@ -334,10 +341,16 @@ def finish(
 
 
 def _plots(
-    sol: Solution, problem: Problem | None, folder: Path, extra: int, parameters: Sequence | None
+    sol: Solution,
+    problem: Problem | None,
+    folder: Path,
+    extra: int | None,
+    parameters: Sequence | None,
 ) -> list[Path]:
-    from .plots import write_plots
+    from .plots import affordable, write_plots
 
+    if extra is None:
+        extra = affordable(sol, PLOT_SECONDS)
     objective = fit = None
     kind = "value"
     if problem is not None:

@@ -141,4 +141,5 @@ def run(folder: str | Path = FOLDER, *, quiet: bool = False, out: TextIO | None 
         journal=problem.journal,
         out=out,
         show_files=True,
+        inputs=(path, folder / "data.csv"),
     )

@@ -114,6 +114,18 @@ def write_plots(
     return written
 
 
+def affordable(sol: Solution, seconds: float = 20.0, most: int = 500) -> int:
+    """Report-only evaluations that fit in about ``seconds``, at most ``most``.
+
+    Estimated from the mean wall time of the run's evaluations, so that plots of a cheap Python
+    model get full maps and profiles while an expensive program gets few or none.
+    """
+    times = [e.seconds for e in sol.history if e.status == "ok" and e.seconds > 0]
+    if not times:
+        return most
+    return int(min(most, seconds / float(np.mean(times))))
+
+
 # ----------------------------------------------------------------------------- helpers
 
 
@@ -200,14 +212,40 @@ def _intervals(sol: Solution) -> np.ndarray | None:
     return np.asarray(intervals, dtype=float).reshape(len(sol.names), 2)
 
 
-def _hessian_diagonal(sol: Solution) -> np.ndarray:
-    c = sol.curvature
+def _hessian(sol: Solution) -> np.ndarray:
+    """The Hessian in search coordinates over all parameters, nan where it was not measured.
+
+    The curvature check measures only the parameters off their bounds; its rows are labelled
+    ``name`` or ``log(name)`` (`records.Curvature.names`).
+    """
     n = sol.point.size
+    full = np.full((n, n), math.nan)
+    c = sol.curvature
     if c is None:
-        return np.full(n, math.nan)
-    diagonal = np.diag(np.asarray(c.hessian, dtype=float)).copy()
-    diagonal[~np.isfinite(diagonal)] = math.nan
-    return diagonal
+        return full
+    matrix = np.asarray(c.hessian, dtype=float)
+    labels = tuple(getattr(c, "names", ()) or ())
+    if labels:
+        index = {name: i for i, name in enumerate(sol.names)}
+        rows = [index.get(_unwrapped(label), -1) for label in labels]
+    else:
+        rows = list(range(matrix.shape[0]))
+    if len(rows) != matrix.shape[0] or min(rows, default=0) < 0 or max(rows, default=0) >= n:
+        return full
+    full[np.ix_(rows, rows)] = matrix
+    full[~np.isfinite(full)] = math.nan
+    return full
+
+
+def _unwrapped(label: str) -> str:
+    for head in ("log(", "ln("):
+        if label.startswith(head) and label.endswith(")"):
+            return label[len(head):-1]
+    return label
+
+
+def _hessian_diagonal(sol: Solution) -> np.ndarray:
+    return np.diag(_hessian(sol)).copy()
 
 
 def _widths(
@@ -224,10 +262,9 @@ def _widths(
     diagonal = _hessian_diagonal(sol)
     rise = max(0.5 * abs(sol.value), 1e-3)
     if kind == "residuals":
-        m = _residual_count(sol)
-        p = sol.point.size
-        if m is not None and m > p:
-            rise = 0.5 * 9.0 * 2.0 * sol.value / (m - p)
+        variance = _residual_variance(sol)
+        if math.isfinite(variance) and variance > 0:
+            rise = 0.5 * 9.0 * 2.0 * variance
     widths = np.empty(y.size)
     for i in range(y.size):
         span = axes.upper[i] - axes.lower[i]
@@ -240,16 +277,17 @@ def _widths(
     return widths
 
 
-def _residual_count(sol: Solution) -> int | None:
+def _residual_variance(sol: Solution) -> float:
+    """``s^2 = S / (m - p)`` from the calibration's uncertainty, nan when there is none."""
     u = sol.uncertainty
-    for key in ("residual_count", "observations", "m"):
-        value = getattr(u, key, None) if u is not None else None
-        if isinstance(value, int):
-            return value
-    dof = getattr(u, "degrees_of_freedom", None) if u is not None else None
-    if isinstance(dof, int | np.integer):
-        return int(dof) + sol.point.size
-    return None
+    variance = getattr(u, "residual_variance", None) if u is not None else None
+    if isinstance(variance, int | float | np.integer | np.floating):
+        return float(variance)
+    m = getattr(u, "observations", None) if u is not None else None
+    p = sol.point.size - len(sol.active)
+    if isinstance(m, int | np.integer) and m > p:
+        return sol.value / (int(m) - p)
+    return math.nan
 
 
 # ----------------------------------------------------------------------------- history
@@ -365,8 +403,7 @@ def _profiles(
         if active:
             head += " (on a bound)"
         ax.set_title(head)
-        if i == 0:
-            ax.legend(loc="upper center")
+    _figure_legend(fig)
     heading = "Profiles through the minimum (the other parameters held at their best values)"
     fig.suptitle(f"{title}\n{heading}" if title else heading)
     return _save(fig, path)
@@ -396,17 +433,24 @@ def _pair(sol: Solution, axes: _Axes) -> tuple[int, int]:
     u = sol.uncertainty
     if u is not None and getattr(u, "correlation", None) is not None:
         correlation = np.asarray(u.correlation, dtype=float)
-    elif sol.curvature is not None:
-        try:
-            inverse = np.linalg.inv(np.asarray(sol.curvature.hessian, dtype=float))
-            d = np.sqrt(np.abs(np.diag(inverse)))
-            correlation = inverse / np.outer(d, d)
-        except np.linalg.LinAlgError:
-            correlation = None
-    if correlation is not None and correlation.shape == (n, n) and np.all(np.isfinite(correlation)):
-        off = np.abs(correlation - np.diag(np.diag(correlation)))
-        i, j = np.unravel_index(int(np.argmax(off)), off.shape)
-        return (int(min(i, j)), int(max(i, j)))
+    else:
+        hessian = _hessian(sol)
+        known = np.all(np.isfinite(hessian), axis=0)
+        if known.sum() >= 2:
+            try:
+                inverse = np.linalg.inv(hessian[np.ix_(known, known)])
+                d = np.sqrt(np.abs(np.diag(inverse)))
+                correlation = np.full((n, n), math.nan)
+                correlation[np.ix_(known, known)] = inverse / np.outer(d, d)
+            except np.linalg.LinAlgError:
+                correlation = None
+    if correlation is not None and correlation.shape == (n, n):
+        off = np.abs(correlation)
+        off[~np.isfinite(off)] = -1.0
+        np.fill_diagonal(off, -1.0)
+        if off.max() >= 0.0:
+            i, j = np.unravel_index(int(np.argmax(off)), off.shape)
+            return (int(min(i, j)), int(max(i, j)))
     points = np.array([e.point for e in sol.history]) if sol.history else sol.point[None, :]
     ys = axes.to_y(points)
     span = np.where(np.isfinite(axes.upper - axes.lower), axes.upper - axes.lower, 1.0)
@@ -467,10 +511,11 @@ def _path(
     ax.scatter(points[:, i], points[:, j], s=6, color="0.35", alpha=0.35, label="evaluations",
                zorder=3)
     ax.plot(walk[:, i], walk[:, j], "-o", color="tab:red", ms=3.5, lw=1.5,
-            label="search path (each new best)", zorder=4)
-    ax.plot(walk[0, i], walk[0, j], "s", color="white", mec="black", ms=9, label="start", zorder=5)
+            label="search path (each new best)", zorder=4, clip_on=False)
+    ax.plot(walk[0, i], walk[0, j], "s", color="white", mec="black", ms=9, label="start", zorder=5,
+            clip_on=False)
     ax.plot(sol.point[i], sol.point[j], "*", color="gold", mec="black", ms=16, label="minimum",
-            zorder=6)
+            zorder=6, clip_on=False)
     logs = [_log_axis(axes, k, *box[m]) for m, k in enumerate((i, j))]
     if logs[0]:
         ax.set_xscale("log")
@@ -484,8 +529,19 @@ def _path(
     if sol.point.size > 2:
         heading += "\n(map: a slice through the minimum, other parameters at their best values)"
     ax.set_title(f"{title}\n{heading}" if title else heading)
-    ax.legend(loc="best", framealpha=0.85)
+    _figure_legend(fig)
     return _save(fig, path)
+
+
+def _figure_legend(fig: Figure) -> None:
+    """One legend below the panels, each label once."""
+    seen: dict[str, Any] = {}
+    for ax in fig.axes:
+        for handle, label in zip(*ax.get_legend_handles_labels()):
+            seen.setdefault(label, handle)
+    if seen:
+        fig.legend(list(seen.values()), list(seen), loc="outside lower center",
+                   ncols=min(len(seen), 4), frameon=False)
 
 
 def _contours(fig: Figure, ax: Any, gx: np.ndarray, gy: np.ndarray, grid: np.ndarray, kind: str):

@@ -102,9 +102,10 @@ def _curvature(sol: Solution, by_name: dict[str, Parameter]) -> dict[str, Any] |
     if c is None:
         return None
     log = {name for name, p in by_name.items() if p.scale == "log"}
+    labels = list(getattr(c, "names", ()) or ())
     return {
         "source": c.source,
-        "coordinates": [f"ln({n})" if n in log else n for n in sol.names],
+        "coordinates": labels or [f"log({n})" if n in log else n for n in sol.names],
         "hessian": _matrix(c.hessian),
         "error": None if c.error is None else _matrix(c.error),
         "eigenvalues": [_number(v) for v in np.asarray(c.eigenvalues).ravel()],
@@ -131,10 +132,16 @@ def _uncertainty(sol: Solution) -> dict[str, Any] | None:
     correlation = getattr(u, "correlation", None)
     if correlation is not None:
         out["correlation"] = _matrix(correlation)
-    for key in ("level", "sigma", "degrees_of_freedom", "residual_sum", "residuals"):
+    covariance = getattr(u, "covariance", None)
+    if covariance is not None:
+        out["covariance"] = _matrix(covariance)
+    for key in ("level", "degrees_of_freedom", "residual_variance", "observations"):
         value = getattr(u, key, None)
         if isinstance(value, int | float | np.integer | np.floating):
             out[key] = _number(value)
+    undetermined = getattr(u, "undetermined", None)
+    if undetermined is not None:
+        out["undetermined"] = list(undetermined)
     return out
 
 
