@@ -304,3 +304,16 @@ def test_demo_writes_every_promised_file(tmp_path):
         assert width >= 600 and height >= 400, name
     document = json.loads((folder / "solution.json").read_text())
     assert set(document["point"]) == {"mu_max", "Ks", "Y", "kd"}
+
+
+# ----------------------------------------------------------------------------- examples
+
+EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
+
+
+@pytest.mark.parametrize("name", ["bioreactor", "heater", "cooling_rod"])
+def test_each_example_problem_file_checks(tmp_path, name):
+    problem = EXAMPLES / name / "problem.toml"
+    done = directional("check", str(problem), cwd=tmp_path)
+    assert done.returncode == 0, done.stdout + done.stderr
+    assert (EXAMPLES / name / "README.md").is_file()
