@@ -8,7 +8,9 @@ executor (`pool.Runner`), groups the end points into distinct minima and checks 
 
 Two end points are the same minimum when their distance in scaled coordinates (each parameter,
 or its logarithm when log-scaled, divided by the width of its bounds) is below ``same_point``
-and their values agree within ``same_value * max(1, |f1|, |f2|)`` (common practice, no source).
+and their values agree within ``same_value * max(1, |f1|, |f2|)``, or within six times the
+noise level when the objective is noisy (the difference of two noisy values has a standard
+deviation of sqrt(2) times the noise; common practice, no source).
 
 References
 ----------
@@ -50,6 +52,7 @@ from .space import Space, build_space, space_from_parameters
 
 SAME_POINT = 1e-3  # scaled distance below which two end points are one minimum
 SAME_VALUE = 1e-6  # relative agreement of their values
+NOISE_SPREAD = 6.0  # values within this many noise levels agree (module docstring)
 
 
 # ------------------------------------------------------------------------------------- design
@@ -109,6 +112,7 @@ def cluster(
     values: np.ndarray,
     same_point: float = SAME_POINT,
     same_value: float = SAME_VALUE,
+    noise: float = 0.0,
 ) -> tuple[list[int], list[int]]:
     """Group end points into distinct minima, best first.
 
@@ -116,7 +120,7 @@ def cluster(
     in no group).  Returns ``(leaders, label)``: the index of each group's best point, best group
     first, and for each point the number of its group (-1 for a failed search).  A point joins the
     first (best) group whose leader is within ``same_point`` (Euclidean, scaled) and whose value
-    agrees within ``same_value * max(1, |f1|, |f2|)``.
+    agrees within ``same_value * max(1, |f1|, |f2|)`` or ``6 * noise``.
 
     >>> cluster(np.array([[0.0], [0.5], [1e-5]]), np.array([1.0, 0.0, 1.0]))
     ([1, 0], [1, 0, 1])
@@ -130,7 +134,7 @@ def cluster(
         for g, j in enumerate(leaders):
             near = float(np.linalg.norm(points[i] - points[j])) < same_point
             scale = max(1.0, abs(values[i]), abs(values[j]))
-            if near and abs(values[i] - values[j]) <= same_value * scale:
+            if near and abs(values[i] - values[j]) <= max(same_value * scale, NOISE_SPREAD * noise):
                 label[i] = g
                 break
         else:
@@ -389,7 +393,8 @@ def _explore(
     outcomes = runner.run({j: powell(space, settings, start=u) for j, u in enumerate(scaled_starts)})
     ends = np.array([outcomes[j].point for j in range(k)])
     values = np.array([outcomes[j].value for j in range(k)])
-    leaders, label = cluster(ends, values, plan.same_point, plan.same_value)
+    spread = 0.0 if level is None else float(level)
+    leaders, label = cluster(ends, values, plan.same_point, plan.same_value, spread)
     interrupted = any(o.stop is Stop.INTERRUPTED for o in outcomes.values())
     method = None if interrupted else plan.method
     settled = {
@@ -403,7 +408,7 @@ def _explore(
         if label[j] >= 0:
             final = settled[leaders[label[j]]].outcome
             final_u[j], final_f[j] = final.point, final.value
-    groups, reached = cluster(final_u, final_f, plan.same_point, plan.same_value)
+    groups, reached = cluster(final_u, final_f, plan.same_point, plan.same_value, spread)
     evaluations = runner.log.evaluations
     minima = []
     for g, j in enumerate(groups):

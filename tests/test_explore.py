@@ -9,6 +9,7 @@ memory; each is also checked here to be a zero of the gradient, an analytic fact
 from __future__ import annotations
 
 import concurrent.futures as cf
+import math
 import os
 import random
 import signal
@@ -17,6 +18,7 @@ import sys
 import textwrap
 import threading
 import time
+import zlib
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 from pathlib import Path
@@ -157,6 +159,25 @@ def test_the_minima_history_is_the_searches_that_reached_them(sequential):
         assert {e.search for e in m.history} <= members
         assert m.evaluations == len(m.history)
     assert sum(m.evaluations for m in land.minima) == land.evaluations
+
+
+def noisy_himmelblau(x: np.ndarray) -> float:
+    """Himmelblau plus uniform noise of standard deviation 1e-6, fixed for each point."""
+    u = np.random.default_rng(zlib.crc32(x.tobytes())).uniform(-1.0, 1.0)
+    return himmelblau(x) + 1e-6 * math.sqrt(3.0) * u
+
+
+def test_noise_does_not_split_a_minimum_in_two():
+    """End points whose values differ by the noise alone are one minimum."""
+    land = dl.explore(noisy_himmelblau, BOX, starts=16, seed=0, noise=1e-6, check=False)
+    assert len(land.minima) == 4
+    found = _sorted_minima(land)
+    expected = HIMMELBLAU_MINIMA[np.lexsort(HIMMELBLAU_MINIMA.T[::-1])]
+    assert np.allclose(found, expected, atol=1e-3)
+    _, label = cluster(np.zeros((2, 1)), np.array([0.0, 5e-6]), noise=1e-6)
+    assert label == [0, 0]
+    _, label = cluster(np.zeros((2, 1)), np.array([0.0, 7e-6]), noise=1e-6)
+    assert label == [0, 1]
 
 
 # ------------------------------------------------------------------------------ the design
