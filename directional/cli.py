@@ -14,7 +14,7 @@ import sys
 import time
 from collections.abc import Sequence
 from pathlib import Path
-from typing import TextIO
+from typing import Any, TextIO
 
 import numpy as np
 
@@ -205,9 +205,9 @@ def _run(args: argparse.Namespace) -> int:
         journal = None
     elif args.journal:
         journal = Path(args.journal).absolute()
-    sol = solve(problem, journal=journal, budget=args.budget, quiet=args.quiet)
+    result = solve(problem, journal=journal, budget=args.budget, quiet=args.quiet)
     used = problem.journal if journal is True else journal
-    return finish(sol, problem, json_path=args.json, plots=args.plots, journal=used,
+    return finish(result, problem, json_path=args.json, plots=args.plots, journal=used,
                   extra=args.plot_evaluations)
 
 
@@ -215,15 +215,15 @@ def _resume(args: argparse.Namespace) -> int:
     from .runs import problem_of_journal, resume
 
     problem = problem_of_journal(args.journal, args.problem)
-    sol = resume(args.journal, problem, budget=args.budget, quiet=args.quiet)
-    return finish(sol, problem, json_path=args.json, plots=args.plots,
+    result = resume(args.journal, problem, budget=args.budget, quiet=args.quiet)
+    return finish(result, problem, json_path=args.json, plots=args.plots,
                   journal=Path(args.journal), extra=args.plot_evaluations)
 
 
 def _show(args: argparse.Namespace) -> int:
     from .runs import PROBLEM_KEY, replay
 
-    sol, contents = replay(args.journal)
+    result, contents = replay(args.journal)
     problem = None
     noted = args.problem or contents.header.info.get(PROBLEM_KEY)
     if noted:
@@ -233,8 +233,8 @@ def _show(args: argparse.Namespace) -> int:
             print(f"directional: note: {error}; plots without report-only evaluations",
                   file=sys.stderr)
     parameters = contents.header.parameters
-    return finish(sol, problem, json_path=args.json, plots=args.plots, journal=Path(args.journal),
-                  extra=args.plot_evaluations, parameters=parameters)
+    return finish(result, problem, json_path=args.json, plots=args.plots,
+                  journal=Path(args.journal), extra=args.plot_evaluations, parameters=parameters)
 
 
 def _check(args: argparse.Namespace) -> int:
@@ -300,7 +300,7 @@ def exit_code(sol: Solution) -> int:
 
 
 def finish(
-    sol: Solution,
+    result: Any,
     problem: Problem | None,
     *,
     json_path: str | Path | None = None,
@@ -313,12 +313,22 @@ def finish(
     show_files: bool = False,
     inputs: Sequence[Path] = (),
 ) -> int:
-    """Print the summary, write the requested files, say where they are; return the exit code."""
+    """Print the summary, write the requested files, say where they are; return the exit code.
+
+    ``result`` is a `Solution`, or the `Landscape` of a many-start run: then its table of
+    distinct minima comes first, the best minimum's summary and files follow, and the plots
+    include the start map.
+    """
     from . import report
+    from .runs import best
 
     out = sys.stdout if out is None else out
     title = problem.title if problem is not None else ""
     parameters = list(problem.parameters) if problem is not None else parameters
+    landscape = None if isinstance(result, Solution) else result
+    if landscape is not None:
+        print(landscape.summary() + "\n\nThe best minimum:\n", file=out)
+    sol = best(result)
     print(report.summary_text(sol, title), file=out)
     if sol.stop is Stop.INTERRUPTED and journal is not None:
         print(f"\nTo continue: directional resume {journal}", file=out)
@@ -330,7 +340,7 @@ def finish(
     if json_path is not None:
         written.append(report.write_json(sol, json_path, title=title, parameters=parameters))
     if plots is not None:
-        written += _plots(sol, problem, Path(plots), extra, parameters)
+        written += _plots(sol, problem, Path(plots), extra, parameters, landscape)
     if written:
         print("\nFiles:", file=out)
         for path in written:
@@ -346,6 +356,7 @@ def _plots(
     folder: Path,
     extra: int | None,
     parameters: Sequence | None,
+    landscape: Any = None,
 ) -> list[Path]:
     from .plots import affordable, write_plots
 
@@ -358,10 +369,17 @@ def _plots(
         if extra > 0:
             objective = problem.make_objective()
         fit = problem.make_fit()
-    return write_plots(
+    title = problem.title if problem is not None else ""
+    written = write_plots(
         sol, folder, parameters=parameters, objective=objective, kind=kind, fit=fit,
-        extra=extra, title=problem.title if problem is not None else "",
+        extra=extra, title=title,
     )
+    if landscape is not None and len(sol.names) >= 2:
+        from .explore_plots import start_map
+
+        written.append(start_map(landscape, objective, folder / "starts.png", kind=kind,
+                                 extra=extra, title=title))
+    return written
 
 
 if __name__ == "__main__":

@@ -66,6 +66,21 @@ def entry_point(problem: Problem) -> Callable[..., Any]:
     return minimize
 
 
+def best(result: Any) -> Solution:
+    """The solution of a run: itself, or the best minimum of a many-start `Landscape`.
+
+    Raises
+    ------
+    ObjectiveError
+        When no search of a many-start run got past its start.
+    """
+    if isinstance(result, Solution):
+        return result
+    if not result.minima:
+        raise ObjectiveError("no search got past its start: there is no minimum")
+    return result.minima[0]
+
+
 def solve(
     problem: Problem,
     *,
@@ -73,8 +88,8 @@ def solve(
     budget: int | None = None,
     quiet: bool = False,
     objective: Callable[[np.ndarray], Any] | None = None,
-) -> Solution:
-    """Run ``problem`` and return the solution (for many starts: the best minimum).
+) -> Any:
+    """Run ``problem``; return its `Solution`, or the `Landscape` of a many-start run.
 
     ``journal=True`` uses the problem's own journal path (if any), a path overrides it, None or
     False keeps none.  ``budget`` overrides the problem's.  The progress bar goes to standard
@@ -117,8 +132,7 @@ def solve(
         wrapped = bar
     try:
         if many:
-            result = run(wrapped, bounds, **options)
-            return result.best
+            return run(wrapped, bounds, **options)
         return run(wrapped, list(problem.parameters), **options)
     finally:
         if bar is not None:
@@ -170,14 +184,16 @@ def resume(
     bar = Progress(objective, budget=total, kind=problem.objective.kind,
                    enabled=False if quiet else None, done=done)
     try:
-        result = journals.resume(path, bar, budget=budget)
+        return journals.resume(path, bar, budget=budget)
     finally:
         bar.close()
-    return getattr(result, "best", result)
 
 
-def replay(path: str | os.PathLike[str]) -> tuple[Solution, journals.Contents]:
-    """The solution held in the journal at ``path``, evaluating nothing (see the module docstring).
+def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
+    """The result held in the journal at ``path``, evaluating nothing (see the module docstring).
+
+    A `Solution`, or the `Landscape` of a many-start run (replayed with a total budget of the
+    stored evaluations).
 
     Raises
     ------
@@ -192,8 +208,21 @@ def replay(path: str | os.PathLike[str]) -> tuple[Solution, journals.Contents]:
         copy = Path(folder) / "journal.sqlite"
         _copy_database(Path(path), copy)
         with contextlib.redirect_stderr(io.StringIO()):
-            result = journals.resume(copy, _refuse, budget=stored)
-    sol = getattr(result, "best", result)
+            if contents.header.kind == "explore":
+                from .explore import explore
+
+                arguments = dict(contents.header.identity.get("arguments", {}))
+                result = explore(_refuse, contents.header.parameters, journal=copy,
+                                 budget=contents.header.budget, total_budget=stored, **arguments)
+            else:
+                result = journals.resume(copy, _refuse, budget=stored)
+    if isinstance(result, Solution):
+        result = _ended(result, contents)
+    return result, contents
+
+
+def _ended(sol: Solution, contents: journals.Contents) -> Solution:
+    """A replay stopped by its budget where the run itself did not: say where the journal ends."""
     last = contents.sessions[-1] if contents.sessions else {}
     if sol.stop is Stop.BUDGET and last.get("stop") != "budget":
         how = last.get("stop") or "still running, or killed"
@@ -202,7 +231,7 @@ def replay(path: str | os.PathLike[str]) -> tuple[Solution, journals.Contents]:
             stop=Stop.INTERRUPTED,
             reason=f"the journal ends here (last run: {how}); continue with directional resume",
         )
-    return sol, contents
+    return sol
 
 
 def _refuse(x: np.ndarray) -> float:

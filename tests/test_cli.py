@@ -317,3 +317,12 @@ def test_each_example_problem_file_checks(tmp_path, name):
     done = directional("check", str(problem), cwd=tmp_path)
     assert done.returncode == 0, done.stdout + done.stderr
     assert (EXAMPLES / name / "README.md").is_file()
+
+
+def test_many_starts_list_the_minima_and_draw_the_start_map(tmp_path, bowl):
+    done = directional("run", str(bowl), "--starts", "3", "--plots", "pics", cwd=tmp_path)
+    assert done.returncode == 0, done.stdout + done.stderr
+    assert "3 starts reached 1 distinct minimum" in done.stdout  # a bowl has one minimum
+    assert png_size(tmp_path / "pics" / "starts.png")[0] >= 600
+    shown = directional("show", str(tmp_path / "runs" / "bowl.sqlite"), cwd=tmp_path)
+    assert shown.returncode == 0 and "distinct minimum" in shown.stdout
