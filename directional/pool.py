@@ -343,6 +343,8 @@ class Runner:
         for row, x in enumerate(batch.points):
             key = x.tobytes()
             fresh = key not in task.seen
+            if fresh:
+                self._own_limits(task)
             task.fresh.append(fresh)
             task.journaled.discard(key)
             if key in self._cache:
@@ -353,24 +355,32 @@ class Runner:
                 self._pending[key].waiters.append((task.ident, task.serial, row))
                 task.missing += 1
             else:
-                self._limits(task, fresh)
+                self._run_limits()
                 self._queue_point(task, x, key, batch.purpose, row)
             task.seen.add(key)
 
-    def _limits(self, task: _Task, fresh: bool) -> None:
-        if self.interrupted or self._interrupts.pending:
-            raise Halt(Stop.INTERRUPTED, "interrupted by the user")
-        if fresh and len(task.seen) >= self.budget:
+    def _own_limits(self, task: _Task) -> None:
+        """Before a search asks for a point new to it: its own budget and run of failures.
+
+        Checked whether or not another search has evaluated the point already, so that where a
+        search stops does not depend on the others' timing.
+        """
+        if len(task.seen) >= self.budget:
             raise Halt(Stop.BUDGET, f"the budget of {self.budget} evaluations is spent")
-        if self.total is not None and self.spent + len(self._pending) >= self.total:
-            raise Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
-        if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
-            raise Halt(Stop.BUDGET, f"the time limit of {self.time_limit:g} s has passed")
         if task.failures_in_a_row >= self.stall_after:
             raise Halt(
                 Stop.STALLED,
                 f"the last {task.failures_in_a_row} evaluations of this search all failed",
             )
+
+    def _run_limits(self) -> None:
+        """Before a new evaluation: Ctrl-C, the total budget and the time limit."""
+        if self.interrupted or self._interrupts.pending:
+            raise Halt(Stop.INTERRUPTED, "interrupted by the user")
+        if self.total is not None and self.spent + len(self._pending) >= self.total:
+            raise Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
+        if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
+            raise Halt(Stop.BUDGET, f"the time limit of {self.time_limit:g} s has passed")
 
     def _queue_point(self, task: _Task, x: np.ndarray, key: bytes, purpose: str, row: int) -> None:
         pending = _Pending(key=key, point=x.copy(), purpose=purpose, search=task.ident)

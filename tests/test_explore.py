@@ -495,9 +495,12 @@ def test_killed_exploration_resumes_to_the_same_landscape(tmp_path, sequential):
     script.write_text(textwrap.dedent(SCRIPT))
     path = tmp_path / "explore.sqlite"
     env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[1])}
-    process = subprocess.Popen(
-        [sys.executable, str(script), str(path)], env=env, start_new_session=True
-    )
+    errors = tmp_path / "stderr.txt"
+    with open(errors, "wb") as stderr:
+        process = subprocess.Popen(
+            [sys.executable, str(script), str(path)], env=env, stderr=stderr,
+            start_new_session=True,
+        )
     try:
         deadline = time.monotonic() + 60
         while _rows(path) < 150 and process.poll() is None and time.monotonic() < deadline:
@@ -506,7 +509,9 @@ def test_killed_exploration_resumes_to_the_same_landscape(tmp_path, sequential):
         os.killpg(process.pid, signal.SIGKILL)  # the run and its pool workers
         process.wait()
     before = journal_module.read(path).evaluations
-    assert 150 <= len(before) < sequential.evaluations, "the run was not killed mid-way"
+    assert 150 <= len(before) < sequential.evaluations, (
+        f"the run was not killed mid-way ({len(before)} rows): {errors.read_text()[-2000:]}"
+    )
 
     land = dl.explore(himmelblau, BOX, starts=16, seed=0, journal=path)
     _same_landscape(sequential, land)
