@@ -303,14 +303,17 @@ class Shuffled(cf.Executor):
         self._thread.join()
 
 
-@pytest.mark.parametrize("seed", [1, 2])
-def test_outcomes_do_not_depend_on_the_order_of_completion(seed):
-    """Each search receives its values in its own order: same outcomes, same evaluations."""
+@pytest.mark.parametrize(("seed", "budget"), [(1, 500), (2, 500), (3, 25)])
+def test_outcomes_do_not_depend_on_the_order_of_completion(seed, budget):
+    """Each search receives its values in its own order: same outcomes, same evaluations.
+
+    With a budget of 25 every search stops on its budget: where does not depend on the order.
+    """
     space = build_space([0.0, 0.0], BOX)
     starts = design(space, 6, seed=4)
 
     def run(**kw):
-        runner = Runner(objective=himmelblau, budget=500, **kw)
+        runner = Runner(objective=himmelblau, budget=budget, **kw)
         out = runner.run({j: powell(space, Settings(), start=u) for j, u in enumerate(starts)})
         return out, runner.log.evaluations
 
@@ -324,6 +327,8 @@ def test_outcomes_do_not_depend_on_the_order_of_completion(seed):
         assert np.array_equal(alone[j].point, shuffled[j].point)
         assert alone[j].value == shuffled[j].value
         assert alone[j].cycles == shuffled[j].cycles
+        assert alone[j].stop is shuffled[j].stop
+        assert alone[j].stop is (dl.Stop.CONVERGED if budget == 500 else dl.Stop.BUDGET)
     assert {e.point.tobytes() for e in log_alone} == {e.point.tobytes() for e in log_shuffled}
     assert len(log_alone) == len(log_shuffled)
     order = [(e.search, e.point.tobytes()) for e in log_shuffled]
