@@ -73,11 +73,14 @@ class _Endless(Exception):
 
 
 class _Tracker:
-    """The current point and value, updated as soon as a better evaluation arrives."""
+    """The current point and value, updated as soon as a better evaluation arrives, and the
+    resolution the line searches of this cycle work to."""
 
-    def __init__(self, u: np.ndarray, value: float) -> None:
+    def __init__(self, u: np.ndarray, value: float, resolution: float) -> None:
         self.u = u
         self.value = value
+        self.resolution = resolution
+        self.answered = 0  # finite values received in this cycle
 
 
 def powell(space: Space, settings: Settings, start: np.ndarray | None = None) -> Search:
@@ -85,7 +88,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
     n = space.size
     u = np.zeros(n) if start is None else np.array(start, dtype=float)
     values = yield Batch(points=space.to_user(u)[None, :], purpose="start")
-    best = _Tracker(u, float(values[0]))
+    best = _Tracker(u, float(values[0]), _resolution(settings, FIRST_STEP))
     directions = principal_axes(n, FIRST_STEP)
     cycles = 0
     if not math.isfinite(best.value):
@@ -94,11 +97,16 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
         calm = 0
         while calm < 2:
             cycles += 1
+            best.answered = 0
             directions, moved, dropped = yield from _cycle(space, settings, best, directions)
+            if best.answered == 0:
+                reason = "every evaluation of a whole cycle failed: the best point is walled in"
+                return _outcome(best, Stop.STALLED, cycles, directions, reason)
             small = moved <= settings.point_tolerance and dropped <= (
                 settings.value_tolerance * max(1.0, abs(best.value))
             )
             calm = calm + 1 if small else 0
+            best.resolution = _resolution(settings, moved)
     except Halt as halt:
         return _outcome(best, halt.stop, cycles, directions, halt.reason)
     except _Endless:
@@ -181,7 +189,7 @@ def _line(
         hi,
         step=step,
         curvature=curvature,
-        tolerance=settings.line_tolerance,
+        tolerance=best.resolution,
         limit=settings.line_limit,
         parabolic=settings.parabolic,
     )
@@ -190,6 +198,7 @@ def _line(
         while True:
             values = yield Batch(points=space.to_user(base + ts[:, None] * d), purpose="line")
             for t, value in zip(ts, values):
+                best.answered += math.isfinite(value)
                 if value < best.value:
                     best.u, best.value = base + t * d, float(value)
             ts = search.send(values)
@@ -200,6 +209,13 @@ def _line(
     if abs(result.point) >= 0.5 * FARTHEST:
         raise _Endless
     return result
+
+
+def _resolution(settings: Settings, moved: float) -> float:
+    """Line-search resolution for the next cycle: a hundredth of the last cycle's move, never
+    finer than the final resolution.  Far from the minimum a line search need not be exact
+    (common practice, no source); near it the resolution reaches ``settings.line_tolerance``."""
+    return max(settings.line_tolerance, 0.01 * moved)
 
 
 def _next_step(result: LineResult, settings: Settings) -> float:
