@@ -12,6 +12,7 @@ import argparse
 import math
 import sys
 import time
+import warnings
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any, TextIO
@@ -43,7 +44,12 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.print_help()
         return BAD_INPUT
     try:
-        return args.handler(args)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", UserWarning)
+            code = args.handler(args)
+        for warning in caught:  # the summary's notes say the same; shown once, briefly
+            print(f"directional: warning: {warning.message}", file=sys.stderr)
+        return code
     except (ProblemError, JournalError) as error:
         print(f"directional: error: {error}", file=sys.stderr)
         return BAD_INPUT
@@ -344,10 +350,19 @@ def finish(
     if written:
         print("\nFiles:", file=out)
         for path in written:
-            print(f"  {path}", file=out)
+            print(f"  {_shown(path)}", file=out)
     if problem is not None and problem.objective.kind == "residuals":
         print(f"\n{CAUTION}", file=out)
     return exit_code(sol)
+
+
+def _shown(path: Path) -> str:
+    """``path`` relative to the current folder when it lies inside it."""
+    path = Path(path)
+    try:
+        return str(path.absolute().relative_to(Path.cwd()))
+    except ValueError:
+        return str(path)
 
 
 def _plots(

@@ -35,7 +35,7 @@ title = "{TITLE}"
 
 [[parameter]]
 name = "mu_max"          # largest specific growth rate
-start = 0.2
+start = 0.3
 lower = 0.01
 upper = 3.0
 scale = "log"
@@ -43,7 +43,7 @@ unit = "1/h"
 
 [[parameter]]
 name = "Ks"              # half-saturation constant
-start = 6.0
+start = 1.0
 lower = 0.01
 upper = 50.0
 scale = "log"
@@ -51,7 +51,7 @@ unit = "g/L"
 
 [[parameter]]
 name = "Y"               # biomass yield on substrate
-start = 0.3
+start = 0.4
 lower = 0.05
 upper = 1.0
 unit = "g/g"

@@ -256,10 +256,12 @@ def _widths(
     For a calibration, three conditional standard deviations: ``3 sqrt(2 s^2 / H_ii)`` with
     ``s^2 = S / (m - p)`` (Bates & Watts 1988, ch. 2; ``H = 2 J'J`` for ``S = r'r``).  For a value,
     where the parabola rises by half the value, or by one unit when the value is near zero; with
-    no usable curvature, a tenth of the bounds' width.
+    no usable curvature, a tenth of the bounds' width.  Wide enough to show the 95 % interval of a
+    calibration, which is wider than the slice suggests when parameters are correlated.
     """
     y = axes.to_y(sol.point)
     diagonal = _hessian_diagonal(sol)
+    intervals = _intervals(sol)
     rise = max(0.5 * abs(sol.value), 1e-3)
     if kind == "residuals":
         variance = _residual_variance(sol)
@@ -271,10 +273,19 @@ def _widths(
         fallback = 0.1 * span if math.isfinite(span) else 0.1 * max(abs(y[i]), 1.0)
         h = diagonal[i]
         w = math.sqrt(2.0 * rise / h) if h > 0 else fallback
+        if intervals is not None and np.all(np.isfinite(intervals[i])) and intervals[i][0] > (
+            0.0 if axes.log[i] else -math.inf
+        ):
+            lo_y, hi_y = _to_y1(axes, i, intervals[i][0]), _to_y1(axes, i, intervals[i][1])
+            w = max(w, 1.15 * max(y[i] - lo_y, hi_y - y[i]))
         if math.isfinite(span):
             w = min(w, 0.5 * span)
         widths[i] = max(w, 1e-9 * max(abs(y[i]), 1.0))
     return widths
+
+
+def _to_y1(axes: _Axes, i: int, x: float) -> float:
+    return math.log(x) if axes.log[i] else float(x)
 
 
 def _residual_variance(sol: Solution) -> float:
@@ -306,14 +317,13 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
     values = np.array([e.value if e.status == "ok" else math.inf for e in history])
     ok = np.isfinite(values)
     best = np.minimum.accumulate(np.where(ok, values, math.inf))
-    check = np.array([_is_check(e.purpose) for e in history])
+    groups = np.array([_group(e.purpose) for e in history])
     finite = values[ok]
     log = bool(finite.size and finite.min() > 0 and finite.max() / finite.min() > 30)
-    search = ok & ~check
-    ax.scatter(count[search], values[search], s=9, color="0.6", label="evaluation", zorder=2)
-    if np.any(ok & check):
-        ax.scatter(count[ok & check], values[ok & check], s=9, color="tab:orange",
-                   label="curvature check", zorder=2)
+    for group, color in _GROUPS:
+        chosen = ok & (groups == group)
+        if np.any(chosen):
+            ax.scatter(count[chosen], values[chosen], s=9, color=color, label=group, zorder=2)
     shown = np.isfinite(best)
     ax.step(count[shown], best[shown], where="post", color="tab:blue", lw=2,
             label="best so far", zorder=3)
@@ -341,8 +351,20 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
     return _save(fig, path)
 
 
-def _is_check(purpose: str) -> bool:
-    return any(word in purpose for word in ("hessian", "check", "curvature", "noise", "jacobian"))
+_GROUPS = (
+    ("search", "0.6"),
+    ("least-squares steps", "tab:purple"),
+    ("curvature check", "tab:orange"),
+)
+
+
+def _group(purpose: str) -> str:
+    """Which kind of work an evaluation's purpose belongs to, for the history's colours."""
+    if any(word in purpose for word in ("jacobian", "gauss", "marquardt")):
+        return "least-squares steps"
+    if any(word in purpose for word in ("hessian", "check", "curvature", "noise", "escape")):
+        return "curvature check"
+    return "search"
 
 
 # ----------------------------------------------------------------------------- profiles
@@ -405,6 +427,8 @@ def _profiles(
         ax.set_title(head)
     _figure_legend(fig)
     heading = "Profiles through the minimum (the other parameters held at their best values)"
+    if intervals is not None:
+        heading += "\nshaded: the 95 % interval, which lets the other parameters move (wider when correlated)"
     fig.suptitle(f"{title}\n{heading}" if title else heading)
     return _save(fig, path)
 

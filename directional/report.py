@@ -27,7 +27,9 @@ def summary_text(sol: Solution, title: str = "") -> str:
     For a calibration whose own summary shows no uncertainty, the uncertainty table is added.
     """
     text = sol.summary()
-    if sol.uncertainty is not None and "standard error" not in text:
+    if sol.uncertainty is not None and not any(
+        word in text for word in ("std. error", "standard error", "interval")
+    ):
         text += "\n" + "\n".join(uncertainty_lines(sol))
     if title:
         text = f"{title}\n{'=' * len(title)}\n{text}"
