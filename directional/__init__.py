@@ -9,6 +9,7 @@ from .journal import resume
 from .linesearch import LineResult
 from .minimization import line_minimum, minimize
 from .parameters import Parameter
+from .problemfile import Problem
 from .records import Curvature, Stop, Verdict
 from .solution import Solution
 
@@ -20,6 +21,7 @@ __all__ = [
     "LineResult",
     "ObjectiveError",
     "Parameter",
+    "Problem",
     "ProblemError",
     "Solution",
     "Stop",
