@@ -515,11 +515,12 @@ def test_a_run_of_failures_stalls_with_the_reason(tmp_path):
     objective.fail = lambda x: objective.calls > limit  # the model breaks for good
     sol = dl.minimize(objective, START, journal=path, check=False)
     assert sol.stop is Stop.STALLED
-    assert "the last 50 evaluations all failed" in sol.reason
-    assert "did not converge" in sol.reason
-    assert sol.evaluations == objective.calls == limit + 50
+    assert "failed" in sol.reason and "did not converge" in sol.reason  # the last error
+    # the driver's rule (50 failures in a row) or the search's own (a whole cycle failed),
+    # whichever comes first; never more than 50 in a row
+    assert limit < sol.evaluations == objective.calls <= limit + 50
     statuses = [row[4] for row in rows(path)]
-    assert statuses == ["ok"] * limit + ["failed"] * 50
+    assert statuses == ["ok"] * limit + ["failed"] * (sol.evaluations - limit)
     assert jr.read(path).sessions[0]["stop"] == "stalled"
 
 

@@ -135,7 +135,7 @@ def kill_points(reference: dl.Solution) -> dict[str, int]:
         "after-start": 2,
         "mid-line-first-cycle": mid_line_search(reference, 5),
         "extrapolation": purposes.index("extrapolate") + 1,
-        "mid-line-late": mid_line_search(reference, 200),
+        "mid-line-late": mid_line_search(reference, (2 * purposes.index("hessian")) // 3),
         "hessian-check": purposes.index("hessian") + 10,
         "last": len(purposes),
     }
