@@ -4,10 +4,13 @@ Powell's conjugate directions with safeguarded parabolic line searches, for obje
 runs of somebody else's code: few evaluations, bounds respected, every evaluation kept.
 """
 
+from .calibration import calibrate
 from .errors import JournalError, ObjectiveError, ProblemError
+from .explore import Landscape, explore
 from .journal import resume
 from .linesearch import LineResult
 from .minimization import line_minimum, minimize
+from .noise import estimate_noise
 from .parameters import Parameter
 from .problemfile import Problem
 from .records import Curvature, Stop, Verdict
@@ -18,6 +21,7 @@ __version__ = "0.1.0"
 __all__ = [
     "Curvature",
     "JournalError",
+    "Landscape",
     "LineResult",
     "ObjectiveError",
     "Parameter",
@@ -26,6 +30,9 @@ __all__ = [
     "Solution",
     "Stop",
     "Verdict",
+    "calibrate",
+    "estimate_noise",
+    "explore",
     "line_minimum",
     "minimize",
     "resume",

@@ -7,11 +7,13 @@ from collections.abc import Callable, Generator, Sequence
 
 import numpy as np
 
+from .curvature import check_method, escape_count, settle, settled_solution
 from .directions import DirectionSet, hessian_estimate
 from .driver import Driver, Objective
 from .errors import ObjectiveError, ProblemError
 from .journal import journal_for, run_identity
 from .linesearch import LineResult, line_search
+from .noise import floored, noise_level, noise_option
 from .records import Batch, Curvature, Halt, Outcome, Stop, Verdict
 from .search import Settings, powell
 from .solution import Solution
@@ -35,6 +37,8 @@ def minimize(
     time_limit: float | None = None,
     journal: object = None,
     check: bool | str = True,
+    escapes: int = 3,
+    noise: float | str | None = None,
     executor: object = None,
     progress: bool = False,
 ) -> Solution:
@@ -69,11 +73,25 @@ def minimize(
         An existing journal of the same problem is resumed, not overwritten: its evaluations are
         replayed, not repeated (a line on stderr says so); the budget counts them too, and may
         differ from the first run's.  A journal of another problem raises `JournalError`.
+    check
+        What proves the point a minimum (`directional.curvature`): True, a numerical Hessian with
+        Richardson extrapolation and error estimate (about 6 n² + 1 evaluations); "quick", one
+        central-difference stencil (at most 2 n² + 1); False, none (the verdict stays UNCHECKED;
+        ``sol.curvature`` then holds the free estimate from the line searches).  Parameters on a
+        bound are left out and listed in ``sol.active``.
+    escapes
+        How many times a SADDLE or MAXIMUM is escaped along its direction of most negative
+        curvature before the search gives up (default 3).
+    noise
+        The objective's noise level (standard deviation, in its units), or "estimate" to measure
+        it at the start (`directional.noise`, Moré & Wild 2011).  It floors the value tolerance and
+        the Hessian's steps.  Default None: rounding errors only.
 
     Raises
     ------
     ProblemError
-        For a bad start, bounds, names, budget or tolerance, before any evaluation.
+        For a bad start, bounds, names, budget, tolerance, check, escapes or noise, before any
+        evaluation.
     ObjectiveError
         When the start point fails, or the objective returns something that is not a number.
     JournalError
@@ -86,15 +104,23 @@ def minimize(
     budget = _budget(budget, space.size)
     if time_limit is not None and not (isinstance(time_limit, int | float) and time_limit > 0):
         raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
+    method, escapes, noise = check_method(check), escape_count(escapes), noise_option(noise)
     identity = run_identity(
         "minimize", space.parameters, settings,
         point_tolerance=point_tolerance, value_tolerance=value_tolerance, check=check,
+        escapes=escapes, noise=noise,
     )
     with journal_for(journal, identity, budget=budget) as book:
         driver = Driver(objective=objective, budget=budget, time_limit=time_limit, **book.hooks())
+        level, noted = noise_level(driver, space, noise)
+        settings = floored(settings, level)
         outcome = driver.run(powell(space, settings))
+        settled = settle(
+            driver, space, settings, outcome, check=method, escapes=escapes, noise=level
+        )
+        outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
-        return _solution(space, settings, driver, outcome)
+        return settled_solution(_solution(space, settings, driver, outcome), settled, noted)
 
 
 def _settings(point_tolerance: float, value_tolerance: float) -> Settings:
@@ -156,9 +182,17 @@ def _solution(space: Space, settings: Settings, driver: Driver, outcome: Outcome
         units=tuple(p.unit for p in space.parameters),
         lower=space.lower.copy(),
         upper=space.upper.copy(),
-        reason=outcome.reason,
+        reason=_with_last_error(outcome, log.evaluations),
         history=tuple(log.evaluations),
     )
+
+
+def _with_last_error(outcome: Outcome, evaluations: list) -> str:
+    """The search's reason for stopping, with the last failure's text when it stalled on failures."""
+    failed = [e for e in evaluations if e.status != "ok"]
+    if outcome.stop is Stop.STALLED and failed and "last error" not in outcome.reason:
+        return f"{outcome.reason}; last error: {failed[-1].detail or failed[-1].status}"
+    return outcome.reason
 
 
 def _active(space: Space, point: np.ndarray, settings: Settings) -> tuple[str, ...]:

@@ -8,6 +8,7 @@ Ctrl-C) it throws `Halt` into the generator, which returns its `Outcome` with th
 from __future__ import annotations
 
 import enum
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -87,6 +88,13 @@ class Curvature:
     has none); ``source`` says where the matrix came from: "free" (the line searches' curvatures
     along conjugate directions, no extra evaluation), "quick" (central differences) or
     "extrapolated" (numdifftools' Richardson extrapolation).
+
+    Added by the curvature check (`directional.curvature`): ``names`` labels the rows (the
+    parameters not on a bound; ``log(name)`` for a log-scaled one); ``margin`` is the error bar
+    of the smallest eigenvalue of the Hessian scaled to unit row maxima, the one the verdict
+    turns on (dimensionless, see `directional.curvature`); ``undetermined`` names the parameter
+    combinations along those eigenvectors; ``evaluations`` is what the check cost; ``free`` holds
+    the free estimate the check started from.
     """
 
     hessian: np.ndarray
@@ -95,3 +103,8 @@ class Curvature:
     eigenvectors: np.ndarray
     condition: float
     source: str
+    names: tuple[str, ...] = ()
+    margin: float = math.nan
+    undetermined: tuple[str, ...] = ()
+    evaluations: int = 0
+    free: Curvature | None = None

@@ -75,10 +75,9 @@ def summary_lines(sol: Solution) -> list[str]:
         lines.append(f"  reason: {sol.reason}")
     lines.append(f"  best value: {sol.value:.10g}")
     lines.append(f"  verdict: {sol.verdict.value}" + _verdict_hint(sol.verdict))
-    if sol.curvature is not None:
-        lines.append(
-            f"  curvature ({sol.curvature.source}): condition number {sol.curvature.condition:.3g}"
-        )
+    if sol.active:
+        lines.append(f"  on a bound: {', '.join(sol.active)} (left out of the curvature check)")
+    lines.extend(_curvature_lines(sol.curvature))
     lines.append("")
     width = max(9, *(len(n) for n in sol.names))
     lines.append(f"  {'parameter':<{width}}  {'value':>14}  {'lower':>11}  {'upper':>11}  unit")
@@ -88,8 +87,53 @@ def summary_lines(sol: Solution) -> list[str]:
             f"  {name:<{width}}  {sol.point[i]:>14.8g}  {_bound(sol.lower[i]):>11}  "
             f"{_bound(sol.upper[i]):>11}  {sol.units[i]}{flag}"
         )
+    lines.extend(_uncertainty_lines(sol))
     for note in sol.notes:
         lines.append(f"  note: {note}")
+    return lines
+
+
+def _curvature_lines(curvature: Curvature | None) -> list[str]:
+    """The curvature check in a line or two: where the Hessian came from, its condition."""
+    if curvature is None:
+        return []
+    cost = f", {curvature.evaluations} evaluations" if curvature.evaluations else ""
+    lines = [
+        f"  curvature ({curvature.source}{cost}): condition number {curvature.condition:.3g}"
+    ]
+    free = curvature.free
+    if free is not None and free is not curvature:
+        lines.append(f"  free estimate from the line searches: condition number {free.condition:.3g}")
+    for combination in curvature.undetermined:
+        lines.append(f"  not determined: {combination}")
+    return lines
+
+
+def _uncertainty_lines(sol: Solution) -> list[str]:
+    """The calibration table: estimates, standard errors, intervals, strongest correlations."""
+    u = sol.uncertainty
+    if u is None:
+        return []
+    width = max(9, *(len(n) for n in sol.names))
+    level = f"{100 * getattr(u, 'level', 0.95):g} % interval"
+    lines = [
+        "",
+        f"  {'parameter':<{width}}  {'estimate':>14}  {'std. error':>11}  {level:>27}",
+    ]
+    for i, name in enumerate(sol.names):
+        low, high = u.intervals[i]
+        lines.append(
+            f"  {name:<{width}}  {sol.point[i]:>14.8g}  {u.standard_errors[i]:>11.5g}  "
+            f"{'[' + f'{low:.6g}, {high:.6g}' + ']':>27}"
+        )
+    lines.append(
+        f"  residual variance s² = {u.residual_variance:.6g} ({u.observations} residuals, "
+        f"{u.degrees_of_freedom} degrees of freedom)"
+    )
+    strongest = u.strongest(3) if hasattr(u, "strongest") else []
+    if strongest:
+        pairs = ", ".join(f"{a}-{b} {r:+.4f}" for a, b, r in strongest)
+        lines.append(f"  strongest correlations: {pairs}")
     return lines
 
 

@@ -1,0 +1,625 @@
+"""`calibrate`: least squares on a residual vector, and how well each parameter is determined.
+
+Theory of operation.  The objective is ``S(x) = sum r_i(x)**2`` of a residual vector (model minus
+data, divided by the data's standard deviations when they are given).  The direction-set search
+(`directional.search`) minimizes ``S`` without derivatives; since the residual vector is known, the
+search is finished with Levenberg–Marquardt steps on a central-difference Jacobian (Levenberg
+1944, Marquardt 1963), which reach the bottom of the flat curved valleys where a search on ``S``
+alone crawls.  The point is then checked like any other (`directional.curvature`), and at the
+minimum a Jacobian by numdifftools gives the linearized uncertainty (Bates & Watts 1988, sec. 2.3):
+
+    covariance = s² (JᵀJ)⁻¹,   s² = S / (m - p),
+
+standard errors from its diagonal, the correlation matrix, and 95 % intervals
+``estimate ± t(0.975, m - p) * standard error`` (Student's t, `scipy.stats.t`).  Parameters on a
+bound are left out (their errors are nan) and ``p`` counts the free ones.  A warning names
+parameters correlated beyond ``|r| > 0.95`` and combinations the data do not determine.
+
+Every evaluation goes through the driver (counted, cached, journaled).  The driver wants a number,
+so the objective it sees is `SumOfSquares`, which keeps each residual vector by the bytes of its
+point; the Levenberg–Marquardt and Jacobian generators yield batches and read the vectors back.
+A vector the driver answered without calling the objective (a journal being replayed) is computed
+again, once, and counted in ``SumOfSquares.recomputed``.
+
+References
+----------
+.. [1] K. Levenberg, "A method for the solution of certain non-linear problems in least squares",
+   *Quarterly of Applied Mathematics* 2 (1944) 164-168.
+.. [2] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
+   *Journal of the Society for Industrial and Applied Mathematics* 11 (1963) 431-441.
+.. [3] D. M. Bates and D. G. Watts, *Nonlinear Regression Analysis and Its Applications*, Wiley,
+   1988, sec. 2.3.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import warnings
+from collections.abc import Callable, Generator, Sequence
+from dataclasses import dataclass
+
+import numdifftools as nd
+import numpy as np
+from scipy import stats
+
+from .curvature import check_method, combination, escape_count, labels, settle, settled_solution
+from .driver import Driver
+from .errors import ObjectiveError, ProblemError
+from .journal import journal_for, run_identity
+from .minimization import _budget, _settings, _solution
+from .noise import floored, noise_level, noise_option
+from .records import Batch, Halt, Outcome, Stop
+from .search import Settings, powell
+from .solution import Solution
+from .space import Space, build_space
+
+Residuals = Callable[[np.ndarray], object]
+
+EPSILON = float(np.finfo(float).eps)
+DIFFERENCE_STEP = EPSILON ** (1.0 / 3.0)  # central differences: truncation h² vs rounding eps/h
+JACOBIAN_STEP = 1e-3  # largest step of numdifftools' extrapolated Jacobian (scaled coordinates)
+STRONG = 0.95  # correlations beyond this are named in a warning
+UNDETERMINED = 1e-8  # relative singular value of the column-scaled Jacobian taken as zero
+LEVEL = 0.95  # coverage of the intervals
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Uncertainty:
+    """How well the calibrated parameters are determined (linearized, Bates & Watts 1988).
+
+    Arrays run over all parameters in order (``names``); a parameter on a bound has nan errors
+    and intervals.  ``intervals`` is (p, 2): lower and upper ends at ``level`` (95 %).
+    ``residual_variance`` is ``s² = S / (m - p)`` with ``p`` the free parameters.
+    ``undetermined`` names the parameter combinations the data do not determine.
+    """
+
+    names: tuple[str, ...]
+    estimates: np.ndarray
+    standard_errors: np.ndarray
+    covariance: np.ndarray
+    correlation: np.ndarray
+    intervals: np.ndarray
+    degrees_of_freedom: int
+    residual_variance: float
+    observations: int
+    level: float = LEVEL
+    undetermined: tuple[str, ...] = ()
+
+    def strongest(self, count: int = 3) -> list[tuple[str, str, float]]:
+        """The ``count`` largest correlations in absolute value, as (name, name, r)."""
+        pairs = []
+        p = len(self.names)
+        for i in range(p):
+            for j in range(i + 1, p):
+                r = self.correlation[i, j]
+                if math.isfinite(r):
+                    pairs.append((self.names[i], self.names[j], float(r)))
+        pairs.sort(key=lambda item: -abs(item[2]))
+        return pairs[:count]
+
+
+# ----------------------------------------------------------------------------- the objective
+
+
+class SumOfSquares:
+    """The objective the driver sees: ``S(x)``, with each residual vector kept by point.
+
+    ``sigma`` (None or one positive standard deviation per residual) divides the residuals.
+
+    Raises (when called)
+    --------------------
+    ObjectiveError
+        When the residuals are not a flat array of real numbers, change length between calls,
+        or do not match ``sigma``.
+    """
+
+    def __init__(self, residuals: Residuals, sigma: np.ndarray | None) -> None:
+        self.residuals = residuals
+        self.sigma = sigma
+        self.vectors: dict[bytes, np.ndarray] = {}
+        self.size: int | None = None
+        self.recomputed = 0
+
+    def __call__(self, x: np.ndarray) -> float:
+        key = x.tobytes()
+        r = self._vector(self.residuals(x))
+        self.vectors[key] = r
+        return float(r @ r) if np.all(np.isfinite(r)) else math.nan
+
+    def _vector(self, result: object) -> np.ndarray:
+        try:
+            r = np.array(result, dtype=float).reshape(-1) if not isinstance(result, str) else None
+        except (TypeError, ValueError):
+            r = None
+        if r is None or np.ndim(result) > 1 or r.size == 0:
+            text = repr(result)
+            raise ObjectiveError(
+                "residuals must return a flat array of real numbers, got "
+                + (text if len(text) <= 80 else text[:77] + "...")
+            )
+        if self.size is None:
+            self.size = r.size
+            if self.sigma is not None and self.sigma.size != r.size:
+                raise ObjectiveError(
+                    f"the residuals have {r.size} entries but sigma has {self.sigma.size}"
+                )
+        elif r.size != self.size:
+            raise ObjectiveError(
+                f"the residuals had {self.size} entries and now have {r.size}"
+            )
+        return r if self.sigma is None else r / self.sigma
+
+    def vector(self, x: np.ndarray) -> np.ndarray | None:
+        """The residual vector at user point ``x`` (None when its evaluation failed)."""
+        key = x.tobytes()
+        if key not in self.vectors:
+            self.recomputed += 1
+            try:
+                self(x.copy())
+            except ObjectiveError:
+                raise
+            except Exception:  # the objective's own failure, as the driver would see it
+                return None
+        r = self.vectors.get(key)
+        return r if r is not None and np.all(np.isfinite(r)) else None
+
+
+# ----------------------------------------------------------------------------- Levenberg–Marquardt
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Polished:
+    """Where the Levenberg–Marquardt steps ended (scaled point) and why."""
+
+    point: np.ndarray
+    value: float
+    stop: Stop
+    reason: str
+    steps: int
+    jacobian: np.ndarray | None = None  # at ``point`` (scaled coordinates), when one was made
+
+
+def _room(space: Space, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    return u - space.lower_u, space.upper_u - u
+
+
+def difference_jacobian(
+    space: Space, squares: SumOfSquares, u: np.ndarray, free: np.ndarray
+) -> Generator[Batch, np.ndarray, np.ndarray | None]:
+    """Jacobian of the residual vector in scaled coordinates, by central differences (one batch).
+
+    Step ``eps^(1/3)`` (common practice, no source); one-sided next to a bound.  Columns of
+    parameters not ``free`` are zero.  None when an evaluation failed.
+    """
+    below, above = _room(space, u)
+    columns = np.flatnonzero(free)
+    plus, minus = [], []
+    for j in columns:
+        h = DIFFERENCE_STEP
+        plus.append(min(h, above[j]) if above[j] > 0 else 0.0)
+        minus.append(-min(h, below[j]) if below[j] > 0 else 0.0)
+    offsets = np.zeros((2 * len(columns), space.size))
+    for k, j in enumerate(columns):
+        offsets[2 * k, j], offsets[2 * k + 1, j] = plus[k], minus[k]
+    points = space.to_user(u + offsets)
+    values = yield Batch(points=points, purpose="jacobian")
+    if not np.all(np.isfinite(values)):
+        return None
+    jacobian = None
+    for k, j in enumerate(columns):
+        rp, rm = squares.vector(points[2 * k]), squares.vector(points[2 * k + 1])
+        if rp is None or rm is None or plus[k] == minus[k]:
+            return None
+        if jacobian is None:
+            jacobian = np.zeros((rp.size, space.size))
+        jacobian[:, j] = (rp - rm) / (plus[k] - minus[k])
+    return jacobian
+
+
+def levenberg_marquardt(
+    space: Space,
+    squares: SumOfSquares,
+    u0: np.ndarray,
+    value: float,
+    *,
+    iterations: int = 100,
+    tolerance: float = 1e-10,
+) -> Generator[Batch, np.ndarray, Polished]:
+    """Levenberg–Marquardt steps from scaled point ``u0`` until a step is below ``tolerance``.
+
+    Each step solves ``min |J d + r|² + lambda |D d|²`` with ``D² = diag(JᵀJ)`` (Marquardt 1963),
+    as the linear least-squares problem ``[J; sqrt(lambda) D] d = [-r; 0]`` so that JᵀJ is never
+    formed; a step that lowers S is taken and lambda divided by 10, otherwise lambda is multiplied
+    by 10 and the step solved again (ibid.).  Steps are clipped to the bounds.
+    """
+    u, s_value = u0.copy(), value
+    lam = 1e-3
+    steps = 0
+    try:
+        r = squares.vector(space.to_user(u))
+        if r is None:
+            return Polished(point=u, value=s_value, stop=Stop.STALLED, reason="no residuals", steps=0)
+        for _ in range(iterations):
+            active = space.on_bound(space.to_user(u), 0.0)
+            jacobian = yield from difference_jacobian(space, squares, u, ~active)
+            if jacobian is None:
+                return Polished(point=u, value=s_value, stop=Stop.STALLED, steps=steps,
+                                reason="an evaluation for the Jacobian failed")
+            scale = np.sqrt(np.sum(jacobian**2, axis=0))
+            scale = np.maximum(scale, 1e-12 * max(float(scale.max()), 1e-300))
+            while True:
+                d = _marquardt_step(jacobian, r, lam, scale)
+                trial = np.clip(u + d, space.lower_u, space.upper_u)
+                move = float(np.max(np.abs(trial - u)))
+                if move <= tolerance:
+                    return Polished(point=u, value=s_value, stop=Stop.CONVERGED, steps=steps,
+                                    reason="", jacobian=jacobian)
+                x = space.to_user(trial)
+                values = yield Batch(points=x[None, :], purpose="gauss-newton")
+                if values[0] < s_value:
+                    u, s_value, lam = trial, float(values[0]), max(lam / 10.0, 1e-15)
+                    r = squares.vector(x)
+                    steps += 1
+                    break
+                lam *= 10.0
+                if lam > 1e16:
+                    return Polished(point=u, value=s_value, stop=Stop.CONVERGED, steps=steps,
+                                    reason="", jacobian=jacobian)
+        return Polished(point=u, value=s_value, stop=Stop.STALLED, steps=steps,
+                        reason=f"no convergence in {iterations} Levenberg-Marquardt steps")
+    except Halt as halt:
+        return Polished(point=u, value=s_value, stop=halt.stop, reason=halt.reason, steps=steps)
+
+
+def _marquardt_step(jacobian: np.ndarray, r: np.ndarray, lam: float, scale: np.ndarray) -> np.ndarray:
+    used = np.any(jacobian != 0.0, axis=0)
+    j = jacobian[:, used]
+    a = np.vstack([j, math.sqrt(lam) * np.diag(scale[used])])
+    b = np.concatenate([-r, np.zeros(j.shape[1])])
+    d = np.zeros(jacobian.shape[1])
+    d[used] = np.linalg.lstsq(a, b, rcond=None)[0]
+    return d
+
+
+# ----------------------------------------------------------------------------- uncertainty
+
+
+def extrapolated_jacobian(
+    space: Space, squares: SumOfSquares, u: np.ndarray, free: np.ndarray
+) -> Generator[Batch, np.ndarray, np.ndarray | None]:
+    """numdifftools' extrapolated central-difference Jacobian (scaled coordinates), one batch.
+
+    The stencil is recorded in a first pass, evaluated as one batch (purpose "jacobian"), and
+    read back in a second, as for the Hessian (`curvature.extrapolated_hessian`).  Columns of
+    parameters not ``free`` are zero; None when an evaluation failed.
+    """
+    columns = np.flatnonzero(free)
+    below, above = _room(space, u)
+    steps = np.minimum(JACOBIAN_STEP, np.minimum(below, above)[columns])
+    known: dict[bytes, np.ndarray] = {}
+    size = squares.size or 1
+    for _ in range(3):
+        missing: dict[bytes, np.ndarray] = {}
+        estimate = _nd_jacobian(_Lookup(known, missing, size), steps)
+        if not missing:
+            if not np.all(np.isfinite(estimate)):
+                return None
+            jacobian = np.zeros((estimate.shape[0], space.size))
+            jacobian[:, columns] = estimate
+            return jacobian
+        offsets = np.zeros((len(missing), space.size))
+        offsets[:, columns] = np.array(list(missing.values()))
+        points = space.to_user(u + offsets)
+        try:
+            values = yield Batch(points=points, purpose="jacobian")
+        except Halt:
+            return None
+        for key, x, value in zip(missing, points, values):
+            r = squares.vector(x) if math.isfinite(value) else None
+            known[key] = np.full(size, np.nan) if r is None else r
+    return None
+
+
+class _Lookup:
+    """numdifftools' function for the recording and reading passes (see `extrapolated_jacobian`)."""
+
+    def __init__(self, known: dict[bytes, np.ndarray], missing: dict[bytes, np.ndarray], size: int):
+        self.known, self.missing, self.size = known, missing, size
+
+    def __call__(self, v: np.ndarray) -> np.ndarray:
+        v = np.asarray(v, dtype=float)
+        key = v.tobytes()
+        if key in self.known:
+            return self.known[key]
+        self.missing.setdefault(key, v.copy())
+        return np.zeros(self.size)
+
+
+def _nd_jacobian(function: Callable[[np.ndarray], np.ndarray], steps: np.ndarray) -> np.ndarray:
+    """The numdifftools adapter for a Jacobian at 0 (nominal step 1), extrapolated from 3 steps."""
+    generator = nd.MaxStepGenerator(
+        base_step=np.asarray(steps, dtype=float), step_ratio=2.0, num_steps=3, step_nom=1.0,
+        offset=0, use_exact_steps=True,
+    )
+    result = nd.Jacobian(function, step=generator, method="central", full_output=True)(
+        np.zeros(len(steps))
+    )
+    estimate = getattr(result, "estimate", None)
+    if estimate is None:
+        estimate = result[0]
+    return np.atleast_2d(np.asarray(estimate, dtype=float)).reshape(-1, len(steps))
+
+
+def uncertainty(
+    space: Space, x: np.ndarray, jacobian_u: np.ndarray, value: float, free: np.ndarray
+) -> Uncertainty:
+    """Standard errors, correlations and intervals from the Jacobian (scaled coordinates) at x.
+
+    The Jacobian is moved to the user's coordinates (``dx/du = s`` for a linear parameter,
+    ``s x`` for a log-scaled one), and ``s² (JᵀJ)⁻¹`` is computed from the singular value
+    decomposition of J with its columns scaled to unit length, so that no cross product is
+    formed.  Singular values below ``1e-8`` of the largest mark combinations the data do not
+    determine; parameters taking part in them get infinite errors.
+    """
+    n = space.size
+    m = jacobian_u.shape[0]
+    derivative = np.where(space.log, space.scale * x, space.scale)
+    jacobian = (jacobian_u / derivative)[:, free]
+    p = int(free.sum())
+    dof = m - p
+    variance = value / dof if dof > 0 else math.nan
+    norms = np.sqrt(np.sum(jacobian**2, axis=0))
+    norms = np.where(norms > 0.0, norms, 1.0)
+    _, singular, vt = np.linalg.svd(jacobian / norms, full_matrices=False)
+    null = singular <= UNDETERMINED * singular[0] if singular.size else np.zeros(0, bool)
+    inverse = np.where(null, 0.0, 1.0 / np.where(null, 1.0, singular) ** 2)
+    cov_free = variance * (vt.T * inverse) @ vt / np.outer(norms, norms)
+    involved = np.zeros(p, dtype=bool)
+    undetermined = []
+    names = labels(space, free)
+    for k in np.flatnonzero(null):
+        vector = vt[k] / norms
+        involved |= np.abs(vector) >= 0.1 * np.max(np.abs(vector))
+        undetermined.append(combination(vector, names))
+    covariance = np.full((n, n), np.nan)
+    covariance[np.ix_(free, free)] = cov_free
+    se_free = np.sqrt(np.diag(cov_free))
+    se_free[involved] = np.inf
+    errors = np.full(n, np.nan)
+    errors[free] = se_free
+    known = np.isfinite(errors)
+    correlation = np.full((n, n), np.nan)
+    correlation[np.ix_(known, known)] = covariance[np.ix_(known, known)] / np.outer(
+        errors[known], errors[known]
+    )
+    np.fill_diagonal(correlation, np.where(known, 1.0, np.nan))
+    t = float(stats.t.ppf(0.5 + LEVEL / 2.0, dof)) if dof > 0 else math.nan
+    intervals = np.column_stack([x - t * errors, x + t * errors])
+    return Uncertainty(
+        names=space.names, estimates=x.copy(), standard_errors=errors, covariance=covariance,
+        correlation=correlation, intervals=intervals, degrees_of_freedom=dof,
+        residual_variance=variance, observations=m, undetermined=tuple(undetermined),
+    )
+
+
+def _warnings(result: Uncertainty) -> list[str]:
+    messages = []
+    if result.undetermined:
+        messages.append(
+            "the data do not determine " + "; ".join(result.undetermined)
+            + ": their standard errors are infinite"
+        )
+    strong = [(a, b, r) for a, b, r in result.strongest(len(result.names) ** 2) if abs(r) > STRONG]
+    if strong:
+        pairs = ", ".join(f"{a} and {b} (r = {r:+.4f})" for a, b, r in strong[:4])
+        more = f" and {len(strong) - 4} more pairs" if len(strong) > 4 else ""
+        messages.append(
+            f"strongly correlated parameters (|r| > {STRONG}): {pairs}{more}; each is poorly "
+            "determined alone"
+        )
+    if result.degrees_of_freedom <= 0:
+        messages.append(
+            f"{result.observations} residuals for {len(result.names)} parameters leave no degrees "
+            "of freedom: no uncertainty can be given"
+        )
+    return messages
+
+
+# ----------------------------------------------------------------------------- calibrate
+
+
+def calibrate(
+    residuals: Residuals,
+    start: object,
+    bounds: object = None,
+    names: Sequence[str] | None = None,
+    budget: int | None = None,
+    *,
+    sigma: object = None,
+    point_tolerance: float = 1e-6,
+    value_tolerance: float = 1e-10,
+    time_limit: float | None = None,
+    journal: object = None,
+    check: bool | str = True,
+    escapes: int = 3,
+    noise: float | str | None = None,
+    executor: object = None,
+    progress: bool = False,
+) -> Solution:
+    """Return the least-squares fit of a residual vector, with the uncertainty of its parameters.
+
+    Minimizes ``S(x) = sum(r(x)**2)``, ``r`` = model minus data (divided by ``sigma`` when given),
+    by the direction-set search, finished with Levenberg–Marquardt steps; then checks the point
+    (`directional.curvature`) and computes ``sol.uncertainty`` (`Uncertainty`: standard errors,
+    correlations, 95 % intervals) from s²(JᵀJ)⁻¹ (Bates & Watts 1988).  Warns when parameters are
+    correlated beyond 0.95 or not determined.
+
+    >>> import numpy as np, directional as dl
+    >>> t = np.array([0.0, 1.0, 2.0, 3.0])                      # invented demo data
+    >>> y = np.array([2.0, 1.2, 0.75, 0.45])
+    >>> sol = dl.calibrate(lambda k: k[0] * np.exp(-k[1] * t) - y, [1.0, 1.0], names=["a", "k"])
+    >>> {name: round(v, 3) for name, v in sol.named.items()}, sol.uncertainty.degrees_of_freedom
+    ({'a': 1.996, 'k': 0.497}, 2)
+
+    Parameters
+    ----------
+    residuals
+        Called with one float array of the parameters; returns a flat array of m numbers.
+    sigma
+        None, or m positive standard deviations of the data: the residuals are divided by them.
+        The covariance is still scaled by s² = S / (m - p), which is near 1 when they are right.
+
+    The other arguments are those of `directional.minimize`; ``budget`` counts every evaluation
+    (search, Levenberg–Marquardt, check and Jacobian).
+
+    Raises
+    ------
+    ProblemError
+        For a bad start, bounds, names, budget, tolerance, sigma, check, escapes or noise.
+    ObjectiveError
+        When the start fails, or the residuals are not a flat array of numbers of a fixed length.
+    """
+    if not callable(residuals):
+        raise ProblemError(f"residuals must be callable, got {residuals!r}")
+    space = build_space(start, bounds, names)
+    settings = _settings(point_tolerance, value_tolerance)
+    budget = _budget(budget, space.size)
+    if time_limit is not None and not (isinstance(time_limit, int | float) and time_limit > 0):
+        raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
+    method, escapes, noise = check_method(check), escape_count(escapes), noise_option(noise)
+    deviations = _sigma(sigma)
+    identity = run_identity(
+        "calibrate", space.parameters, settings,
+        point_tolerance=point_tolerance, value_tolerance=value_tolerance, check=check,
+        escapes=escapes, noise=noise, sigma=None if deviations is None else deviations.tolist(),
+    )
+    squares = SumOfSquares(residuals, deviations)
+    with journal_for(journal, identity, budget=budget) as book:
+        driver = Driver(objective=squares, budget=budget, time_limit=time_limit, **book.hooks())
+        level, noted = noise_level(driver, space, noise)
+        settings = floored(settings, level)
+        outcome = _search(
+            driver, space, settings, squares, None, reserve=_reserve(space.size, budget),
+            second_opinion=True,
+        )
+        settled = settle(
+            driver, space, settings, outcome, check=method, escapes=escapes, noise=level,
+            restart=lambda u: _search(driver, space, settings, squares, u, reserve=0),
+        )
+        outcome = settled.outcome
+        free = ~space.on_bound(space.to_user(outcome.point), 10.0 * settings.point_tolerance)
+        jacobian = driver.run(extrapolated_jacobian(space, squares, outcome.point, free))
+        book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
+        solution = settled_solution(_solution(space, settings, driver, outcome), settled, noted)
+    x = space.to_user(outcome.point)
+    notes = list(solution.notes)
+    result = None
+    if jacobian is None:
+        notes.append("no uncertainty: an evaluation for the Jacobian failed or was not allowed")
+    else:
+        result = uncertainty(space, x, jacobian, outcome.value, free)
+        for message in _warnings(result):
+            warnings.warn(message, stacklevel=2)
+            notes.append(message)
+    if squares.recomputed:
+        notes.append(f"{squares.recomputed} residual vectors were recomputed (replayed journal)")
+    return dataclasses.replace(
+        solution, point=x, value=outcome.value, uncertainty=result, notes=tuple(notes)
+    )
+
+
+def _sigma(sigma: object) -> np.ndarray | None:
+    if sigma is None:
+        return None
+    try:
+        deviations = np.array(sigma, dtype=float).reshape(-1)
+    except (TypeError, ValueError):
+        raise ProblemError(f"sigma must be positive numbers, one per residual, got {sigma!r}") from None
+    bad = np.flatnonzero(~(np.isfinite(deviations) & (deviations > 0.0)))
+    if bad.size or np.ndim(sigma) > 1 or deviations.size == 0:
+        where = f" (entry {bad[0]}: {deviations[bad[0]]!r})" if bad.size else ""
+        raise ProblemError(f"sigma must be positive finite numbers, one per residual{where}")
+    return deviations
+
+
+def _reserve(n: int, budget: int) -> int:
+    """Evaluations kept from the derivative-free search for the Levenberg–Marquardt runs."""
+    return min(budget // 2, 40 * (2 * n + 2))
+
+
+def _search(
+    driver: Driver,
+    space: Space,
+    settings: Settings,
+    squares: SumOfSquares,
+    start: np.ndarray | None,
+    *,
+    reserve: int,
+    second_opinion: bool = False,
+) -> Outcome:
+    """The direction-set search finished by Levenberg–Marquardt; optionally a second opinion.
+
+    The second opinion is Levenberg–Marquardt alone from the start: damped Gauss–Newton steps do
+    not jump, so it stays in the start's basin where a line search of the direction-set method
+    may leap across a pole of the model into another branch (seen on NIST's Hahn1 from its second
+    start), while the direction-set search gets off plateaus where Gauss–Newton steps stall
+    (NIST's BoxBOD from its first start).  The lower sum of squares wins.
+    """
+    budget = driver.budget
+    driver.budget = max(driver.spent + 1, budget - reserve)
+    try:
+        outcome = driver.run(powell(space, settings, start))
+    finally:
+        driver.budget = budget
+    if outcome.stop in (Stop.INTERRUPTED, Stop.STALLED) or not math.isfinite(outcome.value):
+        return outcome
+    polished = driver.run(levenberg_marquardt(space, squares, outcome.point, outcome.value))
+    outcome = _replaced(outcome, polished, "Levenberg-Marquardt after the search")
+    if not second_opinion or outcome.stop is Stop.INTERRUPTED:
+        return outcome
+    other = driver.run(_from_start(space, squares))
+    if other.value < outcome.value - 4.0 * EPSILON * abs(outcome.value):
+        note = (
+            f"Levenberg-Marquardt from the start reached S = {other.value:.10g}, below the "
+            f"{outcome.value:.10g} of the direction-set search; its point is taken"
+        )
+        outcome = _replaced(outcome, other, note)
+    return outcome
+
+
+def _from_start(space: Space, squares: SumOfSquares) -> Generator[Batch, np.ndarray, Polished]:
+    u = np.zeros(space.size)
+    try:
+        values = yield Batch(points=space.to_user(u)[None, :], purpose="start")
+    except Halt as halt:
+        return Polished(point=u, value=math.inf, stop=halt.stop, reason=halt.reason, steps=0)
+    return (yield from levenberg_marquardt(space, squares, u, float(values[0])))
+
+
+def _replaced(outcome: Outcome, polished: Polished, what: str) -> Outcome:
+    """The outcome moved to where Levenberg–Marquardt ended, if that is not higher.
+
+    With the final Jacobian J at hand, the directions become the eigenvectors of the Gauss–Newton
+    matrix 2 JᵀJ and their curvatures its eigenvalues: conjugate directions whose free Hessian
+    estimate (`directions.hessian_estimate`) is 2 JᵀJ itself, measured at the new point at no
+    extra cost, where the direction set of the search belongs to where the search ended.
+    """
+    note = f"{what}: {polished.steps} steps" + (f" ({polished.reason})" if polished.reason else "")
+    if polished.value > outcome.value:
+        return dataclasses.replace(outcome, notes=tuple(outcome.notes) + (note,))
+    directions, curvatures = outcome.directions, outcome.curvatures
+    if polished.jacobian is not None and np.all(np.isfinite(polished.jacobian)):
+        eigenvalues, eigenvectors = np.linalg.eigh(2.0 * polished.jacobian.T @ polished.jacobian)
+        directions = eigenvectors.T.copy()
+        curvatures = np.where(eigenvalues > 0.0, eigenvalues, np.nan)
+    return dataclasses.replace(
+        outcome,
+        point=polished.point,
+        value=polished.value,
+        stop=polished.stop,
+        reason=polished.reason,
+        directions=directions,
+        curvatures=curvatures,
+        notes=tuple(outcome.notes) + (note,),
+    )

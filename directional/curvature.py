@@ -1,0 +1,737 @@
+"""Is the returned point a minimum?  Numerical Hessian, verdict with error bars, saddle escape.
+
+Theory of operation.  Successive parabolic interpolation converges as happily to a saddle or a
+maximum as to a minimum, and a derivative-free search stops wherever progress is small; so the
+point it returns is checked.
+
+1. Free estimate.  The line searches measured the curvature along each direction of the final
+   set; for conjugate directions these give a Hessian estimate at no cost
+   (`directions.hessian_estimate`).  It is reported, and its diagonal sizes the steps of the paid
+   check.  It holds only the positive curvatures the line searches saw, so it can never reveal a
+   saddle: alone it decides nothing (``check=False`` leaves the verdict UNCHECKED).
+2. Paid check.  A Hessian in scaled coordinates (`directional.space`) over the parameters that are
+   not on a bound: by numdifftools' central differences with Richardson extrapolation and its
+   error estimate (``check=True``, 6 n² + 1 evaluations), or by one plain central-difference
+   stencil (``check="quick"``, 2 n² + 1).  Every stencil point is known before any value is, so
+   the stencil goes to the driver as one batch (an executor evaluates it in parallel).  Steps are
+   never below what the noise allows (`step_sizes`); with a stated noise level, a stencil whose
+   steps were sized from a curvature that the measurement belies is resized and evaluated again.
+3. Verdict.  The Hessian is first scaled symmetrically so that each row's largest entry (or
+   error, when larger) is 1 (`equilibration`; the signs of the eigenvalues do not change).  Each
+   eigenvalue then gets its own error bar from the scaled error estimate plus the noise's share
+   (`eigenvalue_margins`): an eigenvalue above its bar is clearly positive, one below minus its
+   bar clearly negative, the rest indistinguishable from zero.  MINIMUM: all clearly positive;
+   MAXIMUM: all clearly negative; SADDLE: some clearly negative; FLAT: none negative, some zero
+   (the combinations of parameters along those eigenvectors are reported by name).
+4. Escape.  On SADDLE or MAXIMUM the eigenvector of most negative curvature is line-searched both
+   ways, the direction-set search restarts from the better point, and the new point is checked:
+   at most ``escapes`` times.  When the line search gains less than the search's own value
+   tolerance (or the noise), the negative curvature is too weak to matter and the verdict
+   becomes FLAT along that direction (e.g. a point 1e-9 beside a valley floor of minima).
+
+References
+----------
+.. [1] J. H. Wilkinson, *The Algebraic Eigenvalue Problem*, Clarendon Press, 1965, ch. 2
+   (perturbation of the eigenvalues of a symmetric matrix).
+.. [2] D. Ruiz, "A scaling algorithm to equilibrate both rows and columns norms in matrices",
+   Rutherford Appleton Laboratory report RAL-TR-2001-034, 2001.
+.. [3] P. E. Gill, W. Murray and M. H. Wright, *Practical Optimization*, Academic Press, 1981,
+   sec. 8.6 (finite-difference intervals balancing truncation against rounding; from memory).
+.. [4] P. A. Brodtkorb, numdifftools (Richardson extrapolation of finite differences).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Callable, Generator
+from dataclasses import dataclass
+
+import numdifftools as nd
+import numpy as np
+
+from .directions import DirectionSet, hessian_estimate
+from .driver import Driver
+from .errors import ProblemError
+from .linesearch import line_search
+from .records import Batch, Curvature, Halt, Outcome, Stop, Verdict
+from .search import FIRST_STEP, Settings, powell
+from .solution import Solution
+from .space import Space
+
+EPSILON = float(np.finfo(float).eps)
+LARGEST_STEP = 0.1  # no stencil step beyond a tenth of the problem's size (scaled coordinates)
+RATIO = 2.0  # ratio of the successive steps numdifftools extrapolates from
+STEPS = 3  # steps numdifftools extrapolates from: 3 stencils of 2 n² points, 6 n² + 1 evaluations
+NOISE_SHARE = 0.01  # noise may spoil at most 1 % of a curvature (at 3 sigma) at the smallest step
+RESIZES = 2  # with a noise level: times the stencil may be resized from measured curvatures
+FREE_FLAT = 1e-6  # free estimate: eigenvalues below this fraction of the largest count as zero
+
+Check = Generator[Batch, np.ndarray, "Checked"]
+
+
+def check_method(check: object) -> str | None:
+    """The check the caller asked for: "extrapolated" (True), "quick", or None (False).
+
+    Raises
+    ------
+    ProblemError
+        For anything else.
+    """
+    if check is True or check == "extrapolated":
+        return "extrapolated"
+    if check == "quick":
+        return "quick"
+    if check is False or check is None:
+        return None
+    raise ProblemError(f"check must be True, False or 'quick', got {check!r}")
+
+
+def escape_count(escapes: object) -> int:
+    """Validate the ``escapes`` argument.
+
+    Raises
+    ------
+    ProblemError
+        Unless it is a whole number of at least 0.
+    """
+    if isinstance(escapes, bool) or not isinstance(escapes, int | np.integer) or escapes < 0:
+        raise ProblemError(f"escapes must be a whole number of at least 0, got {escapes!r}")
+    return int(escapes)
+
+
+# ----------------------------------------------------------------------------- steps
+
+
+def step_sizes(
+    curvatures: np.ndarray, value: float, noise: float | None, room: np.ndarray, method: str
+) -> np.ndarray:
+    """Finite-difference steps (scaled coordinates) for a Hessian at a point with value ``value``.
+
+    ``curvatures`` are the expected second derivatives along the axes (the free estimate's
+    diagonal; nan or <= 0 where unknown); ``noise`` the absolute noise level (None: rounding only,
+    ``4 eps |f|``); ``room`` the distance to the nearest bound along each axis.
+
+    A step balances truncation against rounding for a plain central second difference:
+    ``h = (e / c)^(1/4)`` with ``e`` the noise (``eps c`` where ``f = 0``) (Gill, Murray &
+    Wright 1981, sec. 8.6, from memory).  The extrapolated check uses the steps ``2h, h, h/2``:
+    numdifftools' error estimate is led by the spread of the plain differences, so steps chosen
+    for them keep its error bars tight (the extrapolation then only sharpens the estimate).  The
+    floor: the noise may spoil at most 1 % of the curvature (3 sigma) at the smallest step, i.e.
+    ``h >= sqrt(3 sqrt(6) noise / (0.01 c))`` (the second difference of three values with noise of
+    standard deviation ``noise`` has standard deviation ``sqrt(6) noise / h²``).  The floor wins
+    over the step rule; the room to the bounds and a tenth of the problem's size win over both.
+
+    >>> step_sizes(np.array([2.0]), 1.0, None, np.array([np.inf]), "quick").round(6)
+    array([0.000145])
+    """
+    level = 4.0 * EPSILON * abs(value) if noise is None else float(noise)
+    known = np.isfinite(curvatures) & (curvatures > 0.0)
+    fallback = abs(value) if value != 0.0 and math.isfinite(value) else 1.0
+    c = np.where(known, curvatures, np.max(curvatures[known]) if known.any() else fallback)
+    c = np.asarray(c, dtype=float)
+    e = np.full(len(c), level) if level > 0.0 else EPSILON * c  # f = 0: rounding of c h² only
+    floor = np.sqrt(3.0 * math.sqrt(6.0) * level / (NOISE_SHARE * c))
+    if method == "quick":
+        h = np.maximum((e / c) ** 0.25, floor)
+        return np.minimum(h, np.minimum(LARGEST_STEP, room))
+    # steps 2h, h, h/2; numdifftools' diagonal reaches twice the largest step from the point.
+    h = np.maximum((e / c) ** 0.25, floor * RATIO ** (STEPS - 2))
+    return np.minimum(h * RATIO, np.minimum(LARGEST_STEP, 0.5 * room))
+
+
+def _noise_margin(steps: np.ndarray, noise: float) -> np.ndarray:
+    """Three standard deviations of the noise's share of each Hessian entry (quick stencil)."""
+    outer = np.outer(steps, steps)
+    margin = 3.0 * noise / (2.0 * outer)  # (f++ - f+- - f-+ + f--) / (4 h_i h_j)
+    np.fill_diagonal(margin, 3.0 * math.sqrt(6.0) * noise / steps**2)
+    return margin
+
+
+# ----------------------------------------------------------------------------- paid Hessians
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Measured:
+    """A Hessian measured in scaled coordinates over the free parameters, with its error bars."""
+
+    hessian: np.ndarray
+    error: np.ndarray
+    steps: np.ndarray
+    problem: str = ""  # why the measurement is unusable ("" when it is fine)
+
+
+def _estimate_fields(result: object) -> tuple[np.ndarray, np.ndarray]:
+    """numdifftools' estimate and error estimate, by name, whatever its version returns.
+
+    0.11 returns a named tuple ``EstimateResult(estimate, error_estimate, final_step,
+    best_index)``; some earlier versions return ``(estimate, info)`` with ``info.error_estimate``.
+    """
+    estimate = getattr(result, "estimate", None)
+    if estimate is not None:
+        return np.asarray(estimate, dtype=float), np.asarray(result.error_estimate, dtype=float)
+    estimate, info = result  # type: ignore[misc]
+    return np.asarray(estimate, dtype=float), np.asarray(info.error_estimate, dtype=float)
+
+
+def numdifftools_hessian(
+    function: Callable[[np.ndarray], float], steps: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """The adapter: numdifftools' extrapolated central-difference Hessian of ``function`` at 0.
+
+    ``steps`` are the largest steps per coordinate; numdifftools uses ``steps / 2**k`` for
+    k = 0, 1, 2 and extrapolates.  Returns ``(hessian, error_estimate)``, both (k, k).  The
+    function is evaluated at 0 so that numdifftools' nominal step is 1 in every coordinate.
+    """
+    generator = nd.MaxStepGenerator(
+        base_step=np.asarray(steps, dtype=float),
+        step_ratio=RATIO,
+        num_steps=STEPS,
+        step_nom=1.0,
+        offset=0,
+        use_exact_steps=True,
+    )
+    hessian = nd.Hessian(function, step=generator, method="central", full_output=True)
+    estimate, error = _estimate_fields(hessian(np.zeros(len(steps))))
+    k = len(steps)
+    return estimate.reshape(k, k), error.reshape(k, k)
+
+
+def _embed(space: Space, u0: np.ndarray, free: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """User points for steps ``v`` (rows, over the free parameters) from the scaled point u0."""
+    u = np.repeat(u0[None, :], len(v), axis=0)
+    u[:, free] = u[:, free] + v
+    return space.to_user(u)
+
+
+def extrapolated_hessian(
+    space: Space, u0: np.ndarray, free: np.ndarray, steps: np.ndarray
+) -> Generator[Batch, np.ndarray, Measured]:
+    """numdifftools' Hessian with the stencil evaluated as one batch (purpose "hessian").
+
+    numdifftools calls its function one point at a time.  A first pass with a function that only
+    records the points (their positions do not depend on the values for fixed steps) collects the
+    stencil; it is evaluated as one batch; a second pass reads the values back.  Should the second
+    pass ask for a point not recorded, that point is evaluated in a further batch and the pass
+    repeated (at most twice).
+    """
+    table = _Table()
+    for _ in range(3):
+        table.missing = {}
+        hessian, error = numdifftools_hessian(table.lookup, steps)
+        if not table.missing:
+            return _checked_measure(hessian, error, steps, table.known)
+        values = yield Batch(
+            points=_embed(space, u0, free, np.array(list(table.missing.values()))), purpose="hessian"
+        )
+        table.known.update(zip(table.missing, (float(v) for v in values)))
+        bad = sum(1 for v in values if not math.isfinite(v))
+        if bad:
+            problem = f"{bad} of the {len(values)} stencil evaluations failed"
+            return Measured(hessian=hessian, error=error, steps=steps, problem=problem)
+    return Measured(hessian=hessian, error=error, steps=steps, problem="the stencil kept changing")
+
+
+class _Table:
+    """Values known so far by stencil step (bytes of the step vector), and the steps still missing."""
+
+    def __init__(self) -> None:
+        self.known: dict[bytes, float] = {}
+        self.missing: dict[bytes, np.ndarray] = {}
+
+    def lookup(self, v: np.ndarray) -> float:
+        v = np.asarray(v, dtype=float)
+        key = v.tobytes()
+        if key in self.known:
+            return self.known[key]
+        self.missing.setdefault(key, v.copy())
+        return 0.0
+
+
+def _checked_measure(
+    hessian: np.ndarray, error: np.ndarray, steps: np.ndarray, known: dict[bytes, float]
+) -> Measured:
+    bad = sum(1 for v in known.values() if not math.isfinite(v))
+    problem = f"{bad} of the {len(known)} stencil evaluations failed" if bad else ""
+    if not problem and not (np.all(np.isfinite(hessian)) and np.all(np.isfinite(error))):
+        problem = "the Hessian estimate is not finite"
+    return Measured(hessian=0.5 * (hessian + hessian.T), error=error, steps=steps, problem=problem)
+
+
+def quick_hessian(
+    space: Space, u0: np.ndarray, free: np.ndarray, steps: np.ndarray
+) -> Generator[Batch, np.ndarray, Measured]:
+    """A plain central-difference Hessian: one batch of at most 2 k² + 1 points (k free).
+
+    ``H_ii = (f(+h_i) - 2 f(0) + f(-h_i)) / h_i²`` and
+    ``H_ij = (f(+h_i, +h_j) - f(+h_i, -h_j) - f(-h_i, +h_j) + f(-h_i, -h_j)) / (4 h_i h_j)``
+    (common practice, no source).  Its error bars hold the noise's share only (`_noise_margin`,
+    added by the caller): a single stencil cannot estimate its own truncation error.
+    """
+    k = len(steps)
+    rows = [np.zeros(k)]
+    for i in range(k):
+        for sign in (1.0, -1.0):
+            v = np.zeros(k)
+            v[i] = sign * steps[i]
+            rows.append(v)
+    pairs = [(i, j) for i in range(k) for j in range(i + 1, k)]
+    for i, j in pairs:
+        for si, sj in ((1.0, 1.0), (1.0, -1.0), (-1.0, 1.0), (-1.0, -1.0)):
+            v = np.zeros(k)
+            v[i], v[j] = si * steps[i], sj * steps[j]
+            rows.append(v)
+    values = yield Batch(points=_embed(space, u0, free, np.array(rows)), purpose="hessian")
+    known = {row.tobytes(): float(value) for row, value in zip(rows, values)}
+    f0 = values[0]
+    hessian = np.zeros((k, k))
+    for i in range(k):
+        hessian[i, i] = (values[1 + 2 * i] - 2.0 * f0 + values[2 + 2 * i]) / steps[i] ** 2
+    for n, (i, j) in enumerate(pairs):
+        pp, pm, mp, mm = values[1 + 2 * k + 4 * n : 5 + 2 * k + 4 * n]
+        hessian[i, j] = hessian[j, i] = (pp - pm - mp + mm) / (4.0 * steps[i] * steps[j])
+    return _checked_measure(hessian, np.zeros((k, k)), steps, known)
+
+
+# ----------------------------------------------------------------------------- verdict
+
+
+def equilibration(hessian: np.ndarray, *, sweeps: int = 60) -> np.ndarray:
+    """Diagonal scaling ``d`` that brings the largest entry of every row of ``H / (d dᵀ)`` to 1.
+
+    Ruiz's (2001) iteration: divide rows and columns by the square roots of the row maxima, and
+    repeat; the result does not depend on how the parameters were scaled to begin with.  The
+    verdict is decided on the scaled matrix: congruence keeps the signs of the eigenvalues
+    (Sylvester's law of inertia), and after it the error bars of large and small entries are
+    compared on an equal footing, so that a badly scaled but well-determined Hessian is not
+    called FLAT because of the absolute error of its largest entry.  A row of zeros keeps 1.
+
+    >>> equilibration(np.array([[4.0, 0.0], [0.0, 0.01]])).round(6)
+    array([2. , 0.1])
+    """
+    a = np.abs(np.asarray(hessian, dtype=float))
+    d = np.ones(len(a))
+    for _ in range(sweeps):
+        rows = np.max(a / np.outer(d, d), axis=1)
+        step = np.sqrt(np.where(rows > 0.0, rows, 1.0))
+        d = d * step
+        if np.all(np.abs(step - 1.0) <= 1e-6):
+            break
+    return d
+
+
+def classify(eigenvalues: np.ndarray, margin: float | np.ndarray) -> Verdict:
+    """The verdict from eigenvalues known to within ``margin`` (one, or one per eigenvalue).
+
+    >>> classify(np.array([-1.0, 2.0]), 0.1), classify(np.array([1e-9, 2.0]), 1e-6)
+    (<Verdict.SADDLE: 'saddle'>, <Verdict.FLAT: 'flat'>)
+    """
+    if len(eigenvalues) == 0:
+        return Verdict.UNCHECKED
+    if np.all(eigenvalues > margin):
+        return Verdict.MINIMUM
+    if np.all(eigenvalues < -margin):
+        return Verdict.MAXIMUM
+    if np.any(eigenvalues < -margin):
+        return Verdict.SADDLE
+    return Verdict.FLAT
+
+
+def eigenvalue_margins(eigenvectors: np.ndarray, error: np.ndarray) -> np.ndarray:
+    """Error bar of each eigenvalue: ``|v|ᵀ |E| |v|`` for its unit eigenvector ``v``.
+
+    To first order an error ``E`` moves the eigenvalue of ``v`` by ``vᵀ E v`` (Rayleigh quotient;
+    Wilkinson 1965, ch. 2), and with only the magnitudes of the errors known that is at most
+    ``|v|ᵀ |E| |v|``.  Unlike the norm of ``E`` (Weyl's bound, which holds for every eigenvalue at
+    once), it does not let a badly determined parameter blur the eigenvalues it takes no part in.
+
+    >>> eigenvalue_margins(np.eye(2), np.array([[1e-6, 0.0], [0.0, 1.0]]))
+    array([1.e-06, 1.e+00])
+    """
+    v = np.abs(eigenvectors)
+    return np.einsum("ik,ij,jk->k", v, np.abs(error), v)
+
+
+def combination(vector: np.ndarray, labels: tuple[str, ...]) -> str:
+    """A direction in search coordinates as a weighted sum of parameter names.
+
+    The largest weight is made positive; weights below a tenth of it are left out.
+
+    >>> combination(np.array([-0.6, -0.8]), ("a", "b"))
+    '0.6 a + 0.8 b'
+    """
+    v = np.asarray(vector, dtype=float)
+    v = v / np.linalg.norm(v)
+    if v[np.argmax(np.abs(v))] < 0:
+        v = -v
+    terms = []
+    for weight, label in zip(v, labels):
+        if abs(weight) < 0.1 * np.max(np.abs(v)):
+            continue
+        sign = "-" if weight < 0 else "+"
+        terms.append((sign, f"{abs(weight):.3g} {label}"))
+    text = " ".join(f"{sign} {term}" for sign, term in terms)
+    return text[2:] if text.startswith("+ ") else "-" + text[2:]
+
+
+def labels(space: Space, free: np.ndarray) -> tuple[str, ...]:
+    """Names of the free search coordinates: the parameter, or log(parameter) on a log scale."""
+    return tuple(
+        f"log({p.name})" if log else p.name
+        for p, log, keep in zip(space.parameters, space.log, free)
+        if keep
+    )
+
+
+def record(
+    scaled: np.ndarray,
+    error: np.ndarray | None,
+    scale: np.ndarray,
+    source: str,
+    *,
+    names: tuple[str, ...],
+    margin: float = math.nan,
+    undetermined: tuple[str, ...] = (),
+    evaluations: int = 0,
+    free: Curvature | None = None,
+) -> Curvature:
+    """A `Curvature` record in search coordinates from a Hessian in scaled coordinates."""
+    inverse = 1.0 / np.outer(scale, scale)
+    hessian = scaled * inverse
+    hessian = 0.5 * (hessian + hessian.T)
+    eigenvalues, eigenvectors = np.linalg.eigh(hessian)
+    top, low = np.max(np.abs(eigenvalues)), np.min(np.abs(eigenvalues))
+    return Curvature(
+        hessian=hessian,
+        error=None if error is None else error * inverse,
+        eigenvalues=eigenvalues,
+        eigenvectors=eigenvectors,
+        condition=math.inf if low == 0.0 else float(top / low),
+        source=source,
+        names=names,
+        margin=margin,
+        undetermined=undetermined,
+        evaluations=evaluations,
+        free=free,
+    )
+
+
+def free_estimate(space: Space, outcome: Outcome) -> np.ndarray | None:
+    """The free Hessian estimate in scaled coordinates (None while a curvature is unknown)."""
+    return hessian_estimate(
+        DirectionSet(
+            vectors=outcome.directions,
+            curvatures=outcome.curvatures,
+            steps=np.zeros(space.size),
+        )
+    )
+
+
+def free_record(space: Space, scaled: np.ndarray | None) -> Curvature | None:
+    """The free estimate as a `Curvature` record over every parameter."""
+    if scaled is None:
+        return None
+    all_free = np.ones(space.size, dtype=bool)
+    d = equilibration(scaled)
+    margin = FREE_FLAT * float(np.max(np.abs(np.linalg.eigvalsh(scaled / np.outer(d, d)))))
+    return record(scaled, None, space.scale, "free", names=labels(space, all_free), margin=margin)
+
+
+def free_verdict(space: Space, scaled: np.ndarray | None) -> Verdict:
+    """What the free estimate alone would say: MINIMUM, FLAT, or UNCHECKED when there is none.
+
+    Its curvatures are the positive ones the line searches measured, so it cannot say SADDLE;
+    eigenvalues below ``FREE_FLAT`` times the largest count as zero (a heuristic, no source).
+    Used by the benchmarks to see how often the free estimate agrees with the paid check.
+    """
+    if scaled is None:
+        return Verdict.UNCHECKED
+    d = equilibration(scaled)
+    eigenvalues = np.linalg.eigvalsh(scaled / np.outer(d, d))
+    return classify(eigenvalues, FREE_FLAT * float(np.max(np.abs(eigenvalues))))
+
+
+# ----------------------------------------------------------------------------- the check
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Checked:
+    """What a check found: the verdict, the record, and the escape direction (scaled, full n)."""
+
+    verdict: Verdict
+    curvature: Curvature | None
+    note: str = ""
+    escape: np.ndarray | None = None
+
+
+def check_point(
+    space: Space,
+    u0: np.ndarray,
+    f0: float,
+    free_scaled: np.ndarray | None,
+    *,
+    method: str,
+    noise: float | None,
+    active: np.ndarray,
+) -> Check:
+    """The paid check at the scaled point ``u0`` as a generator for the driver.
+
+    With a noise level given, the free estimate's curvatures may be noise themselves (a parabola
+    through points closer than the noise allows), and steps sized from them too short: when the
+    measured diagonal comes out below a quarter of the curvature the steps were sized for, the
+    steps are sized again from the measured one and the stencil is evaluated anew (at most
+    ``RESIZES`` times).  Without a noise level the stencil is evaluated once.
+    """
+    free = ~active
+    free_rec = free_record(space, free_scaled)
+    if not free.any():
+        return Checked(
+            verdict=Verdict.UNCHECKED, curvature=free_rec,
+            note="not checked: every parameter is on a bound",
+        )
+    room = np.minimum(u0 - space.lower_u, space.upper_u - u0)[free]
+    diagonal = np.full(int(free.sum()), np.nan) if free_scaled is None else np.diag(free_scaled)[free]
+    for attempt in range(RESIZES + 1):
+        steps = step_sizes(diagonal, f0, noise, room, method)
+        try:
+            if method == "quick":
+                measured = yield from quick_hessian(space, u0, free, steps)
+            else:
+                measured = yield from extrapolated_hessian(space, u0, free, steps)
+        except Halt as halt:
+            return Checked(
+                verdict=Verdict.UNCHECKED, curvature=free_rec,
+                note=f"the curvature check could not finish: {halt.reason}",
+            )
+        if measured.problem:
+            return Checked(
+                verdict=Verdict.UNCHECKED, curvature=free_rec,
+                note=f"the curvature check failed: {measured.problem}",
+            )
+        found = np.abs(np.diag(measured.hessian))
+        used = np.where(np.isfinite(diagonal) & (diagonal > 0.0), diagonal, np.inf)
+        if noise is None or attempt == RESIZES or not np.any(found < 0.25 * used):
+            break
+        diagonal = np.where(found < 0.25 * used, found, diagonal)
+    return _verdict(space, free, measured, f0, noise, method, free_rec)
+
+
+def _verdict(
+    space: Space,
+    free: np.ndarray,
+    measured: Measured,
+    f0: float,
+    noise: float | None,
+    method: str,
+    free_rec: Curvature | None,
+) -> Checked:
+    level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
+    smallest = measured.steps if method == "quick" else measured.steps / RATIO ** (STEPS - 1)
+    error = measured.error + _noise_margin(smallest, level)
+    d = equilibration(np.maximum(np.abs(measured.hessian), error))
+    eigenvalues, eigenvectors = np.linalg.eigh(measured.hessian / np.outer(d, d))
+    margins = eigenvalue_margins(eigenvectors, error / np.outer(d, d))
+    margins += 64.0 * EPSILON * float(np.max(np.abs(eigenvalues)))
+    verdict = classify(eigenvalues, margins)
+    margin = float(margins[0])  # that of the smallest eigenvalue, the one the verdict turns on
+    directions = eigenvectors / d[:, None]  # back from the equilibrated to the scaled coordinates
+    scale = space.scale[free]
+    names = labels(space, free)
+    zero = np.abs(eigenvalues) <= margins
+    undetermined = tuple(combination(scale * directions[:, i], names) for i in np.flatnonzero(zero))
+    curvature = record(
+        measured.hessian, error, scale, method, names=names, margin=margin,
+        undetermined=undetermined, free=free_rec,
+    )
+    escape = None
+    if verdict in (Verdict.SADDLE, Verdict.MAXIMUM):
+        escape = np.zeros(space.size)
+        most = directions[:, int(np.argmin(eigenvalues))]
+        escape[free] = most / np.linalg.norm(most)
+    return Checked(verdict=verdict, curvature=curvature, escape=escape)
+
+
+# ----------------------------------------------------------------------------- escape
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Escaped:
+    """Where a line search along a direction of negative curvature ended (scaled point)."""
+
+    point: np.ndarray
+    value: float
+    halted: bool = False
+
+
+def escape(
+    space: Space, settings: Settings, u0: np.ndarray, f0: float, direction: np.ndarray
+) -> Generator[Batch, np.ndarray, Escaped]:
+    """Line-search both ways along ``direction`` from ``u0`` (purpose "escape").
+
+    Both probes ``u0 ± h d`` go out as one batch; the line search then goes on from the lower
+    side (the three known points make it extend the bracket that way).
+    """
+    d = direction / np.linalg.norm(direction)
+    lo, hi = space.segment(u0, d)
+    h = FIRST_STEP
+    ts = [t for t in (min(h, hi), max(-h, lo)) if t != 0.0]
+    best = Escaped(point=u0, value=f0)
+    if not ts:
+        return best
+    try:
+        values = yield Batch(points=space.to_user(u0 + np.array(ts)[:, None] * d), purpose="escape")
+        known = {0.0: f0, **{t: float(v) for t, v in zip(ts, values)}}
+        for t, v in known.items():
+            if v < best.value:
+                best = Escaped(point=u0 + t * d, value=v)
+        search = line_search(
+            known, lo, hi, step=h, tolerance=settings.line_tolerance, limit=settings.line_limit
+        )
+        try:
+            ts_next = next(search)
+            while True:
+                values = yield Batch(points=space.to_user(u0 + ts_next[:, None] * d), purpose="escape")
+                for t, v in zip(ts_next, values):
+                    if v < best.value:
+                        best = Escaped(point=u0 + t * d, value=float(v))
+                ts_next = search.send(values)
+        except StopIteration:
+            pass
+    except Halt:
+        return dataclasses.replace(best, halted=True)
+    return best
+
+
+# ----------------------------------------------------------------------------- the whole settle
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Settled:
+    """The search's final outcome after checks and escapes, and what to tell the user."""
+
+    outcome: Outcome
+    verdict: Verdict
+    curvature: Curvature | None
+    notes: tuple[str, ...]
+    escapes: int
+    point: np.ndarray | None = None  # the outcome's point in user coordinates
+
+
+Restart = Callable[[np.ndarray], Outcome]
+
+
+def settle(
+    driver: Driver,
+    space: Space,
+    settings: Settings,
+    outcome: Outcome,
+    *,
+    check: str | None,
+    escapes: int,
+    noise: float | None,
+    restart: Restart | None = None,
+    search: int = 0,
+) -> Settled:
+    """Check the search's point, escape saddles and maxima, and check again (at most ``escapes``).
+
+    ``restart(u)`` runs the search from an escape point through ``driver`` and returns its
+    outcome (default: `search.powell` from ``u``); that outcome replaces the old one, with the
+    cycles added up.  Every generator runs through ``driver``, so counts, cache and journal go on.
+    """
+    if restart is None:
+
+        def restart(u: np.ndarray) -> Outcome:
+            return driver.run(powell(space, settings, start=u), search=search)
+
+    notes: list[str] = []
+    escaped = 0
+    while True:
+        free_scaled = free_estimate(space, outcome)
+        curvature = free_record(space, free_scaled)
+        if check is None:
+            return _settled(space, outcome, verdict=Verdict.UNCHECKED, curvature=curvature,
+                           notes=tuple(notes), escapes=escaped)
+        if outcome.stop is not Stop.CONVERGED:
+            notes.append(f"not checked: the search stopped before converging ({outcome.stop.value})")
+            return _settled(space, outcome, verdict=Verdict.UNCHECKED, curvature=curvature,
+                           notes=tuple(notes), escapes=escaped)
+        before = driver.spent
+        active = space.on_bound(space.to_user(outcome.point), 10.0 * settings.point_tolerance)
+        checked = driver.run(
+            check_point(space, outcome.point, outcome.value, free_scaled, method=check, noise=noise,
+                        active=active),
+            search=search,
+        )
+        curvature = checked.curvature
+        if curvature is not None and curvature.source != "free":
+            curvature = dataclasses.replace(curvature, evaluations=driver.spent - before)
+        if checked.note:
+            notes.append(checked.note)
+        if checked.escape is None or escaped >= escapes:
+            if checked.escape is not None and escapes > 0:
+                notes.append(f"still a {checked.verdict.value} after {escaped} escapes")
+            return _settled(space, outcome, verdict=checked.verdict, curvature=curvature,
+                           notes=tuple(notes), escapes=escaped)
+        moved = driver.run(escape(space, settings, outcome.point, outcome.value, checked.escape),
+                           search=search)
+        where = _describe(space, outcome.point)
+        along = combination(space.scale * checked.escape, labels(space, np.ones(space.size, bool)))
+        # a gain the search itself would call no progress does not count as an escape
+        floor = max(
+            settings.value_tolerance * max(1.0, abs(outcome.value)),
+            4.0 * EPSILON * abs(outcome.value) if noise is None else float(noise),
+        )
+        if moved.halted:
+            notes.append(f"{checked.verdict.value} at {where}: the escape along {along} was stopped")
+            return _settled(space, outcome, verdict=checked.verdict, curvature=curvature,
+                            notes=tuple(notes), escapes=escaped)
+        if not moved.value < outcome.value - floor:
+            notes.append(
+                f"{checked.verdict.value} at {where}: no appreciably lower point along {along}; "
+                "the negative curvature is too weak to matter, the point counts as flat"
+            )
+            if curvature is not None:
+                curvature = dataclasses.replace(
+                    curvature, undetermined=tuple(curvature.undetermined) + (along,)
+                )
+            return _settled(space, outcome, verdict=Verdict.FLAT, curvature=curvature,
+                            notes=tuple(notes), escapes=escaped)
+        escaped += 1
+        notes.append(
+            f"escape {escaped}: {checked.verdict.value} at {where} (f = {outcome.value:.6g}); "
+            f"along {along} to f = {moved.value:.6g}, then the search went on"
+        )
+        cycles = outcome.cycles
+        outcome = restart(moved.point)
+        outcome = dataclasses.replace(outcome, cycles=cycles + outcome.cycles)
+
+
+def _settled(space: Space, outcome: Outcome, **fields: object) -> Settled:
+    return Settled(outcome=outcome, point=space.to_user(outcome.point), **fields)  # type: ignore[arg-type]
+
+
+def _describe(space: Space, u: np.ndarray) -> str:
+    x = space.to_user(u)
+    return "(" + ", ".join(f"{name}={value:.6g}" for name, value in zip(space.names, x)) + ")"
+
+
+def settled_solution(solution: Solution, settled: Settled, notes: tuple[str, ...] = ()) -> Solution:
+    """The solution with the verdict, the curvature record and the notes of the check.
+
+    Its point becomes the one the verdict is about (the search's), even where a stencil point of
+    the check came out lower (at a saddle, or a point not quite converged): the notes say so.
+    """
+    notes = tuple(solution.notes) + tuple(notes) + settled.notes
+    point, value = solution.point, solution.value
+    if settled.point is not None and math.isfinite(settled.outcome.value):
+        point, value = settled.point, settled.outcome.value
+        if solution.value < value:
+            notes += (
+                f"an evaluation of the check came out lower, f = {solution.value:.10g} at "
+                + "(" + ", ".join(f"{n}={v:.6g}" for n, v in zip(solution.names, solution.point))
+                + ")",
+            )
+    return dataclasses.replace(
+        solution, point=point, value=value, verdict=settled.verdict, curvature=settled.curvature,
+        notes=notes,
+    )

@@ -1,0 +1,340 @@
+"""The level of computational noise in an objective, from difference tables along a line.
+
+Theory of operation.  The objective is evaluated at ``m + 1`` equally spaced points
+``x + t_i p`` along a random unit direction ``p`` (in scaled coordinates, `directional.space`),
+``t_i = (i - m/2) h``, centred on the point so that the point itself is one of them.  If
+``f = smooth + noise`` with independent noise of standard deviation ``sigma``, the k-th forward
+differences of the smooth part shrink like ``h**k`` while those of the noise keep the size
+``sigma * sqrt((2k)! / (k!)**2)``.  So
+
+    sigma_k = sqrt(gamma_k * mean((Delta^k f)**2)),   gamma_k = (k!)**2 / (2k)!,
+
+estimates ``sigma`` once ``k`` is high enough for the smooth part to have died out.  Following
+Moré and Wild (2011), the level is the first ``sigma_k`` whose k-th differences change sign and
+which agrees within a factor 4 with ``sigma_{k+1}`` and ``sigma_{k+2}``.
+
+Failure signals (``NoiseLevel.status``), each with its cure:
+
+- ``"step too small"``: half or more of the first differences are exactly zero; the values do
+  not resolve the noise (the step is multiplied by 100 and the table built again);
+- ``"step too large"``: the values spread over more than 10 % of their size (the smooth part
+  dominates; the step is divided by 100);
+- ``"too few sign changes"``: no order of differences changes sign, or no order agrees with the
+  next two (again the smooth part dominates; the step is divided by 100);
+- ``"interrupted"``: the driver ended the estimate (budget, time, Ctrl-C).
+
+A failed evaluation among the points makes the table useless: status ``"failed evaluation"``.
+
+References
+----------
+.. [1] J. J. Moré and S. M. Wild, "Estimating computational noise", *SIAM Journal on Scientific
+   Computing* 33(3) (2011) 1292-1314.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Generator, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .driver import Driver, Objective
+from .errors import ObjectiveError, ProblemError
+from .records import Batch, Halt
+from .search import Settings
+from .space import Space, build_space
+
+DETECTED = "detected"
+TOO_SMALL = "step too small"
+TOO_LARGE = "step too large"
+NO_SIGN_CHANGES = "too few sign changes"
+FAILED = "failed evaluation"
+INTERRUPTED = "interrupted"
+
+AGREEMENT = 4.0  # sigma_k, sigma_{k+1}, sigma_{k+2} within this factor (Moré & Wild 2011)
+SPREAD = 0.1  # values spreading more than this fraction of their size: step too large (ibid.)
+GROWTH = 100.0  # factor by which the step changes after a failure (ibid.)
+MAX_ORDER = 16  # differences of higher order only grow rounding (our choice; the paper uses m <= 8)
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class NoiseLevel:
+    """An estimate of the standard deviation of the noise in the objective near a point.
+
+    ``level`` is in the objective's units (``nan`` when no level was detected); ``relative`` is
+    ``level / |f(point)|`` (``nan`` when ``f(point)`` is zero or unknown); ``status`` is
+    ``"detected"`` or one of the failure signals of `directional.noise`; ``order`` is the order of
+    the differences the level came from (0 when none); ``step`` the spacing of the last table, in
+    scaled coordinates; ``evaluations`` the objective calls spent (cache hits not counted).
+    """
+
+    level: float
+    relative: float
+    status: str
+    order: int
+    step: float
+    evaluations: int
+    direction: np.ndarray
+
+    @property
+    def detected(self) -> bool:
+        """True when a level was found."""
+        return self.status == DETECTED
+
+
+def difference_table(values: np.ndarray) -> tuple[np.ndarray, np.ndarray, str]:
+    """Noise levels ``sigma_k`` (k = 1..m) from values at equally spaced points, and the verdict.
+
+    Returns ``(levels, sign_changes, status)`` where ``levels[k - 1]`` is ``sigma_k`` (orders
+    up to 16 for long tables),
+    ``sign_changes[k - 1]`` says whether the k-th differences change sign, and ``status`` is
+    ``"detected"``, ``"step too small"``, ``"step too large"`` or ``"too few sign changes"``
+    (Moré & Wild 2011, section 3 and their procedure ECnoise).
+
+    >>> levels, _, status = difference_table(np.array([1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0]))
+    >>> status
+    'step too large'
+
+    Raises
+    ------
+    ValueError
+        For fewer than 4 values or a value that is not finite.
+    """
+    values = np.asarray(values, dtype=float)
+    if values.ndim != 1 or values.size < 4:
+        raise ValueError(f"need at least 4 values, got {values.size}")
+    if not np.all(np.isfinite(values)):
+        raise ValueError("every value must be finite")
+    m = values.size - 1
+    orders = min(m, MAX_ORDER)
+    levels = np.zeros(orders)
+    changes = np.zeros(orders, dtype=bool)
+    size = float(np.max(np.abs(values)))
+    if size > 0.0 and (values.max() - values.min()) / size > SPREAD:
+        return levels, changes, TOO_LARGE
+    table = values.copy()
+    gamma = 1.0
+    for k in range(1, orders + 1):
+        table = np.diff(table)
+        if k == 1 and np.count_nonzero(table == 0.0) >= (m + 1) / 2:
+            return levels, changes, TOO_SMALL
+        gamma *= 0.5 * k / (2 * k - 1)  # (k!)^2 / (2k)!, built up one order at a time
+        levels[k - 1] = math.sqrt(gamma * float(np.mean(table**2)))
+        changes[k - 1] = bool(table.min() * table.max() < 0.0)
+    return levels, changes, _decide(levels, changes)
+
+
+def _decide(levels: np.ndarray, changes: np.ndarray) -> str:
+    return DETECTED if detected_level(levels, changes)[1] else NO_SIGN_CHANGES
+
+
+def detected_level(levels: np.ndarray, changes: np.ndarray) -> tuple[float, int]:
+    """The level and order chosen by the rule of Moré & Wild (2011), ``(nan, 0)`` if none."""
+    for k in range(len(levels) - 2):
+        window = levels[k : k + 3]
+        if changes[k] and window.max() <= AGREEMENT * window.min():
+            return float(levels[k]), k + 1
+    return math.nan, 0
+
+
+def random_direction(n: int, rng: np.random.Generator) -> np.ndarray:
+    """A direction drawn uniformly from the unit sphere in n dimensions (normalized Gaussian)."""
+    while True:
+        p = rng.standard_normal(n)
+        norm = float(np.linalg.norm(p))
+        if norm > 0.0:
+            return p / norm
+
+
+def offsets(points: int, step: float, lo: float, hi: float) -> np.ndarray:
+    """Line parameters ``t_i = (i - m/2) h``, shifted to fit inside ``[lo, hi]`` if they must be.
+
+    Raises
+    ------
+    ProblemError
+        When the feasible segment is shorter than ``m h``.
+    """
+    m = points - 1
+    t = (np.arange(points) - m // 2) * step
+    if hi - lo < m * step:
+        raise ProblemError(
+            f"the bounds leave a segment of {hi - lo:.3g} along the direction, need {m * step:.3g}: "
+            "use a smaller step"
+        )
+    if t[-1] > hi:
+        t = t - (t[-1] - hi)
+    if t[0] < lo:
+        t = t + (lo - t[0])
+    return t
+
+
+def estimate(
+    space: Space,
+    u: np.ndarray,
+    *,
+    step: float = 1e-6,
+    points: int = 9,
+    seed: int | np.random.Generator | None = 0,
+    retries: int = 2,
+) -> Generator[Batch, np.ndarray, NoiseLevel]:
+    """The noise estimate at scaled point ``u``, as a generator for the driver (purpose "noise").
+
+    Tries the step ``step``, then, after a failure signal that a different step would cure, up to
+    ``retries`` more steps (times or divided by 100).  The direction is drawn once from ``seed``.
+    """
+    rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
+    direction = random_direction(space.size, rng)
+    lo, hi = space.segment(u, direction)
+    h = float(step)
+    spent = 0
+    result = NoiseLevel(
+        level=math.nan, relative=math.nan, status=INTERRUPTED, order=0, step=h, evaluations=0,
+        direction=direction,
+    )
+    for _ in range(retries + 1):
+        t = offsets(points, h, lo, hi)
+        try:
+            values = yield Batch(points=space.to_user(u + t[:, None] * direction), purpose="noise")
+        except Halt:
+            return result
+        spent += len(t)
+        result = _from_values(values, t, h, spent, direction)
+        if result.status == TOO_SMALL:
+            h *= GROWTH
+        elif result.status in (TOO_LARGE, NO_SIGN_CHANGES):
+            h /= GROWTH
+        else:
+            break
+    return result
+
+
+def _from_values(
+    values: np.ndarray, t: np.ndarray, h: float, spent: int, direction: np.ndarray
+) -> NoiseLevel:
+    def record(level: float, status: str, order: int, centre: float = math.nan) -> NoiseLevel:
+        relative = level / abs(centre) if math.isfinite(centre) and centre != 0.0 else math.nan
+        return NoiseLevel(
+            level=level, relative=relative, status=status, order=order, step=h,
+            evaluations=spent, direction=direction,
+        )
+
+    if not np.all(np.isfinite(values)):
+        return record(math.nan, FAILED, 0)
+    levels, changes, status = difference_table(values)
+    centre = float(values[int(np.argmin(np.abs(t)))])
+    if status != DETECTED:
+        return record(math.nan, status, 0, centre)
+    level, order = detected_level(levels, changes)
+    return record(level, DETECTED, order, centre)
+
+
+def estimate_noise(
+    objective: Objective,
+    point: object,
+    *,
+    bounds: object = None,
+    names: Sequence[str] | None = None,
+    step: float = 1e-6,
+    points: int = 9,
+    seed: int | np.random.Generator | None = 0,
+    retries: int = 2,
+) -> NoiseLevel:
+    """Return the level of computational noise of ``objective`` near ``point``.
+
+    Evaluates the objective at ``points`` equally spaced points along a random direction through
+    ``point`` and reads the noise off the difference table (Moré & Wild 2011; see the module
+    docstring).  ``step`` is the spacing in scaled coordinates: a fraction of each parameter's size
+    (its bound width, else its magnitude, else 1).  A failure signal is reported in ``status``
+    rather than raised: the cure (another step) is tried ``retries`` times first.
+
+    >>> import numpy as np
+    >>> noise = estimate_noise(lambda x: float(np.sum(x**2)) + 1.0, [0.5, 0.5])
+    >>> noise.status, noise.level < 1e-14
+    ('detected', True)
+
+    Raises
+    ------
+    ProblemError
+        For a bad point, bounds, step, number of points or retries.
+    ObjectiveError
+        When the objective returns something that is not a number, or fails at ``point``.
+
+    References
+    ----------
+    .. [1] J. J. Moré and S. M. Wild, "Estimating computational noise", *SIAM Journal on
+       Scientific Computing* 33(3) (2011) 1292-1314.
+    """
+    if not callable(objective):
+        raise ProblemError(f"objective must be callable, got {objective!r}")
+    _check_options(step, points, retries)
+    space = build_space(point, bounds, names)
+    driver = Driver(objective=objective, budget=(retries + 1) * points)
+    result: NoiseLevel = driver.run(estimate(space, np.zeros(space.size), step=step, points=points,
+                                             seed=seed, retries=retries))
+    if result.status == FAILED and all(e.status != "ok" for e in driver.log.evaluations):
+        raise ObjectiveError(
+            f"the objective failed at every point near {space.start.tolist()!r}: "
+            f"{driver.log.evaluations[-1].detail}"
+        )
+    return result
+
+
+def _check_options(step: object, points: object, retries: object) -> None:
+    if isinstance(step, bool) or not isinstance(step, int | float) or not 0.0 < step < 1.0:
+        raise ProblemError(f"step must be a number in (0, 1), got {step!r}")
+    if isinstance(points, bool) or not isinstance(points, int) or points < 5:
+        raise ProblemError(f"points must be a whole number of at least 5, got {points!r}")
+    if isinstance(retries, bool) or not isinstance(retries, int) or retries < 0:
+        raise ProblemError(f"retries must be a whole number of at least 0, got {retries!r}")
+
+
+def noise_option(noise: object) -> float | str | None:
+    """Validate the ``noise`` argument of the public entry points.
+
+    None (rounding only), a non-negative number (the absolute noise level, in the objective's
+    units), or "estimate" (estimate it at the start before the search).
+
+    Raises
+    ------
+    ProblemError
+        For anything else.
+    """
+    if noise is None or noise == "estimate":
+        return noise  # type: ignore[return-value]
+    if isinstance(noise, bool) or not isinstance(noise, int | float | np.floating):
+        raise ProblemError(f"noise must be None, a number or 'estimate', got {noise!r}")
+    if not (math.isfinite(noise) and noise >= 0.0):
+        raise ProblemError(f"noise must be a finite number >= 0, got {noise!r}")
+    return float(noise)
+
+
+def noise_level(
+    driver: Driver, space: Space, noise: float | str | None, *, search: int = 0
+) -> tuple[float | None, tuple[str, ...]]:
+    """The noise level to plan with, and a note for the user when it was estimated.
+
+    ``"estimate"`` runs `estimate` at the start through ``driver`` (counted, journaled); when no
+    level is detected the note says why and the level stays None (rounding only).
+    """
+    if noise != "estimate":
+        return noise, ()  # type: ignore[return-value]
+    found: NoiseLevel = driver.run(estimate(space, np.zeros(space.size)), search=search)
+    if found.detected:
+        return found.level, (
+            f"noise level {found.level:.3g} (relative {found.relative:.2g}) from a difference table "
+            f"of order {found.order} at the start; {found.evaluations} evaluations",
+        )
+    return None, (f"noise level not detected at the start ({found.status}); rounding assumed",)
+
+
+def floored(settings: Settings, level: float | None) -> Settings:
+    """Settings whose value tolerance is never below the noise level.
+
+    The search's test is ``drop <= value_tolerance * max(1, |f|)``; a value tolerance of at least
+    ``level`` keeps that threshold at or above the noise however small ``|f|`` becomes.
+    """
+    if level is None or level <= settings.value_tolerance:
+        return settings
+    return dataclasses.replace(settings, value_tolerance=float(level))

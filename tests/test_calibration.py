@@ -1,0 +1,196 @@
+"""`dl.calibrate` against NIST's certified nonlinear regression results, and its uncertainty.
+
+The NIST StRD files live in ../shared/reference/nist-strd/ (see its README): data, NIST's two
+official starts, certified estimates and certified standard deviations.  From both starts the
+estimates must agree to 1e-6 and the standard deviations to 1e-3, relative, on every set.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+import directional as dl
+from directional.records import Verdict
+
+REFERENCE = Path(__file__).resolve().parents[1].parent / "shared" / "reference" / "nist-strd"
+SETS = ["Misra1a", "Chwirut2", "DanWood", "Misra1b", "Kirby2", "Hahn1", "BoxBOD"]
+
+
+def nist(name: str) -> dict:
+    with open(REFERENCE / f"{name}.toml", "rb") as handle:
+        return tomllib.load(handle)
+
+
+def model(data: dict):
+    """The NIST mean function f(x; b) from the file's plain-math model line."""
+    expression = compile(data["model"].replace("^", "**"), data["name"], "eval")
+    x = np.array(data["x"], dtype=float)
+
+    def f(b: np.ndarray) -> np.ndarray:
+        names = {f"b{i + 1}": b[i] for i in range(len(b))}
+        with np.errstate(all="ignore"):
+            return eval(expression, {"exp": np.exp, "x": x, **names})  # noqa: S307
+
+    return f
+
+
+def fit(name: str, start: str, **options) -> tuple[dict, dl.Solution]:
+    data = nist(name)
+    f, y = model(data), np.array(data["y"], dtype=float)
+    names = [f"b{i + 1}" for i in range(data["n_parameters"])]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # correlation warnings are tested on their own
+        sol = dl.calibrate(lambda b: f(b) - y, data[start], names=names, **options)
+    return data, sol
+
+
+@pytest.mark.parametrize("start", ["start1", "start2"])
+@pytest.mark.parametrize("name", SETS)
+def test_nist_strd_certified_estimates_and_standard_deviations(name, start):
+    # Source: NIST StRD nonlinear regression, data set `name`, certified values.
+    data, sol = fit(name, start)
+    certified = np.array(data["certified_estimates"])
+    deviations = np.array(data["certified_std_devs"])
+    assert sol.point == pytest.approx(certified, rel=1e-6), f"NIST StRD {name} estimates"
+    u = sol.uncertainty
+    assert u.standard_errors == pytest.approx(deviations, rel=1e-3), f"NIST StRD {name} std devs"
+    assert sol.value == pytest.approx(data["residual_sum_of_squares"], rel=1e-6)
+    assert math.sqrt(u.residual_variance) == pytest.approx(data["residual_std_dev"], rel=1e-6)
+    assert u.degrees_of_freedom == data["degrees_of_freedom"]
+    assert sol.verdict is Verdict.MINIMUM
+
+
+def test_nist_strd_misra1a_intervals_use_students_t():
+    # NIST StRD Misra1a: 14 observations, 2 parameters, 12 degrees of freedom;
+    # t(0.975, 12) = 2.1788 (any t table, e.g. Abramowitz & Stegun 1964, table 26.10)
+    data, sol = fit("Misra1a", "start2")
+    u = sol.uncertainty
+    half = 0.5 * (u.intervals[:, 1] - u.intervals[:, 0])
+    assert half == pytest.approx(2.178813 * np.array(data["certified_std_devs"]), rel=1e-3)
+    assert 0.5 * (u.intervals[:, 0] + u.intervals[:, 1]) == pytest.approx(sol.point, rel=1e-12)
+
+
+def test_nist_strd_misra1a_correlation_is_named_in_a_warning():
+    # NIST StRD Misra1a: b1 and b2 are correlated beyond 0.99 at the certified estimates
+    data = nist("Misra1a")
+    f, y = model(data), np.array(data["y"])
+    with pytest.warns(UserWarning, match=r"b1 and b2 \(r = -0\.99"):
+        sol = dl.calibrate(lambda b: f(b) - y, data["start2"], names=["b1", "b2"])
+    assert sol.uncertainty.correlation[0, 1] < -0.99
+    assert sol.uncertainty.correlation[0, 0] == 1.0
+
+
+def test_straight_line_matches_the_textbook_formulas():
+    # Ordinary least squares for y = a + b x (common practice, e.g. Draper & Smith 1998, ch. 1):
+    # b = Sxy / Sxx, a = ȳ - b x̄, s² = S / (m - 2), se(b) = s / sqrt(Sxx),
+    # se(a) = s sqrt(1/m + x̄² / Sxx), corr(a, b) = -x̄ / sqrt(Sxx / m + x̄²).
+    # The data are invented for this check.
+    x = np.array([0.0, 1.0, 2.0, 3.0, 4.0, 5.0, 6.0])
+    y = np.array([1.1, 2.9, 5.2, 6.8, 9.1, 11.2, 12.8])
+    m = len(x)
+    sxx = np.sum((x - x.mean()) ** 2)
+    b = np.sum((x - x.mean()) * (y - y.mean())) / sxx
+    a = y.mean() - b * x.mean()
+    s2 = np.sum((y - a - b * x) ** 2) / (m - 2)
+    sol = dl.calibrate(lambda p: p[0] + p[1] * x - y, [0.0, 1.0], names=["a", "b"])
+    u = sol.uncertainty
+    assert sol.point == pytest.approx([a, b], rel=1e-9)
+    assert u.residual_variance == pytest.approx(s2, rel=1e-7)
+    assert u.standard_errors == pytest.approx(
+        [math.sqrt(s2 * (1 / m + x.mean() ** 2 / sxx)), math.sqrt(s2 / sxx)], rel=1e-6
+    )
+    assert u.correlation[0, 1] == pytest.approx(-x.mean() / math.sqrt(sxx / m + x.mean() ** 2), rel=1e-6)
+    assert u.covariance[1, 1] == pytest.approx(s2 / sxx, rel=1e-6)
+
+
+def test_a_product_of_parameters_is_not_identifiable():
+    # y = a b x determines only the product a b: the Jacobian has rank 1 (analytic); the data
+    # are invented for this check.
+    x = np.linspace(1.0, 5.0, 9)
+    y = 6.0 * x + np.array([0.1, -0.2, 0.05, 0.0, -0.1, 0.2, -0.05, 0.1, -0.1])
+    with pytest.warns(UserWarning, match="do not determine"):
+        sol = dl.calibrate(lambda p: p[0] * p[1] * x - y, [1.0, 2.0], names=["a", "b"])
+    assert np.all(np.isinf(sol.uncertainty.standard_errors))
+    (combination,) = sol.uncertainty.undetermined
+    assert "a" in combination and "b" in combination
+    assert sol.point[0] * sol.point[1] == pytest.approx(np.sum(x * y) / np.sum(x * x), rel=1e-8)
+
+
+@settings(max_examples=10, deadline=None)
+@given(scale=st.floats(0.01, 100.0))
+def test_constant_weights_change_neither_estimates_nor_errors(scale):
+    # dividing every residual by the same sigma scales S and s² alike: the estimates and the
+    # standard errors s² (JᵀJ)⁻¹ do not move (Bates & Watts 1988, sec. 2.3)
+    data = nist("DanWood")
+    f, y = model(data), np.array(data["y"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        plain = dl.calibrate(lambda b: f(b) - y, data["start2"], check=False)
+        weighted = dl.calibrate(
+            lambda b: f(b) - y, data["start2"], sigma=np.full(len(y), scale), check=False
+        )
+    assert weighted.point == pytest.approx(plain.point, rel=1e-7)
+    assert weighted.value == pytest.approx(plain.value / scale**2, rel=1e-7)
+    assert weighted.uncertainty.standard_errors == pytest.approx(
+        plain.uncertainty.standard_errors, rel=1e-5
+    )
+
+
+def test_every_evaluation_goes_through_the_driver():
+    data, sol = fit("DanWood", "start1")
+    purposes = {e.purpose for e in sol.history}
+    assert {"line", "jacobian", "gauss-newton", "hessian"} <= purposes
+    assert sol.evaluations == len(sol.history)
+    assert len({e.point.tobytes() for e in sol.history}) == len(sol.history)  # nothing twice
+
+
+def test_budget_counts_everything():
+    data = nist("Misra1a")
+    f, y = model(data), np.array(data["y"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        sol = dl.calibrate(lambda b: f(b) - y, data["start1"], budget=120)
+    assert sol.evaluations <= 120
+
+
+def test_summary_shows_the_uncertainty_table():
+    data, sol = fit("Misra1a", "start2")
+    text = sol.summary()
+    assert "std. error" in text and "95 % interval" in text
+    assert "strongest correlations: b1-b2 -0.99" in text
+    assert "12 degrees of freedom" in text
+    assert "verdict: minimum" in text
+
+
+def test_bad_sigma_and_bad_residuals_are_named():
+    y = np.array([1.0, 2.0, 3.0])
+    with pytest.raises(dl.ProblemError, match="sigma"):
+        dl.calibrate(lambda p: p[0] - y, [0.0], sigma=[1.0, -1.0, 1.0])
+    with pytest.raises(dl.ObjectiveError, match="sigma has 2"):
+        dl.calibrate(lambda p: p[0] - y, [0.0], sigma=[1.0, 1.0])
+    with pytest.raises(dl.ObjectiveError, match="flat array"):
+        dl.calibrate(lambda p: np.ones((2, 2)), [0.0])
+    with pytest.raises(dl.ObjectiveError, match="entries"):
+        dl.calibrate(lambda p: np.ones(3 if p[0] == 0.0 else 4), [0.0])
+
+
+def test_a_parameter_on_a_bound_gets_no_error():
+    # y = a + b x with b forced to stay below 1 while the data want 2: b sits on its bound;
+    # a is then the mean of y - x (analytic); data invented for this check.
+    x = np.array([0.0, 1.0, 2.0, 3.0])
+    y = np.array([1.0, 3.1, 4.9, 7.0])
+    sol = dl.calibrate(
+        lambda p: p[0] + p[1] * x - y, [0.0, 0.5], bounds=[(-10, 10), (0, 1)], names=["a", "b"],
+    )
+    assert sol.active == ("b",)
+    assert sol.point[0] == pytest.approx(np.mean(y - x), rel=1e-7)
+    assert math.isnan(sol.uncertainty.standard_errors[1])
+    assert sol.uncertainty.degrees_of_freedom == 3
