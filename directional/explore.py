@@ -34,7 +34,7 @@ from scipy.stats import qmc
 
 from .curvature import Settled, check_method, escape_count, settle, settled_solution
 from .driver import Evaluation, Objective
-from .errors import ProblemError
+from .errors import ObjectiveError, ProblemError
 from .journal import journal_for, run_identity
 from .minimization import (  # the same checks and records as minimize
     _active,
@@ -309,7 +309,7 @@ def explore(
     ProblemError
         For bad bounds, starts, workers, executor, budget or tolerances, before any evaluation.
     ObjectiveError
-        When the objective returns something that is not a number.
+        When the objective fails at every start, or returns something that is not a number.
     JournalError
         When the journal belongs to another problem or is damaged.
     """
@@ -344,6 +344,8 @@ def explore(
     if executor is None and workers is not None:
         check_picklable(objective)
         executor = made = cf.ProcessPoolExecutor(max_workers=workers)
+    elif isinstance(executor, cf.ProcessPoolExecutor):
+        check_picklable(objective)
     plan = _Plan(space, settings, method, escapes, float(same_point), float(same_value))
     try:
         with journal_for(journal, identity, budget=budget) as kept, Runner(
@@ -410,6 +412,12 @@ def _explore(
             final_u[j], final_f[j] = final.point, final.value
     groups, reached = cluster(final_u, final_f, plan.same_point, plan.same_value, spread)
     evaluations = runner.log.evaluations
+    if not groups and not interrupted and evaluations:
+        last = evaluations[-1]
+        raise ObjectiveError(
+            f"the objective failed at every one of the {k} starts; last error at "
+            f"{last.point.tolist()!r}: {last.detail or last.status}"
+        )
     minima = []
     for g, j in enumerate(groups):
         members = {i for i in range(k) if reached[i] == g}

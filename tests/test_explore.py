@@ -614,6 +614,14 @@ def test_a_start_that_fails_is_reported_not_fatal():
     assert "failed at the first evaluation" in land.summary()
 
 
+def test_failing_at_every_start_is_an_objective_error():
+    def never(x):
+        raise RuntimeError("licence server down")
+
+    with pytest.raises(dl.ObjectiveError, match="every one of the 4 starts.*licence server down"):
+        dl.explore(never, BOX, starts=4, check=False)
+
+
 @pytest.mark.parametrize(
     ("kwargs", "message"),
     [
@@ -638,6 +646,8 @@ def test_bad_arguments_are_refused_before_any_evaluation(kwargs, message, tmp_pa
 def test_an_unpicklable_objective_is_refused_for_a_process_pool():
     with pytest.raises(dl.ProblemError, match="picklable"):
         dl.explore(lambda x: float(x[0] ** 2), [(-1, 1)], starts=2, workers=2)
+    with cf.ProcessPoolExecutor(max_workers=1) as pool, pytest.raises(dl.ProblemError):
+        dl.explore(lambda x: float(x[0] ** 2), [(-1, 1)], starts=2, executor=pool)
 
 
 # ------------------------------------------------------------------------------ start map
