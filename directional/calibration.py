@@ -58,6 +58,7 @@ Residuals = Callable[[np.ndarray], object]
 
 EPSILON = float(np.finfo(float).eps)
 DIFFERENCE_STEP = EPSILON ** (1.0 / 3.0)  # central differences: truncation h² vs rounding eps/h
+ONE_SIDED_STEP = EPSILON ** 0.5  # one-sided differences: truncation h vs rounding eps/h
 JACOBIAN_STEP = 1e-3  # largest step of numdifftools' extrapolated Jacobian (scaled coordinates)
 STRONG = 0.95  # correlations beyond this are named in a warning
 UNDETERMINED = 1e-8  # relative singular value of the column-scaled Jacobian taken as zero
@@ -185,36 +186,43 @@ def _room(space: Space, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def difference_jacobian(
-    space: Space, squares: SumOfSquares, u: np.ndarray, free: np.ndarray
+    space: Space, squares: SumOfSquares, u: np.ndarray
 ) -> Generator[Batch, np.ndarray, np.ndarray | None]:
-    """Jacobian of the residual vector in scaled coordinates, by central differences (one batch).
+    """Jacobian of the residual vector in scaled coordinates, by finite differences (one batch).
 
-    Step ``eps^(1/3)`` (common practice, no source); one-sided next to a bound.  Columns of
-    parameters not ``free`` are zero.  None when an evaluation failed.
+    Central differences with the step ``eps^(1/3)``; a forward or backward difference with the
+    step ``sqrt(eps)`` where a bound is closer than that (common practice, no source; the point
+    itself is known, so a one-sided column costs one evaluation).  None when an evaluation failed.
     """
     below, above = _room(space, u)
-    columns = np.flatnonzero(free)
-    plus, minus = [], []
-    for j in columns:
-        h = DIFFERENCE_STEP
-        plus.append(min(h, above[j]) if above[j] > 0 else 0.0)
-        minus.append(-min(h, below[j]) if below[j] > 0 else 0.0)
-    offsets = np.zeros((2 * len(columns), space.size))
-    for k, j in enumerate(columns):
-        offsets[2 * k, j], offsets[2 * k + 1, j] = plus[k], minus[k]
+    plus = np.zeros(space.size)
+    minus = np.zeros(space.size)
+    for j in range(space.size):
+        if below[j] >= DIFFERENCE_STEP and above[j] >= DIFFERENCE_STEP:
+            plus[j], minus[j] = DIFFERENCE_STEP, -DIFFERENCE_STEP
+        elif above[j] >= below[j]:
+            plus[j] = min(ONE_SIDED_STEP, above[j])
+        else:
+            minus[j] = -min(ONE_SIDED_STEP, below[j])
+    offsets = np.vstack([np.diag(plus), np.diag(minus)])
     points = space.to_user(u + offsets)
     values = yield Batch(points=points, purpose="jacobian")
     if not np.all(np.isfinite(values)):
         return None
-    jacobian = None
-    for k, j in enumerate(columns):
-        rp, rm = squares.vector(points[2 * k]), squares.vector(points[2 * k + 1])
-        if rp is None or rm is None or plus[k] == minus[k]:
+    columns = []
+    for j in range(space.size):
+        rp, rm = squares.vector(points[j]), squares.vector(points[space.size + j])
+        if rp is None or rm is None or plus[j] == minus[j]:
             return None
-        if jacobian is None:
-            jacobian = np.zeros((rp.size, space.size))
-        jacobian[:, j] = (rp - rm) / (plus[k] - minus[k])
-    return jacobian
+        columns.append((rp - rm) / (plus[j] - minus[j]))
+    return np.column_stack(columns)
+
+
+def _held(space: Space, u: np.ndarray, jacobian: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """Parameters at a bound that the gradient ``2 Jᵀ r`` pushes outward: held there this step."""
+    below, above = _room(space, u)
+    gradient = jacobian.T @ r
+    return ((below < ONE_SIDED_STEP) & (gradient > 0.0)) | ((above < ONE_SIDED_STEP) & (gradient < 0.0))
 
 
 def levenberg_marquardt(
@@ -231,7 +239,8 @@ def levenberg_marquardt(
     Each step solves ``min |J d + r|² + lambda |D d|²`` with ``D² = diag(JᵀJ)`` (Marquardt 1963),
     as the linear least-squares problem ``[J; sqrt(lambda) D] d = [-r; 0]`` so that JᵀJ is never
     formed; a step that lowers S is taken and lambda divided by 10, otherwise lambda is multiplied
-    by 10 and the step solved again (ibid.).  Steps are clipped to the bounds.
+    by 10 and the step solved again (ibid.).  Steps are clipped to the bounds, and a parameter at
+    a bound that the gradient pushes outward is held there for the step.
     """
     u, s_value = u0.copy(), value
     lam = 1e-3
@@ -241,15 +250,15 @@ def levenberg_marquardt(
         if r is None:
             return Polished(point=u, value=s_value, stop=Stop.STALLED, reason="no residuals", steps=0)
         for _ in range(iterations):
-            active = space.on_bound(space.to_user(u), 0.0)
-            jacobian = yield from difference_jacobian(space, squares, u, ~active)
+            jacobian = yield from difference_jacobian(space, squares, u)
             if jacobian is None:
                 return Polished(point=u, value=s_value, stop=Stop.STALLED, steps=steps,
                                 reason="an evaluation for the Jacobian failed")
+            moving = jacobian * ~_held(space, u, jacobian, r)
             scale = np.sqrt(np.sum(jacobian**2, axis=0))
             scale = np.maximum(scale, 1e-12 * max(float(scale.max()), 1e-300))
             while True:
-                d = _marquardt_step(jacobian, r, lam, scale)
+                d = _marquardt_step(moving, r, lam, scale)
                 trial = np.clip(u + d, space.lower_u, space.upper_u)
                 move = float(np.max(np.abs(trial - u)))
                 if move <= tolerance:
@@ -485,7 +494,10 @@ def calibrate(
     space = build_space(start, bounds, names)
     settings = _settings(point_tolerance, value_tolerance)
     budget = _budget(budget, space.size)
-    if time_limit is not None and not (isinstance(time_limit, int | float) and time_limit > 0):
+    if time_limit is not None and (
+        isinstance(time_limit, bool)
+        or not (isinstance(time_limit, int | float) and time_limit > 0)
+    ):
         raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
     method, escapes, noise = check_method(check), escape_count(escapes), noise_option(noise)
     deviations = _sigma(sigma)
@@ -513,7 +525,7 @@ def calibrate(
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
         solution = settled_solution(_solution(space, settings, driver, outcome), settled, noted)
     x = space.to_user(outcome.point)
-    notes = list(solution.notes)
+    notes = list(outcome.notes) + list(solution.notes)
     result = None
     if jacobian is None:
         notes.append("no uncertainty: an evaluation for the Jacobian failed or was not allowed")

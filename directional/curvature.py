@@ -65,7 +65,7 @@ RATIO = 2.0  # ratio of the successive steps numdifftools extrapolates from
 STEPS = 3  # steps numdifftools extrapolates from: 3 stencils of 2 n² points, 6 n² + 1 evaluations
 NOISE_SHARE = 0.01  # noise may spoil at most 1 % of a curvature (at 3 sigma) at the smallest step
 RESIZES = 2  # with a noise level: times the stencil may be resized from measured curvatures
-FREE_FLAT = 1e-6  # free estimate: eigenvalues below this fraction of the largest count as zero
+FREE_FLAT = EPSILON**0.5  # free estimate: smaller eigenvalues (relative) count as zero
 
 Check = Generator[Batch, np.ndarray, "Checked"]
 
@@ -437,17 +437,24 @@ def free_record(space: Space, scaled: np.ndarray | None) -> Curvature | None:
     return record(scaled, None, space.scale, "free", names=labels(space, all_free), margin=margin)
 
 
-def free_verdict(space: Space, scaled: np.ndarray | None) -> Verdict:
+def free_verdict(hessian: np.ndarray | None) -> Verdict:
     """What the free estimate alone would say: MINIMUM, FLAT, or UNCHECKED when there is none.
 
     Its curvatures are the positive ones the line searches measured, so it cannot say SADDLE;
-    eigenvalues below ``FREE_FLAT`` times the largest count as zero (a heuristic, no source).
-    Used by the benchmarks to see how often the free estimate agrees with the paid check.
+    eigenvalues of the equilibrated matrix below ``FREE_FLAT`` = sqrt(eps) times the largest
+    count as zero: a curvature from a parabola through rounded values is good to about sqrt(eps)
+    relative at best (common practice, no source).  It also cannot see a flat direction that its
+    directions were never conjugate to.  The matrix may be in scaled or in search coordinates: after
+    `equilibration` both give the same eigenvalues.  Used by the benchmarks to see how often the
+    free estimate agrees with the paid check.
+
+    >>> free_verdict(np.array([[2.0, 0.0], [0.0, 1e-9]])), free_verdict(None)
+    (<Verdict.MINIMUM: 'minimum'>, <Verdict.UNCHECKED: 'unchecked'>)
     """
-    if scaled is None:
+    if hessian is None:
         return Verdict.UNCHECKED
-    d = equilibration(scaled)
-    eigenvalues = np.linalg.eigvalsh(scaled / np.outer(d, d))
+    d = equilibration(hessian)
+    eigenvalues = np.linalg.eigvalsh(hessian / np.outer(d, d))
     return classify(eigenvalues, FREE_FLAT * float(np.max(np.abs(eigenvalues))))
 
 

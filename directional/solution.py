@@ -103,7 +103,7 @@ def _curvature_lines(curvature: Curvature | None) -> list[str]:
     ]
     free = curvature.free
     if free is not None and free is not curvature:
-        lines.append(f"  free estimate from the line searches: condition number {free.condition:.3g}")
+        lines.append(f"  free estimate (no extra evaluation): condition number {free.condition:.3g}")
     for combination in curvature.undetermined:
         lines.append(f"  not determined: {combination}")
     return lines

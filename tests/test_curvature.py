@@ -324,9 +324,7 @@ def test_paid_check_keeps_the_free_estimate_beside_it():
     sol = dl.minimize(quadratic(hessian, np.array([0.3, -0.2])), [1.0, 1.0])
     assert sol.curvature.source == "extrapolated"
     assert sol.curvature.free is not None and sol.curvature.free.source == "free"
-    assert curvature.free_verdict(build_space([1.0, 1.0]), sol.curvature.free.hessian) is (
-        Verdict.MINIMUM
-    )
+    assert curvature.free_verdict(sol.curvature.free.hessian) is Verdict.MINIMUM
 
 
 def test_log_scaled_parameters_are_reported_in_log_coordinates():

@@ -1,0 +1,156 @@
+"""What proving the answer costs: the curvature check against the search, on the MGH problems.
+
+``python -m benchmarks.check_cost [--quick] [--max-n N] [--out FILE]``: prints a markdown table.
+
+For each problem of Moré, Garbow & Hillstrom (1981) in `directional.testproblems.mgh.catalogue`
+(standard start, default budget), the search runs three times, identical up to the check:
+
+- ``check=False``: the search alone; its evaluations are the reference, and the free Hessian
+  estimate (the line searches' curvatures along conjugate directions, no evaluation) gives the
+  verdict it would give alone (`curvature.free_verdict`: MINIMUM or FLAT, never SADDLE);
+- ``check="quick"``: one central-difference stencil, at most 2 n² + 1 evaluations;
+- ``check=True``: numdifftools' Richardson-extrapolated Hessian with error estimate.
+
+The table gives each check's cost (evaluations with purpose "hessian", escapes included) as a
+share of the search's, the verdicts, and whether the free estimate agrees where both paid checks
+agree.  Targets (issue 4): the free estimate decides correctly wherever the paid checks agree, and
+the quick check costs at most 2 n² + 1.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+from pathlib import Path
+
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import numpy as np  # noqa: E402
+
+import directional as dl  # noqa: E402
+from directional import curvature  # noqa: E402
+from directional.testproblems import mgh  # noqa: E402
+
+
+def _cost(sol: dl.Solution) -> int:
+    return sum(1 for e in sol.history if e.purpose == "hessian")
+
+
+def _search_cost(sol: dl.Solution) -> int:
+    return sum(1 for e in sol.history if e.purpose not in ("hessian", "escape"))
+
+
+def measure(problem: mgh.TestProblem) -> dict:
+    """The three runs on one problem, reduced to one row of the table."""
+    alone = dl.minimize(problem, problem.start, check=False)
+    free = alone.curvature
+    free_says = curvature.free_verdict(None if free is None else free.hessian)
+    quick = dl.minimize(problem, problem.start, check="quick")
+    full = dl.minimize(problem, problem.start, check=True)
+    return {
+        "problem": problem,
+        "stop": alone.stop.value,
+        "search": _search_cost(alone),
+        "free": free_says,
+        "quick": quick.verdict,
+        "quick_cost": _cost(quick),
+        "quick_escapes": sum(1 for n in quick.notes if n.startswith("escape")),
+        "full": full.verdict,
+        "full_cost": _cost(full),
+        "full_escapes": sum(1 for n in full.notes if n.startswith("escape")),
+        "condition": full.curvature.condition if full.curvature is not None else float("nan"),
+        "value_gap": abs(full.value - alone.value),
+    }
+
+
+def table(rows: list[dict]) -> str:
+    """The markdown table and its summary."""
+    out = [
+        "| # | problem | n | search evals | free says | quick | quick evals (share) "
+        "| ≤ 2n²+1 | extrapolated | extrapolated evals (share) | condition |",
+        "|---:|---|---:|---:|---|---|---:|:---:|---|---:|---:|",
+    ]
+    for r in rows:
+        p = r["problem"]
+        bound = 2 * p.n**2 + 1
+        one_stencil = r["quick_cost"] <= bound if r["quick_escapes"] == 0 else None
+        out.append(
+            f"| {p.number} | {p.name} | {p.n} | {r['search']} | {r['free'].value} "
+            f"| {r['quick'].value}{_escaped(r['quick_escapes'])} "
+            f"| {r['quick_cost']} ({_share(r['quick_cost'], r['search'])}) "
+            f"| {'yes' if one_stencil else ('escape' if one_stencil is None else 'NO')} "
+            f"| {r['full'].value}{_escaped(r['full_escapes'])} "
+            f"| {r['full_cost']} ({_share(r['full_cost'], r['search'])}) "
+            f"| {r['condition']:.3g} |"
+        )
+    agree = [r for r in rows if r["quick"] is r["full"] and r["full"] is not dl.Verdict.UNCHECKED]
+    free_right = sum(1 for r in agree if r["free"] is r["full"])
+    within = sum(
+        1 for r in rows if r["quick_escapes"] or r["quick_cost"] <= 2 * r["problem"].n ** 2 + 1
+    )
+    quick_shares = [r["quick_cost"] / r["search"] for r in rows if r["search"]]
+    full_shares = [r["full_cost"] / r["search"] for r in rows if r["search"]]
+    out += [
+        "",
+        f"- Problems: {len(rows)}; the two paid checks agree on {len(agree)}; on those the free "
+        f"estimate gives the same verdict on {free_right} "
+        f"({', '.join(_disagreements(agree)) or 'no disagreement'}).",
+        f"- Quick check within 2n² + 1 evaluations (one stencil, no escape): {within} of {len(rows)}.",
+        f"- Median cost as a share of the search: quick {100 * np.median(quick_shares):.1f} %, "
+        f"extrapolated {100 * np.median(full_shares):.1f} %.",
+    ]
+    return "\n".join(out)
+
+
+def _disagreements(rows: list[dict]) -> list[str]:
+    return [
+        f"{r['problem'].name}: free {r['free'].value}, paid {r['full'].value}"
+        for r in rows
+        if r["free"] is not r["full"]
+    ]
+
+
+def _share(cost: int, search: int) -> str:
+    return f"{100 * cost / search:.0f} %" if search else "-"
+
+
+def _escaped(count: int) -> str:
+    return f" after {count} escape{'s' if count > 1 else ''}" if count else ""
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="problems with n <= 3 only (smoke)")
+    parser.add_argument("--max-n", type=int, default=12, help="largest n (default 12)")
+    parser.add_argument("--out", type=Path, help="also write the table to this markdown file")
+    args = parser.parse_args(argv)
+    max_n = 3 if args.quick else args.max_n
+    tick = time.perf_counter()
+    rows = [measure(p) for p in mgh.catalogue(max_n)]
+    text = (
+        "## What the curvature check costs (MGH 1981 problems, standard starts)\n\n"
+        "Written by `benchmarks/check_cost.py`. Cost: evaluations of the check (purpose "
+        "\"hessian\", every check after an escape included) against the search's evaluations "
+        "(`check=False`). \"free says\": the verdict of the free Hessian estimate alone, which "
+        "cannot see negative curvature. Verdicts of the paid checks after escapes.\n\n"
+        + table(rows)
+        + f"\n\nRun time {time.perf_counter() - tick:.0f} s, numdifftools "
+        f"{_version('numdifftools')}, numpy {np.__version__}.\n"
+    )
+    print(text)
+    if args.out is not None:
+        args.out.parent.mkdir(parents=True, exist_ok=True)
+        args.out.write_text(text, encoding="utf-8")
+    return 0
+
+
+def _version(name: str) -> str:
+    from importlib.metadata import version
+
+    return version(name)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
