@@ -528,8 +528,11 @@ def _path(
                 x[i], x[j] = axes.to_x(yi, i), axes.to_x(yj, j)
                 grid[b, a] = value(x)
         _contours(fig, ax, axes.to_x(gy, i), axes.to_x(gz, j), grid, kind)
+    elif sol.point.size == 2 and _scattered(fig, ax, sol, kind):
+        ax.text(0.5, 0.97, "map drawn from the search's own evaluations (coarse)",
+                transform=ax.transAxes, ha="center", va="top", fontsize=9, color="0.3")
     else:
-        ax.text(0.5, 0.97, "no map: report-only evaluations were not allowed",
+        ax.text(0.5, 0.97, "no map: too few report-only evaluations (--plot-evaluations)",
                 transform=ax.transAxes, ha="center", va="top", fontsize=9, color="0.3")
     points = np.array([e.point for e in sol.history]) if sol.history else sol.point[None, :]
     ax.scatter(points[:, i], points[:, j], s=6, color="0.35", alpha=0.35, label="evaluations",
@@ -557,6 +560,47 @@ def _path(
     return _save(fig, path)
 
 
+def _scattered(fig: Figure, ax: Any, sol: Solution, kind: str) -> bool:
+    """A map of a two-parameter objective from the evaluations already made (no new ones)."""
+    from matplotlib.tri import Triangulation
+
+    points = np.array([e.point for e in sol.history if e.status == "ok"])
+    values = np.array([e.value for e in sol.history if e.status == "ok"])
+    if len(points) < 10:
+        return False
+    points, unique = np.unique(points, axis=0, return_index=True)
+    values = values[unique]
+    try:
+        triangles = Triangulation(points[:, 0], points[:, 1])
+    except (ValueError, RuntimeError):  # collinear or too few distinct points
+        return False
+    levels = _levels(values)
+    if levels is None:
+        return False
+    from matplotlib.colors import BoundaryNorm
+
+    filled = ax.tricontourf(triangles, values, levels=levels, cmap="viridis",
+                            norm=BoundaryNorm(levels, 256), alpha=0.9, zorder=1)
+    bar = fig.colorbar(filled, ax=ax, format="%.3g")
+    bar.set_label(_value_label(kind))
+    return True
+
+
+def _levels(finite: np.ndarray) -> np.ndarray | None:
+    """Levels spaced geometrically above the lowest value, so valley and slopes both show."""
+    finite = finite[np.isfinite(finite)]
+    if finite.size < 4:
+        return None
+    low, high = float(finite.min()), float(finite.max())
+    if not high > low:
+        return None
+    rise = finite - low
+    smallest = max(float(np.quantile(rise[rise > 0], 0.02)), (high - low) * 1e-6)
+    levels = low + np.concatenate(([0.0], np.geomspace(smallest, high - low, 14)))
+    levels[-1] = high
+    return levels
+
+
 def _figure_legend(fig: Figure) -> None:
     """One legend below the panels, each label once."""
     seen: dict[str, Any] = {}
@@ -573,16 +617,9 @@ def _contours(fig: Figure, ax: Any, gx: np.ndarray, gy: np.ndarray, grid: np.nda
 
     The valley and the slopes then both show, whatever the range of the values.
     """
-    finite = grid[np.isfinite(grid)]
-    if finite.size < 4:
+    levels = _levels(grid.ravel())
+    if levels is None:
         return
-    low, high = float(finite.min()), float(finite.max())
-    if not high > low:
-        return
-    rise = finite - low
-    smallest = max(float(np.quantile(rise[rise > 0], 0.02)), (high - low) * 1e-6)
-    levels = low + np.concatenate(([0.0], np.geomspace(smallest, high - low, 14)))
-    levels[-1] = high
     from matplotlib.colors import BoundaryNorm
 
     masked = np.ma.masked_invalid(grid)
