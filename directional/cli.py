@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 import math
+import os
 import sys
 import time
 import warnings
@@ -58,6 +59,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         return UNVERIFIED
     except KeyboardInterrupt:
         print("directional: interrupted", file=sys.stderr)
+        return UNVERIFIED
+    except BrokenPipeError:  # the reader went away (| head): stop quietly
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return UNVERIFIED
 
 
