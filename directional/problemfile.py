@@ -431,6 +431,12 @@ class _Reader:
         parameters = self._parameters()
         objective = self._objective(parameters)
         search = self._search()
+        if search.budget is not None and search.budget < len(parameters) + 1:
+            raise self.fail(
+                ("search", "budget"),
+                f"search.budget must allow at least n + 1 = {len(parameters) + 1} evaluations, "
+                f"got {search.budget!r}",
+            )
         journal = self._table("journal")
         path = self._get(journal, ("journal", "path"), str, None)
         report = self._table("report")
@@ -590,6 +596,10 @@ class _Reader:
                 raise self.fail((*at, key), f"search.{key} must be at least 1, got {value!r}")
         if seed < 0:
             raise self.fail((*at, "seed"), f"search.seed must be >= 0, got {seed!r}")
+        if isinstance(check, str) and check != "quick":
+            raise self.fail(
+                (*at, "check"), f"search.check must be true, false or \"quick\", got {check!r}"
+            )
         return SearchSpec(
             budget=budget,
             time_limit=time_limit,

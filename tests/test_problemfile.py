@@ -259,3 +259,14 @@ def test_key_lines_find_every_key_of_every_table(keys):
     for i, k in enumerate(keys):
         assert found.line("parameter", 0, k) == i + 2
         assert found.line("search", k) == len(keys) + 3 + i
+
+
+def test_check_may_be_quick_but_no_other_word(tmp_path):
+    assert Problem.from_file(write(tmp_path, GOOD.replace("check = false", 'check = "quick"')))
+    message = error_of(tmp_path, GOOD.replace("check = false", 'check = "thorough"'))
+    assert "search.check" in message and line_of(message) == 24
+
+
+def test_a_budget_below_n_plus_one_is_refused(tmp_path):
+    message = error_of(tmp_path, GOOD.replace("budget = 200", "budget = 2"))
+    assert "n + 1 = 3" in message and line_of(message) == 22
