@@ -1,14 +1,17 @@
 """A lock file that keeps a second run off a journal: ``flock`` on ``<journal>.lock``.
 
 ``fcntl.flock`` is released by the operating system when its process dies, however it dies, so a
-killed run leaves no stale lock; the file holds the owner's process id, for the message.  POSIX;
-where ``fcntl`` is missing, nothing is locked.
+killed run leaves no stale lock; the file holds the owner's process id, for the message.  Worker
+processes forked by the owner inherit the lock and hold it until they exit, so when the owner has
+died the lock is waited for a few seconds before a second run is refused.  POSIX; where ``fcntl``
+is missing, nothing is locked.
 """
 
 from __future__ import annotations
 
 import contextlib
 import os
+import time
 from pathlib import Path
 
 from .errors import JournalError
@@ -17,6 +20,22 @@ try:
     import fcntl
 except ImportError:  # pragma: no cover
     fcntl = None  # type: ignore[assignment]
+
+
+ORPHAN_GRACE = 10.0  # seconds to wait for the workers of a run that died to let go of its lock
+
+
+def _ended(owner: str) -> bool:
+    """True when ``owner`` is the process id of a process that no longer exists."""
+    if not owner.isdigit():
+        return False
+    try:
+        os.kill(int(owner), 0)
+    except ProcessLookupError:
+        return True
+    except OSError:
+        return False
+    return False
 
 
 class Lock:
@@ -38,7 +57,8 @@ class Lock:
         path = journal.with_name(journal.name + ".lock")
         if fcntl is None:  # pragma: no cover
             return cls(path, None)
-        for _ in range(100):
+        deadline = time.monotonic() + ORPHAN_GRACE
+        for _ in range(1000):
             try:
                 descriptor = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
             except OSError as error:
@@ -48,9 +68,16 @@ class Lock:
             except OSError:
                 owner = os.read(descriptor, 64).decode(errors="replace").strip()
                 os.close(descriptor)
+                if _ended(owner) and time.monotonic() < deadline:
+                    # The run that took the lock is gone, but worker processes it forked still
+                    # hold the lock until they notice: give them a moment.
+                    time.sleep(0.1)
+                    continue
                 raise JournalError(
                     f"journal {str(journal)!r} is in use by another run"
                     + (f" (process {owner})" if owner else "")
+                    + (", which has ended: processes it started still hold the journal"
+                       if _ended(owner) else "")
                 ) from None
             # The holder before us may have removed the file after we opened it: lock it again.
             try:
