@@ -348,7 +348,8 @@ def finish(
     if summary is not None:
         written.append(report.write_summary(sol, summary, title=title))
     if json_path is not None:
-        written.append(report.write_json(sol, json_path, title=title, parameters=parameters))
+        written.append(report.write_json(sol, json_path, title=title, parameters=parameters,
+                                         landscape=landscape))
     if plots is not None:
         written += _plots(sol, problem, Path(plots), extra, parameters, landscape)
     if written:

@@ -121,11 +121,21 @@ def write_json(
     *,
     title: str = "",
     parameters: Sequence[Parameter] | None = None,
+    landscape: Any = None,
 ) -> Path:
-    """Write `solution_document` to ``path`` (folders created); return the path."""
+    """Write `solution_document` to ``path`` (folders created); return the path.
+
+    With the `Landscape` of a many-start run, ``minima`` lists every distinct minimum too.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     document = solution_document(sol, title=title, parameters=parameters)
+    if landscape is not None:
+        document["minima"] = [
+            {"value": _number(m.value), "point": {n: _number(v) for n, v in zip(m.names, m.point)},
+             "verdict": m.verdict.value, "starts": int(count)}
+            for m, count in zip(landscape.minima, landscape.counts)
+        ]
     path.write_text(json.dumps(document, indent=2, allow_nan=False) + "\n", encoding="utf-8")
     return path
 

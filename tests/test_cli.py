@@ -320,8 +320,11 @@ def test_each_example_problem_file_checks(tmp_path, name):
 
 
 def test_many_starts_list_the_minima_and_draw_the_start_map(tmp_path, bowl):
-    done = directional("run", str(bowl), "--starts", "3", "--plots", "pics", cwd=tmp_path)
+    done = directional("run", str(bowl), "--starts", "3", "--plots", "pics", "--json", "m.json",
+                       cwd=tmp_path)
     assert done.returncode == 0, done.stdout + done.stderr
+    minima = json.loads((tmp_path / "m.json").read_text())["minima"]
+    assert len(minima) == 1 and minima[0]["starts"] == 3
     assert "3 starts reached 1 distinct minimum" in done.stdout  # a bowl has one minimum
     assert png_size(tmp_path / "pics" / "starts.png")[0] >= 600
     shown = directional("show", str(tmp_path / "runs" / "bowl.sqlite"), cwd=tmp_path)
