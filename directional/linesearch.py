@@ -6,7 +6,8 @@ All points it has seen are kept, sorted, so the bracket around the best point is
 evaluated neighbours.
 
 1. Probe.  From the known points (at least the base point ``t = 0``), one step of the size the
-   caller suggests.  When the curvature ``c`` along this line is known from an earlier search,
+   caller suggests, to both sides at once (one batch) when the curvature is unknown and the
+   segment has room.  When the curvature ``c`` along this line is known from an earlier search,
    the parabola through the two points with second derivative ``c`` gives the next point directly:
    on a quadratic that point is the minimum, found with two evaluations (the idea of reusing the
    measured second derivative is Brent's, 1973 ch. 7).
@@ -130,9 +131,18 @@ def line_search(
         t1 = _probe(t0, lower, upper, abs(step), tol(t0))
         if t1 is None:
             return _result(points, t0, spent)
-        values = yield np.array([t1])
-        f1 = points[t1] = float(values[0])
-        spent += 1
+        t_back = 2.0 * t0 - t1
+        if not (parabolic and curvature > 0.0) and lower <= t_back <= upper and spent + 2 <= limit:
+            # No curvature known: probe both sides at once (one batch, so the two evaluations
+            # can run in parallel); the parabola through the three points is the next step.
+            values = yield np.array([t1, t_back])
+            points[t1], points[t_back] = float(values[0]), float(values[1])
+            spent += 2
+        else:
+            values = yield np.array([t1])
+            points[t1] = float(values[0])
+            spent += 1
+        f1 = points[t1]
         if parabolic and curvature > 0.0 and math.isfinite(f1) and math.isfinite(f0):
             vertex = 0.5 * (t0 + t1) - (f1 - f0) / (t1 - t0) / curvature
             reach = growth * abs(t1 - t0)
