@@ -120,8 +120,8 @@ class KeyLines:
                 index = counts.get(name, 0)
                 counts[name] = index + 1
                 table = (name, index)
-            elif match := _HEADER.match(line):
-                table = (_bare(match.group(1)),)
+            elif match := _HEADER.match(line):  # [search] or a dotted [search.extra]
+                table = tuple(_bare(part) for part in match.group(1).split("."))
             elif match := _KEY.match(line):
                 self._lines.setdefault((*table, _bare(match.group(1))), number)
                 continue
