@@ -13,9 +13,10 @@ point it returns is checked.
    not on a bound: by numdifftools' central differences with Richardson extrapolation and its
    error estimate (``check=True``, 6 n² + 1 evaluations), or by one plain central-difference
    stencil (``check="quick"``, 2 n² + 1).  Every stencil point is known before any value is, so
-   the stencil goes to the driver as one batch (an executor evaluates it in parallel).  Steps are
-   never below what the noise allows (`step_sizes`); with a stated noise level, a stencil whose
-   steps were sized from a curvature that the measurement belies is resized and evaluated again.
+   the stencil goes to the driver as one batch (an executor evaluates it in parallel); see
+   `directional.hessian`.  Steps are never below what the noise allows; with a stated noise
+   level, a stencil whose steps were sized from a curvature that the measurement belies is
+   resized and evaluated again.
 3. Verdict.  The Hessian is first scaled symmetrically so that each row's largest entry (or
    error, when larger) is 1 (`equilibration`; the signs of the eigenvalues do not change).  Each
    eigenvalue then gets its own error bar from the scaled error estimate plus the noise's share
@@ -35,9 +36,6 @@ References
    (perturbation of the eigenvalues of a symmetric matrix).
 .. [2] D. Ruiz, "A scaling algorithm to equilibrate both rows and columns norms in matrices",
    Rutherford Appleton Laboratory report RAL-TR-2001-034, 2001.
-.. [3] P. E. Gill, W. Murray and M. H. Wright, *Practical Optimization*, Academic Press, 1981,
-   sec. 8.6 (finite-difference intervals balancing truncation against rounding; from memory).
-.. [4] P. A. Brodtkorb, numdifftools (Richardson extrapolation of finite differences).
 """
 
 from __future__ import annotations
@@ -47,23 +45,27 @@ import math
 from collections.abc import Callable, Generator
 from dataclasses import dataclass
 
-import numdifftools as nd
 import numpy as np
 
 from .directions import DirectionSet, hessian_estimate
 from .driver import Driver
 from .errors import ProblemError
+from .hessian import (
+    EPSILON,
+    RATIO,
+    STEPS,
+    Measured,
+    extrapolated_hessian,
+    noise_margin,
+    quick_hessian,
+    step_sizes,
+)
 from .linesearch import line_search
 from .records import Batch, Curvature, Halt, Outcome, Stop, Verdict
 from .search import FIRST_STEP, Settings, powell
 from .solution import Solution
 from .space import Space
 
-EPSILON = float(np.finfo(float).eps)
-LARGEST_STEP = 0.1  # no stencil step beyond a tenth of the problem's size (scaled coordinates)
-RATIO = 2.0  # ratio of the successive steps numdifftools extrapolates from
-STEPS = 3  # steps numdifftools extrapolates from: 3 stencils of 2 n² points, 6 n² + 1 evaluations
-NOISE_SHARE = 0.01  # noise may spoil at most 1 % of a curvature (at 3 sigma) at the smallest step
 RESIZES = 2  # with a noise level: times the stencil may be resized from measured curvatures
 FREE_FLAT = EPSILON**0.5  # free estimate: smaller eigenvalues (relative) count as zero
 
@@ -98,199 +100,6 @@ def escape_count(escapes: object) -> int:
     if isinstance(escapes, bool) or not isinstance(escapes, int | np.integer) or escapes < 0:
         raise ProblemError(f"escapes must be a whole number of at least 0, got {escapes!r}")
     return int(escapes)
-
-
-# ----------------------------------------------------------------------------- steps
-
-
-def step_sizes(
-    curvatures: np.ndarray, value: float, noise: float | None, room: np.ndarray, method: str
-) -> np.ndarray:
-    """Finite-difference steps (scaled coordinates) for a Hessian at a point with value ``value``.
-
-    ``curvatures`` are the expected second derivatives along the axes (the free estimate's
-    diagonal; nan or <= 0 where unknown); ``noise`` the absolute noise level (None: rounding only,
-    ``4 eps |f|``); ``room`` the distance to the nearest bound along each axis.
-
-    A step balances truncation against rounding for a plain central second difference:
-    ``h = (e / c)^(1/4)`` with ``e`` the noise (``eps c`` where ``f = 0``) (Gill, Murray &
-    Wright 1981, sec. 8.6, from memory).  The extrapolated check uses the steps ``2h, h, h/2``:
-    numdifftools' error estimate is led by the spread of the plain differences, so steps chosen
-    for them keep its error bars tight (the extrapolation then only sharpens the estimate).  The
-    floor: the noise may spoil at most 1 % of the curvature (3 sigma) at the smallest step, i.e.
-    ``h >= sqrt(3 sqrt(6) noise / (0.01 c))`` (the second difference of three values with noise of
-    standard deviation ``noise`` has standard deviation ``sqrt(6) noise / h²``).  The floor wins
-    over the step rule; the room to the bounds and a tenth of the problem's size win over both.
-
-    >>> step_sizes(np.array([2.0]), 1.0, None, np.array([np.inf]), "quick").round(6)
-    array([0.000145])
-    """
-    level = 4.0 * EPSILON * abs(value) if noise is None else float(noise)
-    known = np.isfinite(curvatures) & (curvatures > 0.0)
-    fallback = abs(value) if value != 0.0 and math.isfinite(value) else 1.0
-    c = np.where(known, curvatures, np.max(curvatures[known]) if known.any() else fallback)
-    c = np.asarray(c, dtype=float)
-    e = np.full(len(c), level) if level > 0.0 else EPSILON * c  # f = 0: rounding of c h² only
-    floor = np.sqrt(3.0 * math.sqrt(6.0) * level / (NOISE_SHARE * c))
-    if method == "quick":
-        h = np.maximum((e / c) ** 0.25, floor)
-        return np.minimum(h, np.minimum(LARGEST_STEP, room))
-    # steps 2h, h, h/2; numdifftools' diagonal reaches twice the largest step from the point.
-    h = np.maximum((e / c) ** 0.25, floor * RATIO ** (STEPS - 2))
-    return np.minimum(h * RATIO, np.minimum(LARGEST_STEP, 0.5 * room))
-
-
-def _noise_margin(steps: np.ndarray, noise: float) -> np.ndarray:
-    """Three standard deviations of the noise's share of each Hessian entry (quick stencil)."""
-    outer = np.outer(steps, steps)
-    margin = 3.0 * noise / (2.0 * outer)  # (f++ - f+- - f-+ + f--) / (4 h_i h_j)
-    np.fill_diagonal(margin, 3.0 * math.sqrt(6.0) * noise / steps**2)
-    return margin
-
-
-# ----------------------------------------------------------------------------- paid Hessians
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class Measured:
-    """A Hessian measured in scaled coordinates over the free parameters, with its error bars."""
-
-    hessian: np.ndarray
-    error: np.ndarray
-    steps: np.ndarray
-    problem: str = ""  # why the measurement is unusable ("" when it is fine)
-
-
-def _estimate_fields(result: object) -> tuple[np.ndarray, np.ndarray]:
-    """numdifftools' estimate and error estimate, by name, whatever its version returns.
-
-    0.11 returns a named tuple ``EstimateResult(estimate, error_estimate, final_step,
-    best_index)``; some earlier versions return ``(estimate, info)`` with ``info.error_estimate``.
-    """
-    estimate = getattr(result, "estimate", None)
-    if estimate is not None:
-        return np.asarray(estimate, dtype=float), np.asarray(result.error_estimate, dtype=float)
-    estimate, info = result  # type: ignore[misc]
-    return np.asarray(estimate, dtype=float), np.asarray(info.error_estimate, dtype=float)
-
-
-def numdifftools_hessian(
-    function: Callable[[np.ndarray], float], steps: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """The adapter: numdifftools' extrapolated central-difference Hessian of ``function`` at 0.
-
-    ``steps`` are the largest steps per coordinate; numdifftools uses ``steps / 2**k`` for
-    k = 0, 1, 2 and extrapolates.  Returns ``(hessian, error_estimate)``, both (k, k).  The
-    function is evaluated at 0 so that numdifftools' nominal step is 1 in every coordinate.
-    """
-    generator = nd.MaxStepGenerator(
-        base_step=np.asarray(steps, dtype=float),
-        step_ratio=RATIO,
-        num_steps=STEPS,
-        step_nom=1.0,
-        offset=0,
-        use_exact_steps=True,
-    )
-    hessian = nd.Hessian(function, step=generator, method="central", full_output=True)
-    estimate, error = _estimate_fields(hessian(np.zeros(len(steps))))
-    k = len(steps)
-    return estimate.reshape(k, k), error.reshape(k, k)
-
-
-def _embed(space: Space, u0: np.ndarray, free: np.ndarray, v: np.ndarray) -> np.ndarray:
-    """User points for steps ``v`` (rows, over the free parameters) from the scaled point u0."""
-    u = np.repeat(u0[None, :], len(v), axis=0)
-    u[:, free] = u[:, free] + v
-    return space.to_user(u)
-
-
-def extrapolated_hessian(
-    space: Space, u0: np.ndarray, free: np.ndarray, steps: np.ndarray
-) -> Generator[Batch, np.ndarray, Measured]:
-    """numdifftools' Hessian with the stencil evaluated as one batch (purpose "hessian").
-
-    numdifftools calls its function one point at a time.  A first pass with a function that only
-    records the points (their positions do not depend on the values for fixed steps) collects the
-    stencil; it is evaluated as one batch; a second pass reads the values back.  Should the second
-    pass ask for a point not recorded, that point is evaluated in a further batch and the pass
-    repeated (at most twice).
-    """
-    table = _Table()
-    for _ in range(3):
-        table.missing = {}
-        hessian, error = numdifftools_hessian(table.lookup, steps)
-        if not table.missing:
-            return _checked_measure(hessian, error, steps, table.known)
-        values = yield Batch(
-            points=_embed(space, u0, free, np.array(list(table.missing.values()))), purpose="hessian"
-        )
-        table.known.update(zip(table.missing, (float(v) for v in values)))
-        bad = sum(1 for v in values if not math.isfinite(v))
-        if bad:
-            problem = f"{bad} of the {len(values)} stencil evaluations failed"
-            return Measured(hessian=hessian, error=error, steps=steps, problem=problem)
-    return Measured(hessian=hessian, error=error, steps=steps, problem="the stencil kept changing")
-
-
-class _Table:
-    """Values known so far by stencil step (bytes of the step vector), and the steps still missing."""
-
-    def __init__(self) -> None:
-        self.known: dict[bytes, float] = {}
-        self.missing: dict[bytes, np.ndarray] = {}
-
-    def lookup(self, v: np.ndarray) -> float:
-        v = np.asarray(v, dtype=float)
-        key = v.tobytes()
-        if key in self.known:
-            return self.known[key]
-        self.missing.setdefault(key, v.copy())
-        return 0.0
-
-
-def _checked_measure(
-    hessian: np.ndarray, error: np.ndarray, steps: np.ndarray, known: dict[bytes, float]
-) -> Measured:
-    bad = sum(1 for v in known.values() if not math.isfinite(v))
-    problem = f"{bad} of the {len(known)} stencil evaluations failed" if bad else ""
-    if not problem and not (np.all(np.isfinite(hessian)) and np.all(np.isfinite(error))):
-        problem = "the Hessian estimate is not finite"
-    return Measured(hessian=0.5 * (hessian + hessian.T), error=error, steps=steps, problem=problem)
-
-
-def quick_hessian(
-    space: Space, u0: np.ndarray, free: np.ndarray, steps: np.ndarray
-) -> Generator[Batch, np.ndarray, Measured]:
-    """A plain central-difference Hessian: one batch of at most 2 k² + 1 points (k free).
-
-    ``H_ii = (f(+h_i) - 2 f(0) + f(-h_i)) / h_i²`` and
-    ``H_ij = (f(+h_i, +h_j) - f(+h_i, -h_j) - f(-h_i, +h_j) + f(-h_i, -h_j)) / (4 h_i h_j)``
-    (common practice, no source).  Its error bars hold the noise's share only (`_noise_margin`,
-    added by the caller): a single stencil cannot estimate its own truncation error.
-    """
-    k = len(steps)
-    rows = [np.zeros(k)]
-    for i in range(k):
-        for sign in (1.0, -1.0):
-            v = np.zeros(k)
-            v[i] = sign * steps[i]
-            rows.append(v)
-    pairs = [(i, j) for i in range(k) for j in range(i + 1, k)]
-    for i, j in pairs:
-        for si, sj in ((1.0, 1.0), (1.0, -1.0), (-1.0, 1.0), (-1.0, -1.0)):
-            v = np.zeros(k)
-            v[i], v[j] = si * steps[i], sj * steps[j]
-            rows.append(v)
-    values = yield Batch(points=_embed(space, u0, free, np.array(rows)), purpose="hessian")
-    known = {row.tobytes(): float(value) for row, value in zip(rows, values)}
-    f0 = values[0]
-    hessian = np.zeros((k, k))
-    for i in range(k):
-        hessian[i, i] = (values[1 + 2 * i] - 2.0 * f0 + values[2 + 2 * i]) / steps[i] ** 2
-    for n, (i, j) in enumerate(pairs):
-        pp, pm, mp, mm = values[1 + 2 * k + 4 * n : 5 + 2 * k + 4 * n]
-        hessian[i, j] = hessian[j, i] = (pp - pm - mp + mm) / (4.0 * steps[i] * steps[j])
-    return _checked_measure(hessian, np.zeros((k, k)), steps, known)
 
 
 # ----------------------------------------------------------------------------- verdict
@@ -534,7 +343,7 @@ def _verdict(
 ) -> Checked:
     level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
     smallest = measured.steps if method == "quick" else measured.steps / RATIO ** (STEPS - 1)
-    error = measured.error + _noise_margin(smallest, level)
+    error = measured.error + noise_margin(smallest, level)
     d = equilibration(np.maximum(np.abs(measured.hessian), error))
     eigenvalues, eigenvectors = np.linalg.eigh(measured.hessian / np.outer(d, d))
     margins = eigenvalue_margins(eigenvectors, error / np.outer(d, d))

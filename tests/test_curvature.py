@@ -14,7 +14,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import directional as dl
-from directional import curvature
+from directional import curvature, hessian
 from directional.driver import Driver
 from directional.records import Outcome, Stop, Verdict
 from directional.search import Settings
@@ -346,9 +346,9 @@ def test_log_scaled_parameters_are_reported_in_log_coordinates():
     method=st.sampled_from(["extrapolated", "quick"]),
 )
 def test_steps_never_go_below_what_the_noise_allows(c, noise, value, method):
-    h = curvature.step_sizes(np.array([c]), value, noise, np.array([np.inf]), method)[0]
-    smallest = h if method == "quick" else h / curvature.RATIO ** (curvature.STEPS - 1)
-    capped = h >= curvature.LARGEST_STEP * (1 - 1e-12)
+    h = hessian.step_sizes(np.array([c]), value, noise, np.array([np.inf]), method)[0]
+    smallest = h if method == "quick" else h / hessian.RATIO ** (hessian.STEPS - 1)
+    capped = h >= hessian.LARGEST_STEP * (1 - 1e-12)
     # 3 sigma of the noise in a second difference, sqrt(6) noise / h², is at most 1 % of c
     assert capped or 3 * math.sqrt(6) * noise / smallest**2 <= 0.01 * c * (1 + 1e-9)
 
@@ -372,8 +372,8 @@ def test_the_adapter_calls_numdifftools_once_per_stencil_point():
         calls.append(np.array(v))
         return float(v[0] ** 2 + 3 * v[0] * v[1])
 
-    hessian, error = curvature.numdifftools_hessian(counting, np.array([1e-2, 1e-2]))
-    assert hessian == pytest.approx(np.array([[2.0, 3.0], [3.0, 0.0]]), abs=1e-8)
+    matrix, error = hessian.numdifftools_hessian(counting, np.array([1e-2, 1e-2]))
+    assert matrix == pytest.approx(np.array([[2.0, 3.0], [3.0, 0.0]]), abs=1e-8)
     assert error.shape == (2, 2)
     assert len(calls) == 6 * 4 + 1  # three stencils of 2n² points and the centre
 
@@ -386,8 +386,8 @@ def test_the_adapter_reads_both_result_shapes():
         estimate = np.full((1, 1), 2.0)
         error_estimate = np.zeros((1, 1))
 
-    assert curvature._estimate_fields((np.full((1, 1), 5.0), Info()))[0][0, 0] == 5.0
-    assert curvature._estimate_fields(Named())[0][0, 0] == 2.0
+    assert hessian._estimate_fields((np.full((1, 1), 5.0), Info()))[0][0, 0] == 5.0
+    assert hessian._estimate_fields(Named())[0][0, 0] == 2.0
 
 
 # --------------------------------------------------------------------------- arguments, summary

@@ -1,0 +1,298 @@
+"""Least squares on a residual vector through the driver: the objective, Jacobians, and
+Levenberg–Marquardt steps.
+
+The driver wants a number, so the objective it sees is `SumOfSquares`: it returns
+``S(x) = sum r_i(x)**2`` and keeps each residual vector by the bytes of its point; the generators
+here yield batches (purposes "jacobian", "gauss-newton") and read the vectors back.  A vector the
+driver answered without calling the objective (a journal being replayed) is computed again, once,
+and counted in ``SumOfSquares.recomputed``.
+
+References
+----------
+.. [1] K. Levenberg, "A method for the solution of certain non-linear problems in least squares",
+   *Quarterly of Applied Mathematics* 2 (1944) 164-168.
+.. [2] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
+   *Journal of the Society for Industrial and Applied Mathematics* 11 (1963) 431-441.
+.. [3] P. A. Brodtkorb, numdifftools (Richardson extrapolation of finite differences).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Generator
+from dataclasses import dataclass
+
+import numdifftools as nd
+import numpy as np
+
+from .errors import ObjectiveError
+from .records import Batch, Halt, Stop
+from .space import Space
+
+Residuals = Callable[[np.ndarray], object]
+
+EPSILON = float(np.finfo(float).eps)
+DIFFERENCE_STEP = EPSILON ** (1.0 / 3.0)  # central differences: truncation h² vs rounding eps/h
+ONE_SIDED_STEP = EPSILON ** 0.5  # one-sided differences: truncation h vs rounding eps/h
+JACOBIAN_STEP = 1e-3  # largest step of numdifftools' extrapolated Jacobian (scaled coordinates)
+
+
+# ----------------------------------------------------------------------------- the objective
+
+
+class SumOfSquares:
+    """The objective the driver sees: ``S(x)``, with each residual vector kept by point.
+
+    ``sigma`` (None or one positive standard deviation per residual) divides the residuals.
+
+    Raises (when called)
+    --------------------
+    ObjectiveError
+        When the residuals are not a flat array of real numbers, change length between calls,
+        or do not match ``sigma``.
+    """
+
+    def __init__(self, residuals: Residuals, sigma: np.ndarray | None) -> None:
+        self.residuals = residuals
+        self.sigma = sigma
+        self.vectors: dict[bytes, np.ndarray] = {}
+        self.size: int | None = None
+        self.recomputed = 0
+
+    def __call__(self, x: np.ndarray) -> float:
+        key = x.tobytes()
+        r = self._vector(self.residuals(x))
+        self.vectors[key] = r
+        return float(r @ r) if np.all(np.isfinite(r)) else math.nan
+
+    def _vector(self, result: object) -> np.ndarray:
+        try:
+            r = np.array(result, dtype=float).reshape(-1) if not isinstance(result, str) else None
+        except (TypeError, ValueError):
+            r = None
+        if r is None or np.ndim(result) > 1 or r.size == 0:
+            text = repr(result)
+            raise ObjectiveError(
+                "residuals must return a flat array of real numbers, got "
+                + (text if len(text) <= 80 else text[:77] + "...")
+            )
+        if self.size is None:
+            self.size = r.size
+            if self.sigma is not None and self.sigma.size != r.size:
+                raise ObjectiveError(
+                    f"the residuals have {r.size} entries but sigma has {self.sigma.size}"
+                )
+        elif r.size != self.size:
+            raise ObjectiveError(
+                f"the residuals had {self.size} entries and now have {r.size}"
+            )
+        return r if self.sigma is None else r / self.sigma
+
+    def vector(self, x: np.ndarray) -> np.ndarray | None:
+        """The residual vector at user point ``x`` (None when its evaluation failed)."""
+        key = x.tobytes()
+        if key not in self.vectors:
+            self.recomputed += 1
+            try:
+                self(x.copy())
+            except ObjectiveError:
+                raise
+            except Exception:  # the objective's own failure, as the driver would see it
+                return None
+        r = self.vectors.get(key)
+        return r if r is not None and np.all(np.isfinite(r)) else None
+
+
+# ----------------------------------------------------------------------------- Levenberg–Marquardt
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Polished:
+    """Where the Levenberg–Marquardt steps ended (scaled point) and why."""
+
+    point: np.ndarray
+    value: float
+    stop: Stop
+    reason: str
+    steps: int
+    jacobian: np.ndarray | None = None  # at ``point`` (scaled coordinates), when one was made
+
+
+def room_to_bounds(space: Space, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Distances in scaled coordinates from ``u`` down to the lower and up to the upper bounds."""
+    return u - space.lower_u, space.upper_u - u
+
+
+def difference_jacobian(
+    space: Space, squares: SumOfSquares, u: np.ndarray
+) -> Generator[Batch, np.ndarray, np.ndarray | None]:
+    """Jacobian of the residual vector in scaled coordinates, by finite differences (one batch).
+
+    Central differences with the step ``eps^(1/3)``; a forward or backward difference with the
+    step ``sqrt(eps)`` where a bound is closer than that (common practice, no source; the point
+    itself is known, so a one-sided column costs one evaluation).  None when an evaluation failed.
+    """
+    below, above = room_to_bounds(space, u)
+    plus = np.zeros(space.size)
+    minus = np.zeros(space.size)
+    for j in range(space.size):
+        if below[j] >= DIFFERENCE_STEP and above[j] >= DIFFERENCE_STEP:
+            plus[j], minus[j] = DIFFERENCE_STEP, -DIFFERENCE_STEP
+        elif above[j] >= below[j]:
+            plus[j] = min(ONE_SIDED_STEP, above[j])
+        else:
+            minus[j] = -min(ONE_SIDED_STEP, below[j])
+    offsets = np.vstack([np.diag(plus), np.diag(minus)])
+    points = space.to_user(u + offsets)
+    values = yield Batch(points=points, purpose="jacobian")
+    if not np.all(np.isfinite(values)):
+        return None
+    columns = []
+    for j in range(space.size):
+        rp, rm = squares.vector(points[j]), squares.vector(points[space.size + j])
+        if rp is None or rm is None or plus[j] == minus[j]:
+            return None
+        columns.append((rp - rm) / (plus[j] - minus[j]))
+    return np.column_stack(columns)
+
+
+def _held(space: Space, u: np.ndarray, jacobian: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """Parameters at a bound that the gradient ``2 Jᵀ r`` pushes outward: held there this step."""
+    below, above = room_to_bounds(space, u)
+    gradient = jacobian.T @ r
+    return ((below < ONE_SIDED_STEP) & (gradient > 0.0)) | ((above < ONE_SIDED_STEP) & (gradient < 0.0))
+
+
+def levenberg_marquardt(
+    space: Space,
+    squares: SumOfSquares,
+    u0: np.ndarray,
+    value: float,
+    *,
+    iterations: int = 100,
+    tolerance: float = 1e-10,
+) -> Generator[Batch, np.ndarray, Polished]:
+    """Levenberg–Marquardt steps from scaled point ``u0`` until a step is below ``tolerance``.
+
+    Each step solves ``min |J d + r|² + lambda |D d|²`` with ``D² = diag(JᵀJ)`` (Marquardt 1963),
+    as the linear least-squares problem ``[J; sqrt(lambda) D] d = [-r; 0]`` so that JᵀJ is never
+    formed; a step that lowers S is taken and lambda divided by 10, otherwise lambda is multiplied
+    by 10 and the step solved again (ibid.).  Steps are clipped to the bounds, and a parameter at
+    a bound that the gradient pushes outward is held there for the step.
+    """
+    u, s_value = u0.copy(), value
+    lam = 1e-3
+    steps = 0
+    try:
+        r = squares.vector(space.to_user(u))
+        if r is None:
+            return Polished(point=u, value=s_value, stop=Stop.STALLED, reason="no residuals", steps=0)
+        for _ in range(iterations):
+            jacobian = yield from difference_jacobian(space, squares, u)
+            if jacobian is None:
+                return Polished(point=u, value=s_value, stop=Stop.STALLED, steps=steps,
+                                reason="an evaluation for the Jacobian failed")
+            moving = jacobian * ~_held(space, u, jacobian, r)
+            scale = np.sqrt(np.sum(jacobian**2, axis=0))
+            scale = np.maximum(scale, 1e-12 * max(float(scale.max()), 1e-300))
+            while True:
+                d = _marquardt_step(moving, r, lam, scale)
+                trial = np.clip(u + d, space.lower_u, space.upper_u)
+                move = float(np.max(np.abs(trial - u)))
+                if move <= tolerance:
+                    return Polished(point=u, value=s_value, stop=Stop.CONVERGED, steps=steps,
+                                    reason="", jacobian=jacobian)
+                x = space.to_user(trial)
+                values = yield Batch(points=x[None, :], purpose="gauss-newton")
+                if values[0] < s_value:
+                    u, s_value, lam = trial, float(values[0]), max(lam / 10.0, 1e-15)
+                    r = squares.vector(x)
+                    steps += 1
+                    break
+                lam *= 10.0
+                if lam > 1e16:
+                    return Polished(point=u, value=s_value, stop=Stop.CONVERGED, steps=steps,
+                                    reason="", jacobian=jacobian)
+        return Polished(point=u, value=s_value, stop=Stop.STALLED, steps=steps,
+                        reason=f"no convergence in {iterations} Levenberg-Marquardt steps")
+    except Halt as halt:
+        return Polished(point=u, value=s_value, stop=halt.stop, reason=halt.reason, steps=steps)
+
+
+def _marquardt_step(jacobian: np.ndarray, r: np.ndarray, lam: float, scale: np.ndarray) -> np.ndarray:
+    used = np.any(jacobian != 0.0, axis=0)
+    j = jacobian[:, used]
+    a = np.vstack([j, math.sqrt(lam) * np.diag(scale[used])])
+    b = np.concatenate([-r, np.zeros(j.shape[1])])
+    d = np.zeros(jacobian.shape[1])
+    d[used] = np.linalg.lstsq(a, b, rcond=None)[0]
+    return d
+
+
+# ----------------------------------------------------------------------------- extrapolated Jacobian
+
+
+def extrapolated_jacobian(
+    space: Space, squares: SumOfSquares, u: np.ndarray, free: np.ndarray
+) -> Generator[Batch, np.ndarray, np.ndarray | None]:
+    """numdifftools' extrapolated central-difference Jacobian (scaled coordinates), one batch.
+
+    The stencil is recorded in a first pass, evaluated as one batch (purpose "jacobian"), and
+    read back in a second, as for the Hessian (`hessian.extrapolated_hessian`).  Columns of
+    parameters not ``free`` are zero; None when an evaluation failed.
+    """
+    columns = np.flatnonzero(free)
+    below, above = room_to_bounds(space, u)
+    steps = np.minimum(JACOBIAN_STEP, np.minimum(below, above)[columns])
+    known: dict[bytes, np.ndarray] = {}
+    size = squares.size or 1
+    for _ in range(3):
+        missing: dict[bytes, np.ndarray] = {}
+        estimate = _nd_jacobian(_Lookup(known, missing, size), steps)
+        if not missing:
+            if not np.all(np.isfinite(estimate)):
+                return None
+            jacobian = np.zeros((estimate.shape[0], space.size))
+            jacobian[:, columns] = estimate
+            return jacobian
+        offsets = np.zeros((len(missing), space.size))
+        offsets[:, columns] = np.array(list(missing.values()))
+        points = space.to_user(u + offsets)
+        try:
+            values = yield Batch(points=points, purpose="jacobian")
+        except Halt:
+            return None
+        for key, x, value in zip(missing, points, values):
+            r = squares.vector(x) if math.isfinite(value) else None
+            known[key] = np.full(size, np.nan) if r is None else r
+    return None
+
+
+class _Lookup:
+    """numdifftools' function for the recording and reading passes (see `extrapolated_jacobian`)."""
+
+    def __init__(self, known: dict[bytes, np.ndarray], missing: dict[bytes, np.ndarray], size: int):
+        self.known, self.missing, self.size = known, missing, size
+
+    def __call__(self, v: np.ndarray) -> np.ndarray:
+        v = np.asarray(v, dtype=float)
+        key = v.tobytes()
+        if key in self.known:
+            return self.known[key]
+        self.missing.setdefault(key, v.copy())
+        return np.zeros(self.size)
+
+
+def _nd_jacobian(function: Callable[[np.ndarray], np.ndarray], steps: np.ndarray) -> np.ndarray:
+    """The numdifftools adapter for a Jacobian at 0 (nominal step 1), extrapolated from 3 steps."""
+    generator = nd.MaxStepGenerator(
+        base_step=np.asarray(steps, dtype=float), step_ratio=2.0, num_steps=3, step_nom=1.0,
+        offset=0, use_exact_steps=True,
+    )
+    result = nd.Jacobian(function, step=generator, method="central", full_output=True)(
+        np.zeros(len(steps))
+    )
+    estimate = getattr(result, "estimate", None)
+    if estimate is None:
+        estimate = result[0]
+    return np.atleast_2d(np.asarray(estimate, dtype=float)).reshape(-1, len(steps))
