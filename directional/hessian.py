@@ -36,6 +36,7 @@ EPSILON = float(np.finfo(float).eps)
 LARGEST_STEP = 0.1  # no stencil step beyond a tenth of the problem's size (scaled coordinates)
 RATIO = 2.0  # ratio of the successive steps numdifftools extrapolates from
 STEPS = 3  # steps numdifftools extrapolates from: 3 stencils of 2 n² points, 6 n² + 1 evaluations
+SMALLEST_STEP = EPSILON ** (1.0 / 3.0)  # the points' own rounding stays below 1e-10 of a step
 NOISE_SHARE = 0.01  # noise may spoil at most 1 % of a curvature (at 3 sigma) at the smallest step
 
 
@@ -52,8 +53,10 @@ def step_sizes(
     ``4 eps |f|``); ``room`` the distance to the nearest bound along each axis.
 
     A step balances truncation against rounding for a plain central second difference:
-    ``h = (e / c)^(1/4)`` with ``e`` the noise (``eps c`` where ``f = 0``) (Gill, Murray &
-    Wright 1981, sec. 8.6, from memory).  The extrapolated check uses the steps ``2h, h, h/2``:
+    ``h = (e / c)^(1/4)`` with ``e`` the noise (Gill, Murray & Wright 1981, sec. 8.6, from
+    memory), but at least ``eps^(1/3)``: where ``f`` is near 0 the rule would shrink the step
+    until the rounding of the points themselves (about ``eps`` in scaled coordinates) spoils the
+    differences.  The extrapolated check uses the steps ``2h, h, h/2``:
     numdifftools' error estimate is led by the spread of the plain differences, so steps chosen
     for them keep its error bars tight (the extrapolation then only sharpens the estimate).  The
     floor: the noise may spoil at most 1 % of the curvature (3 sigma) at the smallest step, i.e.
@@ -69,13 +72,12 @@ def step_sizes(
     fallback = abs(value) if value != 0.0 and math.isfinite(value) else 1.0
     c = np.where(known, curvatures, np.max(curvatures[known]) if known.any() else fallback)
     c = np.asarray(c, dtype=float)
-    e = np.full(len(c), level) if level > 0.0 else EPSILON * c  # f = 0: rounding of c h² only
     floor = np.sqrt(3.0 * math.sqrt(6.0) * level / (NOISE_SHARE * c))
+    h = np.maximum((level / c) ** 0.25, SMALLEST_STEP)
     if method == "quick":
-        h = np.maximum((e / c) ** 0.25, floor)
-        return np.minimum(h, np.minimum(LARGEST_STEP, room))
+        return np.minimum(np.maximum(h, floor), np.minimum(LARGEST_STEP, room))
     # steps 2h, h, h/2; numdifftools' diagonal reaches twice the largest step from the point.
-    h = np.maximum((e / c) ** 0.25, floor * RATIO ** (STEPS - 2))
+    h = np.maximum(h, floor * RATIO ** (STEPS - 2))
     return np.minimum(h * RATIO, np.minimum(LARGEST_STEP, 0.5 * room))
 
 
