@@ -414,6 +414,11 @@ def _explore(
     evaluations = runner.log.evaluations
     if not groups and not interrupted and evaluations:
         last = evaluations[-1]
+        if last.value == -math.inf:  # not a failure: the objective is unbounded below
+            raise ObjectiveError(
+                f"the objective returned -inf at {last.point.tolist()!r}, at a start: it is "
+                "unbounded below there"
+            )
         raise ObjectiveError(
             f"the objective failed at every one of the {k} starts; last error at "
             f"{last.point.tolist()!r}: {last.detail or last.status}"

@@ -53,8 +53,10 @@ import importlib
 import json
 import math
 import os
+import signal
 import sqlite3
 import sys
+import threading
 import time
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -253,9 +255,10 @@ class Journal:
                 session = _begin_session(connection, budget)
                 connection.execute(f"PRAGMA synchronous={'FULL' if sync == 'full' else 'NORMAL'}")
         except BaseException:
-            if connection is not None:
-                connection.close()
-            lock.release()
+            with _held_interrupts():
+                if connection is not None:
+                    connection.close()
+                lock.release()
             raise
         return cls(path, connection, lock, header, stored, session, sync)
 
@@ -298,7 +301,11 @@ class Journal:
         try:
             self._connection.execute(_INSERT, row)
         except sqlite3.Error as error:
-            raise JournalError(f"cannot write to journal {str(self.path)!r}: {error}") from None
+            raise JournalError(
+                f"cannot write to journal {str(self.path)!r}: {error}{_cause(error)}; the "
+                f"{self.written} evaluations committed before this one are kept and are replayed "
+                "on resume"
+            ) from None
         self.written += 1
 
     @property
@@ -335,18 +342,19 @@ class Journal:
         if error is not None:
             stop = stop or ("interrupted" if isinstance(error, KeyboardInterrupt) else "error")
             reason = reason or f"{type(error).__name__}: {error}"[:2000]
-        try:  # closing checkpoints the log into the file, with an fsync of both: all durable
-            self._connection.execute(
-                "UPDATE session SET closed = ?, replayed = ?, evaluated = ?, stop = ?, reason = ? "
-                "WHERE session = ?",
-                (time.time(), self._replayed, self.written, stop, reason, self._session),
-            )
-        except sqlite3.Error:
-            pass  # the evaluations are what matters; a failed note must not hide the real error
-        finally:
-            self._connection.close()
-            self._lock.release()
-            self._lock = None  # type: ignore[assignment]
+        with _held_interrupts():  # a second Ctrl-C must not leave the file open, the lock held
+            try:  # closing checkpoints the log into the file, with an fsync of both: all durable
+                self._connection.execute(
+                    "UPDATE session SET closed = ?, replayed = ?, evaluated = ?, stop = ?, "
+                    "reason = ? WHERE session = ?",
+                    (time.time(), self._replayed, self.written, stop, reason, self._session),
+                )
+            except sqlite3.Error:
+                pass  # the evaluations are what matters; a failed note must not hide the real error
+            finally:
+                self._connection.close()
+                self._lock.release()
+                self._lock = None  # type: ignore[assignment]
 
     def __enter__(self) -> Journal:
         return self
@@ -555,11 +563,53 @@ def _use_wal(connection: sqlite3.Connection, path: Path) -> None:
 
 
 @contextlib.contextmanager
+def _held_interrupts() -> Iterator[None]:
+    """Hold a Ctrl-C back while the journal closes; raise it as `KeyboardInterrupt` afterwards.
+
+    Only in the main thread with Python's default SIGINT handler (elsewhere a Ctrl-C is not
+    raised here anyway, or belongs to a handler that is not ours to replace).
+    """
+    if (
+        threading.current_thread() is not threading.main_thread()
+        or signal.getsignal(signal.SIGINT) is not signal.default_int_handler
+    ):
+        yield
+        return
+    caught: list[int] = []
+    previous = signal.signal(signal.SIGINT, lambda signum, frame: caught.append(signum))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    if caught:
+        raise KeyboardInterrupt
+
+
+# SQLite's primary result codes for a file that cannot be written (https://sqlite.org/rescode.html)
+_WRITE_FAILURES = {
+    3: "permission denied",  # SQLITE_PERM
+    8: "the file or its folder is read-only",  # SQLITE_READONLY
+    10: "the disk may be full, or a file-size or quota limit reached",  # SQLITE_IOERR
+    13: "the disk is full",  # SQLITE_FULL
+    14: "the file cannot be opened",  # SQLITE_CANTOPEN
+}
+
+
+def _cause(error: sqlite3.Error) -> str:
+    """`` (the disk is full)``-style words for an error of the disk or folder, else ""."""
+    code = getattr(error, "sqlite_errorcode", None)
+    cause = None if code is None else _WRITE_FAILURES.get(int(code) & 0xFF)
+    return f" ({cause})" if cause else ""
+
+
+@contextlib.contextmanager
 def _translated(path: Path) -> Iterator[None]:
     """Turn sqlite3's errors into `JournalError` naming the file."""
     try:
         yield
     except sqlite3.DatabaseError as error:
+        if _cause(error):  # the disk or the folder, not the file's contents
+            raise JournalError(f"cannot write to journal {str(path)!r}: {error}{_cause(error)}") from None
         raise JournalError(
             f"journal {str(path)!r} is not a readable journal (damaged, or another kind of file): "
             f"{error}"
@@ -621,6 +671,11 @@ def _set_header(connection: sqlite3.Connection, items: Mapping[str, str]) -> Non
 
 def _read_header(connection: sqlite3.Connection, path: Path) -> Header:
     tables = {row[0] for row in connection.execute("SELECT name FROM sqlite_master")}
+    if not tables:
+        raise JournalError(
+            f"journal {str(path)!r} holds no run yet (the run that made it ended before writing "
+            "anything): start the run again"
+        )
     if not {"header", "evaluation", "session"} <= tables:
         raise JournalError(f"{str(path)!r} is an SQLite file but not a directional journal")
     items = dict(connection.execute("SELECT key, value FROM header").fetchall())

@@ -102,7 +102,10 @@ def minimize(
     space = build_space(start, bounds, names)
     settings = _settings(point_tolerance, value_tolerance)
     budget = _budget(budget, space.size)
-    if time_limit is not None and not (isinstance(time_limit, int | float) and time_limit > 0):
+    if time_limit is not None and (
+        isinstance(time_limit, bool)
+        or not (isinstance(time_limit, int | float) and time_limit > 0)
+    ):
         raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
     method, escapes, noise = check_method(check), escape_count(escapes), noise_option(noise)
     identity = run_identity(
@@ -147,7 +150,9 @@ def _budget(budget: int | None, n: int) -> int:
 def _solution(space: Space, settings: Settings, driver: Driver, outcome: Outcome) -> Solution:
     log = driver.log
     if not log.evaluations:
-        raise ObjectiveError("no evaluation was made")
+        if outcome.stop is Stop.INTERRUPTED:  # Ctrl-C before anything was computed
+            raise KeyboardInterrupt(outcome.reason)
+        raise ObjectiveError(f"no evaluation was made: {outcome.reason or outcome.stop.value}")
     first = log.evaluations[0]
     if first.status != "ok" and outcome.cycles == 0 and outcome.stop is Stop.STALLED:
         raise ObjectiveError(
@@ -257,7 +262,13 @@ def line_minimum(
     """
     if not callable(f):
         raise ProblemError(f"f must be callable, got {f!r}")
-    lower, upper = float(lower), float(upper)
+    try:
+        lower, upper = float(lower), float(upper)
+        start = None if start is None else float(start)
+    except (TypeError, ValueError):
+        raise ProblemError(
+            f"lower, upper and start must be numbers, got {lower!r}, {upper!r}, {start!r}"
+        ) from None
     if not (math.isfinite(lower) and math.isfinite(upper)) or not lower < upper:
         raise ProblemError(f"need finite lower < upper, got [{lower!r}, {upper!r}]")
     if start is None:

@@ -87,10 +87,13 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
     """Minimize over ``space`` from its start (or ``start``, scaled coordinates)."""
     n = space.size
     u = np.zeros(n) if start is None else np.array(start, dtype=float)
-    values = yield Batch(points=space.to_user(u)[None, :], purpose="start")
-    best = _Tracker(u, float(values[0]), _resolution(settings, FIRST_STEP))
     directions = principal_axes(n, FIRST_STEP)
     cycles = 0
+    try:
+        values = yield Batch(points=space.to_user(u)[None, :], purpose="start")
+    except Halt as halt:  # halted at the start point (-inf there, time up, Ctrl-C)
+        return _outcome(_Tracker(u, math.inf, 0.0), halt.stop, cycles, directions, halt.reason)
+    best = _Tracker(u, float(values[0]), _resolution(settings, FIRST_STEP))
     if not math.isfinite(best.value):
         return _outcome(best, Stop.STALLED, cycles, directions, "the start point failed")
     try:

@@ -130,7 +130,7 @@ def build_space(
         if bounds is not None or names is not None:
             raise ProblemError("give bounds and names inside each Parameter, not as arguments too")
         return space_from_parameters(parameters)
-    if isinstance(start, str | bytes):
+    if start is None or isinstance(start, str | bytes):
         raise ProblemError(f"start must be numbers or a list of Parameter, got {start!r}")
     try:
         x0 = np.array(start, dtype=float)
