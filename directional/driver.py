@@ -172,7 +172,10 @@ class Driver:
             be written.
         """
         with self._interrupts:
-            batch = next(generator)
+            try:
+                batch = next(generator)
+            except StopIteration as done:  # a generator with nothing to evaluate
+                return done.value
             while True:
                 try:
                     values = self._evaluate(batch, search)
