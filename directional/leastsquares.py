@@ -242,6 +242,8 @@ def extrapolated_jacobian(
     parameters not ``free`` are zero; None when an evaluation failed.
     """
     columns = np.flatnonzero(free)
+    if columns.size == 0:  # every parameter on a bound: nothing to differentiate
+        return np.zeros((squares.size or 0, space.size))
     below, above = room_to_bounds(space, u)
     steps = np.minimum(JACOBIAN_STEP, np.minimum(below, above)[columns])
     known: dict[bytes, np.ndarray] = {}

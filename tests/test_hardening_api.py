@@ -343,3 +343,16 @@ def test_system_exit_inside_the_objective_is_not_swallowed_and_the_journal_survi
     sol = dl.resume(path, rosenbrock)
     reference = dl.minimize(rosenbrock, [-1.2, 1.0], check=False)
     assert sol.point.tobytes() == reference.point.tobytes()
+
+
+@pytest.mark.parametrize("check", [False, True])
+def test_every_parameter_on_a_bound_is_reported_not_a_traceback(check):
+    # Was an IndexError from numdifftools (a Jacobian of no free parameter) in calibrate, and a
+    # StopIteration from the driver (a check with nothing to evaluate) in minimize.  The minimum of
+    # x0 + x1 on [0, 1]^2 is the corner (0, 0) (analytic).
+    sol = dl.minimize(lambda x: x[0] + x[1], [0.5, 0.5], bounds=[(0, 1), (0, 1)], check=check)
+    assert list(sol.point) == [0.0, 0.0] and sol.active == ("x0", "x1")
+    fit = dl.calibrate(lambda x: [x[0] + 1.0, x[1] + 1.0, 0.5], [0.5, 0.5],
+                       bounds=[(0, 1), (0, 1)], check=check)
+    assert list(fit.point) == [0.0, 0.0] and fit.active == ("x0", "x1")
+    assert fit.value == pytest.approx(2.25)  # 1 + 1 + 0.25
