@@ -67,7 +67,10 @@ class SumOfSquares:
 
     def _vector(self, result: object) -> np.ndarray:
         try:
-            r = np.array(result, dtype=float).reshape(-1) if not isinstance(result, str) else None
+            r = (
+                None if result is None or isinstance(result, str | bytes)
+                else np.array(result, dtype=float).reshape(-1)
+            )
         except (TypeError, ValueError):
             r = None
         if r is None or np.ndim(result) > 1 or r.size == 0:

@@ -356,3 +356,23 @@ def test_every_parameter_on_a_bound_is_reported_not_a_traceback(check):
                        bounds=[(0, 1), (0, 1)], check=check)
     assert list(fit.point) == [0.0, 0.0] and fit.active == ("x0", "x1")
     assert fit.value == pytest.approx(2.25)  # 1 + 1 + 0.25
+
+
+@pytest.mark.parametrize(
+    ("bad", "words"),
+    [
+        (None, "flat array of real numbers, got None"),  # was "objective returned nan"
+        ("1.0", "flat array of real numbers, got '1.0'"),
+        (np.array([]), "flat array of real numbers"),
+        (np.array([[1.0, 2.0]]), "flat array of real numbers"),
+        ([1j, 2.0], "flat array of real numbers"),
+    ],
+)
+def test_residuals_that_are_not_a_flat_array_are_an_objective_error(bad, words):
+    with pytest.raises(dl.ObjectiveError, match=words):
+        dl.calibrate(lambda k: bad, [1.0, 1.0], check=False)
+
+
+def test_residuals_that_change_length_are_an_objective_error():
+    with pytest.raises(dl.ObjectiveError, match="had 2 entries and now have 3"):
+        dl.calibrate(lambda k: np.ones(2 if k[0] == 1.0 else 3), [1.0, 1.0], check=False)
