@@ -291,3 +291,35 @@ def test_show_without_plots_imports_nothing_the_journal_names(tmp_path, capsys):
     assert cli.main(["show", str(tmp_path / "run.sqlite")]) == cli.UNVERIFIED
     assert "best value" in capsys.readouterr().out
     assert not marker.exists()
+
+
+@pytest.mark.parametrize(
+    ("make", "words"),
+    [
+        (lambda p: p.write_bytes(b"time,temperature\n0,21.5\n"), "not a readable journal"),
+        (lambda p: None, "does not exist or is empty"),
+        (lambda p: p.write_bytes(b""), "does not exist or is empty"),
+        (lambda p: _wal_only(p), "holds no run yet"),
+        (lambda p: _truncated(p), "not a readable journal"),
+    ],
+    ids=["text", "missing", "empty", "no-header", "truncated"],
+)
+@pytest.mark.parametrize("command", ["resume", "show"])
+def test_the_command_line_refuses_a_bad_journal_with_exit_code_2(tmp_path, capsys, make, words,
+                                                                 command):
+    path = tmp_path / "run.sqlite"
+    make(path)
+    assert cli.main([command, str(path)]) == cli.BAD_INPUT
+    err = capsys.readouterr().err
+    assert err.startswith("directional: error: journal ") and words in err
+
+
+def _wal_only(path: Path) -> None:
+    with sqlite3.connect(path) as db:
+        db.execute("PRAGMA journal_mode = WAL")
+    db.close()
+
+
+def _truncated(path: Path) -> None:
+    dl.minimize(rosenbrock, START, journal=path, check=False)
+    path.write_bytes(path.read_bytes()[:3000])

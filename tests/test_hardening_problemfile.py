@@ -179,3 +179,10 @@ def test_the_library_reads_the_same_file_with_the_same_errors(folder):
     path.write_text(GOOD.replace("budget = 30", "budget = 1"), encoding="utf-8")
     with pytest.raises(dl.ProblemError, match=r"line 11: search.budget must allow"):
         Problem.from_file(path)
+
+
+def test_the_readme_says_plainly_that_problem_files_run_code():
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    assert "run only problem files you\ntrust, like scripts" in readme or (
+        "run only problem files you trust, like scripts" in " ".join(readme.split())
+    )
