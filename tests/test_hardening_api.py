@@ -356,6 +356,9 @@ def test_every_parameter_on_a_bound_is_reported_not_a_traceback(check):
                        bounds=[(0, 1), (0, 1)], check=check)
     assert list(fit.point) == [0.0, 0.0] and fit.active == ("x0", "x1")
     assert fit.value == pytest.approx(2.25)  # 1 + 1 + 0.25
+    assert sol.verdict is fit.verdict is dl.Verdict.UNCHECKED
+    if check:
+        assert "not checked: every parameter is on a bound" in sol.notes + fit.notes
 
 
 @pytest.mark.parametrize(
