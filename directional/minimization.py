@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import concurrent.futures as cf
+import contextlib
 import math
-from collections.abc import Callable, Generator, Sequence
+from collections.abc import Callable, Generator, Iterator, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -14,6 +17,8 @@ from .errors import ObjectiveError, ProblemError
 from .journal import journal_for, run_identity
 from .linesearch import LineResult, line_search
 from .noise import floored, noise_level, noise_option
+from .pool import Lane, Runner
+from .progress import Progress
 from .records import Batch, Curvature, Halt, Outcome, Stop, Verdict
 from .search import Settings, powell
 from .solution import Solution
@@ -86,6 +91,13 @@ def minimize(
         The objective's noise level (standard deviation, in its units), or "estimate" to measure
         it at the start (`directional.noise`, Moré & Wild 2011).  It floors the value tolerance and
         the Hessian's steps.  Default None: rounding errors only.
+    executor
+        A `concurrent.futures.Executor` (a process pool, or a Dask cluster's
+        ``client.get_executor()``) on which the points of a batch (both bracketing probes, the
+        Hessian stencil) are evaluated at once.  A journal written this way is resumed by point:
+        give ``dl.resume`` an executor too.  Default None: one evaluation at a time, in process.
+    progress
+        Show a progress bar on standard error (when it is a terminal).
 
     Raises
     ------
@@ -113,8 +125,11 @@ def minimize(
         point_tolerance=point_tolerance, value_tolerance=value_tolerance, check=check,
         escapes=escapes, noise=noise,
     )
-    with journal_for(journal, identity, budget=budget) as book:
-        driver = Driver(objective=objective, budget=budget, time_limit=time_limit, **book.hooks())
+    if progress:
+        objective = Progress(objective, budget=budget, enabled=None)
+    with journal_for(journal, identity, budget=budget) as book, _driver(
+        objective, budget, time_limit, executor, book
+    ) as driver:
         level, noted = noise_level(driver, space, noise)
         settings = floored(settings, level)
         outcome = driver.run(powell(space, settings))
@@ -124,6 +139,36 @@ def minimize(
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
         return settled_solution(_solution(space, settings, driver, outcome), settled, noted)
+
+
+@contextlib.contextmanager
+def _driver(
+    objective: Objective, budget: int, time_limit: float | None, executor: object, book: Any
+) -> Iterator[Driver | Lane]:
+    """The driver of one search: in process, or on ``executor`` (batches evaluated in parallel).
+
+    On an executor the evaluations of a batch complete in any order, so its journal is replayed
+    by point (`pool.Runner`); resume it with an executor too (any one, e.g. ``InProcess()``).
+    """
+    try:
+        if executor is None:
+            yield Driver(objective=objective, budget=budget, time_limit=time_limit, **book.hooks())
+            return
+        if not isinstance(executor, cf.Executor):
+            raise ProblemError(f"executor must be a concurrent.futures.Executor, got {executor!r}")
+        with Runner(
+            objective=objective,
+            budget=budget,
+            time_limit=time_limit,
+            executor=executor,
+            workers=None,
+            record=book.hooks().get("record"),
+            known=book.stored,
+        ) as runner:
+            yield runner.lane()
+    finally:
+        if isinstance(objective, Progress):
+            objective.close()
 
 
 def _settings(point_tolerance: float, value_tolerance: float) -> Settings:

@@ -560,5 +560,9 @@ class Lane:
     def replayed(self) -> int:
         return self.runner.replayed
 
+    @property
+    def log(self) -> Log:
+        return self.runner.log
+
     def run(self, generator: Search, *, search: int = 0) -> Outcome:
         return self.runner.run({search: generator})[search]

@@ -1,0 +1,53 @@
+"""`minimize` on an executor: the same answer as in process, and a journal that resumes."""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+
+import numpy as np
+import pytest
+
+import directional as dl
+
+
+def rosenbrock(x):
+    # Moré, Garbow & Hillstrom 1981, problem 1: minimum 0 at (1, 1).
+    return (10.0 * (x[1] - x[0] ** 2)) ** 2 + (1.0 - x[0]) ** 2
+
+
+def test_a_process_pool_gives_the_in_process_answer():
+    alone = dl.minimize(rosenbrock, [-1.2, 1.0])
+    with cf.ProcessPoolExecutor(2) as pool:
+        pooled = dl.minimize(rosenbrock, [-1.2, 1.0], executor=pool)
+    assert np.array_equal(alone.point, pooled.point)
+    assert alone.evaluations == pooled.evaluations
+    assert pooled.verdict is dl.Verdict.MINIMUM
+    assert pooled.point == pytest.approx([1.0, 1.0], abs=1e-5)
+
+
+def test_a_journal_written_on_an_executor_resumes_on_one(tmp_path):
+    path = tmp_path / "pooled.sqlite"
+    alone = dl.minimize(rosenbrock, [-1.2, 1.0])
+    calls = []
+
+    def counted(x):
+        calls.append(x.tobytes())
+        return rosenbrock(x)
+
+    with cf.ThreadPoolExecutor(2) as pool:
+        first = dl.minimize(counted, [-1.2, 1.0], executor=pool, journal=path, budget=60)
+        assert first.stop is dl.Stop.BUDGET
+        done = dl.resume(path, counted, budget=10_000, executor=pool)
+    assert np.array_equal(done.point, alone.point)
+    assert len(calls) == len(set(calls)) == alone.evaluations  # nothing evaluated twice
+
+
+def test_a_progress_bar_changes_nothing(capsys):
+    plain = dl.minimize(rosenbrock, [-1.2, 1.0], check=False)
+    shown = dl.minimize(rosenbrock, [-1.2, 1.0], check=False, progress=True)
+    assert np.array_equal(plain.point, shown.point)
+
+
+def test_an_executor_that_is_not_one_is_a_problem_error():
+    with pytest.raises(dl.ProblemError, match="executor"):
+        dl.minimize(rosenbrock, [-1.2, 1.0], executor="pool")
