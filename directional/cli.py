@@ -9,12 +9,13 @@ journal).  Messages go to standard error; the summary to standard output.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import math
 import os
 import sys
 import time
 import warnings
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from pathlib import Path
 from typing import Any, TextIO
 
@@ -104,6 +105,8 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--starts", type=_positive, metavar="K",
                      help="searches from K starts (overrides the file)")
     run.add_argument("--workers", type=_positive, metavar="W", help="processes for many starts")
+    run.add_argument("--dask", metavar="ADDRESS",
+                     help="evaluate many starts on the Dask scheduler at ADDRESS (needs [dask])")
     where = run.add_mutually_exclusive_group()
     where.add_argument("--journal", metavar="FILE", help="journal file (overrides the file's)")
     where.add_argument("--no-journal", action="store_true", help="keep no journal")
@@ -215,10 +218,37 @@ def _run(args: argparse.Namespace) -> int:
         journal = None
     elif args.journal:
         journal = Path(args.journal).absolute()
-    result = solve(problem, journal=journal, budget=args.budget, quiet=args.quiet)
+    with _dask_executor(args.dask, problem) as executor:
+        result = solve(
+            problem, journal=journal, budget=args.budget, quiet=args.quiet, executor=executor
+        )
     used = problem.journal if journal is True else journal
     return finish(result, problem, json_path=args.json, plots=args.plots, journal=used,
                   extra=args.plot_evaluations)
+
+
+@contextlib.contextmanager
+def _dask_executor(address: str | None, problem: Problem) -> Iterator[Any]:
+    """An executor on the Dask scheduler at ``address`` for a many-start run (None: no Dask)."""
+    if address is None:
+        yield None
+        return
+    if problem.search.starts < 2:
+        raise ProblemError("--dask runs many starts: give --starts K with K of 2 or more")
+    try:
+        import distributed
+    except ImportError:
+        raise ProblemError(
+            "--dask needs the Dask extra: pip install 'directional[dask]'"
+        ) from None
+    try:
+        client = distributed.Client(address, timeout=30)
+    except (OSError, TimeoutError) as error:
+        raise ProblemError(f"--dask: cannot reach the scheduler at {address!r}: {error}") from None
+    try:
+        yield client.get_executor()
+    finally:
+        client.close()
 
 
 def _resume(args: argparse.Namespace) -> int:

@@ -88,8 +88,11 @@ def solve(
     budget: int | None = None,
     quiet: bool = False,
     objective: Callable[[np.ndarray], Any] | None = None,
+    executor: Any = None,
 ) -> Any:
     """Run ``problem``; return its `Solution`, or the `Landscape` of a many-start run.
+
+    ``executor`` (a many-start run only) evaluates the starts' points, e.g. on a Dask cluster.
 
     ``journal=True`` uses the problem's own journal path (if any), a path overrides it, None or
     False keeps none.  ``budget`` overrides the problem's.  The progress bar goes to standard
@@ -116,6 +119,8 @@ def solve(
     many = problem.search.starts > 1
     if many:
         options.update(starts=spec.starts, seed=spec.seed)
+        if executor is not None:
+            options["executor"] = executor
         if spec.workers > 1:
             options["workers"] = spec.workers
         options["budget"] = budget
@@ -126,7 +131,7 @@ def solve(
         bar_total = budget or 1000 * (len(problem.parameters) + 1)
     wrapped = objective
     bar = None
-    if not (many and spec.workers > 1):
+    if not (many and (spec.workers > 1 or executor is not None)):
         bar = Progress(objective, budget=bar_total, kind=problem.objective.kind,
                        enabled=False if quiet else None)
         wrapped = bar

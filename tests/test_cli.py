@@ -329,3 +329,20 @@ def test_many_starts_list_the_minima_and_draw_the_start_map(tmp_path, bowl):
     assert png_size(tmp_path / "pics" / "starts.png")[0] >= 600
     shown = directional("show", str(tmp_path / "runs" / "bowl.sqlite"), cwd=tmp_path)
     assert shown.returncode == 0 and "distinct minimum" in shown.stdout
+
+
+def test_many_starts_on_a_dask_scheduler(tmp_path, bowl):
+    # A local Dask cluster stands in for a remote one: the CLI only sees its address.
+    import distributed  # in the test extra
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster:
+        done = directional("run", str(bowl), "--starts", "3", "--dask", cluster.scheduler_address,
+                           "--no-journal", cwd=tmp_path)
+    assert done.returncode == 0, done.stdout + done.stderr
+    assert "3 starts reached 1 distinct minimum" in done.stdout
+
+
+def test_dask_with_one_start_is_bad_input(tmp_path, bowl):
+    done = directional("run", str(bowl), "--dask", "tcp://127.0.0.1:1", cwd=tmp_path)
+    assert done.returncode == 2
+    assert "--starts" in done.stderr
