@@ -70,6 +70,7 @@ kind = "residuals"
 
 [search]
 budget = 1500
+noise = "estimate"   # the ODE solver's error is noise at the scale of the Hessian's steps
 
 [journal]
 path = "journal.sqlite"

@@ -32,6 +32,7 @@ The schema (every table but ``[[parameter]]`` and ``[objective]`` is optional)::
     value_tolerance = 1e-10
     time_limit = 3600             # seconds
     check = true                  # the curvature check at the end
+    noise = "estimate"            # the objective's noise level: a number, or "estimate" (default: none)
     starts = 1                    # more than 1: many starts (dl.explore)
     workers = 1                   # processes for many starts
     seed = 0                      # of the start design
@@ -74,6 +75,7 @@ _SEARCH = (
     "value_tolerance",
     "time_limit",
     "check",
+    "noise",
     "starts",
     "workers",
     "seed",
@@ -170,6 +172,7 @@ class SearchSpec:
     value_tolerance: float = 1e-10
     time_limit: float | None = None
     check: bool | str = True
+    noise: float | str | None = None
     starts: int = 1
     workers: int = 1
     seed: int = 0
@@ -596,6 +599,13 @@ class _Reader:
                 raise self.fail((*at, key), f"search.{key} must be at least 1, got {value!r}")
         if seed < 0:
             raise self.fail((*at, "seed"), f"search.seed must be >= 0, got {seed!r}")
+        noise = self._get(table, (*at, "noise"), (float, str), None)
+        if isinstance(noise, str) and noise != "estimate":
+            raise self.fail(
+                (*at, "noise"), f"search.noise must be a number or \"estimate\", got {noise!r}"
+            )
+        if isinstance(noise, float) and not (0 <= noise < math.inf):
+            raise self.fail((*at, "noise"), f"search.noise must be a number >= 0, got {noise!r}")
         if isinstance(check, str) and check != "quick":
             raise self.fail(
                 (*at, "check"), f"search.check must be true, false or \"quick\", got {check!r}"
@@ -604,6 +614,7 @@ class _Reader:
             budget=budget,
             time_limit=time_limit,
             check=check,
+            noise=noise,
             seed=seed,
             **tolerances,
             **counts,

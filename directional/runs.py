@@ -114,6 +114,8 @@ def solve(
         "time_limit": spec.time_limit,
         "check": spec.check,
     }
+    if spec.noise is not None:
+        options["noise"] = spec.noise
     if path is not None:
         options["journal"] = journals.Target(path, {PROBLEM_KEY: str(problem.source or "")})
     many = problem.search.starts > 1
