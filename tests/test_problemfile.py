@@ -275,6 +275,7 @@ def test_a_budget_below_n_plus_one_is_refused(tmp_path):
 def test_noise_is_a_level_or_estimate(tmp_path):
     read = Problem.from_file(write(tmp_path, GOOD.replace("check = false", 'noise = "estimate"')))
     assert read.search.noise == "estimate"
-    assert Problem.from_file(write(tmp_path, GOOD.replace("check = false", "noise = 0.01"))).search.noise == 0.01
+    level = Problem.from_file(write(tmp_path, GOOD.replace("check = false", "noise = 0.01")))
+    assert level.search.noise == 0.01
     message = error_of(tmp_path, GOOD.replace("check = false", 'noise = "loud"'))
     assert "search.noise" in message and line_of(message) == 24
