@@ -255,7 +255,7 @@ class Journal:
                 session = _begin_session(connection, budget)
                 connection.execute(f"PRAGMA synchronous={'FULL' if sync == 'full' else 'NORMAL'}")
         except BaseException:
-            with _held_interrupts():
+            with _HeldInterrupts():
                 if connection is not None:
                     connection.close()
                 lock.release()
@@ -342,7 +342,7 @@ class Journal:
         if error is not None:
             stop = stop or ("interrupted" if isinstance(error, KeyboardInterrupt) else "error")
             reason = reason or f"{type(error).__name__}: {error}"[:2000]
-        with _held_interrupts():  # a second Ctrl-C must not leave the file open, the lock held
+        with _HeldInterrupts():  # a second Ctrl-C must not leave the file open, the lock held
             try:  # closing checkpoints the log into the file, with an fsync of both: all durable
                 self._connection.execute(
                     "UPDATE session SET closed = ?, replayed = ?, evaluated = ?, stop = ?, "
@@ -562,27 +562,33 @@ def _use_wal(connection: sqlite3.Connection, path: Path) -> None:
         )
 
 
-@contextlib.contextmanager
-def _held_interrupts() -> Iterator[None]:
+class _HeldInterrupts:
     """Hold a Ctrl-C back while the journal closes; raise it as `KeyboardInterrupt` afterwards.
 
     Only in the main thread with Python's default SIGINT handler (elsewhere a Ctrl-C is not
-    raised here anyway, or belongs to a handler that is not ours to replace).
+    raised here anyway, or belongs to a handler that is not ours to replace).  A plain class, so
+    that the moment before the hold starts, when a Ctrl-C still interrupts, is as short as can be.
     """
-    if (
-        threading.current_thread() is not threading.main_thread()
-        or signal.getsignal(signal.SIGINT) is not signal.default_int_handler
-    ):
-        yield
-        return
-    caught: list[int] = []
-    previous = signal.signal(signal.SIGINT, lambda signum, frame: caught.append(signum))
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGINT, previous)
-    if caught:
-        raise KeyboardInterrupt
+
+    __slots__ = ("caught", "previous")
+
+    def __enter__(self) -> None:
+        self.caught: list[int] = []
+        self.previous: object = None
+        if (
+            signal.getsignal(signal.SIGINT) is signal.default_int_handler
+            and threading.current_thread() is threading.main_thread()
+        ):
+            self.previous = signal.signal(signal.SIGINT, self._note)
+
+    def _note(self, signum: int, frame: object) -> None:
+        self.caught.append(signum)
+
+    def __exit__(self, kind: object, error: object, trace: object) -> None:
+        if self.previous is not None:
+            signal.signal(signal.SIGINT, self.previous)  # type: ignore[arg-type]
+        if self.caught and error is None:
+            raise KeyboardInterrupt
 
 
 # SQLite's primary result codes for a file that cannot be written (https://sqlite.org/rescode.html)

@@ -98,3 +98,9 @@ class Lock:
             os.unlink(self.path)
         os.close(self._descriptor)
         self._descriptor = None
+
+    def __del__(self) -> None:
+        # A journal dropped unclosed (a second Ctrl-C in the instant its closing began) must not
+        # keep the lock for the rest of a long-lived process.
+        with contextlib.suppress(Exception):
+            self.release()

@@ -143,9 +143,11 @@ def test_ctrl_c_twice_ends_the_run_promptly_and_loses_nothing(tmp_path, referenc
     os.kill(child.pid, signal.SIGINT)
     child.join(30)
     assert child.exitcode is not None, "the run did not end after two Ctrl-C"
-    assert not Path(f"{path}.lock").exists()  # closed cleanly: the lock is released
-    assert jr.read(path).sessions[-1]["stop"] == "interrupted"
-    recover(path, reference)
+    # Resuming opens the journal (so no lock is held) and gives the uninterrupted run.  Whether
+    # the session row says "interrupted" depends on where the second Ctrl-C landed: in the few
+    # instructions before the journal starts closing it still interrupts (the closing itself is
+    # shielded: tests/test_hardening_journal.py).
+    assert recover(path, reference) < reference.evaluations
     capsys.readouterr()
 
 

@@ -11,6 +11,7 @@ objective is Rosenbrock's function (Moré, Garbow & Hillstrom 1981, problem 1: m
 from __future__ import annotations
 
 import ast
+import gc
 import multiprocessing
 import os
 import resource
@@ -218,6 +219,18 @@ def test_a_second_ctrl_c_while_the_journal_closes_still_releases_the_lock(tmp_pa
         journal.close()
     assert not Path(f"{path}.lock").exists()
     with jr.Journal.open(path, identity):  # not "in use by another run (process <this one>)"
+        pass
+
+
+def test_a_journal_dropped_without_closing_frees_its_lock_when_collected(tmp_path):
+    # What is left of a second Ctrl-C that lands in the instant before the closing is shielded.
+    path = tmp_path / "run.sqlite"
+    journal = jr.Journal.open(path, HELD)
+    with pytest.raises(dl.JournalError, match="in use"):
+        jr.Journal.open(path, HELD)
+    del journal
+    gc.collect()
+    with jr.Journal.open(path, HELD):
         pass
 
 
