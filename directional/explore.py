@@ -96,7 +96,12 @@ def design(space: Space, starts: int, seed: object = 0, *, include_start: bool =
 
 def _sobol(n: int, count: int, seed: object) -> np.ndarray:
     """The first ``count`` points of a scrambled Sobol sequence in [0, 1)^n."""
-    rng = np.random.default_rng(seed)  # type: ignore[arg-type]
+    try:
+        rng = np.random.default_rng(seed)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        raise ProblemError(
+            f"seed must be None, a whole number >= 0 or a numpy Generator, got {seed!r}"
+        ) from None
     try:
         engine = qmc.Sobol(d=n, scramble=True, rng=rng)
     except TypeError:  # scipy before 1.15 calls it seed

@@ -379,3 +379,12 @@ def test_residuals_that_are_not_a_flat_array_are_an_objective_error(bad, words):
 def test_residuals_that_change_length_are_an_objective_error():
     with pytest.raises(dl.ObjectiveError, match="had 2 entries and now have 3"):
         dl.calibrate(lambda k: np.ones(2 if k[0] == 1.0 else 3), [1.0, 1.0], check=False)
+
+
+@pytest.mark.parametrize("seed", ["a", -1, 1.5])
+def test_a_bad_seed_of_explore_is_a_problem_error(seed):
+    # Was a TypeError from numpy's SeedSequence.
+    objective = Counting(lambda x: float(x[0] ** 2))
+    with pytest.raises(dl.ProblemError, match="seed must be None, a whole number"):
+        dl.explore(objective, [(0, 1)], starts=2, seed=seed, check=False)
+    assert objective.calls == 0
