@@ -39,17 +39,15 @@ or the journal's bookkeeping.
 from __future__ import annotations
 
 import math
-import signal
-import threading
 import time
 import traceback
 from collections.abc import Callable, Generator, Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from types import FrameType
 
 import numpy as np
 
 from .errors import JournalError, ObjectiveError
+from .interrupts import Interrupts
 from .records import Batch, Halt, Outcome, Stop
 
 Objective = Callable[[np.ndarray], object]
@@ -153,7 +151,7 @@ class Driver:
     _sequence: dict[int, int] = field(default_factory=dict)
     _failures_in_a_row: int = 0
     _clock_start: float = field(default_factory=time.monotonic)
-    _interrupts: _Interrupts = field(default_factory=lambda: _Interrupts())
+    _interrupts: Interrupts = field(default_factory=Interrupts)
 
     @property
     def spent(self) -> int:
@@ -243,13 +241,11 @@ class Driver:
     def _live(self, x: np.ndarray, purpose: str, search: int, sequence: int) -> Evaluation:
         started = time.time()
         tick = time.perf_counter()
-        self._interrupts.inside = True
         try:
-            value, status, detail = call(self.objective, x)
+            with self._interrupts.raising():
+                value, status, detail = call(self.objective, x)
         except KeyboardInterrupt:
             value, status, detail = math.inf, "interrupted", "interrupted by the user"
-        finally:
-            self._interrupts.inside = False
         if status != "ok" and self._interrupts.pending:  # failed because of the Ctrl-C
             value, status = math.inf, "interrupted"
         evaluation = Evaluation(
@@ -287,37 +283,6 @@ def _replayed(stored: Evaluation, x: np.ndarray, purpose: str, index: int) -> Ev
             "another version of directional"
         )
     return replace(stored, index=index, point=x.copy(), purpose=purpose or stored.purpose)
-
-
-class _Interrupts:
-    """Ctrl-C during `Driver.run`: raised inside the objective, noted anywhere else."""
-
-    def __init__(self) -> None:
-        self.pending = False  # a Ctrl-C arrived: halt before the next evaluation
-        self.inside = False  # the objective is running: raise KeyboardInterrupt in it
-        self._previous: object = None
-        self._depth = 0
-
-    def __enter__(self) -> _Interrupts:
-        self._depth += 1
-        if (
-            self._depth == 1
-            and threading.current_thread() is threading.main_thread()
-            and signal.getsignal(signal.SIGINT) is signal.default_int_handler
-        ):
-            self._previous = signal.signal(signal.SIGINT, self._handle)
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self._depth -= 1
-        if self._depth == 0 and self._previous is not None:
-            signal.signal(signal.SIGINT, self._previous)  # type: ignore[arg-type]
-            self._previous = None
-
-    def _handle(self, signum: int, frame: FrameType | None) -> None:
-        self.pending = True
-        if self.inside:
-            raise KeyboardInterrupt
 
 
 def _halt(search: Generator[Batch, np.ndarray, Outcome], halt: Halt) -> Outcome:

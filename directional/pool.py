@@ -33,22 +33,19 @@ from __future__ import annotations
 
 import collections
 import concurrent.futures as cf
-import contextlib
 import math
 import pickle
-import signal
-import threading
 import time
 import traceback
-from collections.abc import Callable, Iterable, Iterator, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
-from types import FrameType
 
 import numpy as np
 
 from .driver import Evaluation, Log, Objective, call
 from .errors import JournalError, ObjectiveError, ProblemError
+from .interrupts import Interrupts
 from .records import Batch, Halt, Outcome, Stop
 from .search import Search
 
@@ -98,50 +95,6 @@ def check_picklable(objective: Objective) -> None:
             f"objective must be picklable to run on a process pool (define it at the top level "
             f"of a module, not as a lambda or nested function); {objective!r}: {error}"
         ) from None
-
-
-class _Interrupts:
-    """Ctrl-C during `Runner.run`: raised while waiting on the executor or while the objective
-    runs in process, only noted at any other moment, so that the bookkeeping and the journal are
-    never cut in half; the run then halts before the next evaluation."""
-
-    def __init__(self) -> None:
-        self.pending = False
-        self._inside = False
-        self._previous: object = None
-        self._depth = 0
-
-    def __enter__(self) -> _Interrupts:
-        self._depth += 1
-        if (
-            self._depth == 1
-            and threading.current_thread() is threading.main_thread()
-            and signal.getsignal(signal.SIGINT) is signal.default_int_handler
-        ):
-            self._previous = signal.signal(signal.SIGINT, self._handle)
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self._depth -= 1
-        if self._depth == 0 and self._previous is not None:
-            signal.signal(signal.SIGINT, self._previous)  # type: ignore[arg-type]
-            self._previous = None
-
-    @contextlib.contextmanager
-    def raising(self) -> Iterator[None]:
-        """A stretch where Ctrl-C raises `KeyboardInterrupt` at once."""
-        if self.pending:
-            raise KeyboardInterrupt
-        self._inside = True
-        try:
-            yield
-        finally:
-            self._inside = False
-
-    def _handle(self, signum: int, frame: FrameType | None) -> None:
-        self.pending = True
-        if self._inside:
-            raise KeyboardInterrupt
 
 
 @dataclass(slots=True, kw_only=True)
@@ -200,7 +153,7 @@ class Runner:
     log: Log = field(default_factory=Log)
     replayed: int = 0
     interrupted: bool = False
-    _interrupts: _Interrupts = field(default_factory=lambda: _Interrupts())
+    _interrupts: Interrupts = field(default_factory=Interrupts)
     _cache: dict[bytes, float] = field(default_factory=dict)
     _journal: dict[int, dict[bytes, int]] = field(default_factory=dict)  # search -> point -> seq
     _tasks: dict[int, _Task] = field(default_factory=dict)
