@@ -91,7 +91,13 @@ def test_no_evaluation_outside_the_bounds_and_no_error_but_a_failing_start(probl
     else:
         assert not objective.failing(start)
         assert inside(parameters, sol.point) and math.isfinite(sol.value)
-        assert sol.value == min(e.value for e in sol.history if e.status == "ok")
+        lowest = min(e.value for e in sol.history if e.status == "ok")
+        # The point is the one the check's verdict is about; a stencil point of the check that
+        # came out lower (a point not quite converged) is named in a note, not returned.
+        assert sol.value == lowest or any(
+            n.startswith(f"an evaluation of the check came out lower, f = {lowest:.10g}")
+            for n in sol.notes
+        )
         assert all(e.value == math.inf for e in sol.history if e.status != "ok")
         event("some evaluations failed" if sol.failures else "no evaluation failed")
     assert objective.seen and all(inside(parameters, x) for x in objective.seen)
