@@ -2,10 +2,16 @@
 
 from __future__ import annotations
 
+import signal
 import tomllib
 from pathlib import Path
 
 import pytest
+
+# A test run started in the background inherits SIGINT ignored, and Python then installs no handler
+# of its own; the Ctrl-C tests (and the processes they start) need the ordinary one.
+if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
+    signal.signal(signal.SIGINT, signal.default_int_handler)
 
 REFERENCE = Path(__file__).resolve().parents[1].parent / "shared" / "reference"
 
