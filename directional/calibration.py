@@ -39,7 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from .curvature import check_method, combination, escape_count, labels, settle, settled_solution
+from .curvature import combination, labels, settle, settled_solution
 from .driver import Driver
 from .errors import ProblemError
 from .journal import journal_for, run_identity
@@ -50,12 +50,12 @@ from .leastsquares import (
     extrapolated_jacobian,
     levenberg_marquardt,
 )
-from .minimization import _budget, _settings, _solution
-from .noise import floored, noise_level, noise_option
+from .minimization import _solution, checked_arguments
+from .noise import floored, noise_level
 from .records import Batch, Halt, Outcome, Stop
 from .search import Settings, powell
 from .solution import Solution
-from .space import Space, build_space
+from .space import Space
 
 EPSILON = float(np.finfo(float).eps)
 STRONG = 0.95  # correlations beyond this are named in a warning
@@ -230,17 +230,10 @@ def calibrate(
     ObjectiveError
         When the start fails, or the residuals are not a flat array of numbers of a fixed length.
     """
-    if not callable(residuals):
-        raise ProblemError(f"residuals must be callable, got {residuals!r}")
-    space = build_space(start, bounds, names)
-    settings = _settings(point_tolerance, value_tolerance)
-    budget = _budget(budget, space.size)
-    if time_limit is not None and (
-        isinstance(time_limit, bool)
-        or not (isinstance(time_limit, int | float) and time_limit > 0)
-    ):
-        raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
-    method, escapes, noise = check_method(check), escape_count(escapes), noise_option(noise)
+    space, settings, budget, method, escapes, noise = checked_arguments(
+        "residuals", residuals, start, bounds, names, budget, point_tolerance, value_tolerance,
+        time_limit, check, escapes, noise,
+    )
     deviations = _sigma(sigma)
     identity = run_identity(
         "calibrate", space.parameters, settings,

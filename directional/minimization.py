@@ -109,17 +109,10 @@ def minimize(
     JournalError
         When ``journal`` is not a journal, is damaged, is in use, or belongs to another problem.
     """
-    if not callable(objective):
-        raise ProblemError(f"objective must be callable, got {objective!r}")
-    space = build_space(start, bounds, names)
-    settings = _settings(point_tolerance, value_tolerance)
-    budget = _budget(budget, space.size)
-    if time_limit is not None and (
-        isinstance(time_limit, bool)
-        or not (isinstance(time_limit, int | float) and time_limit > 0)
-    ):
-        raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
-    method, escapes, noise = check_method(check), escape_count(escapes), noise_option(noise)
+    space, settings, budget, method, escapes, noise = checked_arguments(
+        "objective", objective, start, bounds, names, budget, point_tolerance, value_tolerance,
+        time_limit, check, escapes, noise,
+    )
     identity = run_identity(
         "minimize", space.parameters, settings,
         point_tolerance=point_tolerance, value_tolerance=value_tolerance, check=check,
@@ -169,6 +162,43 @@ def _driver(
     finally:
         if isinstance(objective, Progress):
             objective.close()
+
+
+def checked_arguments(
+    role: str,
+    function: object,
+    start: object,
+    bounds: object,
+    names: Sequence[str] | None,
+    budget: int | None,
+    point_tolerance: float,
+    value_tolerance: float,
+    time_limit: float | None,
+    check: bool | str,
+    escapes: int,
+    noise: float | str | None,
+) -> tuple[Space, Settings, int, str, int, float | str | None]:
+    """The arguments `minimize` and `calibrate` share, validated before any evaluation.
+
+    Returns the space, the search settings, the budget, the check method, the escape count and
+    the noise option.
+
+    Raises
+    ------
+    ProblemError
+        Naming the argument (``role`` names the function: "objective" or "residuals").
+    """
+    if not callable(function):
+        raise ProblemError(f"{role} must be callable, got {function!r}")
+    space = build_space(start, bounds, names)
+    settings = _settings(point_tolerance, value_tolerance)
+    budget = _budget(budget, space.size)
+    if time_limit is not None and (
+        isinstance(time_limit, bool)
+        or not (isinstance(time_limit, int | float) and time_limit > 0)
+    ):
+        raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
+    return space, settings, budget, check_method(check), escape_count(escapes), noise_option(noise)
 
 
 def _settings(point_tolerance: float, value_tolerance: float) -> Settings:
