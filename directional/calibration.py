@@ -30,6 +30,7 @@ References
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import math
 import warnings
@@ -52,6 +53,7 @@ from .leastsquares import (
 )
 from .minimization import _solution, checked_arguments
 from .noise import floored, noise_level
+from .progress import Progress
 from .records import Batch, Halt, Outcome, Stop
 from .search import Settings, powell
 from .solution import Solution
@@ -221,7 +223,8 @@ def calibrate(
         The covariance is still scaled by s² = S / (m - p), which is near 1 when they are right.
 
     The other arguments are those of `directional.minimize`; ``budget`` counts every evaluation
-    (search, Levenberg–Marquardt, check and Jacobian).
+    (search, Levenberg–Marquardt, check and Jacobian).  A calibration runs its evaluations in
+    process: ``executor`` must stay None (many starts on an executor: `directional.explore`).
 
     Raises
     ------
@@ -240,9 +243,19 @@ def calibrate(
         point_tolerance=point_tolerance, value_tolerance=value_tolerance, check=check,
         escapes=escapes, noise=noise, sigma=None if deviations is None else deviations.tolist(),
     )
+    if executor is not None:
+        raise ProblemError(
+            "calibrate evaluates in process: executor must be None (many starts on an executor: "
+            "directional.explore)"
+        )
     squares = SumOfSquares(residuals, deviations)
-    with journal_for(journal, identity, budget=budget) as book:
-        driver = Driver(objective=squares, budget=budget, time_limit=time_limit, **book.hooks())
+    watched = Progress(squares, budget=budget, enabled=None) if progress else None
+    with journal_for(journal, identity, budget=budget) as book, (
+        contextlib.closing(watched) if watched else contextlib.nullcontext()
+    ):
+        driver = Driver(
+            objective=watched or squares, budget=budget, time_limit=time_limit, **book.hooks()
+        )
         level, noted = noise_level(driver, space, noise)
         settings = floored(settings, level)
         outcome = _search(

@@ -51,3 +51,17 @@ def test_a_progress_bar_changes_nothing(capsys):
 def test_an_executor_that_is_not_one_is_a_problem_error():
     with pytest.raises(dl.ProblemError, match="executor"):
         dl.minimize(rosenbrock, [-1.2, 1.0], executor="pool")
+
+
+def test_calibrate_shows_progress_and_refuses_an_executor():
+    # y = 3 exp(-0.7 t) exactly: the fit is (3, 0.7) (analytic, zero residuals).
+    t = np.linspace(0.0, 5.0, 12)
+    y = 3.0 * np.exp(-0.7 * t)
+
+    def residuals(x):
+        return x[0] * np.exp(-x[1] * t) - y
+
+    sol = dl.calibrate(residuals, [1.0, 0.2], progress=True)
+    assert sol.point == pytest.approx([3.0, 0.7], abs=1e-6)
+    with pytest.raises(dl.ProblemError, match="executor"):
+        dl.calibrate(residuals, [1.0, 0.2], executor=cf.ThreadPoolExecutor(1))
