@@ -26,6 +26,7 @@ from matplotlib.figure import Figure
 
 from .errors import ProblemError
 from .explore import Landscape
+from .plots import contour_levels
 
 DPI = 120
 STYLE = {"font.size": 11, "axes.titlesize": 12, "legend.fontsize": 9, "axes.grid": False}
@@ -157,26 +158,8 @@ def _value(objective: Callable[[np.ndarray], Any], point: np.ndarray, kind: str)
     return value if math.isfinite(value) else math.nan
 
 
-def _levels(values: np.ndarray, floor: float = 0.02) -> np.ndarray | None:
-    """Levels spaced geometrically above the lowest value, so valleys and slopes both show.
-
-    The first level above the lowest is the ``floor`` quantile of the rise above it.
-    """
-    finite = values[np.isfinite(values)]
-    if finite.size < 4:
-        return None
-    low, high = float(finite.min()), float(finite.max())
-    if not high > low:
-        return None
-    rise = finite - low
-    smallest = max(float(np.quantile(rise[rise > 0], floor)), (high - low) * 1e-9)
-    levels = low + np.concatenate(([0.0], np.geomspace(smallest, high - low, 14)))
-    levels[-1] = high
-    return np.unique(levels)
-
-
 def _contours(fig: Figure, ax: Any, gx: np.ndarray, gy: np.ndarray, values: np.ndarray) -> None:
-    levels = _levels(values)
+    levels = contour_levels(values)
     if levels is None:
         return
     from matplotlib.colors import BoundaryNorm
@@ -203,7 +186,7 @@ def _scattered(
     x, y = points[:, i], points[:, j]
     tx, ty = (np.log(x) if log[0] else x), (np.log(y) if log[1] else y)
     _, keep = np.unique(np.round(np.column_stack([tx, ty]), 12), axis=0, return_index=True)
-    levels = _levels(values[keep], floor=0.3)  # most evaluations sit near the minima
+    levels = contour_levels(values[keep], floor=0.3)  # most evaluations sit near the minima
     if levels is None or keep.size < 4:
         return False
     try:

@@ -574,7 +574,7 @@ def _scattered(fig: Figure, ax: Any, sol: Solution, kind: str) -> bool:
         triangles = Triangulation(points[:, 0], points[:, 1])
     except (ValueError, RuntimeError):  # collinear or too few distinct points
         return False
-    levels = _levels(values)
+    levels = contour_levels(values)
     if levels is None:
         return False
     from matplotlib.colors import BoundaryNorm
@@ -586,19 +586,23 @@ def _scattered(fig: Figure, ax: Any, sol: Solution, kind: str) -> bool:
     return True
 
 
-def _levels(finite: np.ndarray) -> np.ndarray | None:
-    """Levels spaced geometrically above the lowest value, so valley and slopes both show."""
-    finite = finite[np.isfinite(finite)]
+def contour_levels(values: np.ndarray, floor: float = 0.02) -> np.ndarray | None:
+    """Levels spaced geometrically above the lowest value, so valleys and slopes both show.
+
+    The first level above the lowest is the ``floor`` quantile of the rise above it.  None when
+    fewer than four values are finite or they are all equal.
+    """
+    finite = values[np.isfinite(values)]
     if finite.size < 4:
         return None
     low, high = float(finite.min()), float(finite.max())
     if not high > low:
         return None
     rise = finite - low
-    smallest = max(float(np.quantile(rise[rise > 0], 0.02)), (high - low) * 1e-6)
+    smallest = max(float(np.quantile(rise[rise > 0], floor)), (high - low) * 1e-9)
     levels = low + np.concatenate(([0.0], np.geomspace(smallest, high - low, 14)))
     levels[-1] = high
-    return levels
+    return np.unique(levels)
 
 
 def _figure_legend(fig: Figure) -> None:
@@ -617,7 +621,7 @@ def _contours(fig: Figure, ax: Any, gx: np.ndarray, gy: np.ndarray, grid: np.nda
 
     The valley and the slopes then both show, whatever the range of the values.
     """
-    levels = _levels(grid.ravel())
+    levels = contour_levels(grid.ravel())
     if levels is None:
         return
     from matplotlib.colors import BoundaryNorm
