@@ -224,8 +224,10 @@ def quick_hessian(
             rows.append(v)
     values = yield Batch(points=_embed(space, u0, free, np.array(rows)), purpose="hessian")
     known = {row.tobytes(): float(value) for row, value in zip(rows, values)}
-    f0 = values[0]
     hessian = np.zeros((k, k))
+    if not np.all(np.isfinite(values)):
+        return _checked_measure(hessian, np.zeros((k, k)), steps, known)  # names the failures
+    f0 = values[0]
     for i in range(k):
         hessian[i, i] = (values[1 + 2 * i] - 2.0 * f0 + values[2 + 2 * i]) / steps[i] ** 2
     for n, (i, j) in enumerate(pairs):
