@@ -267,11 +267,14 @@ def test_cluster_groups_do_not_depend_on_input_order(xs, rnd):
 # ------------------------------------------------------------------------------ executors
 
 
-class Shuffled(cf.Executor):
-    """A test double: runs calls on one thread, picking at random among those waiting."""
+class Holding(cf.Executor):
+    """A test double: one thread runs the calls, taking them in batches of its own choosing.
 
-    def __init__(self, seed: int, gather: int) -> None:
-        self._rng = random.Random(seed)
+    It waits until ``gather`` calls are waiting (or a moment passed), then `_take` picks the calls
+    to run now and `_run` runs them; `_run` returning False ends the thread.
+    """
+
+    def __init__(self, gather: int) -> None:
         self._gather = gather
         self._waiting: list = []
         self._cv = threading.Condition()
@@ -293,14 +296,35 @@ class Shuffled(cf.Executor):
                 if self._closed:
                     return
                 self._cv.wait_for(lambda: len(self._waiting) >= self._gather, timeout=0.002)
-                future, fn, args = self._waiting.pop(self._rng.randrange(len(self._waiting)))
+                jobs = self._take()
+            if not self._run(jobs):
+                return
+
+    def _take(self) -> list:
+        jobs, self._waiting = self._waiting, []
+        return jobs
+
+    def _run(self, jobs: list) -> bool:
+        for future, fn, args in jobs:
             future.set_result(fn(*args))
+        return True
 
     def shutdown(self, wait=True, *, cancel_futures=False):
         with self._cv:
             self._closed = True
             self._cv.notify()
         self._thread.join()
+
+
+class Shuffled(Holding):
+    """Runs one call at a time, picked at random among those waiting."""
+
+    def __init__(self, seed: int, gather: int) -> None:
+        self._rng = random.Random(seed)
+        super().__init__(gather)
+
+    def _take(self) -> list:
+        return [self._waiting.pop(self._rng.randrange(len(self._waiting)))]
 
 
 @pytest.mark.parametrize(("seed", "budget"), [(1, 500), (2, 500), (3, 25)])
@@ -394,7 +418,7 @@ def test_a_killed_worker_fails_its_evaluation_not_the_run():
         assert m.value < 1e-10
 
 
-class Breaks(cf.Executor):
+class Breaks(Holding):
     """A test double for a process pool that a worker death breaks.
 
     Holds calls until two are waiting (or a moment passed); if one of them is at ``poison``, every
@@ -403,44 +427,27 @@ class Breaks(cf.Executor):
 
     def __init__(self, poison: np.ndarray, made: list) -> None:
         self._poison = poison.tobytes()
-        self._waiting: list = []
-        self._cv = threading.Condition()
         self.broken = False
-        self._closed = False
         made.append(self)
-        threading.Thread(target=self._loop, daemon=True).start()
+        super().__init__(2)
 
     def submit(self, fn, /, *args, **kwargs):
         if self.broken:
             raise BrokenProcessPool("broken")
-        future: cf.Future = cf.Future()
-        with self._cv:
-            self._waiting.append((future, fn, args))
-            self._cv.notify()
-        return future
+        return super().submit(fn, *args, **kwargs)
 
-    def _loop(self) -> None:
-        while True:
-            with self._cv:
-                self._cv.wait_for(lambda: self._waiting or self._closed)
-                if self._closed:
-                    return
-                self._cv.wait_for(lambda: len(self._waiting) >= 2, timeout=0.002)
-                jobs, self._waiting = self._waiting, []
-                if any(args[1].tobytes() == self._poison for _, _, args in jobs):
-                    self.broken = True
-            for future, fn, args in jobs:
-                if self.broken:
-                    future.set_exception(BrokenProcessPool("a worker died"))
-                else:
-                    future.set_result(fn(*args))
-            if self.broken:
-                return
+    def _take(self) -> list:
+        jobs = super()._take()
+        if any(args[1].tobytes() == self._poison for _, _, args in jobs):
+            self.broken = True
+        return jobs
 
-    def shutdown(self, wait=True, *, cancel_futures=False):
-        with self._cv:
-            self._closed = True
-            self._cv.notify()
+    def _run(self, jobs: list) -> bool:
+        if not self.broken:
+            return super()._run(jobs)
+        for future, _, _ in jobs:
+            future.set_exception(BrokenProcessPool("a worker died"))
+        return False
 
 
 def test_a_broken_pool_is_replaced_and_only_the_killing_point_fails():
