@@ -54,6 +54,7 @@ from scipy.integrate import solve_ivp
 
 from ..errors import ProblemError
 from ..parameters import Parameter
+from . import named_values
 
 NAMES = ("mu_max", "Ks", "Y", "kd")
 X0 = 0.2  # g/L, inoculum
@@ -104,21 +105,7 @@ class Data:
 
 def _constants(params: Sequence[float] | Mapping[str, float] | np.ndarray) -> tuple[float, ...]:
     """Return ``(mu_max, Ks, Y, kd)`` as floats, checked."""
-    if isinstance(params, Mapping):
-        missing = [name for name in NAMES if name not in params]
-        if missing:
-            raise ProblemError(f"bioreactor parameters: missing {missing!r}")
-        values = [params[name] for name in NAMES]
-    else:
-        values = list(np.asarray(params, dtype=float).ravel())
-        if len(values) != len(NAMES):
-            raise ProblemError(
-                f"bioreactor parameters: expected {len(NAMES)} values {NAMES!r}, got {len(values)}"
-            )
-    out = tuple(float(v) for v in values)
-    for name, value in zip(NAMES, out, strict=True):
-        if not math.isfinite(value):
-            raise ProblemError(f"bioreactor parameter {name!r} must be finite, got {value!r}")
+    out = named_values(params, NAMES, "bioreactor parameters")
     mu_max, ks, y, kd = out
     if mu_max < 0 or kd < 0:
         raise ProblemError(f"bioreactor rates must be >= 0, got mu_max={mu_max!r}, kd={kd!r}")

@@ -44,6 +44,7 @@ import numpy as np
 
 from ..errors import ProblemError
 from ..parameters import Parameter
+from . import named_values
 
 NAMES = ("Kp", "Ki")
 
@@ -116,19 +117,10 @@ PARAMETERS = [
 
 
 def _gains(params: Sequence[float] | Mapping[str, float] | np.ndarray) -> tuple[float, float]:
-    if isinstance(params, Mapping):
-        missing = [name for name in NAMES if name not in params]
-        if missing:
-            raise ProblemError(f"heater gains: missing {missing!r}")
-        values = [params[name] for name in NAMES]
-    else:
-        values = list(np.asarray(params, dtype=float).ravel())
-        if len(values) != len(NAMES):
-            raise ProblemError(f"heater gains: expected 2 values {NAMES!r}, got {len(values)}")
-    kp, ki = (float(v) for v in values)
+    kp, ki = named_values(params, NAMES, "heater gains")
     for name, value in zip(NAMES, (kp, ki), strict=True):
-        if not (math.isfinite(value) and value >= 0):
-            raise ProblemError(f"heater gain {name!r} must be >= 0 and finite, got {value!r}")
+        if value < 0:
+            raise ProblemError(f"heater gain {name!r} must be >= 0, got {value!r}")
     return kp, ki
 
 
