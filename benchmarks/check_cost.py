@@ -30,7 +30,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 import numpy as np  # noqa: E402
 
 import directional as dl  # noqa: E402
-from directional import curvature  # noqa: E402
+from directional.method import curvature  # noqa: E402
 from directional.testproblems import mgh  # noqa: E402
 
 

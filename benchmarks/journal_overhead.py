@@ -30,10 +30,10 @@ from pathlib import Path
 
 import numpy as np
 
-from directional.driver import Driver, Evaluation
-from directional.journal import Journal, run_identity
-from directional.search import Settings, powell
-from directional.space import build_space
+from directional.method.search import Settings, powell
+from directional.method.space import build_space
+from directional.run.driver import Driver, Evaluation
+from directional.run.journal import Journal, run_identity
 
 N = 10
 

@@ -4,17 +4,17 @@ Powell's conjugate directions with safeguarded parabolic line searches, for obje
 runs of somebody else's code: few evaluations, bounds respected, every evaluation kept.
 """
 
-from .calibration import calibrate
-from .errors import JournalError, ObjectiveError, ProblemError
-from .explore import Landscape, explore
-from .journal import resume
-from .linesearch import LineResult
-from .minimization import line_minimum, minimize
-from .noise import estimate_noise
-from .parameters import Parameter
-from .problemfile import Problem
-from .records import Curvature, Stop, Verdict
-from .solution import Solution
+from directional.api.calibration import calibrate
+from directional.api.explore import Landscape, explore
+from directional.api.minimization import line_minimum, minimize
+from directional.errors import JournalError, ObjectiveError, ProblemError
+from directional.interface.problemfile import Problem
+from directional.method.linesearch import LineResult
+from directional.method.noise import estimate_noise
+from directional.parameters import Parameter
+from directional.records import Curvature, Stop, Verdict
+from directional.run.journal import resume
+from directional.solution import Solution
 
 __version__ = "0.1.0"
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from .errors import ProblemError
+from directional.errors import ProblemError
 
 SCALES = ("linear", "log")
 

@@ -89,10 +89,10 @@ class Curvature:
     along conjugate directions, no extra evaluation), "quick" (central differences) or
     "extrapolated" (numdifftools' Richardson extrapolation).
 
-    Added by the curvature check (`directional.curvature`): ``names`` labels the rows (the
+    Added by the curvature check (`directional.method.curvature`): ``names`` labels the rows (the
     parameters not on a bound; ``log(name)`` for a log-scaled one); ``margin`` is the error bar
     of the smallest eigenvalue of the Hessian scaled to unit row maxima, the one the verdict
-    turns on (dimensionless, see `directional.curvature`); ``undetermined`` names the parameter
+    turns on (dimensionless, see `directional.method.curvature`); ``undetermined`` names the parameter
     combinations along those eigenvectors; ``evaluations`` is what the check cost; ``free`` holds
     the free estimate the check started from.
     """

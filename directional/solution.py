@@ -8,8 +8,8 @@ from typing import Any
 
 import numpy as np
 
-from .driver import Evaluation
-from .records import Curvature, Stop, Verdict
+from directional.records import Curvature, Stop, Verdict
+from directional.run.driver import Evaluation
 
 CAUTION = (
     "Caution: validate a calibrated model independently before any safety-relevant use, and defer "

@@ -90,8 +90,8 @@ def test_golden_section_shrinks_by_the_golden_ratio():
 
 def test_first_steps_match_the_search():
     # The baselines start with the same first step as directional's search: a tenth of the
-    # problem's size in each coordinate (directional.search.FIRST_STEP in scaled units).
-    from directional.search import FIRST_STEP
+    # problem's size in each coordinate (directional.method.search.FIRST_STEP in scaled units).
+    from directional.method.search import FIRST_STEP
 
     assert FIRST_STEP == 0.1
     assert baselines.first_steps(np.array([-1.2, 0.0])).tolist() == [0.12, 0.1]

@@ -20,7 +20,7 @@ from pathlib import Path
 
 import pytest
 
-from directional import journal as journals
+from directional.run import journal as journals
 
 SCRIPT = Path(sys.executable).with_name("directional")
 DIRECTIONAL = str(SCRIPT) if SCRIPT.exists() else shutil.which("directional")

@@ -1,4 +1,4 @@
-"""Tests of `directional.command`: an external program as the objective.
+"""Tests of `directional.interface.command`: an external program as the objective.
 
 The programs run here are our own cooling-rod script (`directional.testproblems.cooling_rod`,
 invented data) and a few one-line Python programs.  Checks are against what the operating system
@@ -24,8 +24,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from directional.command import Command, EvaluationFailed, _last_number
 from directional.errors import ProblemError
+from directional.interface.command import Command, EvaluationFailed, _last_number
 from directional.testproblems import cooling_rod
 
 ROD = str(Path(cooling_rod.__file__).resolve())

@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import directional as dl
-from directional.linesearch import line_search, parabola
+from directional.method.linesearch import line_search, parabola
 
 
 def drive(f, search):

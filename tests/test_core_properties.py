@@ -12,11 +12,11 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import directional as dl
+from directional.method.search import Settings, powell
+from directional.method.space import build_space
 from directional.records import Batch
-from directional.search import Settings, powell
-from directional.space import build_space
 
-PURE = ["search.py", "linesearch.py", "directions.py", "space.py", "records.py"]
+PURE = ["method/search.py", "method/linesearch.py", "method/directions.py", "method/space.py", "records.py"]
 FORBIDDEN = {"sqlite3", "concurrent", "time", "os", "subprocess", "socket", "threading", "random"}
 
 

@@ -14,11 +14,11 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import directional as dl
-from directional import curvature, hessian
-from directional.driver import Driver
+from directional.method import curvature, hessian
+from directional.method.search import Settings
+from directional.method.space import build_space
 from directional.records import Outcome, Stop, Verdict
-from directional.search import Settings
-from directional.space import build_space
+from directional.run.driver import Driver
 
 # --------------------------------------------------------------------------- helpers
 
@@ -40,7 +40,7 @@ def rotation(n: int, seed: int) -> np.ndarray:
 
 def check_at(f, centre, method="extrapolated", names=None, noise=None):
     """Run the paid check at ``centre`` through a driver; centre entries of size 1 make the
-    scaled coordinates equal the parameters (`directional.space`: scale = |start|)."""
+    scaled coordinates equal the parameters (`directional.method.space`: scale = |start|)."""
     space = build_space(list(centre), names=names)
     driver = Driver(objective=f, budget=10_000)
     u0 = np.zeros(space.size)

@@ -1,4 +1,4 @@
-"""Tests of `dl.explore` and the many-search runner (`directional.pool`).
+"""Tests of `dl.explore` and the many-search runner (`directional.run.pool`).
 
 The reference problem is Himmelblau's function (Himmelblau 1972, "Applied Nonlinear
 Programming", McGraw-Hill): f(x, y) = (x² + y − 11)² + (x + y² − 7)², with four minima where
@@ -30,12 +30,12 @@ from hypothesis import strategies as st
 from scipy.stats import qmc
 
 import directional as dl
-from directional import journal as journal_module
-from directional.driver import Evaluation
-from directional.explore import cluster, design
-from directional.pool import DIED, Runner, evaluate
-from directional.search import Settings, powell
-from directional.space import build_space
+from directional.api.explore import cluster, design
+from directional.method.search import Settings, powell
+from directional.method.space import build_space
+from directional.run import journal as journal_module
+from directional.run.driver import Evaluation
+from directional.run.pool import DIED, Runner, evaluate
 
 HIMMELBLAU_MINIMA = np.array(  # Himmelblau 1972; decimals from memory, checked below
     [
@@ -661,14 +661,14 @@ def test_an_unpicklable_objective_is_refused_for_a_process_pool():
 
 
 def test_start_map_is_drawn_from_the_evaluations_made_without_new_ones(tmp_path, sequential):
-    from directional.explore_plots import start_map
+    from directional.report.startmap import start_map
 
     path = start_map(sequential, None, tmp_path / "starts.png")
     assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
 def test_start_map_spends_at_most_extra_report_evaluations(tmp_path, sequential):
-    from directional.explore_plots import start_map
+    from directional.report.startmap import start_map
 
     calls = []
 
@@ -682,7 +682,7 @@ def test_start_map_spends_at_most_extra_report_evaluations(tmp_path, sequential)
 
 
 def test_start_map_of_log_parameters_and_bad_pairs(tmp_path):
-    from directional.explore_plots import start_map
+    from directional.report.startmap import start_map
 
     params = [
         dl.Parameter("rate", 1.0, 0.01, 100.0, scale="log"),

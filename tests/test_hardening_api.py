@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 import directional as dl
-from directional import journal as jr
+from directional.run import journal as jr
 
 
 def bowl(x: np.ndarray) -> float:

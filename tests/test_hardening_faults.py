@@ -25,7 +25,7 @@ import numpy as np
 import pytest
 
 import directional as dl
-from directional import journal as jr
+from directional.run import journal as jr
 
 START = [-3.0, -1.0, -3.0, -1.0]
 FORK = multiprocessing.get_context("fork")

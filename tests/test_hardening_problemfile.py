@@ -1,6 +1,6 @@
 """Hardening, problem files: each kind of broken file gets exit code 2 and a message naming it.
 
-Run through the command line's own entry point, in this process (`directional.cli.main`), as
+Run through the command line's own entry point, in this process (`directional.interface.cli.main`), as
 ``directional check`` / ``directional run`` would; the subprocess path of the console script is
 covered by tests/test_cli.py.  Items already checked in tests/test_problemfile.py are listed in
 tests/README.md, not repeated.  The objective is an analytic bowl (minimum at its centre).
@@ -16,8 +16,9 @@ from pathlib import Path
 import pytest
 
 import directional as dl
-from directional import cli
-from directional.problemfile import Problem
+from directional.interface import cli
+from directional.interface.problemfile import Problem
+from directional.run.journal import read as read_journal
 
 GOOD = textwrap.dedent(
     """\
@@ -129,7 +130,7 @@ def test_a_missing_journal_folder_is_made(folder, capsys):
     path.write_text(GOOD + '\n[journal]\npath = "no/such/folder/run.sqlite"\n', encoding="utf-8")
     code, out, _ = run_cli("run", str(path), "--quiet", capsys=capsys)
     assert code == cli.UNVERIFIED  # check = false: no verified minimum, but the run went through
-    assert len(dl.journal.read(folder / "no/such/folder/run.sqlite").evaluations) > 0
+    assert len(read_journal(folder / "no/such/folder/run.sqlite").evaluations) > 0
 
 
 def read_only_folder(folder: Path) -> Path:

@@ -19,7 +19,7 @@ from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 import directional as dl
-from directional import runs
+from directional.interface import runs
 
 FAILURES = ("raise", "nan", "inf")
 

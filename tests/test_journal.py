@@ -17,9 +17,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import directional as dl
-from directional import journal as jr
-from directional.driver import Driver, Evaluation
 from directional.records import Batch, Outcome, Stop
+from directional.run import journal as jr
+from directional.run.driver import Driver, Evaluation
 
 START = [-1.2, 1.0]
 

@@ -13,8 +13,8 @@ import sys
 import pytest
 
 import directional as dl
-from directional import journal as jr
-from directional.command import Command
+from directional.interface.command import Command
+from directional.run import journal as jr
 
 PROGRAM = """
 import sys, time

@@ -24,7 +24,7 @@ import numpy as np
 import pytest
 
 import directional as dl
-from directional import journal as jr
+from directional.run import journal as jr
 
 START = [-3.0, -1.0, -3.0, -1.0]
 ROOT = Path(__file__).resolve().parents[1]

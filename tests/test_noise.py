@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 import directional as dl
-from directional import noise
+from directional.method import noise
 
 EPS = float(np.finfo(float).eps)
 

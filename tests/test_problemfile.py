@@ -18,7 +18,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import directional as dl
-from directional.problemfile import KeyLines, Problem
+from directional.interface.problemfile import KeyLines, Problem
 
 GOOD = textwrap.dedent(
     """\

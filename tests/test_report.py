@@ -14,8 +14,9 @@ import numpy as np
 import pytest
 
 import directional as dl
-from directional import plots, report
-from directional.progress import Progress, sum_of_squares
+from directional.report import plots
+from directional.report import summary as report
+from directional.run.progress import Progress, sum_of_squares
 
 PARAMETERS = [
     dl.Parameter("a", 0.0, -4.0, 4.0, unit="m"),

@@ -6,6 +6,6 @@ method scales (quadratics, optimizer overhead, the line search alone); writes ``
 PNG figures.  Benchmarks are not tests: nothing here asserts a number.
 """
 
-from .runner import main
+from directional.benchmarking.runner import main
 
 __all__ = ["main"]

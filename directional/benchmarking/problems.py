@@ -25,7 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..testproblems import mgh
+from directional.testproblems import mgh
 
 LARGER = {21: 10, 22: 8}  # problem number -> n used instead of the sample size (see above)
 AT_MINIMUM = 1e-10  # a start within this (relative) of the paper's minimum value is a minimizer

@@ -16,10 +16,10 @@ from pathlib import Path
 
 import numpy as np
 
-from . import plots, profiles, scaling, writeup
-from .problems import pairs
-from .solvers import ABLATIONS, ablations_available, solvers
-from .study import DATA_BUDGETS, PERFORMANCE_FACTORS, Study, run_study
+from directional.benchmarking import plots, profiles, scaling, writeup
+from directional.benchmarking.problems import pairs
+from directional.benchmarking.solvers import ABLATIONS, ablations_available, solvers
+from directional.benchmarking.study import DATA_BUDGETS, PERFORMANCE_FACTORS, Study, run_study
 
 RESULTS = "RESULTS.md"
 
@@ -242,7 +242,7 @@ def _profiles_section(plan: Plan, study: Study) -> list[str]:
     missing = [name for name, ok in available.items() if not ok]
     if missing:
         lines += [
-            "Not run, because `directional.search.Settings` has no switch for them yet: "
+            "Not run, because `directional.method.search.Settings` has no switch for them yet: "
             + "; ".join(f"{name} (`{', '.join(ABLATIONS[name])}`)" for name in missing) + ".",
             "",
         ]

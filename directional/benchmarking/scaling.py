@@ -35,14 +35,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..driver import Driver
-from ..linesearch import line_search
-from ..minimization import line_minimum, minimize
-from ..search import Settings, powell
-from ..space import build_space
-from ..testproblems import mgh
-from . import baselines
-from .solvers import Recorder
+from directional.api.minimization import line_minimum, minimize
+from directional.benchmarking import baselines
+from directional.benchmarking.solvers import Recorder
+from directional.method.linesearch import line_search
+from directional.method.search import Settings, powell
+from directional.method.space import build_space
+from directional.run.driver import Driver
+from directional.testproblems import mgh
 
 REDUCTION = 1e-8  # quadratics: relative reduction of f - f* to reach
 LINE_TOLERANCE = 1e-8  # line search: distance to the minimizer to reach
@@ -284,7 +284,7 @@ def _line_count(fn: LineFunction, method: str, points: list[float], final: float
 def errors_of_parabolic_steps(fn: LineFunction, tolerance: float = 1e-14) -> np.ndarray:
     """Distances from the minimizer of the successive points of the line search alone.
 
-    Runs the search generator of `directional.linesearch` in its exact mode (as `line_minimum`
+    Runs the search generator of `directional.method.linesearch` in its exact mode (as `line_minimum`
     does) with a tolerance far below 1e-8, so that the asymptotic steps can be seen; the public
     function stops at the square root of the machine precision.
     """

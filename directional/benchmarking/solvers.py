@@ -9,7 +9,7 @@ the objective, so that all solvers are measured the same way from the outside.
 - Ablations of the method, through the same search with one idea switched off in its `Settings`:
   golden section only (no parabolic steps), no direction replacement (the set stays the axes),
   no curvature reuse (every line search measures its curvature afresh).  They run only where the
-  installed `directional.search.Settings` has the switch.
+  installed `directional.method.search.Settings` has the switch.
 - The baselines of `baselines` (Nelder–Mead, Hooke–Jeeves, coordinate search by golden section).
 """
 
@@ -23,12 +23,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..driver import Driver
-from ..errors import ObjectiveError
-from ..minimization import minimize
-from ..search import Settings, powell
-from ..space import build_space
-from . import baselines
+from directional.api.minimization import minimize
+from directional.benchmarking import baselines
+from directional.errors import ObjectiveError
+from directional.method.search import Settings, powell
+from directional.method.space import build_space
+from directional.run.driver import Driver
 
 Objective = Callable[[np.ndarray], float]
 

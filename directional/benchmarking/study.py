@@ -7,9 +7,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import profiles
-from .problems import Pair
-from .solvers import Run, Solver, record
+from directional.benchmarking import profiles
+from directional.benchmarking.problems import Pair
+from directional.benchmarking.solvers import Run, Solver, record
 
 DATA_BUDGETS = np.arange(0, 101)  # data profiles: 0 to 100 simplex gradients, n + 1 each
 PERFORMANCE_FACTORS = 2.0 ** np.linspace(0, 8, 161)  # performance profiles: ratios 1 to 256

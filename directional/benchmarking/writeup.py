@@ -12,9 +12,9 @@ from pathlib import Path
 
 import numpy as np
 
-from . import profiles
-from .scaling import Count, LineCount, Overhead
-from .study import DATA_BUDGETS, Study
+from directional.benchmarking import profiles
+from directional.benchmarking.scaling import Count, LineCount, Overhead
+from directional.benchmarking.study import DATA_BUDGETS, Study
 
 TABLE_BUDGETS = (1, 2, 5, 10, 20, 50, 100)  # data-profile table columns, in units of n + 1
 TABLE_FACTORS = (1.0, 2.0, 4.0, 8.0, 16.0, math.inf)  # performance-profile table columns

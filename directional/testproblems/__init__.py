@@ -7,7 +7,7 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-from ..errors import ProblemError
+from directional.errors import ProblemError
 
 
 def named_values(

@@ -52,9 +52,9 @@ from types import MappingProxyType
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from ..errors import ProblemError
-from ..parameters import Parameter
-from . import named_values
+from directional.errors import ProblemError
+from directional.parameters import Parameter
+from directional.testproblems import named_values
 
 NAMES = ("mu_max", "Ks", "Y", "kd")
 X0 = 0.2  # g/L, inoculum

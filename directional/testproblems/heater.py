@@ -42,9 +42,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import ProblemError
-from ..parameters import Parameter
-from . import named_values
+from directional.errors import ProblemError
+from directional.parameters import Parameter
+from directional.testproblems import named_values
 
 NAMES = ("Kp", "Ki")
 

@@ -47,7 +47,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..errors import ProblemError
+from directional.errors import ProblemError
 
 __all__ = ["TestProblem", "catalogue", "problem"]
 

@@ -2,10 +2,10 @@
 
 Theory of operation.  The objective is ``S(x) = sum r_i(x)**2`` of a residual vector (model minus
 data, divided by the data's standard deviations when they are given).  The direction-set search
-(`directional.search`) minimizes ``S`` without derivatives; since the residual vector is known, the
+(`directional.method.search`) minimizes ``S`` without derivatives; since the residual vector is known, the
 search is finished with Levenberg–Marquardt steps on a central-difference Jacobian (Levenberg
 1944, Marquardt 1963), which reach the bottom of the flat curved valleys where a search on ``S``
-alone crawls.  The point is then checked like any other (`directional.curvature`), and at the
+alone crawls.  The point is then checked like any other (`directional.method.curvature`), and at the
 minimum a Jacobian by numdifftools gives the linearized uncertainty (Bates & Watts 1988, sec. 2.3):
 
     covariance = s² (JᵀJ)⁻¹,   s² = S / (m - p),
@@ -16,7 +16,7 @@ bound are left out (their errors are nan) and ``p`` counts the free ones.  A war
 parameters correlated beyond ``|r| > 0.95`` and combinations the data do not determine.
 
 Every evaluation goes through the driver (counted, cached, journaled): see
-`directional.leastsquares` for how the residual vectors travel beside the sums of squares.
+`directional.method.leastsquares` for how the residual vectors travel beside the sums of squares.
 
 References
 ----------
@@ -40,24 +40,24 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from .curvature import combination, labels, settle, settled_solution
-from .driver import Driver
-from .errors import ProblemError
-from .journal import journal_for, run_identity
-from .leastsquares import (
+from directional.api.minimization import _solution, checked_arguments
+from directional.errors import ProblemError
+from directional.method.curvature import combination, labels, settle, settled_solution
+from directional.method.leastsquares import (
     Polished,
     Residuals,
     SumOfSquares,
     extrapolated_jacobian,
     levenberg_marquardt,
 )
-from .minimization import _solution, checked_arguments
-from .noise import floored, noise_level
-from .progress import Progress
-from .records import Batch, Halt, Outcome, Stop
-from .search import Settings, powell
-from .solution import Solution
-from .space import Space
+from directional.method.noise import floored, noise_level
+from directional.method.search import Settings, powell
+from directional.method.space import Space
+from directional.records import Batch, Halt, Outcome, Stop
+from directional.run.driver import Driver
+from directional.run.journal import journal_for, run_identity
+from directional.run.progress import Progress
+from directional.solution import Solution
 
 EPSILON = float(np.finfo(float).eps)
 STRONG = 0.95  # correlations beyond this are named in a warning
@@ -203,7 +203,7 @@ def calibrate(
 
     Minimizes ``S(x) = sum(r(x)**2)``, ``r`` = model minus data (divided by ``sigma`` when given),
     by the direction-set search, finished with Levenberg–Marquardt steps; then checks the point
-    (`directional.curvature`) and computes ``sol.uncertainty`` (`Uncertainty`: standard errors,
+    (`directional.method.curvature`) and computes ``sol.uncertainty`` (`Uncertainty`: standard errors,
     correlations, 95 % intervals) from s²(JᵀJ)⁻¹ (Bates & Watts 1988).  Warns when parameters are
     correlated beyond 0.95 or not determined.
 
@@ -224,7 +224,7 @@ def calibrate(
 
     The other arguments are those of `directional.minimize`; ``budget`` counts every evaluation
     (search, Levenberg–Marquardt, check and Jacobian).  A calibration runs its evaluations in
-    process: ``executor`` must stay None (many starts on an executor: `directional.explore`).
+    process: ``executor`` must stay None (many starts on an executor: `directional.api.explore`).
 
     Raises
     ------
@@ -246,7 +246,7 @@ def calibrate(
     if executor is not None:
         raise ProblemError(
             "calibrate evaluates in process: executor must be None (many starts on an executor: "
-            "directional.explore)"
+            "directional.api.explore)"
         )
     squares = SumOfSquares(residuals, deviations)
     watched = Progress(squares, budget=budget, enabled=None) if progress else None

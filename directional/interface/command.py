@@ -6,7 +6,7 @@ exactly as written, with the placeholders replaced by ``repr(float(value))`` (th
 that reads back as the same double, bit for bit).  A run that exits non-zero, prints no number,
 or runs out of time raises `EvaluationFailed`, which the driver records as a failed evaluation.
 
-How a run is started, watched, read and stopped is in `directional.process`.
+How a run is started, watched, read and stopped is in `directional.interface.process`.
 """
 
 from __future__ import annotations
@@ -24,8 +24,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import ProblemError
-from .process import Outcome, run_program
+from directional.errors import ProblemError
+from directional.interface.process import Outcome, run_program
 
 FAILED = "failed"
 TIMED_OUT = "timed-out"

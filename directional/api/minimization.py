@@ -10,19 +10,19 @@ from typing import Any
 
 import numpy as np
 
-from .curvature import check_method, escape_count, settle, settled_solution
-from .directions import DirectionSet, hessian_estimate
-from .driver import Driver, Objective
-from .errors import ObjectiveError, ProblemError
-from .journal import journal_for, run_identity
-from .linesearch import LineResult, line_search
-from .noise import floored, noise_level, noise_option
-from .pool import Lane, Runner
-from .progress import Progress
-from .records import Batch, Curvature, Halt, Outcome, Stop, Verdict
-from .search import Settings, powell
-from .solution import Solution
-from .space import Space, build_space
+from directional.errors import ObjectiveError, ProblemError
+from directional.method.curvature import check_method, escape_count, settle, settled_solution
+from directional.method.directions import DirectionSet, hessian_estimate
+from directional.method.linesearch import LineResult, line_search
+from directional.method.noise import floored, noise_level, noise_option
+from directional.method.search import Settings, powell
+from directional.method.space import Space, build_space
+from directional.records import Batch, Curvature, Halt, Outcome, Stop, Verdict
+from directional.run.driver import Driver, Objective
+from directional.run.journal import journal_for, run_identity
+from directional.run.pool import Lane, Runner
+from directional.run.progress import Progress
+from directional.solution import Solution
 
 
 def default_budget(n: int) -> int:
@@ -50,7 +50,7 @@ def minimize(
     """Return the minimum of ``objective`` found from ``start``, without derivatives.
 
     Powell's conjugate-direction search with safeguarded parabolic line searches (see
-    `directional.search`), inside the bounds, in scaled coordinates.
+    `directional.method.search`), inside the bounds, in scaled coordinates.
 
     >>> import directional as dl
     >>> sol = dl.minimize(lambda x: (x[0] - 1) ** 2 + 10 * (x[1] - x[0] ** 2) ** 2, [-1.2, 1.0])
@@ -74,12 +74,12 @@ def minimize(
     time_limit
         Seconds of wall time after which no new evaluation starts.
     journal
-        Path of an SQLite file that keeps every evaluation as it completes (`directional.journal`).
+        Path of an SQLite file that keeps every evaluation as it completes (`directional.run.journal`).
         An existing journal of the same problem is resumed, not overwritten: its evaluations are
         replayed, not repeated (a line on stderr says so); the budget counts them too, and may
         differ from the first run's.  A journal of another problem raises `JournalError`.
     check
-        What proves the point a minimum (`directional.curvature`): True, a numerical Hessian with
+        What proves the point a minimum (`directional.method.curvature`): True, a numerical Hessian with
         Richardson extrapolation and error estimate (about 6 n² + 1 evaluations); "quick", one
         central-difference stencil (at most 2 n² + 1); False, none (the verdict stays UNCHECKED;
         ``sol.curvature`` then holds the free estimate from the line searches).  Parameters on a
@@ -89,7 +89,7 @@ def minimize(
         curvature before the search gives up (default 3).
     noise
         The objective's noise level (standard deviation, in its units), or "estimate" to measure
-        it at the start (`directional.noise`, Moré & Wild 2011).  It floors the value tolerance and
+        it at the start (`directional.method.noise`, Moré & Wild 2011).  It floors the value tolerance and
         the Hessian's steps.  Default None: rounding errors only.
     executor
         A `concurrent.futures.Executor` (a process pool, or a Dask cluster's
@@ -322,7 +322,7 @@ def line_minimum(
     Bracketing from ``start`` (default: the golden-section point of the interval), then Brent's
     safeguarded successive parabolic interpolation to ``tolerance * (|t| + (upper - lower) / 1000)``,
     with ``tolerance`` no finer than the square root of the machine precision (Brent 1973, ch. 5)
-    (`directional.linesearch`).  A failed evaluation counts as ``+inf``.
+    (`directional.method.linesearch`).  A failed evaluation counts as ``+inf``.
 
     >>> r = line_minimum(lambda t: (t - 2.0) ** 2 + 1.0, 0.0, 5.0)
     >>> round(r.point, 6), round(r.value, 6)

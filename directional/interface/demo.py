@@ -10,7 +10,7 @@ biomass and substrate.  The demo writes, into ``./directional-demo/``:
 - ``summary.txt``, ``solution.json``: the result for people and for programs;
 - ``plots/*.png``: the search, the profiles, the fit and the residuals.
 
-`residuals` and `fit` are the functions the problem file names (``directional.demo:residuals``).
+`residuals` and `fit` are the functions the problem file names (``directional.interface.demo:residuals``).
 """
 
 from __future__ import annotations
@@ -22,7 +22,7 @@ from typing import Any, TextIO
 
 import numpy as np
 
-from .testproblems import bioreactor
+from directional.testproblems import bioreactor
 
 FOLDER = "directional-demo"
 TITLE = "Batch culture (invented data): Monod growth constants"
@@ -65,7 +65,7 @@ scale = "log"
 unit = "1/h"
 
 [objective]
-function = "directional.demo:residuals"   # weighted residuals, model minus data over sigma
+function = "directional.interface.demo:residuals"   # weighted residuals, model minus data over sigma
 kind = "residuals"
 
 [search]
@@ -76,7 +76,7 @@ noise = "estimate"   # the ODE solver's error is noise at the scale of the Hessi
 path = "journal.sqlite"
 
 [report]
-fit = "directional.demo:fit"
+fit = "directional.interface.demo:fit"
 '''
 
 
@@ -123,8 +123,8 @@ def prepare(folder: str | Path = FOLDER) -> Path:
 
 def run(folder: str | Path = FOLDER, *, quiet: bool = False, out: TextIO | None = None) -> int:
     """Run the demo into ``folder``; return the exit code of ``directional demo``."""
-    from .cli import finish, load_problem
-    from .runs import solve
+    from directional.interface.cli import finish, load_problem
+    from directional.interface.runs import solve
 
     out = sys.stdout if out is None else out
     path = prepare(folder)

@@ -65,11 +65,11 @@ from typing import Any, TextIO
 
 import numpy as np
 
-from .driver import Evaluation
-from .errors import JournalError, ProblemError
-from .identity import canonical, describe_place, difference, digest, run_identity
-from .lockfile import Lock
-from .parameters import Parameter
+from directional.errors import JournalError, ProblemError
+from directional.parameters import Parameter
+from directional.run.driver import Evaluation
+from directional.run.identity import canonical, describe_place, difference, digest, run_identity
+from directional.run.lockfile import Lock
 
 __all__ = [
     "ENTRY_POINTS",
@@ -95,9 +95,9 @@ INTERRUPTED = "interrupted"
 # The run kinds that `resume` can continue: kind -> (module, entry point).  Each entry point is
 # called as ``entry(objective, parameters, journal=path, budget=..., time_limit=..., **arguments)``.
 ENTRY_POINTS = {
-    "minimize": ("directional.minimization", "minimize"),
-    "calibrate": ("directional.calibration", "calibrate"),
-    "explore": ("directional.explore", "explore"),
+    "minimize": ("directional.api.minimization", "minimize"),
+    "calibrate": ("directional.api.calibration", "calibrate"),
+    "explore": ("directional.api.explore", "explore"),
 }
 
 _SCHEMA = (
@@ -792,6 +792,6 @@ def _begin_session(connection: sqlite3.Connection, budget: int | None) -> int:
 
 
 def _package_version() -> str:
-    from . import __version__  # at call time: the package is fully imported by then
+    from directional import __version__  # at call time: the package is fully imported by then
 
     return __version__

@@ -61,8 +61,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import ProblemError
-from .parameters import Parameter
+from directional.errors import ProblemError
+from directional.parameters import Parameter
 
 KINDS = ("value", "residuals")
 
@@ -261,7 +261,7 @@ class Problem:
 
         For ``kind = "residuals"`` it returns the residual vector.  A Python function is loaded
         on its first call (so the callable pickles for worker processes); a program becomes a
-        `directional.command.Command` that runs in ``workdir``.
+        `directional.interface.command.Command` that runs in ``workdir``.
 
         Raises
         ------
@@ -297,7 +297,7 @@ class Problem:
         return function
 
     def _command(self) -> Callable[[np.ndarray], Any]:
-        from .command import Command
+        from directional.interface.command import Command
 
         spec = self.objective
         try:

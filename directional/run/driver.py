@@ -46,9 +46,9 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from .errors import JournalError, ObjectiveError
-from .interrupts import Interrupts
-from .records import Batch, Halt, Outcome, Stop
+from directional.errors import JournalError, ObjectiveError
+from directional.records import Batch, Halt, Outcome, Stop
+from directional.run.interrupts import Interrupts
 
 Objective = Callable[[np.ndarray], object]
 

@@ -9,12 +9,12 @@ point it returns is checked.
    (`directions.hessian_estimate`).  It is reported, and its diagonal sizes the steps of the paid
    check.  It holds only the positive curvatures the line searches saw, so it can never reveal a
    saddle: alone it decides nothing (``check=False`` leaves the verdict UNCHECKED).
-2. Paid check.  A Hessian in scaled coordinates (`directional.space`) over the parameters that are
+2. Paid check.  A Hessian in scaled coordinates (`directional.method.space`) over the parameters that are
    not on a bound: by numdifftools' central differences with Richardson extrapolation and its
    error estimate (``check=True``, 6 n² + 1 evaluations), or by one plain central-difference
    stencil (``check="quick"``, 2 n² + 1).  Every stencil point is known before any value is, so
    the stencil goes to the driver as one batch (an executor evaluates it in parallel); see
-   `directional.hessian`.  Steps are never below what the noise allows; with a stated noise
+   `directional.method.hessian`.  Steps are never below what the noise allows; with a stated noise
    level, a stencil whose steps were sized from a curvature that the measurement belies is
    resized and evaluated again.
 3. Verdict.  The Hessian is first scaled symmetrically so that each row's largest entry (or
@@ -47,10 +47,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .directions import DirectionSet, hessian_estimate
-from .driver import Driver
-from .errors import ProblemError
-from .hessian import (
+from directional.errors import ProblemError
+from directional.method.directions import DirectionSet, hessian_estimate
+from directional.method.hessian import (
     EPSILON,
     RATIO,
     STEPS,
@@ -60,11 +59,12 @@ from .hessian import (
     quick_hessian,
     step_sizes,
 )
-from .linesearch import line_search
-from .records import Batch, Curvature, Halt, Outcome, Stop, Verdict
-from .search import FIRST_STEP, Settings, powell
-from .solution import Solution
-from .space import Space
+from directional.method.linesearch import line_search
+from directional.method.search import FIRST_STEP, Settings, powell
+from directional.method.space import Space
+from directional.records import Batch, Curvature, Halt, Outcome, Stop, Verdict
+from directional.run.driver import Driver
+from directional.solution import Solution
 
 RESIZES = 2  # with a noise level: times the stencil may be resized from measured curvatures
 FREE_FLAT = EPSILON**0.5  # free estimate: smaller eigenvalues (relative) count as zero

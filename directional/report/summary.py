@@ -2,7 +2,7 @@
 
 The JSON keeps every number at full precision (Python's shortest repr of a double) and uses the
 parameter names as keys; an infinite bound or a value that is not finite is written as ``null``,
-since JSON has no infinity.  Plots are in `directional.plots`.
+since JSON has no infinity.  Plots are in `directional.report.plots`.
 """
 
 from __future__ import annotations
@@ -15,8 +15,8 @@ from typing import Any
 
 import numpy as np
 
-from .parameters import Parameter
-from .solution import Solution
+from directional.parameters import Parameter
+from directional.solution import Solution
 
 FORMAT = "directional-solution/1"
 

@@ -25,12 +25,12 @@ from typing import Any
 
 import numpy as np
 
-from . import journal as journals
-from .errors import ObjectiveError, ProblemError
-from .problemfile import Problem
-from .progress import Progress
-from .records import Stop
-from .solution import Solution
+from directional.errors import ObjectiveError, ProblemError
+from directional.interface.problemfile import Problem
+from directional.records import Stop
+from directional.run import journal as journals
+from directional.run.progress import Progress
+from directional.solution import Solution
 
 PROBLEM_KEY = "problem"  # header note: the absolute path of the problem file
 
@@ -44,7 +44,7 @@ def entry_point(problem: Problem) -> Callable[..., Any]:
         When the function the problem needs is not in this version of the package.
     """
     if problem.search.starts > 1:
-        from .explore import explore
+        from directional.api.explore import explore
 
         if problem.objective.kind == "residuals":
             raise ProblemError(
@@ -54,14 +54,14 @@ def entry_point(problem: Problem) -> Callable[..., Any]:
         return explore
     if problem.objective.kind == "residuals":
         try:
-            from .calibration import calibrate
+            from directional.api.calibration import calibrate
         except ImportError:
             raise ProblemError(
                 f"{problem.where('objective.kind')}: kind = \"residuals\" needs dl.calibrate, "
                 "which this version does not have yet"
             ) from None
         return calibrate
-    from .minimization import minimize
+    from directional.api.minimization import minimize
 
     return minimize
 
@@ -216,7 +216,7 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
         _copy_database(Path(path), copy)
         with contextlib.redirect_stderr(io.StringIO()):
             if contents.header.kind == "explore":
-                from .explore import explore
+                from directional.api.explore import explore
 
                 arguments = dict(contents.header.identity.get("arguments", {}))
                 result = explore(_refuse, contents.header.parameters, journal=copy,

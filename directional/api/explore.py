@@ -32,23 +32,23 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.stats import qmc
 
-from .curvature import Settled, check_method, escape_count, settle, settled_solution
-from .driver import Evaluation, Objective
-from .errors import ObjectiveError, ProblemError
-from .journal import journal_for, run_identity
-from .minimization import (  # the same checks and records as minimize
+from directional.api.minimization import (  # the same checks and records as minimize
     _active,
     _budget,
     _directions_in_search_coordinates,
     _settings,
 )
-from .noise import floored, noise_level, noise_option
-from .parameters import Parameter
-from .pool import Runner, check_picklable
-from .records import Stop, Verdict
-from .search import Settings, powell
-from .solution import Solution
-from .space import Space, build_space, space_from_parameters
+from directional.errors import ObjectiveError, ProblemError
+from directional.method.curvature import Settled, check_method, escape_count, settle, settled_solution
+from directional.method.noise import floored, noise_level, noise_option
+from directional.method.search import Settings, powell
+from directional.method.space import Space, build_space, space_from_parameters
+from directional.parameters import Parameter
+from directional.records import Stop, Verdict
+from directional.run.driver import Evaluation, Objective
+from directional.run.journal import journal_for, run_identity
+from directional.run.pool import Runner, check_picklable
+from directional.solution import Solution
 
 SAME_POINT = 1e-3  # scaled distance below which two end points are one minimum
 SAME_VALUE = 1e-6  # relative agreement of their values
@@ -67,7 +67,7 @@ def design(space: Space, starts: int, seed: object = 0, *, include_start: bool =
     ``seed`` (None, an int or a `numpy.random.Generator`) gives the same points, and a longer
     design begins with the points of a shorter one.
 
-    >>> from directional.space import build_space
+    >>> from directional.method.space import build_space
     >>> space = build_space([0.5, 0.5], [(0, 1), (0, 1)])
     >>> design(space, 4, seed=0).shape
     (4, 2)

@@ -14,7 +14,7 @@ import os
 import time
 from pathlib import Path
 
-from .errors import JournalError
+from directional.errors import JournalError
 
 try:
     import fcntl

@@ -1,6 +1,6 @@
 """Numerical Hessians for the curvature check: step sizes, numdifftools, a plain stencil.
 
-Both measure the Hessian of the objective in scaled coordinates (`directional.space`) over the
+Both measure the Hessian of the objective in scaled coordinates (`directional.method.space`) over the
 parameters not on a bound, around the scaled point ``u0``, as generators for the driver: every
 stencil point is known before any value is, so each stencil goes out as one batch (purpose
 "hessian"), which an executor evaluates in parallel.
@@ -29,8 +29,8 @@ from dataclasses import dataclass
 import numdifftools as nd
 import numpy as np
 
-from .records import Batch
-from .space import Space
+from directional.method.space import Space
+from directional.records import Batch
 
 EPSILON = float(np.finfo(float).eps)
 LARGEST_STEP = 0.1  # no stencil step beyond a tenth of the problem's size (scaled coordinates)

@@ -25,9 +25,9 @@ from dataclasses import dataclass
 import numdifftools as nd
 import numpy as np
 
-from .errors import ObjectiveError
-from .records import Batch, Halt, Stop
-from .space import Space
+from directional.errors import ObjectiveError
+from directional.method.space import Space
+from directional.records import Batch, Halt, Stop
 
 Residuals = Callable[[np.ndarray], object]
 

@@ -1,7 +1,7 @@
 """The level of computational noise in an objective, from difference tables along a line.
 
 Theory of operation.  The objective is evaluated at ``m + 1`` equally spaced points
-``x + t_i p`` along a random unit direction ``p`` (in scaled coordinates, `directional.space`),
+``x + t_i p`` along a random unit direction ``p`` (in scaled coordinates, `directional.method.space`),
 ``t_i = (i - m/2) h``, centred on the point so that the point itself is one of them.  If
 ``f = smooth + noise`` with independent noise of standard deviation ``sigma``, the k-th forward
 differences of the smooth part shrink like ``h**k`` while those of the noise keep the size
@@ -40,11 +40,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .driver import Driver, Objective
-from .errors import ObjectiveError, ProblemError
-from .records import Batch, Halt
-from .search import Settings
-from .space import Space, build_space
+from directional.errors import ObjectiveError, ProblemError
+from directional.method.search import Settings
+from directional.method.space import Space, build_space
+from directional.records import Batch, Halt
+from directional.run.driver import Driver, Objective
 
 DETECTED = "detected"
 TOO_SMALL = "step too small"
@@ -65,7 +65,7 @@ class NoiseLevel:
 
     ``level`` is in the objective's units (``nan`` when no level was detected); ``relative`` is
     ``level / |f(point)|`` (``nan`` when ``f(point)`` is zero or unknown); ``status`` is
-    ``"detected"`` or one of the failure signals of `directional.noise`; ``order`` is the order of
+    ``"detected"`` or one of the failure signals of `directional.method.noise`; ``order`` is the order of
     the differences the level came from (0 when none); ``step`` the spacing of the last table, in
     scaled coordinates; ``evaluations`` the objective calls spent (cache hits not counted).
     """

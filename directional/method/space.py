@@ -15,8 +15,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import ProblemError
-from .parameters import Parameter
+from directional.errors import ProblemError
+from directional.parameters import Parameter
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

@@ -27,9 +27,9 @@ from typing import Any
 import numpy as np
 from matplotlib.figure import Figure
 
-from .parameters import Parameter
-from .progress import sum_of_squares
-from .solution import Solution
+from directional.parameters import Parameter
+from directional.run.progress import sum_of_squares
+from directional.solution import Solution
 
 STYLE = {
     "font.size": 11,

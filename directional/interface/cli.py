@@ -21,11 +21,11 @@ from typing import Any, TextIO
 
 import numpy as np
 
-from .driver import call
-from .errors import JournalError, ObjectiveError, ProblemError
-from .problemfile import Problem
-from .records import Stop, Verdict
-from .solution import CAUTION, Solution
+from directional.errors import JournalError, ObjectiveError, ProblemError
+from directional.interface.problemfile import Problem
+from directional.records import Stop, Verdict
+from directional.run.driver import call
+from directional.solution import CAUTION, Solution
 
 OK, UNVERIFIED, BAD_INPUT = 0, 1, 2
 PLOT_SECONDS = 20.0  # by default, plots spend report-only evaluations worth about this long
@@ -180,7 +180,7 @@ def _count(text: str) -> int:
 
 
 def _version() -> str:
-    from . import __version__
+    from directional import __version__
 
     return __version__
 
@@ -194,7 +194,7 @@ def load_problem(path: str | Path) -> Problem:
 
 
 def _demo(args: argparse.Namespace) -> int:
-    from .demo import run
+    from directional.interface.demo import run
 
     return run(args.folder, quiet=args.quiet)
 
@@ -202,7 +202,7 @@ def _demo(args: argparse.Namespace) -> int:
 def _run(args: argparse.Namespace) -> int:
     import dataclasses
 
-    from .runs import solve
+    from directional.interface.runs import solve
 
     problem = load_problem(args.problem)
     search = problem.search
@@ -252,7 +252,7 @@ def _dask_executor(address: str | None, problem: Problem) -> Iterator[Any]:
 
 
 def _resume(args: argparse.Namespace) -> int:
-    from .runs import problem_of_journal, resume
+    from directional.interface.runs import problem_of_journal, resume
 
     problem = problem_of_journal(args.journal, args.problem)
     result = resume(args.journal, problem, budget=args.budget, quiet=args.quiet)
@@ -261,7 +261,7 @@ def _resume(args: argparse.Namespace) -> int:
 
 
 def _show(args: argparse.Namespace) -> int:
-    from .runs import PROBLEM_KEY, replay
+    from directional.interface.runs import PROBLEM_KEY, replay
 
     result, contents = replay(args.journal)
     problem = None
@@ -317,7 +317,7 @@ def _residuals_once(objective, start: np.ndarray) -> tuple[float, str, str, int 
 def _bench(argv: list[str]) -> int:
     """Hand the arguments to `directional.benchmarking.main` as they are."""
     try:
-        from .benchmarking import main as bench_main
+        from directional.benchmarking import main as bench_main
     except ImportError:
         if "-h" in argv or "--help" in argv:
             print("usage: directional bench [--quick]\n\nRun the benchmarks on the standard test "
@@ -359,8 +359,8 @@ def finish(
     distinct minima comes first, the best minimum's summary and files follow, and the plots
     include the start map.
     """
-    from . import report
-    from .runs import best
+    from directional.interface.runs import best
+    from directional.report import summary as report
 
     out = sys.stdout if out is None else out
     title = problem.title if problem is not None else ""
@@ -408,7 +408,7 @@ def _plots(
     parameters: Sequence | None,
     landscape: Any = None,
 ) -> list[Path]:
-    from .plots import affordable, write_plots
+    from directional.report.plots import affordable, write_plots
 
     if extra is None:
         extra = affordable(sol, PLOT_SECONDS)
@@ -425,7 +425,7 @@ def _plots(
         extra=extra, title=title,
     )
     if landscape is not None and len(sol.names) >= 2:
-        from .explore_plots import start_map
+        from directional.report.startmap import start_map
 
         written.append(start_map(landscape, objective, folder / "starts.png", kind=kind,
                                  extra=extra, title=title))

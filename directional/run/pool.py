@@ -43,11 +43,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .driver import Evaluation, Log, Objective, call
-from .errors import JournalError, ObjectiveError, ProblemError
-from .interrupts import Interrupts
-from .records import Batch, Halt, Outcome, Stop
-from .search import Search
+from directional.errors import JournalError, ObjectiveError, ProblemError
+from directional.method.search import Search
+from directional.records import Batch, Halt, Outcome, Stop
+from directional.run.driver import Evaluation, Log, Objective, call
+from directional.run.interrupts import Interrupts
 
 DIED = "worker process died"
 

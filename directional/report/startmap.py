@@ -24,9 +24,9 @@ from typing import Any
 import numpy as np
 from matplotlib.figure import Figure
 
-from .errors import ProblemError
-from .explore import Landscape
-from .plots import contour_levels
+from directional.api.explore import Landscape
+from directional.errors import ProblemError
+from directional.report.plots import contour_levels
 
 DPI = 120
 STYLE = {"font.size": 11, "axes.titlesize": 12, "legend.fontsize": 9, "axes.grid": False}

@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from .parameters import Parameter
+from directional.parameters import Parameter
 
 
 def run_identity(

@@ -31,7 +31,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .directions import (
+from directional.method.directions import (
     DirectionSet,
     degenerate,
     powell_accepts,
@@ -39,9 +39,9 @@ from .directions import (
     principal_axes_of_estimate,
     replaced,
 )
-from .linesearch import LineResult, line_search
-from .records import Batch, Halt, Outcome, Stop
-from .space import Space
+from directional.method.linesearch import LineResult, line_search
+from directional.method.space import Space
+from directional.records import Batch, Halt, Outcome, Stop
 
 Search = Generator[Batch, np.ndarray, Outcome]
 

@@ -1,0 +1,1 @@
+"""The public entry points: minimize, calibrate, explore, line_minimum."""

@@ -1,0 +1,1 @@
+"""What a person reads: the text summary, JSON, plots and maps."""

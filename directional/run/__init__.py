@@ -1,0 +1,1 @@
+"""Running a search: the driver that evaluates batches, interrupts, progress and the journal."""
