@@ -59,7 +59,8 @@ def test_a_discontinuous_objective_still_ends():
 
 def test_time_limit_stops_cleanly():
     started = time.monotonic()
-    sol = dl.minimize(lambda x: time.sleep(0.02) or float(x @ x), [1.0, 2.0], time_limit=0.2,
+    # 0.05 s per evaluation: the search needs more than the 4 evaluations 0.2 s allows
+    sol = dl.minimize(lambda x: time.sleep(0.05) or float(x @ x), [1.0, 2.0], time_limit=0.2,
                       check=False)
     assert sol.stop is dl.Stop.BUDGET and "time limit" in sol.reason
     assert time.monotonic() - started < 2.0

@@ -40,12 +40,16 @@ from directional.method.directions import (
     replaced,
 )
 from directional.method.linesearch import LineResult, line_search
+from directional.method.model import LARGEST, Sample, coefficients, fit, trust_step
 from directional.method.space import Space
 from directional.records import Batch, Halt, Outcome, Stop
 
 Search = Generator[Batch, np.ndarray, Outcome]
 
 FIRST_STEP = 0.1  # first probe along an axis, in scaled units (a tenth of the problem's size)
+SKEWED = 1e3  # condition of the direction set beyond which a calm cycle is not trusted
+SAMPLES = 3  # the model's store holds this many times the coefficients of a quadratic
+FITTED = 2.0  # the model is fitted to this many times as many points as it has coefficients
 FARTHEST = 1e10  # no line search goes farther, in scaled units: a descent to infinity stops there
 
 
@@ -60,6 +64,7 @@ class Settings:
     parabolic: bool = True  # False: golden-section line searches
     replace_directions: bool = True  # False: keep the principal axes (no conjugate directions)
     reuse_curvature: bool = True  # False: every line search starts without a known curvature
+    model_steps: bool = True  # False: no quadratic model (no model steps, no realignment)
 
     @property
     def line_tolerance(self) -> float:
@@ -76,11 +81,28 @@ class _Tracker:
     """The current point and value, updated as soon as a better evaluation arrives, and the
     resolution the line searches of this cycle work to."""
 
-    def __init__(self, u: np.ndarray, value: float, resolution: float) -> None:
+    def __init__(
+        self, u: np.ndarray, value: float, resolution: float, sample: Sample | None = None
+    ) -> None:
         self.u = u
         self.value = value
         self.resolution = resolution
         self.answered = 0  # finite values received in this cycle
+        self.sample = sample  # every finite evaluation, for the quadratic model
+
+    def seen(self, u: np.ndarray, value: float) -> None:
+        """Take note of an evaluation: the new best point if it is lower, a sample anyway."""
+        if value < self.value:
+            self.u, self.value = u, float(value)
+        if self.sample is not None:
+            self.sample.add(u, float(value))
+
+
+class _Trust:
+    """The model's trust-region radius (scaled units), nan until the first trusted model."""
+
+    def __init__(self) -> None:
+        self.radius = math.nan
 
 
 def powell(space: Space, settings: Settings, start: np.ndarray | None = None) -> Search:
@@ -93,11 +115,16 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
         values = yield Batch(points=space.to_user(u)[None, :], purpose="start")
     except Halt as halt:  # halted at the start point (-inf there, time up, Ctrl-C)
         return _outcome(_Tracker(u, math.inf, 0.0), halt.stop, cycles, directions, halt.reason)
-    best = _Tracker(u, float(values[0]), _resolution(settings, FIRST_STEP))
+    modelled = settings.model_steps and 1 < n <= LARGEST
+    sample = Sample(n, SAMPLES * coefficients(n)) if modelled else None
+    best = _Tracker(u, float(values[0]), _resolution(settings, FIRST_STEP), sample)
     if not math.isfinite(best.value):
         return _outcome(best, Stop.STALLED, cycles, directions, "the start point failed")
+    if sample is not None:
+        sample.add(u, best.value)
+    trust = _Trust()
     try:
-        calm = 0
+        calm, fresh = 0, True
         while calm < 2:
             cycles += 1
             best.answered = 0
@@ -105,9 +132,24 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             if best.answered == 0:
                 reason = "every evaluation of a whole cycle failed: the best point is walled in"
                 return _outcome(best, Stop.STALLED, cycles, directions, reason)
+            settled = False
+            if sample is not None:
+                before = best.u.copy(), best.value
+                directions, settled = yield from _model_step(space, settings, best, directions, trust)
+                moved = max(moved, float(np.max(np.abs(best.u - before[0]))))
+                dropped += before[1] - best.value
             small = moved <= settings.point_tolerance and dropped <= (
                 settings.value_tolerance * max(1.0, abs(best.value))
             )
+            if small and settled:
+                break  # the model agrees: nothing left to gain beyond the tolerances
+            if small and not fresh and np.linalg.cond(directions.vectors) > SKEWED:
+                # A calm cycle along a nearly dependent set proves nothing: it may have missed a
+                # valley that no direction points along.  Start again from orthogonal axes.
+                directions = principal_axes_of_estimate(directions) or principal_axes(n, FIRST_STEP)
+                fresh, calm = True, 0
+                continue
+            fresh = fresh and small
             calm = calm + 1 if small else 0
             best.resolution = _resolution(settings, moved)
     except Halt as halt:
@@ -165,9 +207,10 @@ def _replace(
     values = yield Batch(points=space.to_user(best.u + length * d)[None, :], purpose="extrapolate")
     fe = float(values[0])
     if not powell_accepts(f0, fn, fe, largest_drop):
-        if fe < best.value:
-            best.u, best.value = best.u + length * d, fe
+        best.seen(best.u + length * d, fe)
         return directions
+    if best.sample is not None:
+        best.sample.add(best.u + length * d, fe)
     known = {-length: f0, 0.0: fn, length: fe}
     result = yield from _line(space, settings, best, d, length, math.nan, known=known)
     return replaced(directions, largest, d, result.curvature, _next_step(result, settings))
@@ -202,8 +245,7 @@ def _line(
             values = yield Batch(points=space.to_user(base + ts[:, None] * d), purpose="line")
             for t, value in zip(ts, values):
                 best.answered += math.isfinite(value)
-                if value < best.value:
-                    best.u, best.value = base + t * d, float(value)
+                best.seen(base + t * d, float(value))
             ts = search.send(values)
     except StopIteration as stop:
         result: LineResult = stop.value
@@ -238,3 +280,50 @@ def _outcome(
         curvatures=directions.curvatures.copy(),
         reason=reason,
     )
+
+
+def _model_step(
+    space: Space, settings: Settings, best: _Tracker, directions: DirectionSet, trust: _Trust
+) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool]]:
+    """Fit the quadratic model around the best point and evaluate its trust-region minimizer.
+
+    Returns the direction set (realigned with the model's eigenvectors when the model predicted
+    its step well and is convex) and whether the model says the point is settled: its minimizer
+    lies within the point tolerance and its predicted decrease within the value tolerance.
+    """
+    assert best.sample is not None
+    n = space.size
+    model = fit(best.sample, best.u, int(FITTED * coefficients(n)))
+    if model is None:
+        return directions, False
+    if not math.isfinite(trust.radius):
+        trust.radius = model.radius
+    s = trust_step(model, trust.radius)
+    target = np.clip(best.u + s, space.lower_u, space.upper_u)
+    s = target - best.u
+    predicted = -(model.gradient @ s + 0.5 * s @ model.hessian @ s)
+    eigenvalues, vectors = np.linalg.eigh(model.hessian)
+    floor = settings.value_tolerance * max(1.0, abs(best.value))
+    # only a model that reproduces its own sample to within the value tolerance may end the search
+    convex = bool(eigenvalues[0] > 0.0) and model.misfit <= floor
+    if float(np.max(np.abs(s))) <= settings.line_tolerance or not predicted > 0.0:
+        return directions, convex and predicted <= floor
+    before = best.value
+    values = yield Batch(points=space.to_user(target)[None, :], purpose="model")
+    value = float(values[0])
+    best.answered += math.isfinite(value)
+    best.seen(target, value)
+    ratio = (before - value) / predicted if math.isfinite(value) else -math.inf
+    length = float(np.linalg.norm(s))
+    if ratio >= 0.75 and length >= 0.5 * trust.radius:
+        trust.radius = 2.0 * trust.radius
+    elif ratio < 0.25:
+        trust.radius = 0.5 * length
+    settled = convex and ratio > 0.0 and length <= settings.point_tolerance and predicted <= floor
+    if ratio >= 0.5 and convex:
+        directions = DirectionSet(
+            vectors=vectors.T.copy(),
+            curvatures=eigenvalues.copy(),
+            steps=np.full(n, max(length, 100.0 * settings.line_tolerance)),
+        )
+    return directions, settled

@@ -1,0 +1,175 @@
+"""A quadratic model of the objective from the search's own evaluations, and its trust-region step.
+
+Theory of operation.  Every value the direction-set search receives is a sample of the objective;
+its line searches alone gather enough of them to determine a quadratic in ``n`` variables
+(``(n + 1)(n + 2) / 2`` coefficients) after about ``n / 4`` cycles.  This module keeps those samples
+(`Sample`, a capped store: the oldest points beyond the cap are dropped) and fits
+
+    m(u + s) = c + gᵀs + ½ sᵀHs
+
+by least squares to the ``points`` samples nearest to the centre ``u`` (regression with more points
+than coefficients; Conn, Scheinberg & Vicente 2009, ch. 4).  The displacements are divided by the
+sample's radius before the fit, so the design matrix's condition number measures the geometry of
+the sample alone (its poisedness; ibid., ch. 3 and 6): a model whose scaled design is worse
+conditioned than ``POISED`` is not trusted, and the search carries on without it.
+
+A trusted model proposes the minimizer of ``m`` inside a ball of radius ``radius`` (the trust
+region; Conn, Gould & Toint 2000, ch. 7), found from the eigendecomposition of ``H``: the step
+``-(H + λI)⁻¹g`` with the least ``λ >= max(0, -λ_min(H))`` that keeps it inside the ball.  The
+search then clips it to the bounds; it never evaluates outside them.
+
+Cost.  A fit on ``p`` points costs ``O(p N²)`` with ``N`` the number of coefficients, so the search
+fits only once per cycle, on at most ``points`` samples (a multiple of ``N``), and not at all above
+``LARGEST`` variables (measured: the fit then costs more than it saves; see the benchmarks).
+
+References
+----------
+.. [1] A. R. Conn, K. Scheinberg and L. N. Vicente, *Introduction to Derivative-Free
+   Optimization*, SIAM, 2009, ch. 3-6.
+.. [2] A. R. Conn, N. I. M. Gould and Ph. L. Toint, *Trust-Region Methods*, SIAM, 2000, ch. 7.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+POISED = 1e12  # condition number of the scaled design matrix beyond which the fit is not trusted
+LARGEST = 50  # above this many variables the model is switched off (its cost outgrows its use)
+
+
+def coefficients(n: int) -> int:
+    """Number of coefficients of a quadratic in ``n`` variables.
+
+    >>> coefficients(2)
+    6
+    """
+    return (n + 1) * (n + 2) // 2
+
+
+class Sample:
+    """The evaluated points (scaled coordinates) and their finite values, at most ``capacity``."""
+
+    def __init__(self, n: int, capacity: int) -> None:
+        self.points = np.empty((capacity, n))
+        self.values = np.empty(capacity)
+        self.size = 0
+        self.next = 0  # where the next point goes once the store is full (oldest first out)
+        self.added = 0  # points ever added
+
+    def add(self, u: np.ndarray, value: float) -> None:
+        if not math.isfinite(value):
+            return
+        capacity = len(self.values)
+        i = self.size if self.size < capacity else self.next
+        self.points[i] = u
+        self.values[i] = value
+        if self.size < capacity:
+            self.size += 1
+        else:
+            self.next = (self.next + 1) % capacity
+        self.added += 1
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Quadratic:
+    """``m(centre + s) = value + gradientᵀs + ½ sᵀ hessian s``; ``radius`` spans the sample."""
+
+    centre: np.ndarray
+    value: float
+    gradient: np.ndarray
+    hessian: np.ndarray
+    radius: float
+    misfit: float  # largest residual of the fit (objective units): 0 for an interpolating fit
+
+    def predict(self, s: np.ndarray) -> float:
+        return float(self.value + self.gradient @ s + 0.5 * s @ self.hessian @ s)
+
+
+def fit(sample: Sample, centre: np.ndarray, points: int) -> Quadratic | None:
+    """Least-squares quadratic through the ``points`` samples nearest ``centre``.
+
+    None when there are fewer samples than coefficients or their geometry is not poised (the
+    scaled design matrix is worse conditioned than `POISED`).
+    """
+    n = sample.points.shape[1]
+    count = coefficients(n)
+    if sample.size < count:
+        return None
+    u = sample.points[: sample.size] - centre
+    distance = np.einsum("ij,ij->i", u, u)
+    if sample.size > points:
+        chosen = np.argpartition(distance, points - 1)[:points]
+        u, values = u[chosen], sample.values[: sample.size][chosen]
+        distance = distance[chosen]
+    else:
+        values = sample.values[: sample.size]
+    radius = math.sqrt(float(np.max(distance)))
+    if not radius > 0.0:
+        return None
+    d = u / radius
+    rows, cols = np.triu_indices(n)
+    products = d[:, rows] * d[:, cols]
+    products[:, rows == cols] *= 0.5
+    design = np.hstack([np.ones((len(d), 1)), d, products])
+    offset = float(np.min(values))
+    span = float(np.max(values)) - offset
+    if not span > 0.0:
+        return None
+    try:
+        solution, _, rank, singular = np.linalg.lstsq(design, (values - offset) / span, rcond=None)
+    except np.linalg.LinAlgError:
+        return None
+    if rank < count or singular[0] > POISED * singular[-1]:
+        return None
+    h = np.zeros((n, n))
+    h[rows, cols] = solution[n + 1:]
+    h = h + h.T - np.diag(np.diag(h))
+    return Quadratic(
+        centre=centre.copy(),
+        value=offset + span * float(solution[0]),
+        gradient=span * solution[1 : n + 1] / radius,
+        hessian=span * h / radius**2,
+        radius=radius,
+        misfit=span * float(np.max(np.abs(design @ solution - (values - offset) / span))),
+    )
+
+
+def trust_step(model: Quadratic, radius: float) -> np.ndarray:
+    """The minimizer of the model inside the ball ``|s| <= radius`` (see the module docstring).
+
+    >>> q = Quadratic(centre=np.zeros(2), value=0.0, gradient=np.array([-2.0, 0.0]),
+    ...               hessian=np.diag([1.0, 4.0]), radius=1.0, misfit=0.0)
+    >>> trust_step(q, 10.0), trust_step(q, 1.0).round(6)
+    (array([2., 0.]), array([1., 0.]))
+    """
+    eigenvalues, vectors = np.linalg.eigh(model.hessian)
+    g = vectors.T @ model.gradient
+
+    def step(shift: float) -> np.ndarray:
+        return -g / (eigenvalues + shift)
+
+    low = max(0.0, -float(eigenvalues[0]))
+    tiny = 1e-12 * max(1.0, float(np.max(np.abs(eigenvalues))))
+    if low == 0.0 and eigenvalues[0] > tiny:
+        s = step(0.0)
+        if np.linalg.norm(s) <= radius:
+            return vectors @ s
+    # the boundary solution: |s(λ)| = radius, |s| falls as λ grows (bisection on a log scale)
+    lo, hi = low + tiny, low + tiny + float(np.linalg.norm(g)) / radius + tiny
+    if np.linalg.norm(step(lo)) <= radius:  # the hard case: g has no part along the lowest vector
+        s = step(lo)
+        rest = math.sqrt(max(radius**2 - float(s @ s), 0.0))
+        s[0] += rest
+        return vectors @ s
+    for _ in range(100):
+        mid = math.sqrt(lo * hi) if lo > 0.0 else 0.5 * (lo + hi)
+        if np.linalg.norm(step(mid)) > radius:
+            lo = mid
+        else:
+            hi = mid
+        if hi - lo <= 1e-12 * hi:
+            break
+    return vectors @ step(hi)
