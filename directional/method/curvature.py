@@ -12,7 +12,10 @@ point it returns is checked.
 2. Paid check.  A Hessian in scaled coordinates (`directional.method.space`) over the parameters that are
    not on a bound: by numdifftools' central differences with Richardson extrapolation and its
    error estimate (``check=True``, 6 n² + 1 evaluations), or by one plain central-difference
-   stencil (``check="quick"``, 2 n² + 1).  Every stencil point is known before any value is, so
+   stencil (``check="quick"``, 2 n² + 1).  The default (``check=True``, "escalating") measures
+   the one stencil first and pays for the extrapolated Hessian only when an eigenvalue's error bar
+   leaves its sign in doubt; a check the budget left over by the search cannot pay for is not
+   begun (UNCHECKED, with the reason).  Every stencil point is known before any value is, so
    the stencil goes to the driver as one batch (an executor evaluates it in parallel); see
    `directional.method.hessian`.  Steps are never below what the noise allows; with a stated noise
    level, a stencil whose steps were sized from a curvature that the measurement belies is
@@ -73,20 +76,51 @@ Check = Generator[Batch, np.ndarray, "Checked"]
 
 
 def check_method(check: object) -> str | None:
-    """The check the caller asked for: "extrapolated" (True), "quick", or None (False).
+    """The check the caller asked for: "escalating" (True, the default), "quick", "extrapolated",
+    or None (False).
+
+    "escalating" measures one stencil (as "quick") and pays for the extrapolated Hessian only when
+    an eigenvalue's error bar leaves its sign in doubt (`undecided`).
 
     Raises
     ------
     ProblemError
         For anything else.
     """
-    if check is True or check == "extrapolated":
+    if check is True:
+        return "escalating"
+    if check == "extrapolated":
         return "extrapolated"
     if check == "quick":
         return "quick"
     if check is False or check is None:
         return None
-    raise ProblemError(f"check must be True, False or 'quick', got {check!r}")
+    raise ProblemError(f"check must be True, False, 'quick' or 'extrapolated', got {check!r}")
+
+
+def check_cost(method: str, free: int) -> int:
+    """Evaluations a check over ``free`` parameters can spend at most: one stencil of 2 k² + 1
+    ("quick", and the first stage of "escalating"), numdifftools' 6 k² + 1 ("extrapolated").
+
+    >>> check_cost("quick", 3), check_cost("extrapolated", 3)
+    (19, 55)
+    """
+    return (6 if method == "extrapolated" else 2) * free * free + 1
+
+
+UNSURE = 1e-6  # escalating check: a single stencil's eigenvalues are trusted above this (relative)
+
+
+def undecided(checked: Checked) -> bool:
+    """Whether a single stencil's verdict is in doubt: an eigenvalue (of the equilibrated Hessian)
+    within ten times its error bar, widened by ``UNSURE`` times the largest for the truncation
+    error one stencil cannot measure (common practice, no source)."""
+    c = checked.curvature
+    if c is None or c.error is None or checked.eigenvalues is None:
+        return False
+    eigenvalues, margins = checked.eigenvalues
+    widened = 10.0 * margins + UNSURE * float(np.max(np.abs(eigenvalues)))
+    return bool(np.any(np.abs(eigenvalues) <= widened))
 
 
 def escape_count(escapes: object) -> int:
@@ -278,6 +312,7 @@ class Checked:
     curvature: Curvature | None
     note: str = ""
     escape: np.ndarray | None = None
+    eigenvalues: tuple[np.ndarray, np.ndarray] | None = None  # equilibrated, with their error bars
 
 
 def check_point(
@@ -289,6 +324,7 @@ def check_point(
     method: str,
     noise: float | None,
     active: np.ndarray,
+    room: float = math.inf,
 ) -> Check:
     """The paid check at the scaled point ``u0`` as a generator for the driver.
 
@@ -297,7 +333,30 @@ def check_point(
     measured diagonal comes out below a quarter of the curvature the steps were sized for, the
     steps are sized again from the measured one and the stencil is evaluated anew (at most
     ``RESIZES`` times).  Without a noise level the stencil is evaluated once.
+
+    ``room`` is what is left of the budget: a check it cannot pay for is not begun (UNCHECKED,
+    with the reason), and method "escalating" escalates only when the room allows.
     """
+    if method == "escalating":
+        k = int((~active).sum())
+        first = yield from check_point(
+            space, u0, f0, free_scaled, method="quick", noise=noise, active=active, room=room
+        )
+        if first.curvature is None or first.curvature.source == "free" or not undecided(first):
+            return first
+        if room - check_cost("quick", k) < check_cost("extrapolated", k):
+            note = ("an eigenvalue of the one-stencil check lies near its error bar; the budget "
+                    "left cannot pay for the extrapolated check that would settle it")
+            return dataclasses.replace(first, note=(first.note + "; " if first.note else "") + note)
+        return (yield from check_point(
+            space, u0, f0, free_scaled, method="extrapolated", noise=noise, active=active
+        ))
+    if room < check_cost(method, int((~active).sum())):
+        return Checked(
+            verdict=Verdict.UNCHECKED, curvature=free_record(space, free_scaled),
+            note=(f"not checked: the budget left ({room:g} evaluations) cannot pay for the "
+                  f"curvature check ({check_cost(method, int((~active).sum()))} at most)"),
+        )
     free = ~active
     free_rec = free_record(space, free_scaled)
     if not free.any():
@@ -364,7 +423,8 @@ def _verdict(
         escape = np.zeros(space.size)
         most = directions[:, int(np.argmin(eigenvalues))]
         escape[free] = most / np.linalg.norm(most)
-    return Checked(verdict=verdict, curvature=curvature, escape=escape)
+    return Checked(verdict=verdict, curvature=curvature, escape=escape,
+                   eigenvalues=(eigenvalues, margins))
 
 
 # ----------------------------------------------------------------------------- escape
@@ -473,9 +533,11 @@ def settle(
                            notes=tuple(notes), escapes=escaped)
         before = driver.spent
         active = space.on_bound(space.to_user(outcome.point), 10.0 * settings.point_tolerance)
+        room = getattr(driver, "budget", None)
+        room = math.inf if room is None else room - driver.spent
         checked = driver.run(
             check_point(space, outcome.point, outcome.value, free_scaled, method=check, noise=noise,
-                        active=active),
+                        active=active, room=room),
             search=search,
         )
         curvature = checked.curvature
