@@ -17,6 +17,8 @@ STYLES = {  # one look per solver, kept across figures
     "no curvature reuse": dict(color="tab:brown", linestyle=":"),
     "driver + search": dict(color="tab:gray", linestyle="--"),
     "search alone": dict(color="tab:olive", linestyle=":"),
+    "no model steps": dict(color="tab:pink", linestyle="--"),
+    "search alone, no model": dict(color="tab:cyan", linestyle="-."),
 }
 
 

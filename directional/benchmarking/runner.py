@@ -199,7 +199,7 @@ def _document(plan: Plan, study: Study, quadratics, overhead, line, orders, orde
         "## Targets",
         "",
     ]
-    targets = [writeup.profile_target(study)]
+    targets = [writeup.profile_target(study), writeup.tail_target(study)]
     targets += writeup.quadratic_target(quadratics)
     targets += writeup.overhead_target(overhead)
     targets += writeup.line_target(line, order, order_pairs)

@@ -146,7 +146,7 @@ def overhead(sizes: Sequence[int], evaluations: int, nelder_mead: bool = True) -
     out = []
     for n in sizes:
         runs = [("directional", _run_ours), ("driver + search", _run_driver),
-                ("search alone", _run_search)]
+                ("search alone", _run_search), ("search alone, no model", _run_search_plain)]
         if nelder_mead:
             runs.append(("Nelder-Mead", _run_nelder_mead))
         for name, run in runs:
@@ -178,8 +178,14 @@ def _run_driver(f: Callable, start: np.ndarray, budget: int) -> None:
     Driver(objective=f, budget=budget).run(powell(build_space(start), Settings()))
 
 
-def _run_search(f: Callable, start: np.ndarray, budget: int) -> None:
-    search = powell(build_space(start), Settings())
+def _run_search_plain(f: Callable, start: np.ndarray, budget: int) -> None:
+    _run_search(f, start, budget, Settings(model_steps=False))
+
+
+def _run_search(
+    f: Callable, start: np.ndarray, budget: int, settings: Settings | None = None
+) -> None:
+    search = powell(build_space(start), settings or Settings())
     spent = 0
     try:
         batch = next(search)

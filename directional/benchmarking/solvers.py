@@ -8,8 +8,9 @@ the objective, so that all solvers are measured the same way from the outside.
   curvature check, which is not part of the search).
 - Ablations of the method, through the same search with one idea switched off in its `Settings`:
   golden section only (no parabolic steps), no direction replacement (the set stays the axes),
-  no curvature reuse (every line search measures its curvature afresh).  They run only where the
-  installed `directional.method.search.Settings` has the switch.
+  no curvature reuse (every line search measures its curvature afresh), no model steps (no
+  quadratic model: neither its steps nor its realignment of the directions, nor its stop).  They
+  run only where the installed `directional.method.search.Settings` has the switch.
 - The baselines of `baselines` (Nelder–Mead, Hooke–Jeeves, coordinate search by golden section).
 """
 
@@ -98,6 +99,7 @@ ABLATIONS = {
     "golden section only": {"parabolic": False},
     "no direction replacement": {"replace_directions": False},
     "no curvature reuse": {"reuse_curvature": False},
+    "no model steps": {"model_steps": False},
 }
 
 
