@@ -8,7 +8,9 @@ its line searches alone gather enough of them to determine a quadratic in ``n`` 
     m(u + s) = c + gᵀs + ½ sᵀHs
 
 by least squares to the ``points`` samples nearest to the centre ``u`` (regression with more points
-than coefficients; Conn, Scheinberg & Vicente 2009, ch. 4).  The displacements are divided by the
+than coefficients; Conn, Scheinberg & Vicente 2009, ch. 4).  Until the samples fix every
+coefficient, the Hessian left free is the one nearest the last model's (least change, Powell 2004),
+so that a model is useful after ``n + 1`` samples already.  The displacements are divided by the
 sample's radius before the fit, so the design matrix's condition number measures the geometry of
 the sample alone (its poisedness; ibid., ch. 3 and 6): a model whose scaled design is worse
 conditioned than ``POISED`` is not trusted, and the search carries on without it.
@@ -26,7 +28,9 @@ References
 ----------
 .. [1] A. R. Conn, K. Scheinberg and L. N. Vicente, *Introduction to Derivative-Free
    Optimization*, SIAM, 2009, ch. 3-6.
-.. [2] A. R. Conn, N. I. M. Gould and Ph. L. Toint, *Trust-Region Methods*, SIAM, 2000, ch. 7.
+.. [2] M. J. D. Powell, "Least Frobenius norm updating of quadratic models that satisfy
+   interpolation conditions", *Mathematical Programming* 100 (2004) 183-215.
+.. [3] A. R. Conn, N. I. M. Gould and Ph. L. Toint, *Trust-Region Methods*, SIAM, 2000, ch. 7.
 """
 
 from __future__ import annotations
@@ -82,58 +86,77 @@ class Quadratic:
     gradient: np.ndarray
     hessian: np.ndarray
     radius: float
-    misfit: float  # largest residual of the fit (objective units): 0 for an interpolating fit
+    misfit: float  # largest residual of the fit (objective units); inf when not determined
 
     def predict(self, s: np.ndarray) -> float:
         return float(self.value + self.gradient @ s + 0.5 * s @ self.hessian @ s)
 
 
-def fit(sample: Sample, centre: np.ndarray, points: int) -> Quadratic | None:
+def fit(
+    sample: Sample, centre: np.ndarray, points: int, prior: np.ndarray | None = None
+) -> Quadratic | None:
     """Least-squares quadratic through the ``points`` samples nearest ``centre``.
 
-    None when there are fewer samples than coefficients or their geometry is not poised (the
-    scaled design matrix is worse conditioned than `POISED`).
+    With fewer samples than coefficients, or samples that do not fix every second derivative,
+    the Hessian is the one closest to ``prior`` (zero when None) in the Frobenius norm among
+    those that fit best: the least-change model of Powell (2004), the minimum-norm model of Conn,
+    Scheinberg & Vicente (2009, ch. 5).  Such a model is not ``determined``.  None when fewer than
+    ``n + 1`` samples or samples that do not fix the linear part (scaled condition beyond
+    `POISED`).
     """
     n = sample.points.shape[1]
-    count = coefficients(n)
-    if sample.size < count:
+    if sample.size < n + 1:
         return None
     u = sample.points[: sample.size] - centre
     distance = np.einsum("ij,ij->i", u, u)
+    values = sample.values[: sample.size]
     if sample.size > points:
         chosen = np.argpartition(distance, points - 1)[:points]
-        u, values = u[chosen], sample.values[: sample.size][chosen]
-        distance = distance[chosen]
-    else:
-        values = sample.values[: sample.size]
+        u, values, distance = u[chosen], values[chosen], distance[chosen]
     radius = math.sqrt(float(np.max(distance)))
-    if not radius > 0.0:
+    offset = float(np.min(values))
+    span = float(np.max(values)) - offset
+    if not (radius > 0.0 and span > 0.0):
         return None
     d = u / radius
     rows, cols = np.triu_indices(n)
     products = d[:, rows] * d[:, cols]
-    products[:, rows == cols] *= 0.5
-    design = np.hstack([np.ones((len(d), 1)), d, products])
-    offset = float(np.min(values))
-    span = float(np.max(values)) - offset
-    if not span > 0.0:
-        return None
+    diagonal = rows == cols
+    products[:, diagonal] *= 0.5
+    # the Frobenius norm counts an off-diagonal coefficient twice: weight its column by 1/sqrt(2)
+    weight = np.where(diagonal, 1.0, math.sqrt(2.0))
+    linear = np.hstack([np.ones((len(d), 1)), d])
+    scaled_prior = np.zeros(len(rows))
+    if prior is not None:
+        scaled_prior = prior[rows, cols] * radius**2 / span
+    target = (values - offset) / span - products @ scaled_prior
     try:
-        solution, _, rank, singular = np.linalg.lstsq(design, (values - offset) / span, rcond=None)
+        basis, triangle = np.linalg.qr(linear)
+        singular = np.linalg.svd(triangle, compute_uv=False)
+        if singular[-1] <= singular[0] / POISED:
+            return None
+        # the part of the data the linear terms cannot explain fixes the change of the Hessian
+        rest = products / weight - basis @ (basis.T @ (products / weight))
+        change, _, rank, quadratic = np.linalg.lstsq(
+            rest, target - basis @ (basis.T @ target), rcond=1.0 / POISED
+        )
     except np.linalg.LinAlgError:
         return None
-    if rank < count or singular[0] > POISED * singular[-1]:
-        return None
+    h_coefficients = scaled_prior + change / weight
+    residual = (values - offset) / span - products @ h_coefficients
+    line = np.linalg.solve(triangle, basis.T @ residual)  # the linear part, by the same QR
+    determined = rank == len(rows) and len(d) >= coefficients(n)
+    misfit = span * float(np.max(np.abs(linear @ line - residual)))
     h = np.zeros((n, n))
-    h[rows, cols] = solution[n + 1:]
+    h[rows, cols] = h_coefficients
     h = h + h.T - np.diag(np.diag(h))
     return Quadratic(
         centre=centre.copy(),
-        value=offset + span * float(solution[0]),
-        gradient=span * solution[1 : n + 1] / radius,
+        value=offset + span * float(line[0]),
+        gradient=span * line[1:] / radius,
         hessian=span * h / radius**2,
         radius=radius,
-        misfit=span * float(np.max(np.abs(design @ solution - (values - offset) / span))),
+        misfit=misfit if determined else math.inf,
     )
 
 

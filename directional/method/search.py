@@ -49,6 +49,7 @@ Search = Generator[Batch, np.ndarray, Outcome]
 FIRST_STEP = 0.1  # first probe along an axis, in scaled units (a tenth of the problem's size)
 SKEWED = 1e3  # condition of the direction set beyond which a calm cycle is not trusted
 SAMPLES = 3  # the model's store holds this many times the coefficients of a quadratic
+MODEL_STEPS = 8  # at most this many model steps in a row, while each is a success
 FITTED = 2.0  # the model is fitted to this many times as many points as it has coefficients
 FARTHEST = 1e10  # no line search goes farther, in scaled units: a descent to infinity stops there
 
@@ -103,6 +104,7 @@ class _Trust:
 
     def __init__(self) -> None:
         self.radius = math.nan
+        self.hessian: np.ndarray | None = None  # the last model's, for the least-change fit
 
 
 def powell(space: Space, settings: Settings, start: np.ndarray | None = None) -> Search:
@@ -128,6 +130,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
         while calm < 2:
             cycles += 1
             best.answered = 0
+            begun = best.u.copy()
             directions, moved, dropped = yield from _cycle(space, settings, best, directions)
             if best.answered == 0:
                 reason = "every evaluation of a whole cycle failed: the best point is walled in"
@@ -135,7 +138,14 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             settled = False
             if sample is not None:
                 before = best.u.copy(), best.value
-                directions, settled = yield from _model_step(space, settings, best, directions, trust)
+                # the model may go at least as far as the line searches just went
+                trust.radius = max(trust.radius, float(np.linalg.norm(best.u - begun)))
+                for _ in range(MODEL_STEPS):
+                    directions, settled, gained = yield from _model_step(
+                        space, settings, best, directions, trust
+                    )
+                    if settled or not gained:
+                        break
                 moved = max(moved, float(np.max(np.abs(best.u - before[0]))))
                 dropped += before[1] - best.value
             small = moved <= settings.point_tolerance and dropped <= (
@@ -284,7 +294,7 @@ def _outcome(
 
 def _model_step(
     space: Space, settings: Settings, best: _Tracker, directions: DirectionSet, trust: _Trust
-) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool]]:
+) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool, bool]]:
     """Fit the quadratic model around the best point and evaluate its trust-region minimizer.
 
     Returns the direction set (realigned with the model's eigenvectors when the model predicted
@@ -293,9 +303,10 @@ def _model_step(
     """
     assert best.sample is not None
     n = space.size
-    model = fit(best.sample, best.u, int(FITTED * coefficients(n)))
+    model = fit(best.sample, best.u, int(FITTED * coefficients(n)), trust.hessian)
     if model is None:
-        return directions, False
+        return directions, False, False
+    trust.hessian = model.hessian
     if not math.isfinite(trust.radius):
         trust.radius = model.radius
     s = trust_step(model, trust.radius)
@@ -307,7 +318,7 @@ def _model_step(
     # only a model that reproduces its own sample to within the value tolerance may end the search
     convex = bool(eigenvalues[0] > 0.0) and model.misfit <= floor
     if float(np.max(np.abs(s))) <= settings.line_tolerance or not predicted > 0.0:
-        return directions, convex and predicted <= floor
+        return directions, convex and predicted <= floor, False
     before = best.value
     values = yield Batch(points=space.to_user(target)[None, :], purpose="model")
     value = float(values[0])
@@ -326,4 +337,4 @@ def _model_step(
             curvatures=eigenvalues.copy(),
             steps=np.full(n, max(length, 100.0 * settings.line_tolerance)),
         )
-    return directions, settled
+    return directions, settled, ratio >= 0.5
