@@ -80,7 +80,7 @@ BAD_ARGUMENTS = [
     (dict(start=[0.5, 1.0], time_limit=math.nan), "time_limit must be a positive"),
     (dict(start=[0.5, 1.0], time_limit=True), "time_limit must be a positive"),
     (dict(start=[0.5, 1.0], time_limit="60"), "time_limit must be a positive"),
-    (dict(start=[0.5, 1.0], check="yes"), "check must be True, False or 'quick'"),
+    (dict(start=[0.5, 1.0], check="yes"), "check must be True, False, 'quick' or 'extrapolated'"),
     (dict(start=[0.5, 1.0], escapes=-1), "escapes must be a whole number"),
     (dict(start=[0.5, 1.0], noise=-1.0), "noise must be a finite number >= 0"),
     (dict(start=[0.5, 1.0], noise="loud"), "noise must be None, a number or 'estimate'"),

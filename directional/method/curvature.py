@@ -99,13 +99,14 @@ def check_method(check: object) -> str | None:
 
 
 def check_cost(method: str, free: int) -> int:
-    """Evaluations a check over ``free`` parameters can spend at most: one stencil of 2 k² + 1
-    ("quick", and the first stage of "escalating"), numdifftools' 6 k² + 1 ("extrapolated").
+    """New evaluations a check over ``free`` parameters needs: one stencil of 2 k² + 1 points
+    ("quick", and the first stage of "escalating"), numdifftools' 6 k² + 1 ("extrapolated"),
+    less the centre, whose value the search already has.
 
     >>> check_cost("quick", 3), check_cost("extrapolated", 3)
-    (19, 55)
+    (18, 54)
     """
-    return (6 if method == "extrapolated" else 2) * free * free + 1
+    return (6 if method == "extrapolated" else 2) * free * free
 
 
 UNSURE = 1e-6  # escalating check: a single stencil's eigenvalues are trusted above this (relative)
@@ -355,7 +356,7 @@ def check_point(
         return Checked(
             verdict=Verdict.UNCHECKED, curvature=free_record(space, free_scaled),
             note=(f"not checked: the budget left ({room:g} evaluations) cannot pay for the "
-                  f"curvature check ({check_cost(method, int((~active).sum()))} at most)"),
+                  f"curvature check ({check_cost(method, int((~active).sum()))} evaluations)"),
         )
     free = ~active
     free_rec = free_record(space, free_scaled)
