@@ -16,7 +16,8 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   coordinate axes.
 - Model steps (`model`).  Every finite value the search receives is kept, and after each cycle
   a quadratic is fitted to the samples nearest the best point (least squares; until the samples
-  fix every coefficient, the Hessian nearest the last model's, Powell 2004).  Its minimizer
+  fix every coefficient, the Hessian nearest the last model's, Powell 2004, and such a model is
+  used only after a model step succeeded).  Its minimizer
   inside a trust region, clipped to the bounds, is evaluated; while such steps succeed (actual
   decrease at least half the predicted) more follow, and a convex model that predicted well
   replaces the direction set by its eigenvectors with their eigenvalues as known curvatures, so
@@ -79,6 +80,7 @@ SKEWED = 1e3  # condition of the direction set beyond which a calm cycle is not 
 SAMPLES = 3  # the model's store holds this many times the coefficients of a quadratic
 MODEL_STEPS = 8  # at most this many model steps in a row, while each is a success
 SETTLE_MISFIT = 1e-3  # a model may end the search when it misfits its sample by less (relative)
+GUESSES = False  # True: step on undetermined models too (measured: more evaluations wasted on MGH)
 FITTED = 2.0  # the model is fitted to this many times as many points as it has coefficients
 FARTHEST = 1e10  # no line search goes farther, in scaled units: a descent to infinity stops there
 
@@ -333,9 +335,9 @@ def _model_step(
     assert best.sample is not None
     n = space.size
     model = fit(best.sample, best.u, int(FITTED * coefficients(n)), trust.hessian)
-    if model is None:
+    # a model the samples do not determine is stepped on only after a model predicted well
+    if model is None or not (math.isfinite(model.misfit) or trust.hessian is not None or GUESSES):
         return directions, False, False
-    trust.hessian = model.hessian
     if not math.isfinite(trust.radius):
         trust.radius = model.radius
     with np.errstate(all="ignore"):  # a model of values near overflow gives no usable step
@@ -362,6 +364,7 @@ def _model_step(
         trust.radius = 2.0 * trust.radius
     elif ratio < 0.25:
         trust.radius = 0.5 * length
+    trust.hessian = model.hessian if ratio >= 0.5 else None
     settled = convex and ratio > 0.0 and length <= settings.point_tolerance and predicted <= floor
     if ratio >= 0.5 and convex:
         directions = DirectionSet(
