@@ -339,9 +339,11 @@ def _search(
         return outcome
     other = driver.run(_from_start(space, squares))
     if other.value < outcome.value - 4.0 * EPSILON * abs(outcome.value):
+        lower = outcome.value - other.value  # the size of the gain, not the two values again
         note = (
-            f"Levenberg-Marquardt from the start reached S = {other.value:.10g}, below the "
-            f"{outcome.value:.10g} of the direction-set search; its point is taken"
+            f"Levenberg-Marquardt from the start reached a sum of squares lower by {lower:.2g} "
+            f"(relative {lower / abs(outcome.value):.1g}) than the direction-set search; "
+            "its point is taken"
         )
         outcome = _replaced(outcome, other, note)
     return outcome

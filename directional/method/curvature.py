@@ -542,8 +542,11 @@ def settled_solution(solution: Solution, settled: Settled, notes: tuple[str, ...
     if settled.point is not None and math.isfinite(settled.outcome.value):
         point, value = settled.point, settled.outcome.value
         if solution.value < value:
+            # the best value is printed beside the notes: say by how much it was beaten, not again
+            # what it is (two values equal to ten digits would read as no news)
             notes += (
-                f"an evaluation of the check came out lower, f = {solution.value:.10g} at "
+                f"an evaluation of the check came out lower by {value - solution.value:.2g} "
+                f"(relative {(value - solution.value) / max(abs(value), 1e-300):.1g}) at "
                 + "(" + ", ".join(f"{n}={v:.6g}" for n, v in zip(solution.names, solution.point))
                 + ")",
             )

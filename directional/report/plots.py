@@ -330,7 +330,8 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
     if log:
         ax.set_yscale("log")
     elif finite.size:
-        low, high = float(finite.min()), float(np.quantile(finite, 0.9))
+        # the top follows most values, but never cuts off the start (the first value that counted)
+        low, high = float(finite.min()), max(float(np.quantile(finite, 0.9)), float(finite[0]))
         pad = 0.05 * (high - low) if high > low else max(abs(low), 1.0) * 0.05
         ax.set_ylim(low - pad, high + pad)
     failed = ~ok
@@ -340,14 +341,14 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
                    s=25, label=f"failed ({failed.sum()})", zorder=4, clip_on=False)
     ax.set_xlabel("evaluation")
     ax.set_ylabel(_value_label(kind) + (" (log scale)" if log else ""))
-    heading = "Best value against evaluations"
-    ax.set_title(f"{title}\n{heading}" if title else heading)
-    ax.legend(loc="upper right")
-    ax.annotate(
-        f"best {sol.value:.6g} after {sol.evaluations} evaluations; "
-        f"stop: {sol.stop.value}, verdict: {sol.verdict.value}",
-        xy=(0.01, 0.02), xycoords="axes fraction", fontsize=9, color="0.25",
+    # the caption and the legend stand outside the axes, where they cover no point (the failed
+    # evaluations' crosses sit on the bottom edge)
+    heading = (
+        f"Best value against evaluations\nbest {sol.value:.6g} after {sol.evaluations} "
+        f"evaluations; stop: {sol.stop.value}, verdict: {sol.verdict.value}"
     )
+    ax.set_title(f"{title}\n{heading}" if title else heading)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
     return _save(fig, path)
 
 
@@ -417,6 +418,7 @@ def _profiles(
         if log:
             ax.set_xscale("log")
         ax.set_xlim(axes.to_x(lo, i), axes.to_x(hi, i))
+        readable_ticks(ax.xaxis, log)
         ax.set_xlabel(_label(sol, i) + (" (log scale)" if log else ""))
         ax.set_ylabel(_value_label(kind))
         head = f"{sol.names[i]} = {sol.point[i]:.5g}"
@@ -434,11 +436,39 @@ def _profiles(
 
 
 def _log_axis(axes: _Axes, i: int, lo: float, hi: float) -> bool:
-    """A log axis for a log-scaled parameter whose range spans at least a factor of ten.
+    """A log axis exactly for a log-scaled parameter, whatever the range drawn.
 
-    Narrower ranges read better on a linear axis (log tick labels there are all exponents).
+    The choice follows the parameter's scale so that the same parameter reads the same way in
+    every figure; `readable_ticks` keeps a narrow log range legible (plain numbers, no exponents).
     """
-    return bool(axes.log[i] and hi - lo >= math.log(10.0))
+    return bool(axes.log[i])
+
+
+def readable_ticks(axis: Any, log: bool, most: int = 5) -> None:
+    """At most about ``most`` + 1 major ticks on ``axis``, labelled as plain numbers.
+
+    Call after the limits are set.  A linear axis gets "nice" steps; a log axis over a decade or
+    more gets powers of ten (and 2, 5 between them when there is room), a narrower one gets nice
+    linear steps, which a log axis places correctly too.  Minor ticks carry no label, so labels
+    never crowd a narrow panel (matplotlib's default chooses up to nine ticks and labels the minor
+    ticks of a short log axis).
+    """
+    from matplotlib import ticker
+
+    low, high = sorted(axis.get_view_interval())
+    plain = ticker.FuncFormatter(lambda v, _: f"{v:.6g}")
+    if log and low > 0 and high / low >= 10.0:
+        decades = math.log10(high / low)
+        subs = (1.0,) if decades > 2.5 else (1.0, 2.0, 5.0)
+        axis.set_major_locator(ticker.LogLocator(base=10.0, subs=subs, numticks=most + 2))
+        axis.set_major_formatter(plain)
+        axis.set_minor_formatter(ticker.NullFormatter())
+    else:
+        axis.set_major_locator(ticker.MaxNLocator(nbins=most, steps=[1, 2, 2.5, 5, 10]))
+        if log:
+            axis.set_major_formatter(plain)
+            axis.set_minor_locator(ticker.NullLocator())
+            axis.set_minor_formatter(ticker.NullFormatter())
 
 
 def _moved(point: np.ndarray, i: int, value: float) -> np.ndarray:
@@ -550,6 +580,8 @@ def _path(
         ax.set_yscale("log")
     ax.set_xlim(axes.to_x(box[0][0], i), axes.to_x(box[0][1], i))
     ax.set_ylim(axes.to_x(box[1][0], j), axes.to_x(box[1][1], j))
+    readable_ticks(ax.xaxis, logs[0])
+    readable_ticks(ax.yaxis, logs[1])
     ax.set_xlabel(_label(sol, i) + (" (log scale)" if logs[0] else ""))
     ax.set_ylabel(_label(sol, j) + (" (log scale)" if logs[1] else ""))
     heading = f"Search path over the objective: {sol.names[i]} and {sol.names[j]}"
@@ -581,7 +613,7 @@ def _scattered(fig: Figure, ax: Any, sol: Solution, kind: str) -> bool:
 
     filled = ax.tricontourf(triangles, values, levels=levels, cmap="viridis",
                             norm=BoundaryNorm(levels, 256), alpha=0.9, zorder=1)
-    bar = fig.colorbar(filled, ax=ax, format="%.3g")
+    bar = fig.colorbar(filled, ax=ax, format=level_format(levels))
     bar.set_label(_value_label(kind))
     return True
 
@@ -605,6 +637,18 @@ def contour_levels(values: np.ndarray, floor: float = 0.02) -> np.ndarray | None
     return np.unique(levels)
 
 
+def level_format(levels: np.ndarray, least: int = 3) -> str:
+    """The shortest ``%.Ng`` format, N >= ``least``, that prints every level differently.
+
+    Levels close together above a large value ("25.5001, 25.501, 25.51") would otherwise carry one
+    label over and over on the colour bar.
+    """
+    for digits in range(least, 17):
+        if len({f"{v:.{digits}g}" for v in levels}) == len(levels):
+            return f"%.{digits}g"
+    return "%.17g"
+
+
 def _figure_legend(fig: Figure) -> None:
     """One legend below the panels, each label once."""
     seen: dict[str, Any] = {}
@@ -617,21 +661,31 @@ def _figure_legend(fig: Figure) -> None:
 
 
 def _contours(fig: Figure, ax: Any, gx: np.ndarray, gy: np.ndarray, grid: np.ndarray, kind: str):
-    """Filled contours at levels spaced geometrically above the map's lowest value.
+    """The map as a smooth shading of the sampled values, coloured by the log of the rise.
 
-    The valley and the slopes then both show, whatever the range of the values.
+    Colours follow ``log(f - f_min + d)`` (``d`` the small rise of `contour_levels`), so the
+    valley and the slopes both show whatever the range.  A shading interpolated between the grid
+    nodes (Gouraud) rather than filled contours: contours of a valley narrower than a grid cell
+    break up into beads, and their lines crowd into white strips on steep slopes.  A failed
+    evaluation leaves a gap around its node only.  Rasterized: small in SVG.
     """
     levels = contour_levels(grid.ravel())
     if levels is None:
         return
-    from matplotlib.colors import BoundaryNorm
+    from matplotlib.colors import FuncNorm
 
-    masked = np.ma.masked_invalid(grid)
-    norm = BoundaryNorm(levels, 256)
-    filled = ax.contourf(gx, gy, masked, levels=levels, cmap="viridis", norm=norm, alpha=0.9,
-                         zorder=1)
-    ax.contour(gx, gy, masked, levels=levels, colors="white", linewidths=0.5, alpha=0.6, zorder=2)
-    bar = fig.colorbar(filled, ax=ax, format="%.3g")
+    low, d = float(levels[0]), float(levels[1] - levels[0])
+
+    def forward(v: Any) -> Any:
+        return np.log(np.maximum(np.asarray(v, dtype=float) - low, 0.0) + d)
+
+    def inverse(t: Any) -> Any:
+        return np.exp(t) - d + low
+
+    norm = FuncNorm((forward, inverse), vmin=low, vmax=float(levels[-1]))
+    shaded = ax.pcolormesh(gx, gy, np.ma.masked_invalid(grid), shading="gouraud", cmap="viridis",
+                           norm=norm, zorder=1, rasterized=True)
+    bar = fig.colorbar(shaded, ax=ax, ticks=levels[::2], format=level_format(levels[::2]))
     bar.set_label(_value_label(kind))
 
 
@@ -678,21 +732,21 @@ def _fit(series: list[dict[str, Any]], path: Path, title: str) -> Path:
 
 @_styled
 def _residual_series(series: list[dict[str, Any]], path: Path, title: str) -> Path:
-    """Data minus model at the minimum, in units of the data's sigma when it is known."""
+    """Model minus data at the minimum (the README's sign), in units of sigma when known."""
     n = len(series)
     fig = _figure(5.4 * n, 3.8)
     for k, s in enumerate(series):
         ax = fig.add_subplot(1, n, k + 1)
         x = np.asarray(s["x"], dtype=float)
-        r = np.asarray(s["observed"], dtype=float) - np.asarray(s["predicted"], dtype=float)
+        r = np.asarray(s["predicted"], dtype=float) - np.asarray(s["observed"], dtype=float)
         sigma = s.get("sigma")
         unit = s.get("unit", "")
         if sigma is not None:
             r = r / np.broadcast_to(np.asarray(sigma, dtype=float), r.shape)
             ax.axhspan(-2.0, 2.0, color="tab:green", alpha=0.1, label="± 2 sigma")
-            ax.set_ylabel("(data − model) / sigma")
+            ax.set_ylabel("(model − data) / sigma")
         else:
-            ax.set_ylabel(f"data − model [{unit}]" if unit else "data − model")
+            ax.set_ylabel(f"model − data [{unit}]" if unit else "model − data")
         ax.axhline(0.0, color="black", lw=0.8)
         ax.vlines(x, 0.0, r, color="tab:blue", lw=1.2)
         ax.plot(x, r, "o", color="tab:blue", ms=4, label="residual")

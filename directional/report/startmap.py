@@ -26,7 +26,7 @@ from matplotlib.figure import Figure
 
 from directional.api.explore import Landscape
 from directional.errors import ProblemError
-from directional.report.plots import contour_levels
+from directional.report.plots import contour_levels, level_format, readable_ticks
 
 DPI = 120
 STYLE = {"font.size": 11, "axes.titlesize": 12, "legend.fontsize": 9, "axes.grid": False}
@@ -87,6 +87,8 @@ def start_map(
             ax.set_yscale("log")
         ax.set_xlim(landscape.lower[i], landscape.upper[i])
         ax.set_ylim(landscape.lower[j], landscape.upper[j])
+        readable_ticks(ax.xaxis, log[0])
+        readable_ticks(ax.yaxis, log[1])
         ax.set_xlabel(landscape.names[i] + (" (log scale)" if log[0] else ""))
         ax.set_ylabel(landscape.names[j] + (" (log scale)" if log[1] else ""))
         count = len(landscape.minima)
@@ -168,7 +170,7 @@ def _contours(fig: Figure, ax: Any, gx: np.ndarray, gy: np.ndarray, values: np.n
     norm = BoundaryNorm(levels, 256)
     filled = ax.contourf(gx, gy, masked, levels=levels, cmap="Greys_r", norm=norm, alpha=0.55)
     ax.contour(gx, gy, masked, levels=levels, colors="0.35", linewidths=0.4)
-    fig.colorbar(filled, ax=ax, format="%.3g", label="objective")
+    fig.colorbar(filled, ax=ax, format=level_format(levels), label="objective")
 
 
 def _scattered(
@@ -200,7 +202,8 @@ def _scattered(
         mesh, values[keep], levels=levels, cmap="Greys_r", norm=BoundaryNorm(levels, 256),
         alpha=0.55,
     )
-    fig.colorbar(filled, ax=ax, format="%.3g", label="objective (from the evaluations made)")
+    fig.colorbar(filled, ax=ax, format=level_format(levels),
+                 label="objective (from the evaluations made)")
     return True
 
 
