@@ -153,6 +153,8 @@ def _parser() -> argparse.ArgumentParser:
 def _outputs(sub: argparse.ArgumentParser, progress: bool = True) -> None:
     sub.add_argument("--json", metavar="OUT", help="write the solution as JSON to OUT")
     sub.add_argument("--plots", metavar="DIR", help="write PNG plots into DIR")
+    sub.add_argument("--html", metavar="FILE",
+                     help="write the report as one self-contained HTML page to FILE")
     sub.add_argument(
         "--plot-evaluations", type=_count, default=None, metavar="N",
         help="most report-only evaluations for maps and profiles, not journaled "
@@ -224,7 +226,7 @@ def _run(args: argparse.Namespace) -> int:
         )
     used = problem.journal if journal is True else journal
     return finish(result, problem, json_path=args.json, plots=args.plots, journal=used,
-                  extra=args.plot_evaluations)
+                  extra=args.plot_evaluations, html=args.html)
 
 
 @contextlib.contextmanager
@@ -257,7 +259,7 @@ def _resume(args: argparse.Namespace) -> int:
     problem = problem_of_journal(args.journal, args.problem)
     result = resume(args.journal, problem, budget=args.budget, quiet=args.quiet)
     return finish(result, problem, json_path=args.json, plots=args.plots,
-                  journal=Path(args.journal), extra=args.plot_evaluations)
+                  journal=Path(args.journal), extra=args.plot_evaluations, html=args.html)
 
 
 def _show(args: argparse.Namespace) -> int:
@@ -274,7 +276,8 @@ def _show(args: argparse.Namespace) -> int:
                   file=sys.stderr)
     parameters = contents.header.parameters
     return finish(result, problem, json_path=args.json, plots=args.plots,
-                  journal=Path(args.journal), extra=args.plot_evaluations, parameters=parameters)
+                  journal=Path(args.journal), extra=args.plot_evaluations, parameters=parameters,
+                  html=args.html)
 
 
 def _check(args: argparse.Namespace) -> int:
@@ -352,6 +355,7 @@ def finish(
     out: TextIO | None = None,
     show_files: bool = False,
     inputs: Sequence[Path] = (),
+    html: str | Path | None = None,
 ) -> int:
     """Print the summary, write the requested files, say where they are; return the exit code.
 
@@ -382,6 +386,8 @@ def finish(
                                          landscape=landscape))
     if plots is not None:
         written += _plots(sol, problem, Path(plots), extra, parameters, landscape)
+    if html is not None:
+        written.append(_html(result, sol, problem, Path(html), extra, parameters, journal))
     if written:
         print("\nFiles:", file=out)
         for path in written:
@@ -430,6 +436,35 @@ def _plots(
         written.append(start_map(landscape, objective, folder / "starts.png", kind=kind,
                                  extra=extra, title=title))
     return written
+
+
+def _html(
+    result: Any,
+    sol: Solution,
+    problem: Problem | None,
+    path: Path,
+    extra: int | None,
+    parameters: Sequence | None,
+    journal: Path | None,
+) -> Path:
+    """The HTML report (`directional.report.html`), its figures made as for ``--plots``."""
+    from directional.report.html import origin_of, write_html
+    from directional.report.plots import affordable
+
+    if extra is None:
+        extra = affordable(sol, PLOT_SECONDS)
+    objective = fit = None
+    kind = "value"
+    if problem is not None:
+        kind = problem.objective.kind
+        objective = problem.make_objective() if extra > 0 else None
+        fit = problem.make_fit()
+    history = sol.history if isinstance(result, Solution) else result.history
+    origin = origin_of(problem_file=problem.source if problem is not None else None,
+                       journal=journal, history=history)
+    return write_html(result, path, title=problem.title if problem is not None else "",
+                      parameters=parameters, kind=kind, objective=objective, fit=fit,
+                      extra=extra, origin=origin)
 
 
 if __name__ == "__main__":

@@ -8,7 +8,8 @@ biomass and substrate.  The demo writes, into ``./directional-demo/``:
 - ``data.csv``: a copy of the invented data;
 - ``journal.sqlite``: every evaluation (``directional show`` / ``resume`` read it);
 - ``summary.txt``, ``solution.json``: the result for people and for programs;
-- ``plots/*.png``: the search, the profiles, the fit and the residuals.
+- ``plots/*.png``: the search, the profiles, the fit and the residuals;
+- ``report.html``: all of it in one self-contained page to open, print or send.
 
 `residuals` and `fit` are the functions the problem file names (``directional.interface.demo:residuals``).
 """
@@ -143,4 +144,5 @@ def run(folder: str | Path = FOLDER, *, quiet: bool = False, out: TextIO | None 
         out=out,
         show_files=True,
         inputs=(path, folder / "data.csv"),
+        html=folder / "report.html",
     )

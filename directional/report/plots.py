@@ -43,6 +43,7 @@ STYLE = {
 DPI = 120
 PROFILE_POINTS = 15  # report-only evaluations per parameter (common practice, no source)
 MAP_SIDE = 20  # the contour map's grid is at most MAP_SIDE x MAP_SIDE
+RASTER = 2000  # more points than this in one scatter are drawn as an image inside a vector file
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -72,8 +73,9 @@ def write_plots(
     fit: Callable[[np.ndarray], Any] | None = None,
     extra: int = 500,
     title: str = "",
+    format: str = "png",
 ) -> list[Path]:
-    """Write the PNG files for ``sol`` into ``folder``; return their paths.
+    """Write the PNG (or ``format``: "svg", "pdf") files for ``sol`` into ``folder``; return them.
 
     Parameters
     ----------
@@ -88,29 +90,31 @@ def write_plots(
         ``curve_x``, ``curve`` (the model on a fine grid) and ``data_label``.
     extra
         The most report-only evaluations to spend (0: none).
+    format
+        The files' type, as matplotlib names it; the HTML report asks for "svg".
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     axes = _coordinates(sol, parameters)
     value = _valuer(objective, kind) if objective is not None and extra > 0 else None
-    written = [_history(sol, folder / "history.png", kind, title)]
+    written = [_history(sol, folder / f"history.{format}", kind, title)]
     budget = extra
     widths = _widths(sol, axes, kind, value)
     if sol.point.size >= 1:
         profile_budget = min(budget, PROFILE_POINTS * sol.point.size)
         written.append(
-            _profiles(sol, folder / "profiles.png", axes, kind, value, widths, profile_budget, title)
+            _profiles(sol, folder / f"profiles.{format}", axes, kind, value, widths, profile_budget, title)
         )
         budget -= profile_budget if value is not None else 0
     if sol.point.size >= 2:
-        written.append(_path(sol, folder / "path.png", axes, kind, value, widths, budget, title))
+        written.append(_path(sol, folder / f"path.{format}", axes, kind, value, widths, budget, title))
     if fit is not None:
         series = _series(fit, sol.point)
         if series:
-            written.append(_fit(series, folder / "fit.png", title))
-            written.append(_residual_series(series, folder / "residuals.png", title))
+            written.append(_fit(series, folder / f"fit.{format}", title))
+            written.append(_residual_series(series, folder / f"residuals.{format}", title))
     elif kind == "residuals" and objective is not None and extra > 0:
-        written.append(_residual_vector(sol, objective, folder / "residuals.png", title))
+        written.append(_residual_vector(sol, objective, folder / f"residuals.{format}", title))
     return written
 
 
@@ -323,12 +327,14 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
     for group, color in _GROUPS:
         chosen = ok & (groups == group)
         if np.any(chosen):
-            ax.scatter(count[chosen], values[chosen], s=9, color=color, label=group, zorder=2)
+            ax.scatter(count[chosen], values[chosen], s=9, color=color, label=group, zorder=2,
+                       rasterized=len(history) > RASTER)
     shown = np.isfinite(best)
     ax.step(count[shown], best[shown], where="post", color="tab:blue", lw=2,
             label="best so far", zorder=3)
     if log:
         ax.set_yscale("log")
+        readable_ticks(ax.yaxis, True)
     elif finite.size:
         # the top follows most values, but never cuts off the start (the first value that counted)
         low, high = float(finite.min()), max(float(np.quantile(finite, 0.9)), float(finite[0]))
@@ -566,7 +572,7 @@ def _path(
                 transform=ax.transAxes, ha="center", va="top", fontsize=9, color="0.3")
     points = np.array([e.point for e in sol.history]) if sol.history else sol.point[None, :]
     ax.scatter(points[:, i], points[:, j], s=6, color="0.35", alpha=0.35, label="evaluations",
-               zorder=3)
+               zorder=3, rasterized=len(points) > RASTER)
     ax.plot(walk[:, i], walk[:, j], "-o", color="tab:red", ms=3.5, lw=1.5,
             label="search path (each new best)", zorder=4, clip_on=False)
     ax.plot(walk[0, i], walk[0, j], "s", color="white", mec="black", ms=9, label="start", zorder=5,
