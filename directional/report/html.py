@@ -431,7 +431,7 @@ def _inline(figure: _Figure, number: int) -> _Html:
 # ----------------------------------------------------------------------------- provenance
 
 
-def _provenance(sol: Solution, origin: Origin) -> _Html:
+def _provenance(sol: Solution, landscape: Any, origin: Origin) -> _Html:
     from directional import __version__
 
     rows: list[list[Any]] = [["package", f"directional {__version__}"]]
@@ -450,7 +450,11 @@ def _provenance(sol: Solution, origin: Origin) -> _Html:
         rows.append(["started", _when(origin.started)])
     if origin.finished is not None:
         rows.append(["finished", _when(origin.finished)])
-    rows.append(["evaluations", f"{sol.evaluations} ({sol.failures} failed)"])
+    if landscape is not None:  # the whole run's, every search included
+        rows.append(["evaluations", f"{landscape.evaluations} ({landscape.failures} failed), "
+                                    f"{len(landscape.starts)} searches"])
+    else:
+        rows.append(["evaluations", f"{sol.evaluations} ({sol.failures} failed)"])
     if origin.wall_seconds is not None:
         rows.append(["wall time", f"{origin.wall_seconds:.3g} s"])
     rows.append(["report written", _when(time.time())])
@@ -512,7 +516,7 @@ def _page(sol: Solution, landscape: Any, *, title: str, parameters: Any, kind: s
         sections.append(_element("section", _element("h2", "Figures"),
                                  *(_inline(f, k + 1) for k, f in enumerate(figures)),
                                  id="figures"))
-    sections.append(_provenance(sol, origin))
+    sections.append(_provenance(sol, landscape, origin))
     sections.append(_element("section", _element("h2", "Caution"), _element("p", CAUTION),
                              class_="caution", id="caution"))
     present = [s for s in sections if s is not None]

@@ -30,9 +30,8 @@ from directional.report.plots import contour_levels, level_format, readable_tick
 
 DPI = 120
 STYLE = {"font.size": 11, "axes.titlesize": 12, "legend.fontsize": 9, "axes.grid": False}
-COLOURS = (
-    "tab:red", "tab:blue", "tab:green", "tab:orange", "tab:purple",
-    "tab:brown", "tab:pink", "tab:olive", "tab:cyan", "tab:gray",
+COLOURS = (  # Okabe & Ito (2008), told apart with the common colour-vision deficiencies
+    "#D55E00", "#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#F0E442", "#7f7f7f",
 )
 
 
