@@ -230,12 +230,21 @@ FACTS = """
 """
 
 
+PRINT = """
+({figure: getComputedStyle(document.querySelector('figure')).breakInside,
+  table: getComputedStyle(document.querySelector('table')).breakInside,
+  nav: getComputedStyle(document.querySelector('nav')).display})
+"""
+
+
 def look(executable: str, path: Path) -> tuple[dict, bytes, list[str], list[str]]:
     """Open ``path``: its facts (FACTS), a screenshot, console errors and requested URLs."""
     with headless.Browser(executable) as browser:
         browser.open(path)
         facts = browser.evaluate(FACTS)
         shot = browser.screenshot()
+        browser.send("Emulation.setEmulatedMedia", {"media": "print"})
+        facts["print"] = browser.evaluate(PRINT)
         return facts, shot, browser.errors(), browser.requests()
 
 
@@ -261,6 +270,8 @@ def check_page(facts: dict, shot: bytes, errors: list[str], requests: list[str],
     assert all(d["ok"] and d["width"] > 0 and d["height"] > 0 and d["inline"]
                for d in facts["decoded"]), facts["decoded"]
     assert "Caution: validate" in facts["text"]
+    # printed: no figure or table split across pages, no table of contents
+    assert facts["print"] == {"figure": "avoid", "table": "avoid", "nav": "none"}
     assert not_blank(shot) > 0.03  # text, tables, the verdict's band: not an empty page
 
 

@@ -384,10 +384,12 @@ def finish(
     if json_path is not None:
         written.append(report.write_json(sol, json_path, title=title, parameters=parameters,
                                          landscape=landscape))
+    # both the PNG plots and the page: their report-only evaluations are the same points, made once
+    made = _Remembered(problem) if problem is not None and plots and html else None
     if plots is not None:
-        written += _plots(sol, problem, Path(plots), extra, parameters, landscape)
+        written += _plots(sol, problem, Path(plots), extra, parameters, landscape, made)
     if html is not None:
-        written.append(_html(result, sol, problem, Path(html), extra, parameters, journal))
+        written.append(_html(result, sol, problem, Path(html), extra, parameters, journal, made))
     if written:
         print("\nFiles:", file=out)
         for path in written:
@@ -413,6 +415,7 @@ def _plots(
     extra: int | None,
     parameters: Sequence | None,
     landscape: Any = None,
+    made: Any = None,
 ) -> list[Path]:
     from directional.report.plots import affordable, write_plots
 
@@ -423,7 +426,7 @@ def _plots(
     if problem is not None:
         kind = problem.objective.kind
         if extra > 0:
-            objective = problem.make_objective()
+            objective = made if made is not None else problem.make_objective()
         fit = problem.make_fit()
     title = problem.title if problem is not None else ""
     written = write_plots(
@@ -438,6 +441,23 @@ def _plots(
     return written
 
 
+class _Remembered:
+    """The problem's objective, built on first use, remembering its result at each point."""
+
+    def __init__(self, problem: Problem) -> None:
+        self.problem = problem
+        self.objective: Any = None
+        self.seen: dict[bytes, Any] = {}
+
+    def __call__(self, x: np.ndarray) -> Any:
+        key = np.asarray(x, dtype=float).tobytes()
+        if key not in self.seen:
+            if self.objective is None:
+                self.objective = self.problem.make_objective()
+            self.seen[key] = self.objective(np.array(x, dtype=float))
+        return self.seen[key]
+
+
 def _html(
     result: Any,
     sol: Solution,
@@ -446,6 +466,7 @@ def _html(
     extra: int | None,
     parameters: Sequence | None,
     journal: Path | None,
+    made: Any = None,
 ) -> Path:
     """The HTML report (`directional.report.html`), its figures made as for ``--plots``."""
     from directional.report.html import origin_of, write_html
@@ -457,7 +478,8 @@ def _html(
     kind = "value"
     if problem is not None:
         kind = problem.objective.kind
-        objective = problem.make_objective() if extra > 0 else None
+        if extra > 0:
+            objective = made if made is not None else problem.make_objective()
         fit = problem.make_fit()
     history = sol.history if isinstance(result, Solution) else result.history
     origin = origin_of(problem_file=problem.source if problem is not None else None,
