@@ -269,3 +269,58 @@ def test_residuals_are_model_minus_data(figures, tmp_path):
     dots = next(line for line in ax.get_lines() if line.get_label() == "residual")
     np.testing.assert_allclose(dots.get_ydata(), residuals(sol.point), rtol=1e-12)
     assert "model − data" in ax.get_ylabel()
+
+
+# ----------------------------------------------------------------------------- colours
+
+# Okabe & Ito (2008), "Color Universal Design": black, orange, sky blue, bluish green, yellow,
+# blue, vermilion, reddish purple
+OKABE_ITO = ("#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00",
+             "#CC79A7")
+
+
+def test_every_drawn_colour_is_colour_blind_safe(figures, tmp_path):
+    from matplotlib.colors import to_hex, to_rgba_array
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Polygon, Rectangle
+
+    def residuals(x):
+        return (model(x) - DATA) / 0.1
+
+    def fit(x):
+        return [{"name": "amount", "x": TIMES, "observed": DATA, "predicted": model(x),
+                 "sigma": 0.1}]
+
+    parameters = [dl.Parameter("a", 5.0, 0.1, 50.0), dl.Parameter("k", 0.1, 1e-3, 5.0, scale="log")]
+    sol = dl.calibrate(residuals, parameters)
+    plots.write_plots(sol, tmp_path, parameters=parameters, objective=residuals,
+                      kind="residuals", fit=fit, extra=100)
+    failing = dl.minimize(fragile, [dl.Parameter("a", -6.0, -8.0, 8.0), dl.Parameter("b", 6.0)])
+    plots.write_plots(failing, tmp_path / "failing", extra=0)  # the failures' crosses too
+    landscape = dl.explore(raised_bowl, [dl.Parameter("a", 0.0, -5.0, 5.0),
+                                         dl.Parameter("b", 0.0, -5.0, 8.0)], starts=4, seed=1)
+    start_map(landscape, None, tmp_path / "starts.png")
+    assert {"history.png", "profiles.png", "path.png", "fit.png", "residuals.png",
+            "starts.png"} <= set(figures)
+    seen = set()
+    for fig in figures.values():
+        for artist in fig.findobj():
+            if getattr(artist, "get_cmap", None) and artist.get_array() is not None:
+                continue  # a colour map (viridis, greys): a scale of its own, not a label colour
+            colours = []
+            if isinstance(artist, Line2D):
+                colours += [artist.get_color(), artist.get_markerfacecolor()]
+            elif isinstance(artist, Rectangle | Polygon) and artist.axes is not None:
+                if artist is artist.axes.patch:
+                    continue
+                colours.append(artist.get_facecolor())
+            elif hasattr(artist, "get_facecolor") and hasattr(artist, "get_offsets"):
+                colours += list(to_rgba_array(artist.get_facecolor()))
+            for colour in colours:
+                if colour is None or (isinstance(colour, str) and colour == "none"):
+                    continue
+                rgba = to_rgba_array(colour)[0]
+                if rgba[3] == 0 or np.ptp(rgba[:3]) < 0.01:  # invisible, or a grey
+                    continue
+                seen.add(to_hex(rgba[:3]).upper())
+    assert seen and seen <= set(OKABE_ITO), seen - set(OKABE_ITO)

@@ -41,6 +41,9 @@ STYLE = {
     "grid.alpha": 0.3,
 }
 DPI = 120
+# Colours: the Okabe & Ito (2008) palette (blue #0072B2, orange #E69F00, vermilion #D55E00,
+# bluish green #009E73, reddish purple #CC79A7, yellow #F0E442), told apart with the common
+# colour-vision deficiencies, with greys; maps in viridis, which is too.
 PROFILE_POINTS = 15  # report-only evaluations per parameter (common practice, no source)
 MAP_SIDE = 20  # the contour map's grid is at most MAP_SIDE x MAP_SIDE
 RASTER = 2000  # more points than this in one scatter are drawn as an image inside a vector file
@@ -330,7 +333,7 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
             ax.scatter(count[chosen], values[chosen], s=9, color=color, label=group, zorder=2,
                        rasterized=len(history) > RASTER)
     shown = np.isfinite(best)
-    ax.step(count[shown], best[shown], where="post", color="tab:blue", lw=2,
+    ax.step(count[shown], best[shown], where="post", color="#0072B2", lw=2,
             label="best so far", zorder=3)
     if log:
         ax.set_yscale("log")
@@ -343,7 +346,7 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
     failed = ~ok
     if np.any(failed):
         bottom = ax.get_ylim()[0]
-        ax.scatter(count[failed], np.full(failed.sum(), bottom), marker="x", color="tab:red",
+        ax.scatter(count[failed], np.full(failed.sum(), bottom), marker="x", color="#D55E00",
                    s=25, label=f"failed ({failed.sum()})", zorder=4, clip_on=False)
     ax.set_xlabel("evaluation")
     ax.set_ylabel(_value_label(kind) + (" (log scale)" if log else ""))
@@ -360,8 +363,8 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
 
 _GROUPS = (
     ("search", "0.6"),
-    ("least-squares steps", "tab:purple"),
-    ("curvature check", "tab:orange"),
+    ("least-squares steps", "#CC79A7"),
+    ("curvature check", "#E69F00"),
 )
 
 
@@ -409,16 +412,16 @@ def _profiles(
             xs = axes.to_x(ys, i)
             order = np.argsort(np.append(xs, sol.point[i]))
             ax.plot(np.append(xs, sol.point[i])[order], np.append(fs, sol.value)[order],
-                    "o-", color="tab:blue", ms=4, lw=1.5, label="objective (report-only)")
+                    "o-", color="#0072B2", ms=4, lw=1.5, label="objective (report-only)")
         fine = np.linspace(lo, hi, 200)
         h = diagonal[i]
         if h > 0 and not active:
             ax.plot(axes.to_x(fine, i), sol.value + 0.5 * h * (fine - y_best[i]) ** 2, "--",
-                    color="tab:orange", lw=1.5, label="Hessian parabola")
+                    color="#E69F00", lw=1.5, label="Hessian parabola")
         if intervals is not None and np.all(np.isfinite(intervals[i])):
-            ax.axvspan(intervals[i][0], intervals[i][1], color="tab:green", alpha=0.12,
+            ax.axvspan(intervals[i][0], intervals[i][1], color="#009E73", alpha=0.12,
                        label="95 % interval")
-        ax.plot([sol.point[i]], [sol.value], "*", color="tab:red", ms=12, label="minimum",
+        ax.plot([sol.point[i]], [sol.value], "*", color="#D55E00", ms=12, label="minimum",
                 zorder=5)
         log = _log_axis(axes, i, lo, hi)
         if log:
@@ -573,11 +576,11 @@ def _path(
     points = np.array([e.point for e in sol.history]) if sol.history else sol.point[None, :]
     ax.scatter(points[:, i], points[:, j], s=6, color="0.35", alpha=0.35, label="evaluations",
                zorder=3, rasterized=len(points) > RASTER)
-    ax.plot(walk[:, i], walk[:, j], "-o", color="tab:red", ms=3.5, lw=1.5,
+    ax.plot(walk[:, i], walk[:, j], "-o", color="#D55E00", ms=3.5, lw=1.5,
             label="search path (each new best)", zorder=4, clip_on=False)
     ax.plot(walk[0, i], walk[0, j], "s", color="white", mec="black", ms=9, label="start", zorder=5,
             clip_on=False)
-    ax.plot(sol.point[i], sol.point[j], "*", color="gold", mec="black", ms=16, label="minimum",
+    ax.plot(sol.point[i], sol.point[j], "*", color="#F0E442", mec="black", ms=16, label="minimum",
             zorder=6, clip_on=False)
     logs = [_log_axis(axes, k, *box[m]) for m, k in enumerate((i, j))]
     if logs[0]:
@@ -723,9 +726,9 @@ def _fit(series: list[dict[str, Any]], path: Path, title: str) -> Path:
         else:
             ax.plot(x, observed, "o", ms=4, color="black", label=label)
         if "curve_x" in s and "curve" in s:
-            ax.plot(s["curve_x"], s["curve"], "-", color="tab:blue", lw=2, label="fitted model")
+            ax.plot(s["curve_x"], s["curve"], "-", color="#0072B2", lw=2, label="fitted model")
         else:
-            ax.plot(x, s["predicted"], "-", color="tab:blue", lw=2, label="fitted model")
+            ax.plot(x, s["predicted"], "-", color="#0072B2", lw=2, label="fitted model")
         unit = s.get("unit", "")
         ax.set_ylabel(f"{s['name']} [{unit}]" if unit else s["name"])
         ax.set_xlabel(s.get("x_label", "x"))
@@ -749,13 +752,13 @@ def _residual_series(series: list[dict[str, Any]], path: Path, title: str) -> Pa
         unit = s.get("unit", "")
         if sigma is not None:
             r = r / np.broadcast_to(np.asarray(sigma, dtype=float), r.shape)
-            ax.axhspan(-2.0, 2.0, color="tab:green", alpha=0.1, label="± 2 sigma")
+            ax.axhspan(-2.0, 2.0, color="#009E73", alpha=0.1, label="± 2 sigma")
             ax.set_ylabel("(model − data) / sigma")
         else:
             ax.set_ylabel(f"model − data [{unit}]" if unit else "model − data")
         ax.axhline(0.0, color="black", lw=0.8)
-        ax.vlines(x, 0.0, r, color="tab:blue", lw=1.2)
-        ax.plot(x, r, "o", color="tab:blue", ms=4, label="residual")
+        ax.vlines(x, 0.0, r, color="#0072B2", lw=1.2)
+        ax.plot(x, r, "o", color="#0072B2", ms=4, label="residual")
         ax.set_xlabel(s.get("x_label", "x"))
         ax.set_title(f"{s['name']}: residuals")
         ax.legend(loc="best")
@@ -780,10 +783,10 @@ def _residual_vector(
         dof = r.size - sol.point.size
         s = math.sqrt(float(r @ r) / dof) if dof > 0 else math.nan
         if math.isfinite(s):
-            ax.axhspan(-2 * s, 2 * s, color="tab:green", alpha=0.1, label="± 2 s")
+            ax.axhspan(-2 * s, 2 * s, color="#009E73", alpha=0.1, label="± 2 s")
         ax.axhline(0.0, color="black", lw=0.8)
-        ax.vlines(index, 0.0, r, color="tab:blue", lw=1.2)
-        ax.plot(index, r, "o", color="tab:blue", ms=4, label="residual")
+        ax.vlines(index, 0.0, r, color="#0072B2", lw=1.2)
+        ax.plot(index, r, "o", color="#0072B2", ms=4, label="residual")
         ax.legend(loc="best")
     else:
         ax.text(0.5, 0.5, "the residuals could not be evaluated", ha="center",
