@@ -363,3 +363,16 @@ def test_outside_text_is_escaped_everywhere(hostile):
         for key in ("src", "href", "xlink:href"):
             value = attrs.get(key)
             assert value is None or value.startswith(("#", "data:")), (key, value)
+
+
+def test_show_of_a_calibration_journal_in_a_browser(chromium, demo, tmp_path):
+    # the journal keeps values, not residual vectors: show reports the best stored point and says
+    # why there is no verdict, rather than failing
+    path = tmp_path / "show.html"
+    assert command("show", str(demo / "journal.sqlite"), "--html", str(path)) == 1
+    facts, shot, errors, requests = look(chromium, path)
+    check_page(facts, shot, errors, requests, path, figures=4)
+    text = facts["text"]
+    assert "Not verified" in text and "cannot be replayed without evaluating" in text
+    best = json.loads((demo / "solution.json").read_text())["value"]
+    assert f"{best:.10g}" in text  # the run's best value, from the journal

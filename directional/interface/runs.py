@@ -27,7 +27,7 @@ import numpy as np
 
 from directional.errors import ObjectiveError, ProblemError
 from directional.interface.problemfile import Problem
-from directional.records import Stop
+from directional.records import Stop, Verdict
 from directional.run import journal as journals
 from directional.run.progress import Progress
 from directional.solution import Solution
@@ -222,7 +222,10 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
                 result = explore(_refuse, contents.header.parameters, journal=copy,
                                  budget=contents.header.budget, total_budget=stored, **arguments)
             else:
-                result = journals.resume(copy, _refuse, budget=stored)
+                try:
+                    result = journals.resume(copy, _refuse, budget=stored)
+                except _Refused:
+                    result = _as_stored(contents)
     if isinstance(result, Solution):
         result = _ended(result, contents)
     return result, contents
@@ -241,8 +244,44 @@ def _ended(sol: Solution, contents: journals.Contents) -> Solution:
     return sol
 
 
+class _Refused(ObjectiveError):
+    """The replay asked the objective itself for something the journal does not hold."""
+
+
 def _refuse(x: np.ndarray) -> float:
-    raise ObjectiveError("show evaluates nothing")  # never called: the budget ends first
+    # The budget ends the replay before any evaluation; but a calibration's least-squares steps
+    # need residual vectors, which the journal does not keep (it keeps each point's value).
+    raise _Refused("show evaluates nothing")
+
+
+def _as_stored(contents: journals.Contents) -> Solution:
+    """The run as its journal holds it, without replaying the search: the best stored point.
+
+    For a journal whose replay would need evaluations (a calibration's residual vectors): the
+    best value and point, every evaluation, the stop of the last session; no verdict, no
+    uncertainty, and a reason that says so.
+    """
+    parameters = contents.header.parameters
+    history = tuple(e for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    done = [e for e in history if e.status == "ok"]
+    if not done:
+        raise ObjectiveError("every evaluation in the journal failed: there is no best point")
+    best = min(done, key=lambda e: e.value)
+    last = contents.sessions[-1] if contents.sessions else {}
+    stops = {stop.value: stop for stop in Stop}
+    return Solution(
+        point=np.array(best.point, dtype=float), value=float(best.value),
+        evaluations=len(history), cycles=0,
+        stop=stops.get(str(last.get("stop")), Stop.INTERRUPTED), verdict=Verdict.UNCHECKED,
+        active=(), curvature=None, uncertainty=None, directions=np.eye(len(parameters)),
+        names=tuple(p.name for p in parameters), units=tuple(p.unit for p in parameters),
+        lower=np.array([p.lower for p in parameters], dtype=float),
+        upper=np.array([p.upper for p in parameters], dtype=float),
+        reason="the best point the journal holds; its least-squares steps cannot be replayed "
+        "without evaluating (the journal keeps values, not residual vectors), so no verdict "
+        "and no uncertainty are shown: directional resume recomputes them",
+        history=history,
+    )
 
 
 def _copy_database(source: Path, target: Path) -> None:
