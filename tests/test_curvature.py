@@ -137,6 +137,7 @@ def test_a_maximum_is_recognised_and_escaped(check):
     )
     assert settled.escapes == 1
     assert settled.notes[0].startswith("escape 1: maximum at (x0=0, x1=0)")
+    assert "(lower by " in settled.notes[0]  # the gain, not only two values that may print alike
     assert settled.verdict is Verdict.MINIMUM
     assert np.abs(settled.point) == pytest.approx([1.0, 1.0], abs=1e-6)
     assert settled.outcome.value == pytest.approx(0.0, abs=1e-12)

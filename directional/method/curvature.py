@@ -515,7 +515,8 @@ def settle(
         escaped += 1
         notes.append(
             f"escape {escaped}: {checked.verdict.value} at {where} (f = {outcome.value:.6g}); "
-            f"along {along} to f = {moved.value:.6g}, then the search went on"
+            f"along {along} to f = {moved.value:.6g} (lower by {outcome.value - moved.value:.2g}), "
+            "then the search went on"
         )
         cycles = outcome.cycles
         outcome = restart(moved.point)
