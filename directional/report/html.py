@@ -386,8 +386,9 @@ def _describe(name: str, sol: Solution, landscape: Any) -> tuple[str, str]:
     texts = {
         "history": ("Every evaluation's value and the best so far.",
                     f"Objective value against evaluation number for {sol.evaluations} "
-                    f"evaluations; the best value so far falls to {_number(sol.value)}; "
-                    f"{sol.failures} failed evaluations marked as crosses on the bottom edge."),
+                    f"evaluations; the best value so far falls to {_number(sol.value)}"
+                    + (f"; {sol.failures} failed evaluations marked as crosses on the bottom "
+                       "edge." if sol.failures else ".")),
         "profiles": ("The objective through the minimum along each parameter, with the parabola "
                      "of the Hessian; shaded: the interval of a calibration.",
                      f"One panel per parameter ({names}): the objective against the parameter "
