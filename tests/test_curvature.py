@@ -14,7 +14,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import directional as dl
-from directional.method import curvature, hessian
+from directional.method import curvature, differences, hessian
 from directional.method.search import Settings
 from directional.method.space import build_space
 from directional.records import Outcome, Stop, Verdict
@@ -372,7 +372,7 @@ def test_the_adapter_calls_numdifftools_once_per_stencil_point():
         calls.append(np.array(v))
         return float(v[0] ** 2 + 3 * v[0] * v[1])
 
-    matrix, error = hessian.numdifftools_hessian(counting, np.array([1e-2, 1e-2]))
+    matrix, error = differences.hessian(counting, np.array([1e-2, 1e-2]))
     assert matrix == pytest.approx(np.array([[2.0, 3.0], [3.0, 0.0]]), abs=1e-8)
     assert error.shape == (2, 2)
     assert len(calls) == 6 * 4 + 1  # three stencils of 2n² points and the centre
@@ -386,8 +386,8 @@ def test_the_adapter_reads_both_result_shapes():
         estimate = np.full((1, 1), 2.0)
         error_estimate = np.zeros((1, 1))
 
-    assert hessian._estimate_fields((np.full((1, 1), 5.0), Info()))[0][0, 0] == 5.0
-    assert hessian._estimate_fields(Named())[0][0, 0] == 2.0
+    assert differences.fields((np.full((1, 1), 5.0), Info()))[0][0, 0] == 5.0
+    assert differences.fields(Named())[0][0, 0] == 2.0
 
 
 # --------------------------------------------------------------------------- arguments, summary

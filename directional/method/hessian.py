@@ -23,19 +23,18 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Generator
+from collections.abc import Generator
 from dataclasses import dataclass
 
-import numdifftools as nd
 import numpy as np
 
+from directional.method import differences
+from directional.method.differences import RATIO, STEPS
 from directional.method.space import Space
 from directional.records import Batch
 
 EPSILON = float(np.finfo(float).eps)
 LARGEST_STEP = 0.1  # no stencil step beyond a tenth of the problem's size (scaled coordinates)
-RATIO = 2.0  # ratio of the successive steps numdifftools extrapolates from
-STEPS = 3  # steps numdifftools extrapolates from: 3 stencils of 2 n² points, 6 n² + 1 evaluations
 SMALLEST_STEP = EPSILON ** (1.0 / 3.0)  # the points' own rounding stays below 1e-10 of a step
 NOISE_SHARE = 0.01  # noise may spoil at most 1 % of a curvature (at 3 sigma) at the smallest step
 
@@ -102,42 +101,6 @@ class Measured:
     problem: str = ""  # why the measurement is unusable ("" when it is fine)
 
 
-def _estimate_fields(result: object) -> tuple[np.ndarray, np.ndarray]:
-    """numdifftools' estimate and error estimate, by name, whatever its version returns.
-
-    0.11 returns a named tuple ``EstimateResult(estimate, error_estimate, final_step,
-    best_index)``; some earlier versions return ``(estimate, info)`` with ``info.error_estimate``.
-    """
-    estimate = getattr(result, "estimate", None)
-    if estimate is not None:
-        return np.asarray(estimate, dtype=float), np.asarray(result.error_estimate, dtype=float)
-    estimate, info = result  # type: ignore[misc]
-    return np.asarray(estimate, dtype=float), np.asarray(info.error_estimate, dtype=float)
-
-
-def numdifftools_hessian(
-    function: Callable[[np.ndarray], float], steps: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """The adapter: numdifftools' extrapolated central-difference Hessian of ``function`` at 0.
-
-    ``steps`` are the largest steps per coordinate; numdifftools uses ``steps / 2**k`` for
-    k = 0, 1, 2 and extrapolates.  Returns ``(hessian, error_estimate)``, both (k, k).  The
-    function is evaluated at 0 so that numdifftools' nominal step is 1 in every coordinate.
-    """
-    generator = nd.MaxStepGenerator(
-        base_step=np.asarray(steps, dtype=float),
-        step_ratio=RATIO,
-        num_steps=STEPS,
-        step_nom=1.0,
-        offset=0,
-        use_exact_steps=True,
-    )
-    hessian = nd.Hessian(function, step=generator, method="central", full_output=True)
-    estimate, error = _estimate_fields(hessian(np.zeros(len(steps))))
-    k = len(steps)
-    return estimate.reshape(k, k), error.reshape(k, k)
-
-
 def _embed(space: Space, u0: np.ndarray, free: np.ndarray, v: np.ndarray) -> np.ndarray:
     """User points for steps ``v`` (rows, over the free parameters) from the scaled point u0."""
     u = np.repeat(u0[None, :], len(v), axis=0)
@@ -151,15 +114,15 @@ def extrapolated_hessian(
     """numdifftools' Hessian with the stencil evaluated as one batch (purpose "hessian").
 
     numdifftools calls its function one point at a time.  A first pass with a function that only
-    records the points (their positions do not depend on the values for fixed steps) collects the
-    stencil; it is evaluated as one batch; a second pass reads the values back.  Should the second
+    records the points (`differences.Recorder`) collects the stencil; it is evaluated as one
+    batch; a second pass reads the values back.  Should the second
     pass ask for a point not recorded, that point is evaluated in a further batch and the pass
     repeated (at most twice).
     """
-    table = _Table()
+    table = differences.Recorder(0.0)
     for _ in range(3):
         table.missing = {}
-        hessian, error = numdifftools_hessian(table.lookup, steps)
+        hessian, error = differences.hessian(table, steps)
         if not table.missing:
             return _checked_measure(hessian, error, steps, table.known)
         values = yield Batch(
@@ -171,22 +134,6 @@ def extrapolated_hessian(
             problem = f"{bad} of the {len(values)} stencil evaluations failed"
             return Measured(hessian=hessian, error=error, steps=steps, problem=problem)
     return Measured(hessian=hessian, error=error, steps=steps, problem="the stencil kept changing")
-
-
-class _Table:
-    """Values known so far by stencil step (bytes of the step vector), and the steps still missing."""
-
-    def __init__(self) -> None:
-        self.known: dict[bytes, float] = {}
-        self.missing: dict[bytes, np.ndarray] = {}
-
-    def lookup(self, v: np.ndarray) -> float:
-        v = np.asarray(v, dtype=float)
-        key = v.tobytes()
-        if key in self.known:
-            return self.known[key]
-        self.missing.setdefault(key, v.copy())
-        return 0.0
 
 
 def _checked_measure(
