@@ -14,9 +14,10 @@ import numpy as np
 import pytest
 
 import directional as dl
+from directional.method.leastsquares import sum_of_squares
 from directional.report import plots
 from directional.report import summary as report
-from directional.run.progress import Progress, sum_of_squares
+from directional.run.progress import Progress
 
 PARAMETERS = [
     dl.Parameter("a", 0.0, -4.0, 4.0, unit="m"),

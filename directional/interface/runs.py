@@ -15,7 +15,6 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import io
-import math
 import os
 import sqlite3
 import tempfile
@@ -251,12 +250,3 @@ def _copy_database(source: Path, target: Path) -> None:
         sqlite3.connect(target)
     ) as dst:
         src.backup(dst)
-
-
-def value_of(result: Any, kind: str) -> float:
-    """One objective result as a number (the sum of squares for residuals); nan if not one."""
-    if kind == "residuals":
-        r = np.asarray(result, dtype=float).ravel()
-        return float(r @ r)
-    value = float(np.asarray(result, dtype=float).reshape(()))
-    return value if math.isfinite(value) else math.nan

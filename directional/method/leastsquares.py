@@ -40,6 +40,22 @@ JACOBIAN_STEP = 1e-3  # largest step of numdifftools' extrapolated Jacobian (sca
 # ----------------------------------------------------------------------------- the objective
 
 
+def sum_of_squares(result: object) -> float:
+    """The value of a residual vector: the sum of its squares (nan when it is not numeric).
+
+    For reports and the progress bar, which must not fail; the search's own objective is
+    `SumOfSquares`, which raises on a result that is not a flat array.
+
+    >>> sum_of_squares([3.0, 4.0])
+    25.0
+    """
+    try:
+        r = np.asarray(result, dtype=float).ravel()
+    except (TypeError, ValueError):
+        return math.nan
+    return float(r @ r)
+
+
 class SumOfSquares:
     """The objective the driver sees: ``S(x)``, with each residual vector kept by point.
 

@@ -27,8 +27,8 @@ from typing import Any
 import numpy as np
 from matplotlib.figure import Figure
 
+from directional.method.leastsquares import sum_of_squares
 from directional.parameters import Parameter
-from directional.run.progress import sum_of_squares
 from directional.solution import Solution
 
 STYLE = {
