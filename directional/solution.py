@@ -110,7 +110,11 @@ def _curvature_lines(curvature: Curvature | None) -> list[str]:
 
 
 def _uncertainty_lines(sol: Solution) -> list[str]:
-    """The calibration table: estimates, standard errors, intervals, strongest correlations."""
+    """The calibration table: estimates, standard errors, intervals, strongest correlations.
+
+    Linearized at the minimum (Bates & Watts 1988, sec. 2.3): read it as a local statement.  A
+    parameter on a bound has no standard error (it is not free to move); it says so.
+    """
     u = sol.uncertainty
     if u is None:
         return []
@@ -121,6 +125,9 @@ def _uncertainty_lines(sol: Solution) -> list[str]:
         f"  {'parameter':<{width}}  {'estimate':>14}  {'std. error':>11}  {level:>27}",
     ]
     for i, name in enumerate(sol.names):
+        if name in sol.active:
+            lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {'on a bound':>11}")
+            continue
         low, high = u.intervals[i]
         lines.append(
             f"  {name:<{width}}  {sol.point[i]:>14.8g}  {u.standard_errors[i]:>11.5g}  "
