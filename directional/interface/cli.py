@@ -425,7 +425,7 @@ def _plots(
         extra=extra, title=title,
     )
     if landscape is not None and len(sol.names) >= 2:
-        from directional.report.startmap import start_map
+        from directional.report.maps import start_map
 
         written.append(start_map(landscape, objective, folder / "starts.png", kind=kind,
                                  extra=extra, title=title))
