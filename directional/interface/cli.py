@@ -180,9 +180,9 @@ def _count(text: str) -> int:
 
 
 def _version() -> str:
-    from directional import __version__
+    from directional.version import VERSION
 
-    return __version__
+    return VERSION
 
 
 # ----------------------------------------------------------------------------- the commands
