@@ -193,10 +193,29 @@ def load_problem(path: str | Path) -> Problem:
     return Problem.from_file(path)
 
 
-def _demo(args: argparse.Namespace) -> int:
-    from directional.interface.demo import run
+def _demo(args: argparse.Namespace, out: TextIO | None = None) -> int:
+    """Write the demo's problem file and data into ``args.folder``, run it, write the results."""
+    from directional.interface import demo
+    from directional.interface.runs import solve
 
-    return run(args.folder, quiet=args.quiet)
+    out = sys.stdout if out is None else out
+    folder = Path(args.folder)
+    path = demo.prepare(folder)
+    problem = load_problem(path)
+    print(f"directional demo: calibrating {problem.title!r}", file=out)
+    print(demo.NOTICE, file=out)
+    sol = solve(problem, quiet=args.quiet)
+    return finish(
+        sol,
+        problem,
+        json_path=folder / "solution.json",
+        plots=folder / "plots",
+        summary=folder / "summary.txt",
+        journal=problem.journal,
+        out=out,
+        show_files=True,
+        inputs=(path, folder / "data.csv"),
+    )
 
 
 def _run(args: argparse.Namespace) -> int:
