@@ -53,7 +53,8 @@ def sum_of_squares(result: object) -> float:
         r = np.asarray(result, dtype=float).ravel()
     except (TypeError, ValueError):
         return math.nan
-    return float(r @ r)
+    with np.errstate(over="ignore", invalid="ignore"):  # inf when it overflows: no warning
+        return float(r @ r)
 
 
 class SumOfSquares:
