@@ -12,7 +12,7 @@ point it returns is checked.
 2. Paid check.  A Hessian in scaled coordinates (`directional.method.space`) over the parameters that are
    not on a bound: by numdifftools' central differences with Richardson extrapolation and its
    error estimate (``check=True``, 6 n² + 1 evaluations), or by one plain central-difference
-   stencil (``check="quick"``, 2 n² + 1).  Every stencil point is known before any value is, so
+   stencil (``check="quick"``, 2 n² + 2 n + 1).  Every stencil point is known before any value is, so
    the stencil goes to the driver as one batch (an executor evaluates it in parallel); see
    `directional.method.hessian`.  Steps are never below what the noise allows; with a stated noise
    level, a stencil whose steps were sized from a curvature that the measurement belies is
@@ -61,8 +61,16 @@ from directional.method.hessian import (
 )
 from directional.method.linesearch import line_search
 from directional.method.search import FIRST_STEP, Settings, powell
+from directional.method.smoothness import (
+    AXIS,
+    Finding,
+    axis_lines,
+    complement,
+    line_finding,
+    probe_directions,
+)
 from directional.method.space import Space
-from directional.records import Batch, Curvature, Halt, Outcome, Stop, Verdict
+from directional.records import Batch, Break, Curvature, Halt, Outcome, Stop, Verdict
 from directional.run.driver import Driver
 from directional.solution import Solution
 
@@ -307,13 +315,14 @@ def check_point(
         )
     room = np.minimum(u0 - space.lower_u, space.upper_u - u0)[free]
     diagonal = np.full(int(free.sum()), np.nan) if free_scaled is None else np.diag(free_scaled)[free]
+    seen: list[tuple[np.ndarray, np.ndarray]] = []  # every stencil point and value, for smoothness
     for attempt in range(RESIZES + 1):
         steps = step_sizes(diagonal, f0, noise, room, method)
         try:
             if method == "quick":
-                measured = yield from quick_hessian(space, u0, free, steps)
+                measured = yield from _seen(quick_hessian(space, u0, free, steps), seen)
             else:
-                measured = yield from extrapolated_hessian(space, u0, free, steps)
+                measured = yield from _seen(extrapolated_hessian(space, u0, free, steps), seen)
         except Halt as halt:
             return Checked(
                 verdict=Verdict.UNCHECKED, curvature=free_rec,
@@ -329,7 +338,128 @@ def check_point(
         if noise is None or attempt == RESIZES or not np.any(found < 0.25 * used):
             break
         diagonal = np.where(found < 0.25 * used, found, diagonal)
-    return _verdict(space, free, measured, f0, noise, method, free_rec)
+    return (yield from _judged(space, u0, f0, free, measured, noise, method, free_rec, seen))
+
+
+def _seen(
+    stencil: Generator[Batch, np.ndarray, Measured], seen: list[tuple[np.ndarray, np.ndarray]]
+) -> Generator[Batch, np.ndarray, Measured]:
+    """Pass a stencil's batches through unchanged, keeping each batch's points and values."""
+    try:
+        batch = next(stencil)
+        while True:
+            values = yield batch
+            seen.append((batch.points, np.asarray(values, dtype=float)))
+            batch = stencil.send(values)
+    except StopIteration as stop:
+        return stop.value
+
+
+Line = tuple[np.ndarray, np.ndarray]  # steps t > 0 and the values f(-t), f(+t) at them
+
+
+def _judged(
+    space: Space,
+    u0: np.ndarray,
+    f0: float,
+    free: np.ndarray,
+    measured: Measured,
+    noise: float | None,
+    method: str,
+    free_rec: Curvature | None,
+    seen: list[tuple[np.ndarray, np.ndarray]],
+) -> Check:
+    """Smoothness first (`directional.method.smoothness`), then the verdict on the smooth part.
+
+    The stencil's points on the axes are used as they are; a stencil with one step per axis (the
+    quick one) gets the half steps, and when more than one axis shows a break, the Hessian's
+    eigenvectors over those axes are probed at two steps each way, to name the combination.
+    These few points go to the driver as one batch each (purpose "smoothness").
+    """
+    level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
+    points = np.concatenate([p for p, _ in seen])
+    values = np.concatenate([v for _, v in seen])
+    offsets = (space.to_scaled(points) - u0)[:, free]
+    lines = axis_lines(offsets, values)
+    k = int(free.sum())
+    try:
+        short = [i for i, (t, _) in enumerate(lines) if len(t) == 1]
+        if short:
+            axes = np.eye(k)[short]
+            halves = np.array([0.5 * lines[i][0][0] for i in short])
+            extra = yield from _probe(space, u0, free, axes, halves, (1.0,))
+            for i, line in zip(short, extra):
+                lines[i] = (np.concatenate([line[0], lines[i][0]]),
+                            np.concatenate([line[1], lines[i][1]]))
+        findings = [line_finding(t, v, f0, level) for t, v in lines]
+        flagged = np.array([f is not None for f in findings])
+        breaks = [(np.eye(k)[i], f) for i, f in enumerate(findings) if f is not None]
+        probes = probe_directions(measured.hessian, flagged)
+        smooth: list[tuple[np.ndarray, Line]] = []  # probed directions found smooth
+        if len(probes):
+            smallest = np.array([t[0] if len(t) else np.nan for t, _ in lines])
+            sizes = 1.0 / np.linalg.norm(probes / smallest, axis=1)
+            extra = yield from _probe(space, u0, free, probes, sizes, (1.0, 2.0))
+            along = [(v, line, line_finding(*line, f0, level)) for v, line in zip(probes, extra)]
+            if 0 < sum(f is not None for _, _, f in along) < len(along):
+                breaks = [(v, f) for v, _, f in along if f is not None]
+                smooth = [(v, line) for v, line, f in along if f is None]
+    except Halt as halt:
+        return Checked(
+            verdict=Verdict.UNCHECKED, curvature=free_rec,
+            note=f"the smoothness check could not finish: {halt.reason}",
+        )
+    return _verdict(space, free, measured, f0, noise, method, free_rec, breaks,
+                    _smooth_part(breaks, smooth, flagged, f0, level))
+
+
+def _smooth_part(
+    breaks: list[tuple[np.ndarray, Finding]],
+    smooth: list[tuple[np.ndarray, Line]],
+    flagged: np.ndarray,
+    f0: float,
+    level: float,
+) -> tuple[np.ndarray, dict[int, tuple[float, float]]]:
+    """A basis (columns) of the directions the curvature is judged on, and the curvatures the
+    probes measured along some of them, ``{column: (curvature, error)}``.
+
+    Without breaks: every axis.  With breaks along axes: the other axes.  With breaks along
+    probed combinations: the probed directions found smooth, and the axes no break touched.  A
+    stencil whose points straddle a break mixes it into every entry it touches, so along a probed
+    direction its own second difference is used, with ``|D(t) - D(2t)|`` plus the noise's share
+    as the error bar.
+    """
+    k = len(flagged)
+    if not breaks:
+        return np.eye(k), {}
+    if not smooth:
+        return complement(np.array([v for v, _ in breaks]), k), {}
+    columns = [v for v, _ in smooth] + [np.eye(k)[i] for i in np.flatnonzero(~flagged)]
+    known = {}
+    for column, (_, (t, values)) in enumerate(smooth):
+        d = (values[:, 0] + values[:, 1] - 2.0 * f0) / t**2
+        noise = 3.0 * math.sqrt(6.0) * level / t[0] ** 2
+        known[column] = (float(d[0]), float(abs(d[0] - d[-1]) + noise))
+    return np.array(columns).T, known
+
+
+def _probe(
+    space: Space,
+    u0: np.ndarray,
+    free: np.ndarray,
+    directions: np.ndarray,
+    sizes: np.ndarray,
+    multiples: tuple[float, ...],
+) -> Generator[Batch, np.ndarray, list[Line]]:
+    """Evaluate ``u0 ± m s d`` for each direction d (rows, free coordinates) of size s, multiple m."""
+    rows = [
+        sign * m * s * d for d, s in zip(directions, sizes) for m in multiples for sign in (-1.0, 1.0)
+    ]
+    u = np.repeat(u0[None, :], len(rows), axis=0)
+    u[:, free] += np.array(rows)
+    values = yield Batch(points=space.to_user(u), purpose="smoothness")
+    values = np.asarray(values, dtype=float).reshape(len(directions), len(multiples), 2)
+    return [(np.array(multiples) * s, v) for s, v in zip(sizes, values)]
 
 
 def _verdict(
@@ -340,17 +470,27 @@ def _verdict(
     noise: float | None,
     method: str,
     free_rec: Curvature | None,
+    breaks: list[tuple[np.ndarray, Finding]] | None = None,
+    smooth_part: tuple[np.ndarray, dict[int, tuple[float, float]]] | None = None,
 ) -> Checked:
     level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
     smallest = measured.steps if method == "quick" else measured.steps / RATIO ** (STEPS - 1)
     error = measured.error + noise_margin(smallest, level)
-    d = equilibration(np.maximum(np.abs(measured.hessian), error))
-    eigenvalues, eigenvectors = np.linalg.eigh(measured.hessian / np.outer(d, d))
-    margins = eigenvalue_margins(eigenvectors, error / np.outer(d, d))
-    margins += 64.0 * EPSILON * float(np.max(np.abs(eigenvalues)))
-    verdict = classify(eigenvalues, margins)
-    margin = float(margins[0])  # that of the smallest eigenvalue, the one the verdict turns on
-    directions = eigenvectors / d[:, None]  # back from the equilibrated to the scaled coordinates
+    breaks = breaks or []
+    # the curvature is judged on the smooth part only: the directions orthogonal to the breaks
+    basis, known = smooth_part or (np.eye(int(free.sum())), {})
+    hessian = basis.T @ measured.hessian @ basis
+    reduced = np.abs(basis).T @ error @ np.abs(basis)
+    for column, (curvature, bar) in known.items():
+        hessian[column, column], reduced[column, column] = curvature, bar
+    d = equilibration(np.maximum(np.abs(hessian), reduced))
+    eigenvalues, eigenvectors = np.linalg.eigh(hessian / np.outer(d, d))
+    margins = eigenvalue_margins(eigenvectors, reduced / np.outer(d, d))
+    if len(eigenvalues):
+        margins += 64.0 * EPSILON * float(np.max(np.abs(eigenvalues)))
+    verdict = _with_breaks(classify(eigenvalues, margins), breaks)
+    margin = float(margins[0]) if len(margins) else math.nan  # the smallest eigenvalue's
+    directions = basis @ (eigenvectors / d[:, None])  # back to the scaled coordinates
     scale = space.scale[free]
     names = labels(space, free)
     zero = np.abs(eigenvalues) <= margins
@@ -359,12 +499,48 @@ def _verdict(
         measured.hessian, error, scale, method, names=names, margin=margin,
         undetermined=undetermined, free=free_rec,
     )
+    if breaks:
+        curvature = dataclasses.replace(
+            curvature, breaks=tuple(_break(v, f, scale, names, space, free) for v, f in breaks)
+        )
     escape = None
     if verdict in (Verdict.SADDLE, Verdict.MAXIMUM):
         escape = np.zeros(space.size)
         most = directions[:, int(np.argmin(eigenvalues))]
         escape[free] = most / np.linalg.norm(most)
     return Checked(verdict=verdict, curvature=curvature, escape=escape)
+
+
+def _with_breaks(smooth: Verdict, breaks: list[tuple[np.ndarray, Finding]]) -> Verdict:
+    """The verdict when the objective is not smooth along ``breaks``: negative curvature of the
+    smooth part still wins (it can be escaped), then a combination not determined, then NONSMOOTH.
+    With every direction broken the smooth part is empty (UNCHECKED from `classify`)."""
+    if not breaks:
+        return smooth
+    if smooth in (Verdict.SADDLE, Verdict.MAXIMUM, Verdict.FLAT):
+        return smooth
+    return Verdict.NONSMOOTH
+
+
+def _break(
+    v: np.ndarray, found: Finding, scale: np.ndarray, names: tuple[str, ...], space: Space,
+    free: np.ndarray,
+) -> Break:
+    """A `Break` record in search coordinates for the unit direction ``v`` (scaled, free)."""
+    w = scale * v
+    length = float(np.linalg.norm(w))
+    sign = 1.0 if w[np.argmax(np.abs(w))] > 0 else -1.0  # as `combination` writes it
+    slopes = np.array(found.slopes) / length
+    if sign < 0:
+        slopes = slopes[::-1]
+    involved = np.abs(w) >= 0.1 * np.max(np.abs(w))
+    parameters = tuple(n for n, keep in zip(np.array(space.names)[free], involved) if keep)
+    axis = np.abs(v) > AXIS
+    return Break(
+        along=names[int(np.argmax(axis))] if axis.any() else combination(w, names),
+        kind=found.kind, parameters=parameters, slopes=(float(slopes[0]), float(slopes[1])),
+        change=found.change, step=found.step * length,
+    )
 
 
 # ----------------------------------------------------------------------------- escape

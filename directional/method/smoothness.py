@@ -1,0 +1,194 @@
+"""Is the objective smooth at the checked point?  Kinks and jumps from the check's own stencil.
+
+Theory of operation.  A Hessian assumes a twice-differentiable objective; simulation costs are
+often not: an absolute error or a maximum over time has a kink, a penalty that switches on or an
+event that moves from one time step to the next has a jump.  The stencil of the curvature check
+tells the two apart from a smooth function by how its differences scale with the step.
+
+Along a line through the point, with values ``f(±t)`` at steps ``t, 2t`` (and ``4t``), the central
+second difference ``D(t) = (f(t) - 2 f(0) + f(-t)) / t²`` is, as ``t`` shrinks,
+
+- nearly constant for a smooth function (``D = f'' + O(t²)``),
+- doubling with each halving of ``t`` at a kink (``D ≈ (g₊ - g₋) / t``, the slopes' difference),
+- growing fourfold at a jump (``D ≈ J / t²``).
+
+So curvature that concentrates at the point, ``|D(t)| > 1.5 |D(2t)|`` beyond the noise (1.5 lies
+between the ratios 1 of a smooth function and 2 of a kink), is a change that no smooth function
+with the curvature measured at the larger step can make within the smaller one.  Which kind, and
+whether the point is still a minimum, is then read from the one-sided differences
+``Δ±(t) = f(±t) - f(0)``: a side whose change does not grow with the step (``Δ(2t) < 1.5 Δ(t)``)
+holds a jump; otherwise both slopes ``Δ±(t) / t`` pointing uphill make a corner minimum.
+Differences below the noise (three standard deviations) count as zero: a really flat line is
+smooth, never a kink.
+
+Every kink surface through the point is crossed by at least one coordinate axis (the slope's jump
+is normal to the surface), so the axes of the stencil detect it; the eigenvectors of the measured
+Hessian then name the combination when more than one axis is affected.
+
+The functions are pure: the check (`directional.method.curvature`) gathers the values and asks
+for the few extra points.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+# Thresholds as powers of the ratio r of two steps (for r = 2: 1.5, between the ratio 1 of a smooth
+# function and the ratio 2 of a kink; common practice, no source)
+CONCENTRATION = math.log2(1.5)  # |D(t)| / |D(r t)| beyond r**this: concentrated at the point
+GROWTH = math.log2(1.5)  # a one-sided change growing less than r**this from t to r t: a jump
+SPREAD = 1.5  # steps closer than this ratio are not compared
+AXIS = 0.99  # an eigenvector with a component beyond this is an axis (already tested)
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Finding:
+    """What one line says: the kind of break and the one-sided differences it rests on.
+
+    ``kind`` is "corner" (slopes differ, both uphill: still a minimum along the line), "kink"
+    (slopes differ, one side goes down), "edge" (a jump up on one side, the other side not lower:
+    the point is the low edge of the jump) or "jump" (a jump with a lower side).  ``slopes`` are
+    the outward one-sided slopes ``(Δ₋(t) / t, Δ₊(t) / t)`` per unit of the line parameter,
+    ``change`` the size of the jump (0 for a kink), ``step`` the ``t`` they were read at.
+    """
+
+    kind: str
+    slopes: tuple[float, float]
+    change: float
+    step: float
+
+
+def line_finding(t: np.ndarray, values: np.ndarray, f0: float, noise: float) -> Finding | None:
+    """The break on a line through the point, or None where it is smooth (module docstring).
+
+    ``t`` are positive steps (any order, ideally doubling), ``values`` an array of shape
+    ``(len(t), 2)``: ``f(-t)`` and ``f(+t)``; ``noise`` the absolute noise level of a value.
+
+    >>> t = np.array([1e-3, 2e-3, 4e-3])
+    >>> f = np.abs(np.column_stack([-t, t]) - 0.0) + 0.0          # |x| at 0
+    >>> line_finding(t, f, 0.0, 1e-16).kind
+    'corner'
+    >>> line_finding(t, np.column_stack([t, t]) ** 2, 0.0, 1e-16) is None   # x² at 0
+    True
+    """
+    order = np.argsort(t)
+    t = np.asarray(t, dtype=float)[order]
+    values = np.asarray(values, dtype=float)[order]
+    if len(t) < 2 or not (math.isfinite(f0) and np.all(np.isfinite(values))):
+        return None
+    keep = [0]
+    for k in range(1, len(t)):
+        if t[k] >= SPREAD * t[keep[-1]]:  # steps too close together cannot show a scaling
+            keep.append(k)
+    t, change = t[keep], values[keep] - f0  # columns: Δ₋, Δ₊
+    for k in range(len(t) - 1):
+        small, large = t[k], t[k + 1]
+        d_small = (change[k, 0] + change[k, 1]) / small**2
+        d_large = (change[k + 1, 0] + change[k + 1, 1]) / large**2
+        noise_small = 3.0 * math.sqrt(6.0) * noise / small**2
+        noise_large = 3.0 * math.sqrt(6.0) * noise / large**2
+        if abs(d_small) <= noise_small:
+            continue
+        same_sign = d_small * d_large > 0.0 or abs(d_large) <= noise_large
+        ratio = (large / small) ** CONCENTRATION  # 1.5 for doubling steps
+        beyond = abs(d_small) - ratio * abs(d_large) > noise_small + ratio * noise_large
+        if same_sign and beyond:
+            return _kind(change[k], change[k + 1], small, 3.0 * math.sqrt(2.0) * noise,
+                         large / small)
+    return None
+
+
+def _kind(inner: np.ndarray, outer: np.ndarray, t: float, noise: float, ratio: float) -> Finding:
+    """Corner, kink, edge or jump from the one-sided changes at the steps ``t`` and ``ratio t``."""
+    growth = ratio**GROWTH  # 1.5 for doubling steps
+    jumped = [
+        abs(inner[s]) > noise
+        and outer[s] * inner[s] > 0.0
+        and abs(outer[s]) < growth * abs(inner[s]) + noise
+        for s in (0, 1)
+    ]
+    slopes = (float(inner[0] / t), float(inner[1] / t))
+    if any(jumped):
+        sizes = [float(inner[s]) for s in (0, 1) if jumped[s]]
+        size = max(sizes, key=abs)
+        others = [float(inner[s]) for s in (0, 1) if not jumped[s]]
+        low = size > 0.0 and all(v >= -noise for v in others)
+        return Finding(kind="edge" if low else "jump", slopes=slopes, change=size, step=t)
+    uphill = inner[0] > noise and inner[1] > noise
+    return Finding(kind="corner" if uphill else "kink", slopes=slopes, change=0.0, step=t)
+
+
+def axis_lines(
+    offsets: np.ndarray, values: np.ndarray, *, tolerance: float = 1e-12
+) -> list[tuple[np.ndarray, np.ndarray]]:
+    """The points of a stencil that lie on each coordinate axis, symmetric pairs only.
+
+    ``offsets`` (m, k) are the evaluated steps from the point in scaled coordinates over the free
+    parameters, ``values`` their values.  For axis i: the steps ``t > 0`` at which both ``-t e_i``
+    and ``+t e_i`` were evaluated, and the values there, as `line_finding` takes them.
+    """
+    offsets = np.asarray(offsets, dtype=float)
+    values = np.asarray(values, dtype=float)
+    lines = []
+    for i in range(offsets.shape[1]):
+        others = np.delete(offsets, i, axis=1)
+        on = np.all(np.abs(others) <= tolerance, axis=1) & (np.abs(offsets[:, i]) > tolerance)
+        steps, found = offsets[on, i], values[on]
+        order = np.argsort(np.abs(steps))
+        groups: list[dict[int, tuple[float, float]]] = []
+        for j in order:
+            size = abs(float(steps[j]))
+            if not groups or size > (1.0 + 1e-6) * next(iter(groups[-1].values()))[0]:
+                groups.append({})
+            groups[-1][1 if steps[j] > 0 else 0] = (size, float(found[j]))
+        pairs = [g for g in groups if len(g) == 2]
+        ts = np.array([0.5 * (g[0][0] + g[1][0]) for g in pairs])
+        lines.append((ts, np.array([[g[0][1], g[1][1]] for g in pairs]).reshape(-1, 2)))
+    return lines
+
+
+def probe_directions(hessian: np.ndarray, flagged: np.ndarray) -> np.ndarray:
+    """Unit directions (rows, over the free parameters) to test beyond the axes.
+
+    The eigenvectors of the measured Hessian restricted to the ``flagged`` axes (those where a
+    break was seen), embedded in the full space; an eigenvector that is an axis is left out.
+    Returns an empty (0, k) array when fewer than two axes are flagged.
+    """
+    k = len(flagged)
+    index = np.flatnonzero(flagged)
+    if len(index) < 2:
+        return np.zeros((0, k))
+    block = np.asarray(hessian, dtype=float)[np.ix_(index, index)]
+    block = 0.5 * (block + block.T)
+    if not np.all(np.isfinite(block)):
+        return np.zeros((0, k))
+    _, vectors = np.linalg.eigh(block)
+    rows = []
+    for v in vectors.T:
+        if np.max(np.abs(v)) > AXIS:
+            continue
+        row = np.zeros(k)
+        row[index] = v
+        rows.append(row)
+    return np.array(rows).reshape(-1, k)
+
+
+def complement(directions: np.ndarray, k: int) -> np.ndarray:
+    """An orthonormal basis (columns) of the directions orthogonal to the rows of ``directions``.
+
+    Axis-aligned rows give the remaining axes themselves, so that the smooth part of a Hessian
+    keeps its parameters as coordinates.
+    """
+    directions = np.asarray(directions, dtype=float).reshape(-1, k)
+    if len(directions) == 0:
+        return np.eye(k)
+    axes = np.abs(directions) > AXIS
+    if np.all(axes.sum(axis=1) == 1):
+        keep = ~axes.any(axis=0)
+        return np.eye(k)[:, keep]
+    _, singular, vt = np.linalg.svd(directions, full_matrices=True)
+    rank = int(np.sum(singular > 1e-10 * max(1.0, float(singular[0]))))
+    return vt[rank:].T
