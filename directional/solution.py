@@ -138,6 +138,9 @@ def _uncertainty_lines(sol: Solution) -> list[str]:
     ]
     for i, name in enumerate(sol.names):
         low, high = u.intervals[i]
+        if name in getattr(u, "rough", ()):
+            lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {'—':>11}  {'not smooth':>27}")
+            continue
         lines.append(
             f"  {name:<{width}}  {sol.point[i]:>14.8g}  {u.standard_errors[i]:>11.5g}  "
             f"{'[' + f'{low:.6g}, {high:.6g}' + ']':>27}"

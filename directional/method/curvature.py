@@ -66,8 +66,8 @@ from directional.method.smoothness import (
     Finding,
     axis_lines,
     complement,
+    crease_candidates,
     line_finding,
-    probe_directions,
 )
 from directional.method.space import Space
 from directional.records import Batch, Break, Curvature, Halt, Outcome, Stop, Verdict
@@ -128,7 +128,7 @@ def equilibration(hessian: np.ndarray, *, sweeps: int = 60) -> np.ndarray:
     """
     a = np.abs(np.asarray(hessian, dtype=float))
     d = np.ones(len(a))
-    for _ in range(sweeps):
+    for _ in range(sweeps if len(a) else 0):
         rows = np.max(a / np.outer(d, d), axis=1)
         step = np.sqrt(np.where(rows > 0.0, rows, 1.0))
         d = d * step
@@ -372,8 +372,9 @@ def _judged(
     """Smoothness first (`directional.method.smoothness`), then the verdict on the smooth part.
 
     The stencil's points on the axes are used as they are; a stencil with one step per axis (the
-    quick one) gets the half steps, and when more than one axis shows a break, the Hessian's
-    eigenvectors over those axes are probed at two steps each way, to name the combination.
+    quick one) gets the half steps, and when more than one axis shows a break, the candidate
+    normals of a kink surface and the lines along it (`smoothness.crease_candidates`) are probed
+    at two steps each way, to name the combination.
     These few points go to the driver as one batch each (purpose "smoothness").
     """
     level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
@@ -394,23 +395,60 @@ def _judged(
         findings = [line_finding(t, v, f0, level) for t, v in lines]
         flagged = np.array([f is not None for f in findings])
         breaks = [(np.eye(k)[i], f) for i, f in enumerate(findings) if f is not None]
-        probes = probe_directions(measured.hessian, flagged)
+        candidates = crease_candidates(findings, measured.hessian)
         smooth: list[tuple[np.ndarray, Line]] = []  # probed directions found smooth
-        if len(probes):
+        if candidates:
+            probes = np.vstack([np.vstack([n[None, :], t]) for n, t in candidates])
             smallest = np.array([t[0] if len(t) else np.nan for t, _ in lines])
-            sizes = 1.0 / np.linalg.norm(probes / smallest, axis=1)
+            used = np.abs(probes) > 0.0
+            sizes = np.array([1.0 / np.linalg.norm(v[u] / smallest[u]) for v, u in zip(probes, used)])
             extra = yield from _probe(space, u0, free, probes, sizes, (1.0, 2.0))
-            along = [(v, line, line_finding(*line, f0, level)) for v, line in zip(probes, extra)]
-            if 0 < sum(f is not None for _, _, f in along) < len(along):
-                breaks = [(v, f) for v, _, f in along if f is not None]
-                smooth = [(v, line) for v, line, f in along if f is None]
+            found = [line_finding(*line, f0, level) for line in extra]
+            row = 0
+            for normal, tangents in candidates:
+                rows = range(row, row + 1 + len(tangents))
+                row += 1 + len(tangents)
+                first, *rest = rows
+                if found[first] is not None and all(found[r] is None for r in rest):
+                    breaks = [(normal, found[first])]
+                    smooth = [(probes[r], extra[r]) for r in rest]
+                    break
     except Halt as halt:
         return Checked(
             verdict=Verdict.UNCHECKED, curvature=free_rec,
             note=f"the smoothness check could not finish: {halt.reason}",
         )
-    return _verdict(space, free, measured, f0, noise, method, free_rec, breaks,
-                    _smooth_part(breaks, smooth, flagged, f0, level))
+    checked = _verdict(space, free, measured, f0, noise, method, free_rec, breaks,
+                       _smooth_part(breaks, smooth, flagged, f0, level))
+    downhill = _downhill(smooth, f0, level)
+    if checked.escape is None and downhill is not None:
+        escape = np.zeros(space.size)
+        escape[free] = downhill
+        checked = dataclasses.replace(checked, escape=escape)
+    return checked
+
+
+def _downhill(smooth: list[tuple[np.ndarray, Line]], f0: float, level: float) -> np.ndarray | None:
+    """The probed smooth direction along a crease that still goes down, if any (unit, free).
+
+    A direction-set search can stop on a kinked valley whose floor no direction of its set
+    follows: every line across the floor has its minimum on it.  Along the floor the objective is
+    smooth, and a slope there whose parabola puts the minimum beyond the probe's step (or a
+    curvature that is not positive) says the point is not a minimum: the check then escapes
+    along it like along a direction of negative curvature.
+    """
+    best, steepest = None, 0.0
+    for v, (t, values) in smooth:
+        a, (back, forward) = float(t[0]), values[0]
+        slope = (forward - back) / (2.0 * a)
+        curvature = (forward + back - 2.0 * f0) / a**2
+        if abs(forward - back) <= 3.0 * math.sqrt(2.0) * level:
+            continue
+        if curvature > 0.0 and abs(slope) <= curvature * a:
+            continue
+        if abs(slope) > steepest:
+            best, steepest = -math.copysign(1.0, slope) * v, abs(slope)
+    return best
 
 
 def _smooth_part(
@@ -677,6 +715,9 @@ def settle(
             notes.append(f"{checked.verdict.value} at {where}: the escape along {along} was stopped")
             return _settled(space, outcome, verdict=checked.verdict, curvature=curvature,
                             notes=tuple(notes), escapes=escaped)
+        if not moved.value < outcome.value - floor and checked.verdict is Verdict.NONSMOOTH:
+            return _settled(space, outcome, verdict=checked.verdict, curvature=curvature,
+                            notes=tuple(notes), escapes=escaped)  # the slope along it was tiny
         if not moved.value < outcome.value - floor:
             notes.append(
                 f"{checked.verdict.value} at {where}: no appreciably lower point along {along}; "

@@ -22,8 +22,9 @@ Differences below the noise (three standard deviations) count as zero: a really 
 smooth, never a kink.
 
 Every kink surface through the point is crossed by at least one coordinate axis (the slope's jump
-is normal to the surface), so the axes of the stencil detect it; the eigenvectors of the measured
-Hessian then name the combination when more than one axis is affected.
+is normal to the surface), so the axes of the stencil detect it.  When more than one axis is
+affected, the surface's normal is estimated from the slopes (`crease_candidates`) and the lines
+along it and across it are probed to name the combination.
 
 The functions are pure: the check (`directional.method.curvature`) gathers the values and asks
 for the few extra points.
@@ -150,30 +151,39 @@ def axis_lines(
     return lines
 
 
-def probe_directions(hessian: np.ndarray, flagged: np.ndarray) -> np.ndarray:
-    """Unit directions (rows, over the free parameters) to test beyond the axes.
+def crease_candidates(
+    findings: list[Finding | None], hessian: np.ndarray
+) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Candidate normals of one kink surface through the point, each with its tangents (rows).
 
-    The eigenvectors of the measured Hessian restricted to the ``flagged`` axes (those where a
-    break was seen), embedded in the full space; an eigenvector that is an axis is left out.
-    Returns an empty (0, k) array when fewer than two axes are flagged.
+    Across a surface ``λ |n·u|`` the outward slopes along axis i add up to ``2 λ |n_i|``, so the
+    flagged axes give the normal's components up to their signs.  The signs are those of the
+    measured Hessian's cross terms (the stencil's cross differences carry ``sign(n_i n_j)``);
+    with two axes flagged both sign patterns are tried, since a stencil straddling the kink may
+    blur them.  The tangents span the rest of the flagged axes.  Fewer than two flagged axes:
+    no candidate (the axis itself names the break).
     """
-    k = len(flagged)
-    index = np.flatnonzero(flagged)
+    k = len(findings)
+    index = [i for i, f in enumerate(findings) if f is not None]
     if len(index) < 2:
-        return np.zeros((0, k))
-    block = np.asarray(hessian, dtype=float)[np.ix_(index, index)]
-    block = 0.5 * (block + block.T)
-    if not np.all(np.isfinite(block)):
-        return np.zeros((0, k))
-    _, vectors = np.linalg.eigh(block)
-    rows = []
-    for v in vectors.T:
-        if np.max(np.abs(v)) > AXIS:
-            continue
-        row = np.zeros(k)
-        row[index] = v
-        rows.append(row)
-    return np.array(rows).reshape(-1, k)
+        return []
+    size = np.array([max(sum(findings[i].slopes), 0.0) for i in index])
+    if not np.all(size > 0.0) or not np.all(np.isfinite(hessian)):
+        return []
+    cross = np.sign([hessian[index[0], i] for i in index[1:]])
+    patterns = [np.concatenate([[1.0], np.where(cross == 0.0, 1.0, cross)])]
+    if len(index) == 2:
+        patterns.append(patterns[0] * np.array([1.0, -1.0]))
+    candidates = []
+    for signs in patterns:
+        normal = np.zeros(k)
+        normal[index] = signs * size
+        normal /= np.linalg.norm(normal)
+        _, _, vt = np.linalg.svd(normal[index][None, :], full_matrices=True)
+        tangents = np.zeros((len(index) - 1, k))
+        tangents[:, index] = vt[1:]
+        candidates.append((normal, tangents))
+    return candidates
 
 
 def complement(directions: np.ndarray, k: int) -> np.ndarray:

@@ -61,6 +61,9 @@ def uncertainty_lines(sol: Solution) -> list[str]:
         if name in sol.active:
             lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {'on a bound':>14}")
             continue
+        if name in getattr(u, "rough", ()):
+            lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {'not smooth':>14}")
+            continue
         band = "" if rows is None else f"[{rows[i][0]:.6g}, {rows[i][1]:.6g}]"
         lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {errors[i]:>14.4g}  {band}")
     strongest = getattr(u, "strongest", None)
