@@ -23,7 +23,12 @@ point it returns is checked.
    (`eigenvalue_margins`): an eigenvalue above its bar is clearly positive, one below minus its
    bar clearly negative, the rest indistinguishable from zero.  MINIMUM: all clearly positive;
    MAXIMUM: all clearly negative; SADDLE: some clearly negative; FLAT: none negative, some zero
-   (the combinations of parameters along those eigenvectors are reported by name).
+   (the combinations of parameters along those eigenvectors are reported by name).  Before that,
+   the stencil's values along each axis are tested for kinks and jumps
+   (`directional.method.smoothness`); where the objective is not smooth the verdict is NONSMOOTH
+   (unless the smooth rest is a saddle or flat), the break is named (`records.Break`), and the
+   curvature is judged on the directions orthogonal to it only.  A direction along a kinked
+   valley that still goes down is escaped along, like one of negative curvature.
 4. Escape.  On SADDLE or MAXIMUM the eigenvector of most negative curvature is line-searched both
    ways, the direction-set search restarts from the better point, and the new point is checked:
    at most ``escapes`` times.  When the line search gains less than the search's own value
