@@ -260,3 +260,16 @@ def test_no_interval_where_the_misfit_is_not_smooth():
     assert np.all(np.isfinite(u.intervals[1]))
     assert any("no linearized interval for a" in str(w.message) for w in caught)
     assert "not smooth" in sol.summary()
+
+
+def test_the_json_document_lists_the_break():
+    # Analytic: |x0 - 0.3| + (x1 - 0.2)² has its corner along x0.
+    import json
+
+    from directional.report.summary import solution_document
+
+    sol = dl.minimize(kink, [0.0, 0.0], bounds=[(-1, 1), (-1, 1)], check="quick")
+    document = json.loads(json.dumps(solution_document(sol), allow_nan=False))
+    assert document["verdict"] == "nonsmooth"
+    (piece,) = document["curvature"]["breaks"]
+    assert piece["along"] == "x0" and piece["kind"] == "corner" and piece["parameters"] == ["x0"]

@@ -577,7 +577,7 @@ def _break(
     if sign < 0:
         slopes = slopes[::-1]
     involved = np.abs(w) >= 0.1 * np.max(np.abs(w))
-    parameters = tuple(n for n, keep in zip(np.array(space.names)[free], involved) if keep)
+    parameters = tuple(str(n) for n, keep in zip(np.array(space.names)[free], involved) if keep)
     axis = np.abs(v) > AXIS
     return Break(
         along=names[int(np.argmax(axis))] if axis.any() else combination(w, names),

@@ -93,7 +93,7 @@ def line_finding(t: np.ndarray, values: np.ndarray, f0: float, noise: float) -> 
         noise_large = 3.0 * math.sqrt(6.0) * noise / large**2
         if abs(d_small) <= noise_small:
             continue
-        same_sign = d_small * d_large > 0.0 or abs(d_large) <= noise_large
+        same_sign = np.sign(d_small) == np.sign(d_large) or abs(d_large) <= noise_large
         ratio = (large / small) ** CONCENTRATION  # 1.5 for doubling steps
         beyond = abs(d_small) - ratio * abs(d_large) > noise_small + ratio * noise_large
         if same_sign and beyond:
@@ -107,7 +107,7 @@ def _kind(inner: np.ndarray, outer: np.ndarray, t: float, noise: float, ratio: f
     growth = ratio**GROWTH  # 1.5 for doubling steps
     jumped = [
         abs(inner[s]) > noise
-        and outer[s] * inner[s] > 0.0
+        and np.sign(outer[s]) == np.sign(inner[s])
         and abs(outer[s]) < growth * abs(inner[s]) + noise
         for s in (0, 1)
     ]
