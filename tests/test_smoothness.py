@@ -273,3 +273,22 @@ def test_the_json_document_lists_the_break():
     assert document["verdict"] == "nonsmooth"
     (piece,) = document["curvature"]["breaks"]
     assert piece["along"] == "x0" and piece["kind"] == "corner" and piece["parameters"] == ["x0"]
+
+
+def test_unstated_noise_is_not_called_a_kink():
+    # Invented: a positive definite quadratic plus noise of 1e-8 on a value near 1, not stated.
+    # At the check's steps the noise makes jumps of a few 1e-8: below a millionth of the value,
+    # they are left out of the verdict, and a note says why (common practice, no source).
+    rng = np.random.default_rng(0)
+    hessian = np.array([[2.0, 0.5, 0.0], [0.5, 1.0, 0.2], [0.0, 0.2, 3.0]])
+
+    def f(x):
+        d = np.asarray(x) - 0.3
+        return float(d @ hessian @ d) + 1.0 + 1e-8 * rng.standard_normal()
+
+    sol = dl.minimize(f, np.zeros(3), bounds=[(-2, 2)] * 3, check="quick")
+    assert sol.verdict is Verdict.MINIMUM
+    assert sol.curvature.breaks == ()
+    assert any("taken for noise that was not stated" in note for note in sol.notes)
+    stated = dl.minimize(f, np.zeros(3), bounds=[(-2, 2)] * 3, check="quick", noise=1e-8)
+    assert stated.verdict is Verdict.MINIMUM and stated.curvature.breaks == ()

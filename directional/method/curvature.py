@@ -81,6 +81,7 @@ from directional.solution import Solution
 
 RESIZES = 2  # with a noise level: times the stencil may be resized from measured curvatures
 FREE_FLAT = EPSILON**0.5  # free estimate: smaller eigenvalues (relative) count as zero
+TINY = 1e-6  # breaks below this share of the value may be unstated noise (a note says so)
 
 Check = Generator[Batch, np.ndarray, "Checked"]
 
@@ -423,14 +424,31 @@ def _judged(
             verdict=Verdict.UNCHECKED, curvature=free_rec,
             note=f"the smoothness check could not finish: {halt.reason}",
         )
+    note = ""
+    if breaks and noise is None and all(_tiny(f, f0) for _, f in breaks):
+        largest = max(abs(f.change) or max(map(abs, f.slopes)) * f.step for _, f in breaks)
+        note = (
+            f"the values around the point jump or kink by up to {largest:.2g}, below a millionth "
+            "of the value: taken for noise that was not stated and left out of the verdict (give "
+            "noise=, a level or \"estimate\", to have the check judge it)"
+        )
+        breaks, smooth, flagged = [], [], np.zeros(k, dtype=bool)
     checked = _verdict(space, free, measured, f0, noise, method, free_rec, breaks,
                        _smooth_part(breaks, smooth, flagged, f0, level))
+    if note:
+        checked = dataclasses.replace(checked, note=note)
     downhill = _downhill(smooth, f0, level)
     if checked.escape is None and downhill is not None:
         escape = np.zeros(space.size)
         escape[free] = downhill
         checked = dataclasses.replace(checked, escape=escape)
     return checked
+
+
+def _tiny(found: Finding, f0: float) -> bool:
+    """A break whose size (the jump, or the slopes times the step) is below 1e-6 of the value."""
+    size = abs(found.change) or max(abs(v) for v in found.slopes) * found.step
+    return size < TINY * abs(f0)
 
 
 def _downhill(smooth: list[tuple[np.ndarray, Line]], f0: float, level: float) -> np.ndarray | None:

@@ -19,7 +19,9 @@ whether the point is still a minimum, is then read from the one-sided difference
 ``Δ±(t) = f(±t) - f(0)``: a side whose change does not grow with the step (``Δ(2t) < 1.5 Δ(t)``)
 holds a jump; otherwise both slopes ``Δ±(t) / t`` pointing uphill make a corner minimum.
 Differences below the noise (three standard deviations) count as zero: a really flat line is
-smooth, never a kink.
+smooth, never a kink; and each side's change must grow with the step as a kink, a jump or a
+smooth side does (by a factor between about 1 and 4 per doubling): changes unrelated from one
+step to the next are noise the stated level does not cover, not a kink.
 
 Every kink surface through the point is crossed by at least one coordinate axis (the slope's jump
 is normal to the surface), so the axes of the stencil detect it.  When more than one axis is
@@ -96,10 +98,28 @@ def line_finding(t: np.ndarray, values: np.ndarray, f0: float, noise: float) -> 
         same_sign = np.sign(d_small) == np.sign(d_large) or abs(d_large) <= noise_large
         ratio = (large / small) ** CONCENTRATION  # 1.5 for doubling steps
         beyond = abs(d_small) - ratio * abs(d_large) > noise_small + ratio * noise_large
-        if same_sign and beyond:
+        if same_sign and beyond and _regular(change[k:], t[k:], 3.0 * math.sqrt(2.0) * noise):
             return _kind(change[k], change[k + 1], small, 3.0 * math.sqrt(2.0) * noise,
                          large / small)
     return None
+
+
+def _regular(change: np.ndarray, t: np.ndarray, noise: float) -> bool:
+    """Whether each side's changes grow from one step to the next as a kink, a jump or a smooth
+    side can make them: by a factor between 1/2 (a jump, ~1) and r² + 1/2 (curvature, r²), with
+    the same sign, for steps in the ratio r.  Noise that the stated level does not cover makes
+    the changes at successive steps unrelated; it is not called a kink (common practice, no
+    source)."""
+    for k in range(len(t) - 1):
+        r = t[k + 1] / t[k]
+        for side in (0, 1):
+            inner, outer = change[k, side], change[k + 1, side]
+            if abs(inner) <= noise:
+                continue
+            ratio = outer / inner
+            if not 0.5 <= ratio <= r * r + 0.5:
+                return False
+    return True
 
 
 def _kind(inner: np.ndarray, outer: np.ndarray, t: float, noise: float, ratio: float) -> Finding:
