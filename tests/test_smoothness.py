@@ -292,3 +292,30 @@ def test_unstated_noise_is_not_called_a_kink():
     assert any("taken for noise that was not stated" in note for note in sol.notes)
     stated = dl.minimize(f, np.zeros(3), bounds=[(-2, 2)] * 3, check="quick", noise=1e-8)
     assert stated.verdict is Verdict.MINIMUM and stated.curvature.breaks == ()
+
+
+def test_the_check_asks_for_the_probes_as_one_more_batch():
+    # Drive the check by hand (a fake partner, no driver).  |x0 + x1| + (x0 - x1)² at 0: both
+    # axes cross the kink, so the candidate normals and the lines along the kink are probed in
+    # one batch of purpose "smoothness"; the kink is along x0 + x1 (analytic).
+    from directional.method import curvature
+    from directional.method.space import build_space
+
+    def f(p):
+        return abs(p[0] + p[1]) + (p[0] - p[1]) ** 2
+
+    space = build_space([0.0, 0.0], bounds=[(-1, 1), (-1, 1)])
+    gen = curvature.check_point(
+        space, space.to_scaled(np.zeros(2)), 0.0, None, method="quick", noise=None,
+        active=np.zeros(2, bool),
+    )
+    batch = next(gen)
+    assert batch.purpose == "hessian" and len(batch.points) == 2 * 4 + 2 * 2 + 1
+    batch = gen.send(np.array([f(p) for p in batch.points]))
+    assert batch.purpose == "smoothness"
+    with pytest.raises(StopIteration) as done:
+        gen.send(np.array([f(p) for p in batch.points]))
+    checked = done.value.value
+    assert checked.verdict is Verdict.NONSMOOTH
+    (piece,) = checked.curvature.breaks
+    assert piece.along == "0.707 x0 + 0.707 x1" and piece.kind == "corner"

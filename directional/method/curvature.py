@@ -66,14 +66,7 @@ from directional.method.hessian import (
 )
 from directional.method.linesearch import line_search
 from directional.method.search import FIRST_STEP, Settings, powell
-from directional.method.smoothness import (
-    AXIS,
-    Finding,
-    axis_lines,
-    complement,
-    crease_candidates,
-    line_finding,
-)
+from directional.method.smoothness import AXIS, Finding, examine
 from directional.method.space import Space
 from directional.records import Batch, Break, Curvature, Halt, Outcome, Stop, Verdict
 from directional.run.driver import Driver
@@ -81,7 +74,6 @@ from directional.solution import Solution
 
 RESIZES = 2  # with a noise level: times the stencil may be resized from measured curvatures
 FREE_FLAT = EPSILON**0.5  # free estimate: smaller eigenvalues (relative) count as zero
-TINY = 1e-6  # breaks below this share of the value may be unstated noise (a note says so)
 
 Check = Generator[Batch, np.ndarray, "Checked"]
 
@@ -361,9 +353,6 @@ def _seen(
         return stop.value
 
 
-Line = tuple[np.ndarray, np.ndarray]  # steps t > 0 and the values f(-t), f(+t) at them
-
-
 def _judged(
     space: Space,
     u0: np.ndarray,
@@ -375,152 +364,28 @@ def _judged(
     free_rec: Curvature | None,
     seen: list[tuple[np.ndarray, np.ndarray]],
 ) -> Check:
-    """Smoothness first (`directional.method.smoothness`), then the verdict on the smooth part.
-
-    The stencil's points on the axes are used as they are; a stencil with one step per axis (the
-    quick one) gets the half steps, and when more than one axis shows a break, the candidate
-    normals of a kink surface and the lines along it (`smoothness.crease_candidates`) are probed
-    at two steps each way, to name the combination.
-    These few points go to the driver as one batch each (purpose "smoothness").
-    """
-    level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
+    """Smoothness first (`smoothness.examine`, a few more points), then the verdict on the smooth
+    part, and an escape along a kinked valley's floor where it still goes down."""
     points = np.concatenate([p for p, _ in seen])
     values = np.concatenate([v for _, v in seen])
-    offsets = (space.to_scaled(points) - u0)[:, free]
-    lines = axis_lines(offsets, values)
-    k = int(free.sum())
     try:
-        short = [i for i, (t, _) in enumerate(lines) if len(t) == 1]
-        if short:
-            axes = np.eye(k)[short]
-            halves = np.array([0.5 * lines[i][0][0] for i in short])
-            extra = yield from _probe(space, u0, free, axes, halves, (1.0,))
-            for i, line in zip(short, extra):
-                lines[i] = (np.concatenate([line[0], lines[i][0]]),
-                            np.concatenate([line[1], lines[i][1]]))
-        findings = [line_finding(t, v, f0, level) for t, v in lines]
-        flagged = np.array([f is not None for f in findings])
-        breaks = [(np.eye(k)[i], f) for i, f in enumerate(findings) if f is not None]
-        candidates = crease_candidates(findings, measured.hessian)
-        smooth: list[tuple[np.ndarray, Line]] = []  # probed directions found smooth
-        if candidates:
-            probes = np.vstack([np.vstack([n[None, :], t]) for n, t in candidates])
-            smallest = np.array([t[0] if len(t) else np.nan for t, _ in lines])
-            used = np.abs(probes) > 0.0
-            sizes = np.array([1.0 / np.linalg.norm(v[u] / smallest[u]) for v, u in zip(probes, used)])
-            extra = yield from _probe(space, u0, free, probes, sizes, (1.0, 2.0))
-            found = [line_finding(*line, f0, level) for line in extra]
-            row = 0
-            for normal, tangents in candidates:
-                rows = range(row, row + 1 + len(tangents))
-                row += 1 + len(tangents)
-                first, *rest = rows
-                if found[first] is not None and all(found[r] is None for r in rest):
-                    breaks = [(normal, found[first])]
-                    smooth = [(probes[r], extra[r]) for r in rest]
-                    break
+        found = yield from examine(
+            space, u0, f0, free, (points, values), measured.hessian, noise=noise
+        )
     except Halt as halt:
         return Checked(
             verdict=Verdict.UNCHECKED, curvature=free_rec,
             note=f"the smoothness check could not finish: {halt.reason}",
         )
-    note = ""
-    if breaks and noise is None and all(_tiny(f, f0) for _, f in breaks):
-        largest = max(abs(f.change) or max(map(abs, f.slopes)) * f.step for _, f in breaks)
-        note = (
-            f"the values around the point jump or kink by up to {largest:.2g}, below a millionth "
-            "of the value: taken for noise that was not stated and left out of the verdict (give "
-            "noise=, a level or \"estimate\", to have the check judge it)"
-        )
-        breaks, smooth, flagged = [], [], np.zeros(k, dtype=bool)
-    checked = _verdict(space, free, measured, f0, noise, method, free_rec, breaks,
-                       _smooth_part(breaks, smooth, flagged, f0, level))
-    if note:
-        checked = dataclasses.replace(checked, note=note)
-    downhill = _downhill(smooth, f0, level)
-    if checked.escape is None and downhill is not None:
+    checked = _verdict(space, free, measured, f0, noise, method, free_rec, found.breaks,
+                       (found.basis, found.known))
+    if found.note:
+        checked = dataclasses.replace(checked, note=found.note)
+    if checked.escape is None and found.downhill is not None:
         escape = np.zeros(space.size)
-        escape[free] = downhill
+        escape[free] = found.downhill
         checked = dataclasses.replace(checked, escape=escape)
     return checked
-
-
-def _tiny(found: Finding, f0: float) -> bool:
-    """A break whose size (the jump, or the slopes times the step) is below 1e-6 of the value."""
-    size = abs(found.change) or max(abs(v) for v in found.slopes) * found.step
-    return size < TINY * abs(f0)
-
-
-def _downhill(smooth: list[tuple[np.ndarray, Line]], f0: float, level: float) -> np.ndarray | None:
-    """The probed smooth direction along a crease that still goes down, if any (unit, free).
-
-    A direction-set search can stop on a kinked valley whose floor no direction of its set
-    follows: every line across the floor has its minimum on it.  Along the floor the objective is
-    smooth, and a slope there whose parabola puts the minimum beyond the probe's step (or a
-    curvature that is not positive) says the point is not a minimum: the check then escapes
-    along it like along a direction of negative curvature.
-    """
-    best, steepest = None, 0.0
-    for v, (t, values) in smooth:
-        a, (back, forward) = float(t[0]), values[0]
-        slope = (forward - back) / (2.0 * a)
-        curvature = (forward + back - 2.0 * f0) / a**2
-        if abs(forward - back) <= 3.0 * math.sqrt(2.0) * level:
-            continue
-        if curvature > 0.0 and abs(slope) <= curvature * a:
-            continue
-        if abs(slope) > steepest:
-            best, steepest = -math.copysign(1.0, slope) * v, abs(slope)
-    return best
-
-
-def _smooth_part(
-    breaks: list[tuple[np.ndarray, Finding]],
-    smooth: list[tuple[np.ndarray, Line]],
-    flagged: np.ndarray,
-    f0: float,
-    level: float,
-) -> tuple[np.ndarray, dict[int, tuple[float, float]]]:
-    """A basis (columns) of the directions the curvature is judged on, and the curvatures the
-    probes measured along some of them, ``{column: (curvature, error)}``.
-
-    Without breaks: every axis.  With breaks along axes: the other axes.  With breaks along
-    probed combinations: the probed directions found smooth, and the axes no break touched.  A
-    stencil whose points straddle a break mixes it into every entry it touches, so along a probed
-    direction its own second difference is used, with ``|D(t) - D(2t)|`` plus the noise's share
-    as the error bar.
-    """
-    k = len(flagged)
-    if not breaks:
-        return np.eye(k), {}
-    if not smooth:
-        return complement(np.array([v for v, _ in breaks]), k), {}
-    columns = [v for v, _ in smooth] + [np.eye(k)[i] for i in np.flatnonzero(~flagged)]
-    known = {}
-    for column, (_, (t, values)) in enumerate(smooth):
-        d = (values[:, 0] + values[:, 1] - 2.0 * f0) / t**2
-        noise = 3.0 * math.sqrt(6.0) * level / t[0] ** 2
-        known[column] = (float(d[0]), float(abs(d[0] - d[-1]) + noise))
-    return np.array(columns).T, known
-
-
-def _probe(
-    space: Space,
-    u0: np.ndarray,
-    free: np.ndarray,
-    directions: np.ndarray,
-    sizes: np.ndarray,
-    multiples: tuple[float, ...],
-) -> Generator[Batch, np.ndarray, list[Line]]:
-    """Evaluate ``u0 ± m s d`` for each direction d (rows, free coordinates) of size s, multiple m."""
-    rows = [
-        sign * m * s * d for d, s in zip(directions, sizes) for m in multiples for sign in (-1.0, 1.0)
-    ]
-    u = np.repeat(u0[None, :], len(rows), axis=0)
-    u[:, free] += np.array(rows)
-    values = yield Batch(points=space.to_user(u), purpose="smoothness")
-    values = np.asarray(values, dtype=float).reshape(len(directions), len(multiples), 2)
-    return [(np.array(multiples) * s, v) for s, v in zip(sizes, values)]
 
 
 def _verdict(

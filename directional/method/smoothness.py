@@ -28,23 +28,29 @@ is normal to the surface), so the axes of the stencil detect it.  When more than
 affected, the surface's normal is estimated from the slopes (`crease_candidates`) and the lines
 along it and across it are probed to name the combination.
 
-The functions are pure: the check (`directional.method.curvature`) gathers the values and asks
-for the few extra points.
+Everything here is pure: `examine` is a generator that yields the few extra points it needs as
+batches and receives their values; the check (`directional.method.curvature`) runs it.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Generator
 from dataclasses import dataclass
 
 import numpy as np
+
+from directional.method.space import Space
+from directional.records import Batch
 
 # Thresholds as powers of the ratio r of two steps (for r = 2: 1.5, between the ratio 1 of a smooth
 # function and the ratio 2 of a kink; common practice, no source)
 CONCENTRATION = math.log2(1.5)  # |D(t)| / |D(r t)| beyond r**this: concentrated at the point
 GROWTH = math.log2(1.5)  # a one-sided change growing less than r**this from t to r t: a jump
 SPREAD = 1.5  # steps closer than this ratio are not compared
-AXIS = 0.99  # an eigenvector with a component beyond this is an axis (already tested)
+AXIS = 0.99  # a direction with a component beyond this is an axis (already tested)
+TINY = 1e-6  # breaks below this share of the value may be unstated noise (a note says so)
+EPSILON = float(np.finfo(float).eps)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -222,3 +228,167 @@ def complement(directions: np.ndarray, k: int) -> np.ndarray:
     _, singular, vt = np.linalg.svd(directions, full_matrices=True)
     rank = int(np.sum(singular > 1e-10 * max(1.0, float(singular[0]))))
     return vt[rank:].T
+
+
+# ----------------------------------------------------------------------------- the examination
+
+
+Line = tuple[np.ndarray, np.ndarray]  # steps t > 0 and the values f(-t), f(+t) at them
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Examined:
+    """What `examine` found: the breaks (unit direction over the free parameters, finding), the
+    basis and probe-measured curvatures of the smooth part (`_smooth_part`), a smooth direction
+    that still goes down (or None), and a note for people ("" when there is nothing to say)."""
+
+    breaks: list[tuple[np.ndarray, Finding]]
+    basis: np.ndarray
+    known: dict[int, tuple[float, float]]
+    downhill: np.ndarray | None = None
+    note: str = ""
+
+
+def examine(
+    space: Space,
+    u0: np.ndarray,
+    f0: float,
+    free: np.ndarray,
+    stencil: tuple[np.ndarray, np.ndarray],
+    hessian: np.ndarray,
+    *,
+    noise: float | None,
+) -> Generator[Batch, np.ndarray, Examined]:
+    """Test the check's stencil for kinks and jumps, as a generator for the driver.
+
+    ``stencil`` holds the points the check evaluated (user coordinates, rows) and their values;
+    ``hessian`` the Hessian measured from them (scaled coordinates, free parameters).  The
+    stencil's points on the axes are used as they are; an axis with one step only gets the half
+    step (one batch); when more than one axis shows a break, the candidate normals of a kink
+    surface and the lines along it (`crease_candidates`) are probed at two steps each way (one
+    batch, purpose "smoothness").  Breaks below ``TINY`` of the value with no noise level stated
+    are taken for unstated noise: left out, with a note.  `records.Halt` passes through.
+    """
+    level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
+    points, values = stencil
+    offsets = (space.to_scaled(points) - u0)[:, free]
+    lines = axis_lines(offsets, values)
+    k = int(free.sum())
+    short = [i for i, (t, _) in enumerate(lines) if len(t) == 1]
+    if short:
+        axes = np.eye(k)[short]
+        halves = np.array([0.5 * lines[i][0][0] for i in short])
+        extra = yield from _probe(space, u0, free, axes, halves, (1.0,))
+        for i, line in zip(short, extra):
+            lines[i] = (np.concatenate([line[0], lines[i][0]]),
+                        np.concatenate([line[1], lines[i][1]]))
+    findings = [line_finding(t, v, f0, level) for t, v in lines]
+    flagged = np.array([f is not None for f in findings])
+    breaks = [(np.eye(k)[i], f) for i, f in enumerate(findings) if f is not None]
+    candidates = crease_candidates(findings, hessian)
+    smooth: list[tuple[np.ndarray, Line]] = []  # probed directions found smooth
+    if candidates:
+        probes = np.vstack([np.vstack([n[None, :], t]) for n, t in candidates])
+        smallest = np.array([t[0] if len(t) else np.nan for t, _ in lines])
+        used = np.abs(probes) > 0.0
+        sizes = np.array([1.0 / np.linalg.norm(v[u] / smallest[u]) for v, u in zip(probes, used)])
+        extra = yield from _probe(space, u0, free, probes, sizes, (1.0, 2.0))
+        found = [line_finding(*line, f0, level) for line in extra]
+        row = 0
+        for normal, tangents in candidates:
+            first, rest = row, range(row + 1, row + 1 + len(tangents))
+            row += 1 + len(tangents)
+            if found[first] is not None and all(found[r] is None for r in rest):
+                breaks = [(normal, found[first])]
+                smooth = [(probes[r], extra[r]) for r in rest]
+                break
+    note = ""
+    if breaks and noise is None and all(_tiny(f, f0) for _, f in breaks):
+        largest = max(abs(f.change) or max(map(abs, f.slopes)) * f.step for _, f in breaks)
+        note = (
+            f"the values around the point jump or kink by up to {largest:.2g}, below a millionth "
+            "of the value: taken for noise that was not stated and left out of the verdict (give "
+            "noise=, a level or \"estimate\", to have the check judge it)"
+        )
+        breaks, smooth, flagged = [], [], np.zeros(k, dtype=bool)
+    basis, known = _smooth_part(breaks, smooth, flagged, f0, level)
+    return Examined(breaks=breaks, basis=basis, known=known,
+                    downhill=_downhill(smooth, f0, level), note=note)
+
+
+def _tiny(found: Finding, f0: float) -> bool:
+    """A break whose size (the jump, or the slopes times the step) is below 1e-6 of the value."""
+    size = abs(found.change) or max(abs(v) for v in found.slopes) * found.step
+    return size < TINY * abs(f0)
+
+
+def _downhill(smooth: list[tuple[np.ndarray, Line]], f0: float, level: float) -> np.ndarray | None:
+    """The probed smooth direction along a crease that still goes down, if any (unit, free).
+
+    A direction-set search can stop on a kinked valley whose floor no direction of its set
+    follows: every line across the floor has its minimum on it.  Along the floor the objective is
+    smooth, and a slope there whose parabola puts the minimum beyond the probe's step (or a
+    curvature that is not positive) says the point is not a minimum: the check then escapes
+    along it like along a direction of negative curvature.
+    """
+    best, steepest = None, 0.0
+    for v, (t, values) in smooth:
+        a, (back, forward) = float(t[0]), values[0]
+        slope = (forward - back) / (2.0 * a)
+        curvature = (forward + back - 2.0 * f0) / a**2
+        if abs(forward - back) <= 3.0 * math.sqrt(2.0) * level:
+            continue
+        if curvature > 0.0 and abs(slope) <= curvature * a:
+            continue
+        if abs(slope) > steepest:
+            best, steepest = -math.copysign(1.0, slope) * v, abs(slope)
+    return best
+
+
+def _smooth_part(
+    breaks: list[tuple[np.ndarray, Finding]],
+    smooth: list[tuple[np.ndarray, Line]],
+    flagged: np.ndarray,
+    f0: float,
+    level: float,
+) -> tuple[np.ndarray, dict[int, tuple[float, float]]]:
+    """A basis (columns) of the directions the curvature is judged on, and the curvatures the
+    probes measured along some of them, ``{column: (curvature, error)}``.
+
+    Without breaks: every axis.  With breaks along axes: the other axes.  With breaks along
+    probed combinations: the probed directions found smooth, and the axes no break touched.  A
+    stencil whose points straddle a break mixes it into every entry it touches, so along a probed
+    direction its own second difference is used, with ``|D(t) - D(2t)|`` plus the noise's share
+    as the error bar.
+    """
+    k = len(flagged)
+    if not breaks:
+        return np.eye(k), {}
+    if not smooth:
+        return complement(np.array([v for v, _ in breaks]), k), {}
+    columns = [v for v, _ in smooth] + [np.eye(k)[i] for i in np.flatnonzero(~flagged)]
+    known = {}
+    for column, (_, (t, values)) in enumerate(smooth):
+        d = (values[:, 0] + values[:, 1] - 2.0 * f0) / t**2
+        noise = 3.0 * math.sqrt(6.0) * level / t[0] ** 2
+        known[column] = (float(d[0]), float(abs(d[0] - d[-1]) + noise))
+    return np.array(columns).T, known
+
+
+def _probe(
+    space: Space,
+    u0: np.ndarray,
+    free: np.ndarray,
+    directions: np.ndarray,
+    sizes: np.ndarray,
+    multiples: tuple[float, ...],
+) -> Generator[Batch, np.ndarray, list[Line]]:
+    """Evaluate ``u0 ± m s d`` for each direction d (rows, free coordinates) of size s, multiple m."""
+    rows = [
+        sign * m * s * d for d, s in zip(directions, sizes) for m in multiples for sign in (-1.0, 1.0)
+    ]
+    u = np.repeat(u0[None, :], len(rows), axis=0)
+    u[:, free] += np.array(rows)
+    values = yield Batch(points=space.to_user(u), purpose="smoothness")
+    values = np.asarray(values, dtype=float).reshape(len(directions), len(multiples), 2)
+    return [(np.array(multiples) * s, v) for s, v in zip(sizes, values)]
