@@ -7,8 +7,9 @@ stencil point is known before any value is, so each stencil goes out as one batc
 
 - `extrapolated_hessian`: numdifftools' central differences at three steps with Richardson
   extrapolation and its error estimate; 6 n² + 1 evaluations.
-- `quick_hessian`: one central-difference stencil, at most 2 n² + 1 evaluations; its error bars
-  hold the noise's share only.
+- `quick_hessian`: one central-difference stencil and the half steps along the axes (for
+  `directional.method.smoothness`), at most 2 n² + 2 n + 1 evaluations; its error bars hold the
+  noise's share only.
 
 `step_sizes` chooses the steps from the expected curvatures and the noise level, never below
 what the noise allows.
@@ -149,12 +150,14 @@ def _checked_measure(
 def quick_hessian(
     space: Space, u0: np.ndarray, free: np.ndarray, steps: np.ndarray
 ) -> Generator[Batch, np.ndarray, Measured]:
-    """A plain central-difference Hessian: one batch of at most 2 k² + 1 points (k free).
+    """A plain central-difference Hessian: one batch of at most 2 k² + 2 k + 1 points (k free).
 
     ``H_ii = (f(+h_i) - 2 f(0) + f(-h_i)) / h_i²`` and
     ``H_ij = (f(+h_i, +h_j) - f(+h_i, -h_j) - f(-h_i, +h_j) + f(-h_i, -h_j)) / (4 h_i h_j)``
-    (common practice, no source).  Its error bars hold the noise's share only (`_noise_margin`,
-    added by the caller): a single stencil cannot estimate its own truncation error.
+    (common practice, no source).  The batch also holds ``±h_i / 2`` along each axis: unused
+    here, they give the smoothness test its second scale.  Its error bars hold the noise's share
+    only (`_noise_margin`, added by the caller): a single stencil cannot estimate its own
+    truncation error.
     """
     k = len(steps)
     rows = [np.zeros(k)]
@@ -168,6 +171,11 @@ def quick_hessian(
         for si, sj in ((1.0, 1.0), (1.0, -1.0), (-1.0, 1.0), (-1.0, -1.0)):
             v = np.zeros(k)
             v[i], v[j] = si * steps[i], sj * steps[j]
+            rows.append(v)
+    for i in range(k):  # half steps along each axis: two scales, for the smoothness test
+        for sign in (0.5, -0.5):
+            v = np.zeros(k)
+            v[i] = sign * steps[i]
             rows.append(v)
     values = yield Batch(points=_embed(space, u0, free, np.array(rows)), purpose="hessian")
     known = {row.tobytes(): float(value) for row, value in zip(rows, values)}

@@ -122,6 +122,11 @@ def _curvature(sol: Solution, by_name: dict[str, Parameter]) -> dict[str, Any] |
         "eigenvalues": [_number(v) for v in np.asarray(c.eigenvalues).ravel()],
         "eigenvectors": _matrix(c.eigenvectors),
         "condition": _number(c.condition),
+        "breaks": [
+            {"along": b.along, "kind": b.kind, "parameters": list(b.parameters),
+             "slopes": [_number(v) for v in b.slopes], "change": _number(b.change)}
+            for b in getattr(c, "breaks", ())
+        ],
     }
 
 
@@ -153,6 +158,9 @@ def _uncertainty(sol: Solution) -> dict[str, Any] | None:
     undetermined = getattr(u, "undetermined", None)
     if undetermined is not None:
         out["undetermined"] = list(undetermined)
+    rough = getattr(u, "rough", None)
+    if rough:
+        out["not_smooth"] = list(rough)
     return out
 
 
