@@ -661,14 +661,14 @@ def test_an_unpicklable_objective_is_refused_for_a_process_pool():
 
 
 def test_start_map_is_drawn_from_the_evaluations_made_without_new_ones(tmp_path, sequential):
-    from directional.report.startmap import start_map
+    from directional.report.maps import start_map
 
     path = start_map(sequential, None, tmp_path / "starts.png")
     assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
 def test_start_map_spends_at_most_extra_report_evaluations(tmp_path, sequential):
-    from directional.report.startmap import start_map
+    from directional.report.maps import start_map
 
     calls = []
 
@@ -682,7 +682,7 @@ def test_start_map_spends_at_most_extra_report_evaluations(tmp_path, sequential)
 
 
 def test_start_map_of_log_parameters_and_bad_pairs(tmp_path):
-    from directional.report.startmap import start_map
+    from directional.report.maps import start_map
 
     params = [
         dl.Parameter("rate", 1.0, 0.01, 100.0, scale="log"),

@@ -14,9 +14,10 @@ import numpy as np
 import pytest
 
 import directional as dl
+from directional.method.leastsquares import sum_of_squares
 from directional.report import plots
 from directional.report import summary as report
-from directional.run.progress import Progress, sum_of_squares
+from directional.run.progress import Progress
 
 PARAMETERS = [
     dl.Parameter("a", 0.0, -4.0, 4.0, unit="m"),
@@ -56,6 +57,20 @@ def test_json_document_uses_names_and_full_precision(solution, tmp_path):
 def test_summary_text_carries_the_title(solution):
     text = report.summary_text(solution, "A bowl")
     assert text.splitlines()[0] == "A bowl" and "best value" in text
+
+
+def test_the_uncertainty_table_appears_once_and_names_a_parameter_on_a_bound():
+    # y = a exp(-k t) sampled exactly with a = 2, k = 0.7; a is held below 2 by its bound, so it
+    # ends on the bound and only k is free (analytic: the least-squares a is 2 without the bound).
+    t = np.linspace(0.0, 3.0, 12)
+    y = 2.0 * np.exp(-0.7 * t)
+    sol = dl.calibrate(lambda p: p[0] * np.exp(-p[1] * t) - y, [1.0, 0.3],
+                       bounds=[(0.5, 1.9), (0.1, 2.0)], names=["a", "k"])
+    assert sol.active == ("a",)
+    text = report.summary_text(sol, "decay")
+    assert text.count("std. error") == 1  # one table, not the summary's and the report's
+    row = next(line for line in text.splitlines() if line.strip().startswith("a ") and "1.9" in line)
+    assert "on a bound" in row and "nan" not in row
 
 
 def test_plots_without_report_evaluations_use_only_the_history(solution, tmp_path):

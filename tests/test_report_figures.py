@@ -21,8 +21,8 @@ from matplotlib.contour import ContourSet
 from matplotlib.figure import Figure
 
 import directional as dl
-from directional.report import plots
-from directional.report.startmap import start_map
+from directional.report import maps, plots
+from directional.report.maps import start_map
 
 
 @pytest.fixture
@@ -94,9 +94,9 @@ def test_start_map_colour_bar_labels_all_differ(figures, tmp_path):
 
 def test_level_format_prints_close_levels_differently():
     levels = np.array([25.5, 25.5001, 25.501, 25.51, 25.6])
-    form = plots.level_format(levels)
+    form = maps.level_format(levels)
     assert len({form % v for v in levels}) == 5
-    assert plots.level_format(np.array([1.0, 10.0, 100.0])) == "%.3g"  # no digit more than needed
+    assert maps.level_format(np.array([1.0, 10.0, 100.0])) == "%.3g"  # no digit more than needed
 
 
 # ----------------------------------------------------------------------------- profiles' ticks
@@ -240,6 +240,25 @@ def test_path_map_is_a_whole_shading_of_the_evaluated_values(figures, tmp_path):
                     int(box.x0) + 2:int(box.x1) - 2, :3].astype(int)
     white = np.all(inside > 240, axis=2).mean()
     assert white < 0.01, white
+
+
+def test_start_map_is_the_same_whole_shading_as_the_path_map(figures, tmp_path):
+    # one map module draws both (`maps.grid_map`): the start map's background is the Gouraud
+    # shading of its report-only values too, rasterized, with no contour beads
+    parameters = [dl.Parameter("x1", -1.2, -2.0, 2.0), dl.Parameter("x2", 1.0, -1.0, 3.0)]
+    landscape = dl.explore(rosenbrock, parameters, starts=4, seed=1)
+    start_map(landscape, rosenbrock, tmp_path / "starts.png", extra=400)
+    fig = figures["starts.png"]
+    drawn(fig)
+    ax = fig.axes[0]
+    mesh = next(c for c in ax.collections if isinstance(c, QuadMesh))
+    assert not any(isinstance(c, ContourSet) for c in ax.collections)
+    assert mesh.get_rasterized()
+    nodes = mesh.get_coordinates()
+    values = np.asarray(mesh.get_array()).reshape(nodes.shape[:2])
+    expected = np.array([[rosenbrock(p) for p in row] for row in nodes])
+    np.testing.assert_allclose(values, expected, rtol=1e-12)
+    assert nodes.shape[:2] == (20, 20)  # the grid of at most ``extra`` evaluations
 
 
 # ----------------------------------------------------------------------------- residuals

@@ -125,11 +125,9 @@ def chromium() -> str:
 
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory) -> Path:
-    from directional.interface import demo
-
     folder = tmp_path_factory.mktemp("demo") / "directional-demo"
-    with contextlib.redirect_stderr(io.StringIO()):
-        demo.run(folder, quiet=True, out=io.StringIO())
+    command("demo", "--folder", str(folder), "--quiet")
+    assert (folder / "report.html").is_file()
     return folder
 
 

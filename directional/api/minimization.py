@@ -81,7 +81,7 @@ def minimize(
     check
         What proves the point a minimum (`directional.method.curvature`): True, a numerical Hessian with
         Richardson extrapolation and error estimate (about 6 n² + 1 evaluations); "quick", one
-        central-difference stencil (at most 2 n² + 1); False, none (the verdict stays UNCHECKED;
+        central-difference stencil (at most 2 n² + 2 n + 1); False, none (the verdict stays UNCHECKED;
         ``sol.curvature`` then holds the free estimate from the line searches).  Parameters on a
         bound are left out and listed in ``sol.active``.
     escapes

@@ -90,7 +90,8 @@ def _parser() -> argparse.ArgumentParser:
     demo = command(
         "demo", "run the bundled scenario end to end",
         "Calibrate a batch-bioreactor model (Monod growth) to an invented, noisy data set and "
-        "write the problem file, journal, summary, JSON and plots into ./directional-demo/.",
+        "write the problem file, journal, summary, JSON, plots and an HTML report into "
+        "./directional-demo/.",
     )
     demo.add_argument("--folder", default="directional-demo", help="where to write (default: %(default)s)")
     demo.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -182,9 +183,9 @@ def _count(text: str) -> int:
 
 
 def _version() -> str:
-    from directional import __version__
+    from directional.version import VERSION
 
-    return __version__
+    return VERSION
 
 
 # ----------------------------------------------------------------------------- the commands
@@ -195,10 +196,30 @@ def load_problem(path: str | Path) -> Problem:
     return Problem.from_file(path)
 
 
-def _demo(args: argparse.Namespace) -> int:
-    from directional.interface.demo import run
+def _demo(args: argparse.Namespace, out: TextIO | None = None) -> int:
+    """Write the demo's problem file and data into ``args.folder``, run it, write the results."""
+    from directional.interface import demo
+    from directional.interface.runs import solve
 
-    return run(args.folder, quiet=args.quiet)
+    out = sys.stdout if out is None else out
+    folder = Path(args.folder)
+    path = demo.prepare(folder)
+    problem = load_problem(path)
+    print(f"directional demo: calibrating {problem.title!r}", file=out)
+    print(demo.NOTICE, file=out)
+    sol = solve(problem, quiet=args.quiet)
+    return finish(
+        sol,
+        problem,
+        json_path=folder / "solution.json",
+        plots=folder / "plots",
+        summary=folder / "summary.txt",
+        journal=problem.journal,
+        out=out,
+        show_files=True,
+        inputs=(path, folder / "data.csv"),
+        html=folder / "report.html",
+    )
 
 
 def _run(args: argparse.Namespace) -> int:
@@ -434,7 +455,7 @@ def _plots(
         extra=extra, title=title,
     )
     if landscape is not None and len(sol.names) >= 2:
-        from directional.report.startmap import start_map
+        from directional.report.maps import start_map
 
         written.append(start_map(landscape, objective, folder / "starts.png", kind=kind,
                                  extra=extra, title=title))

@@ -56,8 +56,10 @@ def powell_accepts(f0: float, fn: float, fe: float, largest_drop: float) -> bool
     cycle.  The new direction is taken when extrapolating helps and when the decrease is not owed
     mostly to the one direction it would replace; this keeps the set from collapsing.
 
-    >>> powell_accepts(10.0, 4.0, 3.0, 1.0)
+    >>> powell_accepts(10.0, 4.0, 3.0, 5.0)  # one search gave most of the decrease: replace it
     True
+    >>> powell_accepts(10.0, 4.0, 3.0, 1.0)  # the decrease is spread out: keep the set
+    False
     """
     if not fe < f0:
         return False

@@ -372,7 +372,7 @@ def _figures(sol: Solution, landscape: Any, *, title: str, parameters: Any, kind
         written = write_plots(sol, folder, parameters=parameters, objective=objective, kind=kind,
                               fit=fit, extra=extra, title="", format="svg")
         if landscape is not None and len(sol.names) >= 2:
-            from directional.report.startmap import start_map
+            from directional.report.maps import start_map
 
             written.append(start_map(landscape, objective, Path(folder) / "starts.svg",
                                      kind=kind, extra=extra))

@@ -28,7 +28,17 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from directional.parameters import Parameter
-from directional.run.progress import sum_of_squares
+from directional.report.maps import (
+    MAP,
+    PALETTE,
+    RASTER,
+    evaluate_grid,
+    grid_map,
+    readable_ticks,
+    report_value,
+    scaled_axes,
+    scattered_map,
+)
 from directional.solution import Solution
 
 STYLE = {
@@ -41,12 +51,9 @@ STYLE = {
     "grid.alpha": 0.3,
 }
 DPI = 120
-# Colours: the Okabe & Ito (2008) palette (blue #0072B2, orange #E69F00, vermilion #D55E00,
-# bluish green #009E73, reddish purple #CC79A7, yellow #F0E442), told apart with the common
-# colour-vision deficiencies, with greys; maps in viridis, which is too.
+# Colours: `maps.PALETTE` (Okabe & Ito 2008, colour-blind safe), with greys; maps in viridis.
 PROFILE_POINTS = 15  # report-only evaluations per parameter (common practice, no source)
-MAP_SIDE = 20  # the contour map's grid is at most MAP_SIDE x MAP_SIDE
-RASTER = 2000  # more points than this in one scatter are drawn as an image inside a vector file
+MAP_SIDE = 20  # the contour map's grid is at most MAP_SIDE x MAP_SIDE (maps: `report.maps`)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -99,7 +106,7 @@ def write_plots(
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     axes = _coordinates(sol, parameters)
-    value = _valuer(objective, kind) if objective is not None and extra > 0 else None
+    value = report_value(objective, kind) if objective is not None and extra > 0 else None
     written = [_history(sol, folder / f"history.{format}", kind, title)]
     budget = extra
     widths = _widths(sol, axes, kind, value)
@@ -143,25 +150,6 @@ def _coordinates(sol: Solution, parameters: Sequence[Parameter] | None) -> _Axes
         lower = np.where(log, np.log(np.where(log, sol.lower, 1.0)), sol.lower)
         upper = np.where(log, np.log(np.where(log, sol.upper, 1.0)), sol.upper)
     return _Axes(log=log, lower=lower, upper=upper)
-
-
-def _valuer(objective: Callable[[np.ndarray], Any], kind: str) -> Callable[[np.ndarray], float]:
-    """The objective as a plain number, nan when it fails (report-only evaluations)."""
-
-    def value(x: np.ndarray) -> float:
-        try:
-            result = objective(np.array(x, dtype=float))
-        except Exception:  # a failed report evaluation leaves a gap
-            return math.nan
-        if kind == "residuals":
-            return sum_of_squares(result)
-        try:
-            v = float(np.asarray(result, dtype=float).reshape(()))
-        except (TypeError, ValueError):
-            return math.nan
-        return v if math.isfinite(v) else math.nan
-
-    return value
 
 
 def _label(sol: Solution, i: int) -> str:
@@ -333,7 +321,7 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
             ax.scatter(count[chosen], values[chosen], s=9, color=color, label=group, zorder=2,
                        rasterized=len(history) > RASTER)
     shown = np.isfinite(best)
-    ax.step(count[shown], best[shown], where="post", color="#0072B2", lw=2,
+    ax.step(count[shown], best[shown], where="post", color=PALETTE["blue"], lw=2,
             label="best so far", zorder=3)
     if log:
         ax.set_yscale("log")
@@ -346,7 +334,7 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
     failed = ~ok
     if np.any(failed):
         bottom = ax.get_ylim()[0]
-        ax.scatter(count[failed], np.full(failed.sum(), bottom), marker="x", color="#D55E00",
+        ax.scatter(count[failed], np.full(failed.sum(), bottom), marker="x", color=PALETTE["vermilion"],
                    s=25, label=f"failed ({failed.sum()})", zorder=4, clip_on=False)
     ax.set_xlabel("evaluation")
     ax.set_ylabel(_value_label(kind) + (" (log scale)" if log else ""))
@@ -363,8 +351,8 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
 
 _GROUPS = (
     ("search", "0.6"),
-    ("least-squares steps", "#CC79A7"),
-    ("curvature check", "#E69F00"),
+    ("least-squares steps", PALETTE["purple"]),
+    ("curvature check", PALETTE["orange"]),
 )
 
 
@@ -412,18 +400,18 @@ def _profiles(
             xs = axes.to_x(ys, i)
             order = np.argsort(np.append(xs, sol.point[i]))
             ax.plot(np.append(xs, sol.point[i])[order], np.append(fs, sol.value)[order],
-                    "o-", color="#0072B2", ms=4, lw=1.5, label="objective (report-only)")
+                    "o-", color=PALETTE["blue"], ms=4, lw=1.5, label="objective (report-only)")
         fine = np.linspace(lo, hi, 200)
         h = diagonal[i]
         if h > 0 and not active:
             ax.plot(axes.to_x(fine, i), sol.value + 0.5 * h * (fine - y_best[i]) ** 2, "--",
-                    color="#E69F00", lw=1.5, label="Hessian parabola")
+                    color=PALETTE["orange"], lw=1.5, label="Hessian parabola")
         if intervals is not None and np.all(np.isfinite(intervals[i])):
-            ax.axvspan(intervals[i][0], intervals[i][1], color="#009E73", alpha=0.12,
+            ax.axvspan(intervals[i][0], intervals[i][1], color=PALETTE["green"], alpha=0.12,
                        label="95 % interval")
-        ax.plot([sol.point[i]], [sol.value], "*", color="#D55E00", ms=12, label="minimum",
+        ax.plot([sol.point[i]], [sol.value], "*", color=PALETTE["vermilion"], ms=12, label="minimum",
                 zorder=5)
-        log = _log_axis(axes, i, lo, hi)
+        log = bool(axes.log[i])  # by the parameter's scale, as in every figure (`maps.scaled_axes`)
         if log:
             ax.set_xscale("log")
         ax.set_xlim(axes.to_x(lo, i), axes.to_x(hi, i))
@@ -444,40 +432,6 @@ def _profiles(
     return _save(fig, path)
 
 
-def _log_axis(axes: _Axes, i: int, lo: float, hi: float) -> bool:
-    """A log axis exactly for a log-scaled parameter, whatever the range drawn.
-
-    The choice follows the parameter's scale so that the same parameter reads the same way in
-    every figure; `readable_ticks` keeps a narrow log range legible (plain numbers, no exponents).
-    """
-    return bool(axes.log[i])
-
-
-def readable_ticks(axis: Any, log: bool, most: int = 5) -> None:
-    """At most about ``most`` + 1 major ticks on ``axis``, labelled as plain numbers.
-
-    Call after the limits are set.  A linear axis gets "nice" steps; a log axis over a decade or
-    more gets powers of ten (and 2, 5 between them when there is room), a narrower one gets nice
-    linear steps, which a log axis places correctly too.  Minor ticks carry no label, so labels
-    never crowd a narrow panel (matplotlib's default chooses up to nine ticks and labels the minor
-    ticks of a short log axis).
-    """
-    from matplotlib import ticker
-
-    low, high = sorted(axis.get_view_interval())
-    plain = ticker.FuncFormatter(lambda v, _: f"{v:.6g}")
-    if log and low > 0 and high / low >= 10.0:
-        decades = math.log10(high / low)
-        subs = (1.0,) if decades > 2.5 else (1.0, 2.0, 5.0)
-        axis.set_major_locator(ticker.LogLocator(base=10.0, subs=subs, numticks=most + 2))
-        axis.set_major_formatter(plain)
-        axis.set_minor_formatter(ticker.NullFormatter())
-    else:
-        axis.set_major_locator(ticker.MaxNLocator(nbins=most, steps=[1, 2, 2.5, 5, 10]))
-        if log:
-            axis.set_major_formatter(plain)
-            axis.set_minor_locator(ticker.NullLocator())
-            axis.set_minor_formatter(ticker.NullFormatter())
 
 
 def _moved(point: np.ndarray, i: int, value: float) -> np.ndarray:
@@ -558,16 +512,11 @@ def _path(
     ax = fig.add_subplot()
     side = min(MAP_SIDE, int(math.sqrt(max(budget, 0)))) if value is not None else 0
     if side >= 5:
-        gy = np.linspace(*box[0], side)
-        gz = np.linspace(*box[1], side)
-        grid = np.full((side, side), math.nan)
-        for a, yi in enumerate(gy):
-            for b, yj in enumerate(gz):
-                x = np.array(sol.point, dtype=float)
-                x[i], x[j] = axes.to_x(yi, i), axes.to_x(yj, j)
-                grid[b, a] = value(x)
-        _contours(fig, ax, axes.to_x(gy, i), axes.to_x(gz, j), grid, kind)
-    elif sol.point.size == 2 and _scattered(fig, ax, sol, kind):
+        gx = axes.to_x(np.linspace(*box[0], side), i)
+        gy = axes.to_x(np.linspace(*box[1], side), j)
+        grid = evaluate_grid(value, sol.point, (i, j), gx, gy)
+        grid_map(fig, ax, gx, gy, grid, look=MAP, label=_value_label(kind))
+    elif sol.point.size == 2 and _scattered(fig, ax, sol, axes, kind):
         ax.text(0.5, 0.97, "map drawn from the search's own evaluations (coarse)",
                 transform=ax.transAxes, ha="center", va="top", fontsize=9, color="0.3")
     else:
@@ -576,21 +525,15 @@ def _path(
     points = np.array([e.point for e in sol.history]) if sol.history else sol.point[None, :]
     ax.scatter(points[:, i], points[:, j], s=6, color="0.35", alpha=0.35, label="evaluations",
                zorder=3, rasterized=len(points) > RASTER)
-    ax.plot(walk[:, i], walk[:, j], "-o", color="#D55E00", ms=3.5, lw=1.5,
+    ax.plot(walk[:, i], walk[:, j], "-o", color=PALETTE["vermilion"], ms=3.5, lw=1.5,
             label="search path (each new best)", zorder=4, clip_on=False)
     ax.plot(walk[0, i], walk[0, j], "s", color="white", mec="black", ms=9, label="start", zorder=5,
             clip_on=False)
-    ax.plot(sol.point[i], sol.point[j], "*", color="#F0E442", mec="black", ms=16, label="minimum",
+    ax.plot(sol.point[i], sol.point[j], "*", color=PALETTE["yellow"], mec="black", ms=16, label="minimum",
             zorder=6, clip_on=False)
-    logs = [_log_axis(axes, k, *box[m]) for m, k in enumerate((i, j))]
-    if logs[0]:
-        ax.set_xscale("log")
-    if logs[1]:
-        ax.set_yscale("log")
-    ax.set_xlim(axes.to_x(box[0][0], i), axes.to_x(box[0][1], i))
-    ax.set_ylim(axes.to_x(box[1][0], j), axes.to_x(box[1][1], j))
-    readable_ticks(ax.xaxis, logs[0])
-    readable_ticks(ax.yaxis, logs[1])
+    logs = (bool(axes.log[i]), bool(axes.log[j]))
+    scaled_axes(ax, (axes.to_x(box[0][0], i), axes.to_x(box[0][1], i)),
+                (axes.to_x(box[1][0], j), axes.to_x(box[1][1], j)), logs)
     ax.set_xlabel(_label(sol, i) + (" (log scale)" if logs[0] else ""))
     ax.set_ylabel(_label(sol, j) + (" (log scale)" if logs[1] else ""))
     heading = f"Search path over the objective: {sol.names[i]} and {sol.names[j]}"
@@ -601,61 +544,17 @@ def _path(
     return _save(fig, path)
 
 
-def _scattered(fig: Figure, ax: Any, sol: Solution, kind: str) -> bool:
+def _scattered(fig: Figure, ax: Any, sol: Solution, axes: _Axes, kind: str) -> bool:
     """A map of a two-parameter objective from the evaluations already made (no new ones)."""
-    from matplotlib.tri import Triangulation
-
-    points = np.array([e.point for e in sol.history if e.status == "ok"])
-    values = np.array([e.value for e in sol.history if e.status == "ok"])
-    if len(points) < 10:
+    ok = [e for e in sol.history if e.status == "ok"]
+    if not ok:
         return False
-    points, unique = np.unique(points, axis=0, return_index=True)
-    values = values[unique]
-    try:
-        triangles = Triangulation(points[:, 0], points[:, 1])
-    except (ValueError, RuntimeError):  # collinear or too few distinct points
-        return False
-    levels = contour_levels(values)
-    if levels is None:
-        return False
-    from matplotlib.colors import BoundaryNorm
+    points = np.array([e.point for e in ok])
+    values = np.array([e.value for e in ok])
+    return scattered_map(fig, ax, points[:, 0], points[:, 1], values, look=MAP,
+                         label=_value_label(kind), log=(bool(axes.log[0]), bool(axes.log[1])),
+                         fewest=10)
 
-    filled = ax.tricontourf(triangles, values, levels=levels, cmap="viridis",
-                            norm=BoundaryNorm(levels, 256), alpha=0.9, zorder=1)
-    bar = fig.colorbar(filled, ax=ax, format=level_format(levels))
-    bar.set_label(_value_label(kind))
-    return True
-
-
-def contour_levels(values: np.ndarray, floor: float = 0.02) -> np.ndarray | None:
-    """Levels spaced geometrically above the lowest value, so valleys and slopes both show.
-
-    The first level above the lowest is the ``floor`` quantile of the rise above it.  None when
-    fewer than four values are finite or they are all equal.
-    """
-    finite = values[np.isfinite(values)]
-    if finite.size < 4:
-        return None
-    low, high = float(finite.min()), float(finite.max())
-    if not high > low:
-        return None
-    rise = finite - low
-    smallest = max(float(np.quantile(rise[rise > 0], floor)), (high - low) * 1e-9)
-    levels = low + np.concatenate(([0.0], np.geomspace(smallest, high - low, 14)))
-    levels[-1] = high
-    return np.unique(levels)
-
-
-def level_format(levels: np.ndarray, least: int = 3) -> str:
-    """The shortest ``%.Ng`` format, N >= ``least``, that prints every level differently.
-
-    Levels close together above a large value ("25.5001, 25.501, 25.51") would otherwise carry one
-    label over and over on the colour bar.
-    """
-    for digits in range(least, 17):
-        if len({f"{v:.{digits}g}" for v in levels}) == len(levels):
-            return f"%.{digits}g"
-    return "%.17g"
 
 
 def _figure_legend(fig: Figure) -> None:
@@ -667,35 +566,6 @@ def _figure_legend(fig: Figure) -> None:
     if seen:
         fig.legend(list(seen.values()), list(seen), loc="outside lower center",
                    ncols=min(len(seen), 4), frameon=False)
-
-
-def _contours(fig: Figure, ax: Any, gx: np.ndarray, gy: np.ndarray, grid: np.ndarray, kind: str):
-    """The map as a smooth shading of the sampled values, coloured by the log of the rise.
-
-    Colours follow ``log(f - f_min + d)`` (``d`` the small rise of `contour_levels`), so the
-    valley and the slopes both show whatever the range.  A shading interpolated between the grid
-    nodes (Gouraud) rather than filled contours: contours of a valley narrower than a grid cell
-    break up into beads, and their lines crowd into white strips on steep slopes.  A failed
-    evaluation leaves a gap around its node only.  Rasterized: small in SVG.
-    """
-    levels = contour_levels(grid.ravel())
-    if levels is None:
-        return
-    from matplotlib.colors import FuncNorm
-
-    low, d = float(levels[0]), float(levels[1] - levels[0])
-
-    def forward(v: Any) -> Any:
-        return np.log(np.maximum(np.asarray(v, dtype=float) - low, 0.0) + d)
-
-    def inverse(t: Any) -> Any:
-        return np.exp(t) - d + low
-
-    norm = FuncNorm((forward, inverse), vmin=low, vmax=float(levels[-1]))
-    shaded = ax.pcolormesh(gx, gy, np.ma.masked_invalid(grid), shading="gouraud", cmap="viridis",
-                           norm=norm, zorder=1, rasterized=True)
-    bar = fig.colorbar(shaded, ax=ax, ticks=levels[::2], format=level_format(levels[::2]))
-    bar.set_label(_value_label(kind))
 
 
 # ----------------------------------------------------------------------------- calibration
@@ -726,9 +596,9 @@ def _fit(series: list[dict[str, Any]], path: Path, title: str) -> Path:
         else:
             ax.plot(x, observed, "o", ms=4, color="black", label=label)
         if "curve_x" in s and "curve" in s:
-            ax.plot(s["curve_x"], s["curve"], "-", color="#0072B2", lw=2, label="fitted model")
+            ax.plot(s["curve_x"], s["curve"], "-", color=PALETTE["blue"], lw=2, label="fitted model")
         else:
-            ax.plot(x, s["predicted"], "-", color="#0072B2", lw=2, label="fitted model")
+            ax.plot(x, s["predicted"], "-", color=PALETTE["blue"], lw=2, label="fitted model")
         unit = s.get("unit", "")
         ax.set_ylabel(f"{s['name']} [{unit}]" if unit else s["name"])
         ax.set_xlabel(s.get("x_label", "x"))
@@ -752,13 +622,13 @@ def _residual_series(series: list[dict[str, Any]], path: Path, title: str) -> Pa
         unit = s.get("unit", "")
         if sigma is not None:
             r = r / np.broadcast_to(np.asarray(sigma, dtype=float), r.shape)
-            ax.axhspan(-2.0, 2.0, color="#009E73", alpha=0.1, label="± 2 sigma")
+            ax.axhspan(-2.0, 2.0, color=PALETTE["green"], alpha=0.1, label="± 2 sigma")
             ax.set_ylabel("(model − data) / sigma")
         else:
             ax.set_ylabel(f"model − data [{unit}]" if unit else "model − data")
         ax.axhline(0.0, color="black", lw=0.8)
-        ax.vlines(x, 0.0, r, color="#0072B2", lw=1.2)
-        ax.plot(x, r, "o", color="#0072B2", ms=4, label="residual")
+        ax.vlines(x, 0.0, r, color=PALETTE["blue"], lw=1.2)
+        ax.plot(x, r, "o", color=PALETTE["blue"], ms=4, label="residual")
         ax.set_xlabel(s.get("x_label", "x"))
         ax.set_title(f"{s['name']}: residuals")
         ax.legend(loc="best")
@@ -783,10 +653,10 @@ def _residual_vector(
         dof = r.size - sol.point.size
         s = math.sqrt(float(r @ r) / dof) if dof > 0 else math.nan
         if math.isfinite(s):
-            ax.axhspan(-2 * s, 2 * s, color="#009E73", alpha=0.1, label="± 2 s")
+            ax.axhspan(-2 * s, 2 * s, color=PALETTE["green"], alpha=0.1, label="± 2 s")
         ax.axhline(0.0, color="black", lw=0.8)
-        ax.vlines(index, 0.0, r, color="#0072B2", lw=1.2)
-        ax.plot(index, r, "o", color="#0072B2", ms=4, label="residual")
+        ax.vlines(index, 0.0, r, color=PALETTE["blue"], lw=1.2)
+        ax.plot(index, r, "o", color=PALETTE["blue"], ms=4, label="residual")
         ax.legend(loc="best")
     else:
         ax.text(0.5, 0.5, "the residuals could not be evaluated", ha="center",
