@@ -1,4 +1,4 @@
-"""Shared test helpers: where the published reference values live."""
+"""Shared test helpers: where the published reference values live (``tests/reference/``)."""
 
 from __future__ import annotations
 
@@ -13,7 +13,8 @@ import pytest
 if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
     signal.signal(signal.SIGINT, signal.default_int_handler)
 
-REFERENCE = Path(__file__).resolve().parents[1].parent / "shared" / "reference"
+# Published check data, copied into the project with its provenance (see reference/README.md).
+REFERENCE = Path(__file__).resolve().parent / "reference"
 
 
 @pytest.fixture(scope="session")
