@@ -16,6 +16,7 @@ import subprocess
 import sys
 import textwrap
 import time
+import tomllib
 from pathlib import Path
 
 import pytest
@@ -311,11 +312,29 @@ def test_demo_writes_every_promised_file(tmp_path):
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 
 
+def with_this_interpreter(name: str, into: Path) -> Path:
+    """A copy of example ``name`` whose programs run on this interpreter, not PATH's python3.
+
+    The tests must pass when the virtual environment is not activated: then ``python3`` on PATH
+    may be another Python, without `directional`.
+    """
+    folder = shutil.copytree(EXAMPLES / name, into / name,
+                             ignore=shutil.ignore_patterns("runs", "__pycache__"))
+    problem = folder / "problem.toml"
+    text = problem.read_text(encoding="utf-8")
+    problem.write_text(text.replace('["python3",', f"[{json.dumps(sys.executable)},"),
+                       encoding="utf-8")
+    command = tomllib.loads(problem.read_text(encoding="utf-8"))["objective"].get("command")
+    assert command is None or command[0] == sys.executable, command
+    return problem
+
+
 @pytest.mark.parametrize("name", ["bioreactor", "heater", "cooling_rod"])
 def test_each_example_problem_file_checks(tmp_path, name):
-    problem = EXAMPLES / name / "problem.toml"
+    problem = with_this_interpreter(name, tmp_path)
     done = directional("check", str(problem), cwd=tmp_path)
     assert done.returncode == 0, done.stdout + done.stderr
+    assert "value at the start" in done.stdout
     assert (EXAMPLES / name / "README.md").is_file()
 
 

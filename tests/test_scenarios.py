@@ -388,5 +388,6 @@ def test_bad_plant_is_named(field, value):
 
 @pytest.mark.parametrize("module", [bioreactor, heater])
 def test_docstring_examples(module):
-    failures, _ = doctest.testmod(module)
+    failures, attempted = doctest.testmod(module)
+    assert attempted > 0, f"{module.__name__} has no examples"
     assert failures == 0
