@@ -23,3 +23,17 @@ def mgh_reference() -> dict[int, dict]:
     with open(REFERENCE / "mgh1981.toml", "rb") as handle:
         data = tomllib.load(handle)
     return {p["number"]: p for p in data["problem"]}
+
+
+def carries_the_caution(text: str) -> bool:
+    """True when ``text`` carries the caution of the README ("Caution"), in its own words.
+
+    Whatever the line breaks: validate independently before any safety-relevant use, and defer
+    to local codes and licensed professional practice.
+    """
+    flat = " ".join(text.lower().split())
+    return all(
+        words in flat
+        for words in ("validate", "independently", "safety-relevant use", "local codes",
+                      "licensed professional practice")
+    )

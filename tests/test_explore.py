@@ -23,6 +23,7 @@ from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 from pathlib import Path
 
+import distributed  # a test dependency (the [test] extra): missing, the tests fail loudly
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -369,7 +370,6 @@ def test_process_pool_and_sequential_give_the_same_landscape(sequential):
 
 
 def test_dask_local_cluster_gives_the_same_landscape():
-    distributed = pytest.importorskip("distributed")
     alone = dl.explore(himmelblau, BOX, starts=8, seed=0, check="quick")
     with distributed.LocalCluster(
         n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0"
