@@ -1,6 +1,7 @@
 """Smoke test of `directional bench`: the smallest run writes RESULTS.md and the figures.
 
-Benchmarks are not tests (DESIGN.md): nothing here checks a number or a time, only that the run
+Benchmarks are not tests (their numbers go to benchmarks/RESULTS.md, written by `directional bench`;
+README, "The command line"): nothing here checks a number or a time, only that the run
 completes and writes what it promises.
 """
 
