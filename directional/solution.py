@@ -11,9 +11,11 @@ import numpy as np
 from directional.records import Break, Curvature, Stop, Verdict
 from directional.run.driver import Evaluation
 
+# Ends every summary a person reads (and is a field of the JSON): results can be used to decide
+# things that hurt someone when they are wrong.
 CAUTION = (
-    "Caution: validate a calibrated model independently before any safety-relevant use, and defer "
-    "to local codes and licensed practice."
+    "Caution: validate a calibrated or tuned model independently before any safety-relevant use, "
+    "and defer to local codes and licensed professional practice."
 )
 
 
@@ -55,8 +57,8 @@ class Solution:
         return sum(1 for e in self.history if e.status != "ok")
 
     def summary(self) -> str:
-        """A plain-text table of the result, for people."""
-        return "\n".join(summary_lines(self))
+        """A plain-text table of the result, for people, ending with the caution."""
+        return "\n".join([*summary_lines(self), "", CAUTION])
 
 
 def summary_lines(sol: Solution) -> list[str]:

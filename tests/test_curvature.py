@@ -66,7 +66,7 @@ def converged_at(point, value):
 
 
 @pytest.mark.parametrize("check", [True, "quick"])
-def test_saddle_trap_of_the_issue_ends_at_a_minimum(check):
+def test_a_saddle_trap_ends_at_a_minimum(check):
     # f = x² - y² + y⁴/4: grad = (2x, -2y + y³) = 0 at (0, 0) (saddle, Hessian diag(2, -2)) and
     # at (0, ±√2) where the Hessian is diag(2, 4) and f = -2 + 1 = -1 (analytic).
     f = lambda v: v[0] ** 2 - v[1] ** 2 + v[1] ** 4 / 4  # noqa: E731
@@ -351,7 +351,9 @@ def test_steps_never_go_below_what_the_noise_allows(c, noise, value, method):
     h = hessian.step_sizes(np.array([c]), value, noise, np.array([np.inf]), method)[0]
     smallest = h if method == "quick" else h / hessian.RATIO ** (hessian.STEPS - 1)
     capped = h >= hessian.LARGEST_STEP * (1 - 1e-12)
-    # 3 sigma of the noise in a second difference, sqrt(6) noise / h², is at most 1 % of c
+    # 3 sigma of the noise in a second difference, sqrt(6) noise / h², is at most 1 % of c: the
+    # difference f(x + h) - 2 f(x) + f(x - h) of values with independent noise of standard
+    # deviation sigma has variance (1 + 4 + 1) sigma² (common practice, no source)
     assert capped or 3 * math.sqrt(6) * noise / smallest**2 <= 0.01 * c * (1 + 1e-9)
 
 
@@ -377,7 +379,7 @@ def test_the_adapter_calls_numdifftools_once_per_stencil_point():
     matrix, error = differences.hessian(counting, np.array([1e-2, 1e-2]))
     assert matrix == pytest.approx(np.array([[2.0, 3.0], [3.0, 0.0]]), abs=1e-8)
     assert error.shape == (2, 2)
-    assert len(calls) == 6 * 4 + 1  # three stencils of 2n² points and the centre
+    assert len(calls) == 6 * 4 + 1  # three stencils of 2n² points and the centre (n = 2)
 
 
 def test_the_adapter_reads_both_result_shapes():

@@ -1,6 +1,7 @@
 """Checks of the demo scenarios' models: the batch bioreactor and the heater loop.
 
-The models are our own (DESIGN.md, "Demo and example data are invented"); what is checked here
+The models and their data are our own and invented (README, "directional demo"; each
+examples/*/README.md says so); what is checked here
 against the outside world is analytic: exact solutions of special cases, conservation laws,
 steady states, an independent integrator, and the chi-square law of weighted residuals.
 """
@@ -413,5 +414,6 @@ def test_bad_plant_is_named(field, value):
 
 @pytest.mark.parametrize("module", [bioreactor, heater])
 def test_docstring_examples(module):
-    failures, _ = doctest.testmod(module)
+    failures, attempted = doctest.testmod(module)
+    assert attempted > 0, f"{module.__name__} has no examples"
     assert failures == 0

@@ -48,7 +48,7 @@ from directional.records import Stop, Verdict
 from directional.run.driver import Evaluation, Objective
 from directional.run.journal import journal_for, run_identity
 from directional.run.pool import Runner, check_picklable
-from directional.solution import Solution, describe_break
+from directional.solution import CAUTION, Solution, describe_break
 
 SAME_POINT = 1e-3  # scaled distance below which two end points are one minimum
 SAME_VALUE = 1e-6  # relative agreement of their values
@@ -201,8 +201,8 @@ class Landscape:
         return self.minima[0]
 
     def summary(self) -> str:
-        """A plain-text table of the distinct minima, for people."""
-        return "\n".join(_summary_lines(self))
+        """A plain-text table of the distinct minima, for people, ending with the caution."""
+        return "\n".join([*_summary_lines(self), "", CAUTION])
 
 
 def _summary_lines(land: Landscape) -> list[str]:

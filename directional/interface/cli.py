@@ -342,13 +342,10 @@ def _bench(argv: list[str]) -> int:
     """Hand the arguments to `directional.benchmarking.main` as they are."""
     try:
         from directional.benchmarking import main as bench_main
-    except ImportError:
-        if "-h" in argv or "--help" in argv:
-            print("usage: directional bench [--quick]\n\nRun the benchmarks on the standard test "
-                  "problems (not yet available in this version).")
-        else:
-            print("directional bench: not yet available in this version")
-        return OK
+    except ImportError as error:  # a damaged install: say so, do not pretend it ran
+        print(f"directional: error: the benchmarks cannot be imported ({error}); reinstall "
+              "directional", file=sys.stderr)
+        return BAD_INPUT
     try:
         return int(bench_main(argv) or 0)
     except SystemExit as done:  # its own argument parser: --help, or a bad option
@@ -392,7 +389,9 @@ def finish(
     parameters = list(problem.parameters) if problem is not None else parameters
     landscape = None if isinstance(result, Solution) else result
     if landscape is not None:
-        print(landscape.summary() + "\n\nThe best minimum:\n", file=out)
+        # the caution ends the best minimum's summary below: said once
+        table = landscape.summary().removesuffix(CAUTION).rstrip()
+        print(table + "\n\nThe best minimum:\n", file=out)
     sol = best(result)
     print(report.summary_text(sol, title), file=out)
     if sol.stop is Stop.INTERRUPTED and journal is not None:
@@ -415,8 +414,6 @@ def finish(
         print("\nFiles:", file=out)
         for path in written:
             print(f"  {_shown(path)}", file=out)
-    if problem is not None and problem.objective.kind == "residuals":
-        print(f"\n{CAUTION}", file=out)
     return exit_code(sol)
 
 

@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 
 from directional.parameters import Parameter
-from directional.solution import Solution
+from directional.solution import CAUTION, Solution
 
 FORMAT = "directional-solution/1"
 
@@ -70,6 +70,7 @@ def solution_document(
         "uncertainty": _uncertainty(sol),
         "directions": _matrix(sol.directions),
         "notes": list(sol.notes),
+        "caution": CAUTION,
     }
     return document
 
