@@ -287,7 +287,7 @@ def test_stored_value_is_fed_back_without_calling_the_objective():
         return None
 
     objective = Counting(f=lambda x: 100.0 + x[0])
-    driver = Driver(objective=objective, budget=10, replay={0: stored})
+    driver = Driver(objective=objective, budget=10, stored=stored)
     driver.run(search())
     assert seen == [[10.0], [11.0, 10.0, 12.0], [103.0]]
     assert objective.calls == 1 and driver.replayed == 3 and driver.spent == 4
@@ -310,7 +310,7 @@ def test_journaled_evaluations_count_against_the_budget():
         return None
 
     objective = Counting(f=lambda x: 1.0)
-    assert Driver(objective=objective, budget=5, replay={0: stored}).run(search()) is Stop.BUDGET
+    assert Driver(objective=objective, budget=5, stored=stored).run(search()) is Stop.BUDGET
     assert objective.calls == 2
 
 

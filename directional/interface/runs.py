@@ -53,13 +53,8 @@ def entry_point(problem: Problem) -> Callable[..., Any]:
             )
         return explore
     if problem.objective.kind == "residuals":
-        try:
-            from directional.api.calibration import calibrate
-        except ImportError:
-            raise ProblemError(
-                f"{problem.where('objective.kind')}: kind = \"residuals\" needs dl.calibrate, "
-                "which this version does not have yet"
-            ) from None
+        from directional.api.calibration import calibrate
+
         return calibrate
     from directional.api.minimization import minimize
 
@@ -120,30 +115,19 @@ def solve(
         options["journal"] = journals.Target(path, {PROBLEM_KEY: str(problem.source or "")})
     many = problem.search.starts > 1
     if many:
-        options.update(starts=spec.starts, seed=spec.seed)
+        options.update(starts=spec.starts, seed=spec.seed, budget=budget)
         if executor is not None:
             options["executor"] = executor
         if spec.workers > 1:
             options["workers"] = spec.workers
-        options["budget"] = budget
-        bounds = list(problem.parameters)
-        bar_total = None
-    else:
-        options["budget"] = budget
-        bar_total = budget or 1000 * (len(problem.parameters) + 1)
-    wrapped = objective
-    bar = None
-    if not (many and (spec.workers > 1 or executor is not None)):
-        bar = Progress(objective, budget=bar_total, kind=problem.objective.kind,
-                       enabled=False if quiet else None)
-        wrapped = bar
-    try:
-        if many:
-            return run(wrapped, bounds, **options)
-        return run(wrapped, list(problem.parameters), **options)
-    finally:
-        if bar is not None:
-            bar.close()
+        if spec.workers > 1 or executor is not None:  # no bar: the pool's own output is enough
+            return run(objective, list(problem.parameters), **options)
+        from directional.api.explore import exploration
+
+        with Progress(budget=None, enabled=False if quiet else None) as bar:
+            return exploration(objective, list(problem.parameters), observers=(bar,), **options)
+    options["budget"] = budget
+    return run(objective, list(problem.parameters), progress=not quiet, **options)
 
 
 def problem_of_journal(path: str | os.PathLike[str], problem_file: str | Path | None = None) -> Problem:
@@ -184,16 +168,10 @@ def resume(
     ProblemError, ObjectiveError
         As the library function that runs the problem.
     """
-    contents = journals.read(path)
-    done = sum(1 for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    kind = journals.read(path).header.kind
     objective = problem.make_objective()
-    total = budget or contents.header.budget
-    bar = Progress(objective, budget=total, kind=problem.objective.kind,
-                   enabled=False if quiet else None, done=done)
-    try:
-        return journals.resume(path, bar, budget=budget)
-    finally:
-        bar.close()
+    shown = {} if kind == "explore" else {"progress": not quiet}  # explore draws no bar
+    return journals.resume(path, objective, budget=budget, **shown)
 
 
 def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:

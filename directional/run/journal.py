@@ -4,10 +4,10 @@ Theory of operation.  The driver calls `Journal.append` with each new evaluation
 exists; the row is committed at once, in its own transaction, so a committed row survives the
 process being killed at any instant (``kill -9``, an out-of-memory kill, a batch system ending the
 job).  The search is deterministic given the values it receives, so a run can be continued from
-its journal: the stored values are fed back to a new search (`driver.Driver` ``replay``), each
-point it asks for is checked bit for bit against the stored one, and when the stored evaluations
-run out the run goes on live.  Nothing is evaluated twice, and the resumed run ends exactly where
-the uninterrupted run would have.
+its journal: the stored values are fed back to a new search (`driver.Driver` ``stored``, replay
+by point), each point it asks for is checked bit for bit against the stored ones, and when the
+stored evaluations run out the run goes on live.  Nothing is evaluated twice, and the resumed
+run ends exactly where the uninterrupted run would have.
 
 The file (stdlib `sqlite3`, write-ahead log) has three tables:
 
@@ -265,8 +265,8 @@ class Journal:
     # -- the driver's side
 
     def hooks(self) -> dict[str, Any]:
-        """Keyword arguments for `driver.Driver`: ``record`` (append) and ``replay`` (stored)."""
-        return {"record": self.append, "replay": self.by_search()}
+        """Keyword arguments for `driver.Driver`: ``observers`` (append) and ``stored``."""
+        return {"observers": (self.append,), "stored": self.stored}
 
     def by_search(self) -> dict[int, list[Evaluation]]:
         """The stored evaluations of each search, in sequence order."""
