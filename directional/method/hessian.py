@@ -30,7 +30,7 @@ import numdifftools as nd
 import numpy as np
 
 from directional.method.space import Space
-from directional.records import Batch
+from directional.records import Batch, Purpose
 
 EPSILON = float(np.finfo(float).eps)
 LARGEST_STEP = 0.1  # no stencil step beyond a tenth of the problem's size (scaled coordinates)
@@ -163,7 +163,7 @@ def extrapolated_hessian(
         if not table.missing:
             return _checked_measure(hessian, error, steps, table.known)
         values = yield Batch(
-            points=_embed(space, u0, free, np.array(list(table.missing.values()))), purpose="hessian"
+            points=_embed(space, u0, free, np.array(list(table.missing.values()))), purpose=Purpose.HESSIAN
         )
         table.known.update(zip(table.missing, (float(v) for v in values)))
         bad = sum(1 for v in values if not math.isfinite(v))
@@ -222,7 +222,7 @@ def quick_hessian(
             v = np.zeros(k)
             v[i], v[j] = si * steps[i], sj * steps[j]
             rows.append(v)
-    values = yield Batch(points=_embed(space, u0, free, np.array(rows)), purpose="hessian")
+    values = yield Batch(points=_embed(space, u0, free, np.array(rows)), purpose=Purpose.HESSIAN)
     known = {row.tobytes(): float(value) for row, value in zip(rows, values)}
     hessian = np.zeros((k, k))
     if not np.all(np.isfinite(values)):

@@ -67,6 +67,7 @@ import numpy as np
 
 from directional.errors import JournalError, ProblemError
 from directional.parameters import Parameter
+from directional.records import Status
 from directional.run.driver import Evaluation
 from directional.run.identity import canonical, describe_place, difference, digest, run_identity
 from directional.run.lockfile import Lock
@@ -90,7 +91,7 @@ SYNC_AFTER = 0.1  # s: an evaluation at least this long is committed with synchr
 SYNC_MODES = ("adaptive", "normal", "full")
 PAGE_SIZE = 1024  # bytes: a commit writes whole pages to the log, and a row is ~150 bytes
 CHECKPOINT_PAGES = 10_000  # log pages between checkpoints (each costs fsyncs): 10 MB
-INTERRUPTED = "interrupted"
+INTERRUPTED = Status.INTERRUPTED
 
 # The run kinds that `resume` can continue: kind -> (module, entry point).  Each entry point is
 # called as ``entry(objective, parameters, journal=path, budget=..., time_limit=..., **arguments)``.
