@@ -168,10 +168,18 @@ def resume(
     ProblemError, ObjectiveError
         As the library function that runs the problem.
     """
-    kind = journals.read(path).header.kind
+    header = journals.read(path).header
     objective = problem.make_objective()
-    shown = {} if kind == "explore" else {"progress": not quiet}  # explore draws no bar
-    return journals.resume(path, objective, budget=budget, **shown)
+    if header.kind != "explore":
+        return journals.resume(path, objective, budget=budget, progress=not quiet)
+    from directional.api.explore import exploration  # as `journals.resume` would, with a bar
+
+    arguments = dict(header.identity.get("arguments", {}))
+    with Progress(budget=None, enabled=False if quiet else None) as bar:
+        return exploration(
+            objective, header.parameters, journal=path,
+            budget=header.budget if budget is None else budget, observers=(bar,), **arguments,
+        )
 
 
 def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
