@@ -105,6 +105,9 @@ class Batch:
         object.__setattr__(self, "points", points)
 
 
+Request = Batch | Spent  # what a generator of a run yields: points to evaluate, or the question
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Outcome:
     """What a search generator returns: its best point and what it learned on the way.

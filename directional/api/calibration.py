@@ -35,6 +35,7 @@ import math
 import warnings
 from collections.abc import Generator, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy import stats
@@ -53,7 +54,7 @@ from directional.method.leastsquares import (
 from directional.method.noise import floored, noise_level
 from directional.method.search import Settings, powell
 from directional.method.space import Space
-from directional.records import SPENT, Batch, Halt, Outcome, Purpose, Stop
+from directional.records import SPENT, Batch, Halt, Outcome, Purpose, Request, Stop
 from directional.solution import Solution
 
 EPSILON = float(np.finfo(float).eps)
@@ -267,7 +268,7 @@ def calibrate(
 
 def calibration(
     options: Options, squares: SumOfSquares
-) -> Generator[Batch, np.ndarray, tuple[Settled, Settings, tuple[str, ...], np.ndarray, object]]:
+) -> Generator[Request, Any, tuple[Settled, Settings, tuple[str, ...], np.ndarray, object]]:
     """The whole of `calibrate` as one generator for the driver.
 
     Noise estimate, direction-set search finished by Levenberg–Marquardt (keeping some of the
@@ -306,7 +307,7 @@ def _search(
     budget: int,
     reserve: int,
     second_opinion: bool = False,
-) -> Generator[Batch, np.ndarray, Outcome]:
+) -> Generator[Request, Any, Outcome]:
     """The direction-set search finished by Levenberg–Marquardt; optionally a second opinion.
 
     The search leaves ``reserve`` evaluations of the ``budget`` to Levenberg–Marquardt (but

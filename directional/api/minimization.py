@@ -5,6 +5,7 @@ from __future__ import annotations
 import concurrent.futures as cf
 import math
 from collections.abc import Callable, Generator, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -23,7 +24,7 @@ from directional.method.noise import (
 )
 from directional.method.search import Settings, powell
 from directional.method.space import build_space
-from directional.records import Batch, Halt, Purpose, Status
+from directional.records import Batch, Halt, Purpose, Request, Status
 from directional.run.driver import Driver, Objective
 from directional.solution import Solution
 
@@ -128,7 +129,7 @@ def minimize(
 
 def minimization(
     options: Options,
-) -> Generator[Batch, np.ndarray, tuple[Settled, Settings, tuple[str, ...]]]:
+) -> Generator[Request, Any, tuple[Settled, Settings, tuple[str, ...]]]:
     """The whole of `minimize` as one generator for the driver.
 
     The noise estimate (when asked), the search, the curvature check and its escapes, joined

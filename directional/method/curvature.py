@@ -44,6 +44,7 @@ import dataclasses
 import math
 from collections.abc import Callable, Generator
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -62,7 +63,18 @@ from directional.method.hessian import (
 from directional.method.linesearch import line_search
 from directional.method.search import FIRST_STEP, Settings, powell
 from directional.method.space import Space
-from directional.records import SPENT, Batch, Check, Curvature, Halt, Outcome, Purpose, Stop, Verdict
+from directional.records import (
+    SPENT,
+    Batch,
+    Check,
+    Curvature,
+    Halt,
+    Outcome,
+    Purpose,
+    Request,
+    Stop,
+    Verdict,
+)
 from directional.solution import Solution
 
 RESIZES = 2  # with a noise level: times the stencil may be resized from measured curvatures
@@ -432,7 +444,7 @@ class Settled:
     point: np.ndarray | None = None  # the outcome's point in user coordinates
 
 
-Restart = Callable[[np.ndarray], Generator[Batch, np.ndarray, Outcome]]
+Restart = Callable[[np.ndarray], Generator[Request, Any, Outcome]]
 
 
 def settle(
@@ -444,7 +456,7 @@ def settle(
     escapes: int,
     noise: float | None,
     restart: Restart | None = None,
-) -> Generator[Batch, np.ndarray, Settled]:
+) -> Generator[Request, Any, Settled]:
     """Check the search's point, escape saddles and maxima, and check again (at most ``escapes``).
 
     A generator for the driver, joined to the search with ``yield from``.  ``restart(u)`` is the

@@ -81,11 +81,11 @@ from typing import Any
 import numpy as np
 
 from directional.errors import JournalError, ObjectiveError
-from directional.records import SPENT, Batch, Halt, Spent, Status, Stop
+from directional.records import SPENT, Batch, Halt, Request, Spent, Status, Stop
 from directional.run.interrupts import Interrupts
 
 Objective = Callable[[np.ndarray], object]
-Search = Generator[Batch | Spent, Any, Any]
+Search = Generator[Request, Any, Any]
 Observer = Callable[["Evaluation"], None]
 
 DIED = "worker process died"
