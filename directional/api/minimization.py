@@ -53,7 +53,7 @@ def minimize(
 
     >>> import directional as dl
     >>> sol = dl.minimize(lambda x: (x[0] - 1) ** 2 + 10 * (x[1] - x[0] ** 2) ** 2, [-1.2, 1.0])
-    >>> [round(v, 4) for v in sol.point]
+    >>> [round(float(v), 4) for v in sol.point]
     [1.0, 1.0]
 
     Parameters
