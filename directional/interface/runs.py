@@ -15,7 +15,6 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import io
-import math
 import os
 import sqlite3
 import tempfile
@@ -25,6 +24,9 @@ from typing import Any
 
 import numpy as np
 
+from directional.api.explore import explore
+from directional.api.resume import ENTRY_POINTS
+from directional.api.resume import resume as resumed
 from directional.errors import ObjectiveError, ProblemError
 from directional.interface.problemfile import Problem
 from directional.records import Stop
@@ -35,30 +37,22 @@ from directional.solution import Solution
 PROBLEM_KEY = "problem"  # header note: the absolute path of the problem file
 
 
-def entry_point(problem: Problem) -> Callable[..., Any]:
-    """The library function that runs ``problem``: minimize, calibrate or explore.
+def run_kind(problem: Problem) -> str:
+    """The kind of run ``problem`` asks for: "explore", "calibrate" or "minimize".
 
     Raises
     ------
     ProblemError
-        When the function the problem needs is not in this version of the package.
+        For many starts of a residuals objective, which no entry point runs.
     """
     if problem.search.starts > 1:
-        from directional.api.explore import explore
-
         if problem.objective.kind == "residuals":
             raise ProblemError(
                 f"{problem.where('search.starts')}: many starts of a residuals objective are not "
                 "supported; use kind = \"value\" with the sum of squares, or starts = 1"
             )
-        return explore
-    if problem.objective.kind == "residuals":
-        from directional.api.calibration import calibrate
-
-        return calibrate
-    from directional.api.minimization import minimize
-
-    return minimize
+        return "explore"
+    return "calibrate" if problem.objective.kind == "residuals" else "minimize"
 
 
 def best(result: Any) -> Solution:
@@ -98,7 +92,7 @@ def solve(
     ProblemError, ObjectiveError, JournalError
         As the library function that runs the problem.
     """
-    run = entry_point(problem)
+    run = ENTRY_POINTS[run_kind(problem)]
     spec = problem.search
     objective = problem.make_objective() if objective is None else objective
     path = problem.journal if journal is True else (journal or None)
@@ -171,8 +165,8 @@ def resume(
     header = journals.read(path).header
     objective = problem.make_objective()
     if header.kind != "explore":
-        return journals.resume(path, objective, budget=budget, progress=not quiet)
-    from directional.api.explore import exploration  # as `journals.resume` would, with a bar
+        return resumed(path, objective, budget=budget, progress=not quiet)
+    from directional.api.explore import exploration  # as `api.resume.resume` would, with a bar
 
     arguments = dict(header.identity.get("arguments", {}))
     with Progress(budget=None, enabled=False if quiet else None) as bar:
@@ -202,13 +196,11 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
         _copy_database(Path(path), copy)
         with contextlib.redirect_stderr(io.StringIO()):
             if contents.header.kind == "explore":
-                from directional.api.explore import explore
-
                 arguments = dict(contents.header.identity.get("arguments", {}))
                 result = explore(_refuse, contents.header.parameters, journal=copy,
                                  budget=contents.header.budget, total_budget=stored, **arguments)
             else:
-                result = journals.resume(copy, _refuse, budget=stored)
+                result = resumed(copy, _refuse, budget=stored)
     if isinstance(result, Solution):
         result = _ended(result, contents)
     return result, contents
@@ -237,12 +229,3 @@ def _copy_database(source: Path, target: Path) -> None:
         sqlite3.connect(target)
     ) as dst:
         src.backup(dst)
-
-
-def value_of(result: Any, kind: str) -> float:
-    """One objective result as a number (the sum of squares for residuals); nan if not one."""
-    if kind == "residuals":
-        r = np.asarray(result, dtype=float).ravel()
-        return float(r @ r)
-    value = float(np.asarray(result, dtype=float).reshape(()))
-    return value if math.isfinite(value) else math.nan

@@ -14,22 +14,12 @@ from __future__ import annotations
 
 import math
 import sys
-from typing import IO, Any
+from typing import IO
 
-import numpy as np
 from tqdm import tqdm
 
 from directional.records import Status
 from directional.run.driver import Evaluation
-
-
-def sum_of_squares(result: Any) -> float:
-    """The value of a residual vector: the sum of its squares (nan when it is not numeric)."""
-    try:
-        r = np.asarray(result, dtype=float).ravel()
-    except (TypeError, ValueError):
-        return math.nan
-    return float(r @ r)
 
 
 class Progress:
