@@ -109,30 +109,19 @@ def solve(
         options["journal"] = journals.Target(path, {PROBLEM_KEY: str(problem.source or "")})
     many = problem.search.starts > 1
     if many:
-        options.update(starts=spec.starts, seed=spec.seed)
+        options.update(starts=spec.starts, seed=spec.seed, budget=budget)
         if executor is not None:
             options["executor"] = executor
         if spec.workers > 1:
             options["workers"] = spec.workers
-        options["budget"] = budget
-        bounds = list(problem.parameters)
-        bar_total = None
-    else:
-        options["budget"] = budget
-        bar_total = budget or 1000 * (len(problem.parameters) + 1)
-    wrapped = objective
-    bar = None
-    if not (many and (spec.workers > 1 or executor is not None)):
-        bar = Progress(objective, budget=bar_total, kind=problem.objective.kind,
-                       enabled=False if quiet else None)
-        wrapped = bar
-    try:
-        if many:
-            return run(wrapped, bounds, **options)
-        return run(wrapped, list(problem.parameters), **options)
-    finally:
-        if bar is not None:
-            bar.close()
+        if spec.workers > 1 or executor is not None:  # no bar: the pool's own output is enough
+            return run(objective, list(problem.parameters), **options)
+        from directional.api.explore import exploration
+
+        with Progress(budget=None, enabled=False if quiet else None) as bar:
+            return exploration(objective, list(problem.parameters), observers=(bar,), **options)
+    options["budget"] = budget
+    return run(objective, list(problem.parameters), progress=not quiet, **options)
 
 
 def problem_of_journal(path: str | os.PathLike[str], problem_file: str | Path | None = None) -> Problem:
@@ -173,16 +162,18 @@ def resume(
     ProblemError, ObjectiveError
         As the library function that runs the problem.
     """
-    contents = journals.read(path)
-    done = sum(1 for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    header = journals.read(path).header
     objective = problem.make_objective()
-    total = budget or contents.header.budget
-    bar = Progress(objective, budget=total, kind=problem.objective.kind,
-                   enabled=False if quiet else None, done=done)
-    try:
-        return resumed(path, bar, budget=budget)
-    finally:
-        bar.close()
+    if header.kind != "explore":
+        return resumed(path, objective, budget=budget, progress=not quiet)
+    from directional.api.explore import exploration  # as `api.resume.resume` would, with a bar
+
+    arguments = dict(header.identity.get("arguments", {}))
+    with Progress(budget=None, enabled=False if quiet else None) as bar:
+        return exploration(
+            objective, header.parameters, journal=path,
+            budget=header.budget if budget is None else budget, observers=(bar,), **arguments,
+        )
 
 
 def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
