@@ -3,6 +3,8 @@
 The search yields a `Batch` of points to evaluate and receives their values (a float array; a failed
 evaluation arrives as ``+inf``).  When the driver must end a search early (budget spent, time up,
 Ctrl-C) it throws `Halt` into the generator, which returns its `Outcome` with that stop reason.
+A generator that needs to know what it has cost yields `SPENT` instead of a batch and is sent
+back the number of distinct points its search has asked the driver for so far.
 """
 
 from __future__ import annotations
@@ -23,6 +25,41 @@ class Stop(enum.Enum):
     STALLED = "stalled"
 
 
+class Status(enum.StrEnum):
+    """How one evaluation ended; the values are the strings the journal stores."""
+
+    OK = "ok"
+    FAILED = "failed"  # an exception, NaN or +inf: the search receives +inf
+    TIMED_OUT = "timed-out"  # an external program ran out of time (a failure too)
+    INTERRUPTED = "interrupted"  # Ctrl-C while it ran: journaled, made again on resume
+
+
+class Purpose(enum.StrEnum):
+    """What the points of a batch are for (journal and reports); never changes what is done."""
+
+    START = "start"
+    LINE = "line"
+    EXTRAPOLATE = "extrapolate"
+    NOISE = "noise"
+    HESSIAN = "hessian"
+    SMOOTHNESS = "smoothness"
+    ESCAPE = "escape"
+    JACOBIAN = "jacobian"
+    GAUSS_NEWTON = "gauss-newton"
+
+
+class Check(enum.StrEnum):
+    """The paid curvature check (the public ``check``: True is ESCALATING; False is none).
+
+    The values are what a curvature record names as its source ("quick" or "extrapolated":
+    ESCALATING ends as one of them) and what a problem file may say.
+    """
+
+    EXTRAPOLATED = "extrapolated"  # numdifftools' Richardson extrapolation, with error estimate
+    QUICK = "quick"  # one central-difference stencil
+    ESCALATING = "escalating"  # QUICK, then EXTRAPOLATED where an eigenvalue's sign is in doubt
+
+
 class Verdict(enum.Enum):
     """What the curvature check says about the returned point."""
 
@@ -30,6 +67,7 @@ class Verdict(enum.Enum):
     SADDLE = "saddle"
     MAXIMUM = "maximum"
     FLAT = "flat"
+    NONSMOOTH = "nonsmooth"
     UNCHECKED = "unchecked"
 
 
@@ -42,16 +80,29 @@ class Halt(Exception):
         self.reason = reason
 
 
+class Spent(enum.Enum):
+    """The question "how many points has my search asked for?" (the sentinel `SPENT`)."""
+
+    SPENT = "spent"
+
+
+SPENT = Spent.SPENT
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Batch:
     """Points the search wants evaluated, one per row, in the user's coordinates.
 
-    ``purpose`` says what the points are for ("start", "line", "probe", "hessian", ...), for the
-    journal and for people reading it; it never changes what the driver does.
+    ``purpose`` says what the points are for (`Purpose`), for the journal and for people reading
+    it; it never changes what the driver does.  ``limit`` (None: the budget) lowers the budget
+    for the points of this batch: the driver halts the search (BUDGET) rather than evaluate a
+    point new to it once the search has asked for ``limit`` points, so that a stage of a run can
+    keep evaluations for the stages after it without anyone editing the budget.
     """
 
     points: np.ndarray
-    purpose: str = "line"
+    purpose: str = Purpose.LINE
+    limit: int | None = None
 
     def __post_init__(self) -> None:
         points = np.array(self.points, dtype=float, copy=True)
@@ -59,6 +110,9 @@ class Batch:
             raise ValueError(f"a batch needs a (k, n) array with k >= 1, got shape {points.shape!r}")
         points.setflags(write=False)
         object.__setattr__(self, "points", points)
+
+
+Request = Batch | Spent  # what a generator of a run yields: points to evaluate, or the question
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -108,3 +162,25 @@ class Curvature:
     undetermined: tuple[str, ...] = ()
     evaluations: int = 0
     free: Curvature | None = None
+    breaks: tuple[Break, ...] = ()
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Break:
+    """Where the curvature check found the objective not smooth (`directional.method.smoothness`).
+
+    ``along`` names the parameter or combination (search coordinates, as ``Curvature.names``);
+    ``parameters`` the parameters taking part.  ``kind``: "corner" (the one-sided slopes differ
+    and both rise away from the point: still a minimum along it), "kink" (they differ and one
+    falls), "edge" (the value jumps up on one side, the other is not lower: the point is the low
+    edge of a jump) or "jump" (it jumps, and one side is lower).  ``slopes`` are the rates of
+    rise away from the point, backward then forward along ``along`` per unit of it, read at
+    ``step``; ``change`` is the size of the jump (0 for a kink).
+    """
+
+    along: str
+    kind: str
+    parameters: tuple[str, ...]
+    slopes: tuple[float, float]
+    change: float = 0.0
+    step: float = math.nan

@@ -91,7 +91,7 @@ BROKEN_FILES = [
     ("budget-below-n-plus-1", GOOD.replace("budget = 30", "budget = 1"),
      "search.budget must allow at least n + 1 = 2 evaluations, got 1", 11),
     ("check-misspelt", GOOD.replace("check = false", 'check = "maybe"'),
-     "search.check must be true, false or \"quick\", got 'maybe'", 12),
+     "search.check must be true, false, \"quick\" or \"extrapolated\", got 'maybe'", 12),
     ("nan-bound", GOOD.replace("upper = 5.0", "upper = nan"), "'a': upper must be a number", 5),
     ("equal-bounds", GOOD.replace("lower = -5.0", "lower = 5.0"), "lower must be below upper", 4),
     ("nested-table", GOOD + "[search.extra]\nx = 1\n", "unknown key 'extra' in [search]", 13),
@@ -130,7 +130,9 @@ def test_a_missing_journal_folder_is_made(folder, capsys):
     path.write_text(GOOD + '\n[journal]\npath = "no/such/folder/run.sqlite"\n', encoding="utf-8")
     code, out, _ = run_cli("run", str(path), "--quiet", capsys=capsys)
     assert code == cli.UNVERIFIED  # check = false: no verified minimum, but the run went through
-    assert len(read_journal(folder / "no/such/folder/run.sqlite").evaluations) > 0
+    spent = int(re.search(r"and (\d+) evaluations", out)[1])  # as the summary reports them
+    assert spent > 0
+    assert len(read_journal(folder / "no/such/folder/run.sqlite").evaluations) == spent
 
 
 def read_only_folder(folder: Path) -> Path:

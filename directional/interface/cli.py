@@ -90,7 +90,8 @@ def _parser() -> argparse.ArgumentParser:
     demo = command(
         "demo", "run the bundled scenario end to end",
         "Calibrate a batch-bioreactor model (Monod growth) to an invented, noisy data set and "
-        "write the problem file, journal, summary, JSON and plots into ./directional-demo/.",
+        "write the problem file, journal, summary, JSON, plots and an HTML report into "
+        "./directional-demo/.",
     )
     demo.add_argument("--folder", default="directional-demo", help="where to write (default: %(default)s)")
     demo.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -153,6 +154,8 @@ def _parser() -> argparse.ArgumentParser:
 def _outputs(sub: argparse.ArgumentParser, progress: bool = True) -> None:
     sub.add_argument("--json", metavar="OUT", help="write the solution as JSON to OUT")
     sub.add_argument("--plots", metavar="DIR", help="write PNG plots into DIR")
+    sub.add_argument("--html", metavar="FILE",
+                     help="write the report as one self-contained HTML page to FILE")
     sub.add_argument(
         "--plot-evaluations", type=_count, default=None, metavar="N",
         help="most report-only evaluations for maps and profiles, not journaled "
@@ -180,9 +183,9 @@ def _count(text: str) -> int:
 
 
 def _version() -> str:
-    from directional import __version__
+    from directional.version import VERSION
 
-    return __version__
+    return VERSION
 
 
 # ----------------------------------------------------------------------------- the commands
@@ -193,10 +196,30 @@ def load_problem(path: str | Path) -> Problem:
     return Problem.from_file(path)
 
 
-def _demo(args: argparse.Namespace) -> int:
-    from directional.interface.demo import run
+def _demo(args: argparse.Namespace, out: TextIO | None = None) -> int:
+    """Write the demo's problem file and data into ``args.folder``, run it, write the results."""
+    from directional.interface import demo
+    from directional.interface.runs import solve
 
-    return run(args.folder, quiet=args.quiet)
+    out = sys.stdout if out is None else out
+    folder = Path(args.folder)
+    path = demo.prepare(folder)
+    problem = load_problem(path)
+    print(f"directional demo: calibrating {problem.title!r}", file=out)
+    print(demo.NOTICE, file=out)
+    sol = solve(problem, quiet=args.quiet)
+    return finish(
+        sol,
+        problem,
+        json_path=folder / "solution.json",
+        plots=folder / "plots",
+        summary=folder / "summary.txt",
+        journal=problem.journal,
+        out=out,
+        show_files=True,
+        inputs=(path, folder / "data.csv"),
+        html=folder / "report.html",
+    )
 
 
 def _run(args: argparse.Namespace) -> int:
@@ -224,7 +247,7 @@ def _run(args: argparse.Namespace) -> int:
         )
     used = problem.journal if journal is True else journal
     return finish(result, problem, json_path=args.json, plots=args.plots, journal=used,
-                  extra=args.plot_evaluations)
+                  extra=args.plot_evaluations, html=args.html)
 
 
 @contextlib.contextmanager
@@ -257,7 +280,7 @@ def _resume(args: argparse.Namespace) -> int:
     problem = problem_of_journal(args.journal, args.problem)
     result = resume(args.journal, problem, budget=args.budget, quiet=args.quiet)
     return finish(result, problem, json_path=args.json, plots=args.plots,
-                  journal=Path(args.journal), extra=args.plot_evaluations)
+                  journal=Path(args.journal), extra=args.plot_evaluations, html=args.html)
 
 
 def _show(args: argparse.Namespace) -> int:
@@ -274,7 +297,8 @@ def _show(args: argparse.Namespace) -> int:
                   file=sys.stderr)
     parameters = contents.header.parameters
     return finish(result, problem, json_path=args.json, plots=args.plots,
-                  journal=Path(args.journal), extra=args.plot_evaluations, parameters=parameters)
+                  journal=Path(args.journal), extra=args.plot_evaluations, parameters=parameters,
+                  html=args.html)
 
 
 def _check(args: argparse.Namespace) -> int:
@@ -318,13 +342,10 @@ def _bench(argv: list[str]) -> int:
     """Hand the arguments to `directional.benchmarking.main` as they are."""
     try:
         from directional.benchmarking import main as bench_main
-    except ImportError:
-        if "-h" in argv or "--help" in argv:
-            print("usage: directional bench [--quick]\n\nRun the benchmarks on the standard test "
-                  "problems (not yet available in this version).")
-        else:
-            print("directional bench: not yet available in this version")
-        return OK
+    except ImportError as error:  # a damaged install: say so, do not pretend it ran
+        print(f"directional: error: the benchmarks cannot be imported ({error}); reinstall "
+              "directional", file=sys.stderr)
+        return BAD_INPUT
     try:
         return int(bench_main(argv) or 0)
     except SystemExit as done:  # its own argument parser: --help, or a bad option
@@ -352,6 +373,7 @@ def finish(
     out: TextIO | None = None,
     show_files: bool = False,
     inputs: Sequence[Path] = (),
+    html: str | Path | None = None,
 ) -> int:
     """Print the summary, write the requested files, say where they are; return the exit code.
 
@@ -367,7 +389,9 @@ def finish(
     parameters = list(problem.parameters) if problem is not None else parameters
     landscape = None if isinstance(result, Solution) else result
     if landscape is not None:
-        print(landscape.summary() + "\n\nThe best minimum:\n", file=out)
+        # the caution ends the best minimum's summary below: said once
+        table = landscape.summary().removesuffix(CAUTION).rstrip()
+        print(table + "\n\nThe best minimum:\n", file=out)
     sol = best(result)
     print(report.summary_text(sol, title), file=out)
     if sol.stop is Stop.INTERRUPTED and journal is not None:
@@ -380,14 +404,16 @@ def finish(
     if json_path is not None:
         written.append(report.write_json(sol, json_path, title=title, parameters=parameters,
                                          landscape=landscape))
+    # both the PNG plots and the page: their report-only evaluations are the same points, made once
+    made = _Remembered(problem) if problem is not None and plots and html else None
     if plots is not None:
-        written += _plots(sol, problem, Path(plots), extra, parameters, landscape)
+        written += _plots(sol, problem, Path(plots), extra, parameters, landscape, made)
+    if html is not None:
+        written.append(_html(result, sol, problem, Path(html), extra, parameters, journal, made))
     if written:
         print("\nFiles:", file=out)
         for path in written:
             print(f"  {_shown(path)}", file=out)
-    if problem is not None and problem.objective.kind == "residuals":
-        print(f"\n{CAUTION}", file=out)
     return exit_code(sol)
 
 
@@ -407,6 +433,7 @@ def _plots(
     extra: int | None,
     parameters: Sequence | None,
     landscape: Any = None,
+    made: Any = None,
 ) -> list[Path]:
     from directional.report.plots import affordable, write_plots
 
@@ -417,7 +444,7 @@ def _plots(
     if problem is not None:
         kind = problem.objective.kind
         if extra > 0:
-            objective = problem.make_objective()
+            objective = made if made is not None else problem.make_objective()
         fit = problem.make_fit()
     title = problem.title if problem is not None else ""
     written = write_plots(
@@ -425,11 +452,59 @@ def _plots(
         extra=extra, title=title,
     )
     if landscape is not None and len(sol.names) >= 2:
-        from directional.report.startmap import start_map
+        from directional.report.maps import start_map
 
         written.append(start_map(landscape, objective, folder / "starts.png", kind=kind,
                                  extra=extra, title=title))
     return written
+
+
+class _Remembered:
+    """The problem's objective, built on first use, remembering its result at each point."""
+
+    def __init__(self, problem: Problem) -> None:
+        self.problem = problem
+        self.objective: Any = None
+        self.seen: dict[bytes, Any] = {}
+
+    def __call__(self, x: np.ndarray) -> Any:
+        key = np.asarray(x, dtype=float).tobytes()
+        if key not in self.seen:
+            if self.objective is None:
+                self.objective = self.problem.make_objective()
+            self.seen[key] = self.objective(np.array(x, dtype=float))
+        return self.seen[key]
+
+
+def _html(
+    result: Any,
+    sol: Solution,
+    problem: Problem | None,
+    path: Path,
+    extra: int | None,
+    parameters: Sequence | None,
+    journal: Path | None,
+    made: Any = None,
+) -> Path:
+    """The HTML report (`directional.report.html`), its figures made as for ``--plots``."""
+    from directional.report.html import origin_of, write_html
+    from directional.report.plots import affordable
+
+    if extra is None:
+        extra = affordable(sol, PLOT_SECONDS)
+    objective = fit = None
+    kind = "value"
+    if problem is not None:
+        kind = problem.objective.kind
+        if extra > 0:
+            objective = made if made is not None else problem.make_objective()
+        fit = problem.make_fit()
+    history = sol.history if isinstance(result, Solution) else result.history
+    origin = origin_of(problem_file=problem.source if problem is not None else None,
+                       journal=journal, history=history)
+    return write_html(result, path, title=problem.title if problem is not None else "",
+                      parameters=parameters, kind=kind, objective=objective, fit=fit,
+                      extra=extra, origin=origin)
 
 
 if __name__ == "__main__":

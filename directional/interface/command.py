@@ -26,9 +26,10 @@ import numpy as np
 
 from directional.errors import ProblemError
 from directional.interface.process import Outcome, run_program
+from directional.records import Status
 
-FAILED = "failed"
-TIMED_OUT = "timed-out"
+FAILED = Status.FAILED
+TIMED_OUT = Status.TIMED_OUT
 DETAIL_LIMIT = 2000  # characters of stderr kept in EvaluationFailed.detail
 
 # A number as programs print it: sign, digits, decimal point, exponent, or inf / nan.  It must not

@@ -606,9 +606,10 @@ class _Reader:
             )
         if isinstance(noise, float) and not (0 <= noise < math.inf):
             raise self.fail((*at, "noise"), f"search.noise must be a number >= 0, got {noise!r}")
-        if isinstance(check, str) and check != "quick":
+        if isinstance(check, str) and check not in ("quick", "extrapolated"):
             raise self.fail(
-                (*at, "check"), f"search.check must be true, false or \"quick\", got {check!r}"
+                (*at, "check"),
+                f"search.check must be true, false, \"quick\" or \"extrapolated\", got {check!r}",
             )
         return SearchSpec(
             budget=budget,

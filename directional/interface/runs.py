@@ -15,7 +15,6 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import io
-import math
 import os
 import sqlite3
 import tempfile
@@ -25,9 +24,12 @@ from typing import Any
 
 import numpy as np
 
+from directional.api.explore import explore
+from directional.api.resume import ENTRY_POINTS
+from directional.api.resume import resume as resumed
 from directional.errors import ObjectiveError, ProblemError
 from directional.interface.problemfile import Problem
-from directional.records import Stop
+from directional.records import Stop, Verdict
 from directional.run import journal as journals
 from directional.run.progress import Progress
 from directional.solution import Solution
@@ -35,35 +37,22 @@ from directional.solution import Solution
 PROBLEM_KEY = "problem"  # header note: the absolute path of the problem file
 
 
-def entry_point(problem: Problem) -> Callable[..., Any]:
-    """The library function that runs ``problem``: minimize, calibrate or explore.
+def run_kind(problem: Problem) -> str:
+    """The kind of run ``problem`` asks for: "explore", "calibrate" or "minimize".
 
     Raises
     ------
     ProblemError
-        When the function the problem needs is not in this version of the package.
+        For many starts of a residuals objective, which no entry point runs.
     """
     if problem.search.starts > 1:
-        from directional.api.explore import explore
-
         if problem.objective.kind == "residuals":
             raise ProblemError(
                 f"{problem.where('search.starts')}: many starts of a residuals objective are not "
                 "supported; use kind = \"value\" with the sum of squares, or starts = 1"
             )
-        return explore
-    if problem.objective.kind == "residuals":
-        try:
-            from directional.api.calibration import calibrate
-        except ImportError:
-            raise ProblemError(
-                f"{problem.where('objective.kind')}: kind = \"residuals\" needs dl.calibrate, "
-                "which this version does not have yet"
-            ) from None
-        return calibrate
-    from directional.api.minimization import minimize
-
-    return minimize
+        return "explore"
+    return "calibrate" if problem.objective.kind == "residuals" else "minimize"
 
 
 def best(result: Any) -> Solution:
@@ -103,7 +92,7 @@ def solve(
     ProblemError, ObjectiveError, JournalError
         As the library function that runs the problem.
     """
-    run = entry_point(problem)
+    run = ENTRY_POINTS[run_kind(problem)]
     spec = problem.search
     objective = problem.make_objective() if objective is None else objective
     path = problem.journal if journal is True else (journal or None)
@@ -120,30 +109,19 @@ def solve(
         options["journal"] = journals.Target(path, {PROBLEM_KEY: str(problem.source or "")})
     many = problem.search.starts > 1
     if many:
-        options.update(starts=spec.starts, seed=spec.seed)
+        options.update(starts=spec.starts, seed=spec.seed, budget=budget)
         if executor is not None:
             options["executor"] = executor
         if spec.workers > 1:
             options["workers"] = spec.workers
-        options["budget"] = budget
-        bounds = list(problem.parameters)
-        bar_total = None
-    else:
-        options["budget"] = budget
-        bar_total = budget or 1000 * (len(problem.parameters) + 1)
-    wrapped = objective
-    bar = None
-    if not (many and (spec.workers > 1 or executor is not None)):
-        bar = Progress(objective, budget=bar_total, kind=problem.objective.kind,
-                       enabled=False if quiet else None)
-        wrapped = bar
-    try:
-        if many:
-            return run(wrapped, bounds, **options)
-        return run(wrapped, list(problem.parameters), **options)
-    finally:
-        if bar is not None:
-            bar.close()
+        if spec.workers > 1 or executor is not None:  # no bar: the pool's own output is enough
+            return run(objective, list(problem.parameters), **options)
+        from directional.api.explore import exploration
+
+        with Progress(budget=None, enabled=False if quiet else None) as bar:
+            return exploration(objective, list(problem.parameters), observers=(bar,), **options)
+    options["budget"] = budget
+    return run(objective, list(problem.parameters), progress=not quiet, **options)
 
 
 def problem_of_journal(path: str | os.PathLike[str], problem_file: str | Path | None = None) -> Problem:
@@ -184,16 +162,18 @@ def resume(
     ProblemError, ObjectiveError
         As the library function that runs the problem.
     """
-    contents = journals.read(path)
-    done = sum(1 for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    header = journals.read(path).header
     objective = problem.make_objective()
-    total = budget or contents.header.budget
-    bar = Progress(objective, budget=total, kind=problem.objective.kind,
-                   enabled=False if quiet else None, done=done)
-    try:
-        return journals.resume(path, bar, budget=budget)
-    finally:
-        bar.close()
+    if header.kind != "explore":
+        return resumed(path, objective, budget=budget, progress=not quiet)
+    from directional.api.explore import exploration  # as `api.resume.resume` would, with a bar
+
+    arguments = dict(header.identity.get("arguments", {}))
+    with Progress(budget=None, enabled=False if quiet else None) as bar:
+        return exploration(
+            objective, header.parameters, journal=path,
+            budget=header.budget if budget is None else budget, observers=(bar,), **arguments,
+        )
 
 
 def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
@@ -216,13 +196,14 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
         _copy_database(Path(path), copy)
         with contextlib.redirect_stderr(io.StringIO()):
             if contents.header.kind == "explore":
-                from directional.api.explore import explore
-
                 arguments = dict(contents.header.identity.get("arguments", {}))
                 result = explore(_refuse, contents.header.parameters, journal=copy,
                                  budget=contents.header.budget, total_budget=stored, **arguments)
             else:
-                result = journals.resume(copy, _refuse, budget=stored)
+                try:
+                    result = resumed(copy, _refuse, budget=stored)
+                except _Refused:
+                    result = _as_stored(contents)
     if isinstance(result, Solution):
         result = _ended(result, contents)
     return result, contents
@@ -241,8 +222,44 @@ def _ended(sol: Solution, contents: journals.Contents) -> Solution:
     return sol
 
 
+class _Refused(ObjectiveError):
+    """The replay asked the objective itself for something the journal does not hold."""
+
+
 def _refuse(x: np.ndarray) -> float:
-    raise ObjectiveError("show evaluates nothing")  # never called: the budget ends first
+    # The budget ends the replay before any evaluation; but a calibration's least-squares steps
+    # need residual vectors, which the journal does not keep (it keeps each point's value).
+    raise _Refused("show evaluates nothing")
+
+
+def _as_stored(contents: journals.Contents) -> Solution:
+    """The run as its journal holds it, without replaying the search: the best stored point.
+
+    For a journal whose replay would need evaluations (a calibration's residual vectors): the
+    best value and point, every evaluation, the stop of the last session; no verdict, no
+    uncertainty, and a reason that says so.
+    """
+    parameters = contents.header.parameters
+    history = tuple(e for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    done = [e for e in history if e.status == "ok"]
+    if not done:
+        raise ObjectiveError("every evaluation in the journal failed: there is no best point")
+    best = min(done, key=lambda e: e.value)
+    last = contents.sessions[-1] if contents.sessions else {}
+    stops = {stop.value: stop for stop in Stop}
+    return Solution(
+        point=np.array(best.point, dtype=float), value=float(best.value),
+        evaluations=len(history), cycles=0,
+        stop=stops.get(str(last.get("stop")), Stop.INTERRUPTED), verdict=Verdict.UNCHECKED,
+        active=(), curvature=None, uncertainty=None, directions=np.eye(len(parameters)),
+        names=tuple(p.name for p in parameters), units=tuple(p.unit for p in parameters),
+        lower=np.array([p.lower for p in parameters], dtype=float),
+        upper=np.array([p.upper for p in parameters], dtype=float),
+        reason="the best point the journal holds; its least-squares steps cannot be replayed "
+        "without evaluating (the journal keeps values, not residual vectors), so no verdict "
+        "and no uncertainty are shown: directional resume recomputes them",
+        history=history,
+    )
 
 
 def _copy_database(source: Path, target: Path) -> None:
@@ -251,12 +268,3 @@ def _copy_database(source: Path, target: Path) -> None:
         sqlite3.connect(target)
     ) as dst:
         src.backup(dst)
-
-
-def value_of(result: Any, kind: str) -> float:
-    """One objective result as a number (the sum of squares for residuals); nan if not one."""
-    if kind == "residuals":
-        r = np.asarray(result, dtype=float).ravel()
-        return float(r @ r)
-    value = float(np.asarray(result, dtype=float).reshape(()))
-    return value if math.isfinite(value) else math.nan

@@ -12,10 +12,10 @@ point it returns is checked.
 2. Paid check.  A Hessian in scaled coordinates (`directional.method.space`) over the parameters that are
    not on a bound: by numdifftools' central differences with Richardson extrapolation and its
    error estimate (``check=True``, 6 n² + 1 evaluations), or by one plain central-difference
-   stencil (``check="quick"``, 2 n² + 1).  The default (``check=True``, "escalating") measures
-   the one stencil first and pays for the extrapolated Hessian only when an eigenvalue's error bar
-   leaves its sign in doubt; a check the budget left over by the search cannot pay for is not
-   begun (UNCHECKED, with the reason).  Every stencil point is known before any value is, so
+   stencil (``check="quick"``, 2 n² + 2 n + 1).  The default (``check=True``, ESCALATING)
+   measures the one stencil first and pays for the extrapolated Hessian only when an eigenvalue's
+   error bar leaves its sign in doubt; a check the budget left over by the search cannot pay for
+   is not begun (UNCHECKED, with the reason).  Every stencil point is known before any value is, so
    the stencil goes to the driver as one batch (an executor evaluates it in parallel); see
    `directional.method.hessian`.  Steps are never below what the noise allows; with a stated noise
    level, a stencil whose steps were sized from a curvature that the measurement belies is
@@ -26,7 +26,12 @@ point it returns is checked.
    (`eigenvalue_margins`): an eigenvalue above its bar is clearly positive, one below minus its
    bar clearly negative, the rest indistinguishable from zero.  MINIMUM: all clearly positive;
    MAXIMUM: all clearly negative; SADDLE: some clearly negative; FLAT: none negative, some zero
-   (the combinations of parameters along those eigenvectors are reported by name).
+   (the combinations of parameters along those eigenvectors are reported by name).  Before that,
+   the stencil's values along each axis are tested for kinks and jumps
+   (`directional.method.smoothness`); where the objective is not smooth the verdict is NONSMOOTH
+   (unless the smooth rest is a saddle or flat), the break is named (`records.Break`), and the
+   curvature is judged on the directions orthogonal to it only.  A direction along a kinked
+   valley that still goes down is escaped along, like one of negative curvature.
 4. Escape.  On SADDLE or MAXIMUM the eigenvector of most negative curvature is line-searched both
    ways, the direction-set search restarts from the better point, and the new point is checked:
    at most ``escapes`` times.  When the line search gains less than the search's own value
@@ -47,6 +52,7 @@ import dataclasses
 import math
 from collections.abc import Callable, Generator
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -64,22 +70,34 @@ from directional.method.hessian import (
 )
 from directional.method.linesearch import line_search
 from directional.method.search import FIRST_STEP, Settings, powell
+from directional.method.smoothness import AXIS, Finding, examine
 from directional.method.space import Space
-from directional.records import Batch, Curvature, Halt, Outcome, Stop, Verdict
-from directional.run.driver import Driver
+from directional.records import (
+    SPENT,
+    Batch,
+    Break,
+    Check,
+    Curvature,
+    Halt,
+    Outcome,
+    Purpose,
+    Request,
+    Stop,
+    Verdict,
+)
 from directional.solution import Solution
 
 RESIZES = 2  # with a noise level: times the stencil may be resized from measured curvatures
 FREE_FLAT = EPSILON**0.5  # free estimate: smaller eigenvalues (relative) count as zero
 
-Check = Generator[Batch, np.ndarray, "Checked"]
+Checking = Generator[Batch, np.ndarray, "Checked"]
 
 
-def check_method(check: object) -> str | None:
-    """The check the caller asked for: "escalating" (True, the default), "quick", "extrapolated",
-    or None (False).
+def check_kind(check: object) -> Check | None:
+    """The check the caller asked for: ESCALATING (True, the default), QUICK ("quick"),
+    EXTRAPOLATED ("extrapolated"), or None (False).
 
-    "escalating" measures one stencil (as "quick") and pays for the extrapolated Hessian only when
+    ESCALATING measures one stencil (as QUICK) and pays for the extrapolated Hessian only when
     an eigenvalue's error bar leaves its sign in doubt (`undecided`).
 
     Raises
@@ -88,25 +106,28 @@ def check_method(check: object) -> str | None:
         For anything else.
     """
     if check is True:
-        return "escalating"
-    if check == "extrapolated":
-        return "extrapolated"
-    if check == "quick":
-        return "quick"
+        return Check.ESCALATING
+    if check == Check.EXTRAPOLATED:
+        return Check.EXTRAPOLATED
+    if check == Check.QUICK:
+        return Check.QUICK
     if check is False or check is None:
         return None
     raise ProblemError(f"check must be True, False, 'quick' or 'extrapolated', got {check!r}")
 
 
-def check_cost(method: str, free: int) -> int:
-    """New evaluations a check over ``free`` parameters needs: one stencil of 2 k² + 1 points
-    ("quick", and the first stage of "escalating"), numdifftools' 6 k² + 1 ("extrapolated"),
-    less the centre, whose value the search already has.
+def check_cost(check: Check, free: int) -> int:
+    """New evaluations a check over ``free`` parameters needs at most: one stencil of
+    2 k² + 2 k + 1 points (QUICK, and the first stage of ESCALATING), numdifftools' 6 k² + 1
+    (EXTRAPOLATED), less the centre, whose value the search already has.  The few points the
+    smoothness check may add (`smoothness.examine`) are not counted.
 
-    >>> check_cost("quick", 3), check_cost("extrapolated", 3)
-    (18, 54)
+    >>> check_cost(Check.QUICK, 3), check_cost(Check.EXTRAPOLATED, 3)
+    (24, 54)
     """
-    return (6 if method == "extrapolated" else 2) * free * free
+    if check == Check.EXTRAPOLATED:
+        return 6 * free * free
+    return 2 * free * free + 2 * free
 
 
 UNSURE = 1e-6  # escalating check: a single stencil's eigenvalues are trusted above this (relative)
@@ -115,9 +136,10 @@ UNSURE = 1e-6  # escalating check: a single stencil's eigenvalues are trusted ab
 def undecided(checked: Checked) -> bool:
     """Whether a single stencil's verdict is in doubt: an eigenvalue (of the equilibrated Hessian)
     within ten times its error bar, widened by ``UNSURE`` times the largest for the truncation
-    error one stencil cannot measure (common practice, no source)."""
+    error one stencil cannot measure (common practice, no source).  With no smooth part left (every
+    direction broken, `smoothness.examine`) there is no eigenvalue to doubt."""
     c = checked.curvature
-    if c is None or c.error is None or checked.eigenvalues is None:
+    if c is None or c.error is None or checked.eigenvalues is None or not len(checked.eigenvalues[0]):
         return False
     eigenvalues, margins = checked.eigenvalues
     widened = 10.0 * margins + UNSURE * float(np.max(np.abs(eigenvalues)))
@@ -155,7 +177,7 @@ def equilibration(hessian: np.ndarray, *, sweeps: int = 60) -> np.ndarray:
     """
     a = np.abs(np.asarray(hessian, dtype=float))
     d = np.ones(len(a))
-    for _ in range(sweeps):
+    for _ in range(sweeps if len(a) else 0):
         rows = np.max(a / np.outer(d, d), axis=1)
         step = np.sqrt(np.where(rows > 0.0, rows, 1.0))
         d = d * step
@@ -322,11 +344,11 @@ def check_point(
     f0: float,
     free_scaled: np.ndarray | None,
     *,
-    method: str,
+    check: Check,
     noise: float | None,
     active: np.ndarray,
     room: float = math.inf,
-) -> Check:
+) -> Checking:
     """The paid check at the scaled point ``u0`` as a generator for the driver.
 
     With a noise level given, the free estimate's curvatures may be noise themselves (a parabola
@@ -336,27 +358,27 @@ def check_point(
     ``RESIZES`` times).  Without a noise level the stencil is evaluated once.
 
     ``room`` is what is left of the budget: a check it cannot pay for is not begun (UNCHECKED,
-    with the reason), and method "escalating" escalates only when the room allows.
+    with the reason), and ESCALATING escalates only when the room allows.
     """
-    if method == "escalating":
+    if check == Check.ESCALATING:
         k = int((~active).sum())
         first = yield from check_point(
-            space, u0, f0, free_scaled, method="quick", noise=noise, active=active, room=room
+            space, u0, f0, free_scaled, check=Check.QUICK, noise=noise, active=active, room=room
         )
         if first.curvature is None or first.curvature.source == "free" or not undecided(first):
             return first
-        if room - check_cost("quick", k) < check_cost("extrapolated", k):
+        if room - check_cost(Check.QUICK, k) < check_cost(Check.EXTRAPOLATED, k):
             note = ("an eigenvalue of the one-stencil check lies near its error bar; the budget "
                     "left cannot pay for the extrapolated check that would settle it")
             return dataclasses.replace(first, note=(first.note + "; " if first.note else "") + note)
         return (yield from check_point(
-            space, u0, f0, free_scaled, method="extrapolated", noise=noise, active=active
+            space, u0, f0, free_scaled, check=Check.EXTRAPOLATED, noise=noise, active=active
         ))
-    if room < check_cost(method, int((~active).sum())):
+    if room < check_cost(check, int((~active).sum())):
         return Checked(
             verdict=Verdict.UNCHECKED, curvature=free_record(space, free_scaled),
             note=(f"not checked: the budget left ({room:g} evaluations) cannot pay for the "
-                  f"curvature check ({check_cost(method, int((~active).sum()))} evaluations)"),
+                  f"curvature check ({check_cost(check, int((~active).sum()))} evaluations)"),
         )
     free = ~active
     free_rec = free_record(space, free_scaled)
@@ -365,15 +387,16 @@ def check_point(
             verdict=Verdict.UNCHECKED, curvature=free_rec,
             note="not checked: every parameter is on a bound",
         )
-    room = np.minimum(u0 - space.lower_u, space.upper_u - u0)[free]
+    reach = np.minimum(u0 - space.lower_u, space.upper_u - u0)[free]
     diagonal = np.full(int(free.sum()), np.nan) if free_scaled is None else np.diag(free_scaled)[free]
+    seen: list[tuple[np.ndarray, np.ndarray]] = []  # every stencil point and value, for smoothness
     for attempt in range(RESIZES + 1):
-        steps = step_sizes(diagonal, f0, noise, room, method)
+        steps = step_sizes(diagonal, f0, noise, reach, check)
         try:
-            if method == "quick":
-                measured = yield from quick_hessian(space, u0, free, steps)
+            if check == Check.QUICK:
+                measured = yield from _seen(quick_hessian(space, u0, free, steps), seen)
             else:
-                measured = yield from extrapolated_hessian(space, u0, free, steps)
+                measured = yield from _seen(extrapolated_hessian(space, u0, free, steps), seen)
         except Halt as halt:
             return Checked(
                 verdict=Verdict.UNCHECKED, curvature=free_rec,
@@ -389,7 +412,56 @@ def check_point(
         if noise is None or attempt == RESIZES or not np.any(found < 0.25 * used):
             break
         diagonal = np.where(found < 0.25 * used, found, diagonal)
-    return _verdict(space, free, measured, f0, noise, method, free_rec)
+    return (yield from _judged(space, u0, f0, free, measured, noise, check, free_rec, seen))
+
+
+def _seen(
+    stencil: Generator[Batch, np.ndarray, Measured], seen: list[tuple[np.ndarray, np.ndarray]]
+) -> Generator[Batch, np.ndarray, Measured]:
+    """Pass a stencil's batches through unchanged, keeping each batch's points and values."""
+    try:
+        batch = next(stencil)
+        while True:
+            values = yield batch
+            seen.append((batch.points, np.asarray(values, dtype=float)))
+            batch = stencil.send(values)
+    except StopIteration as stop:
+        return stop.value
+
+
+def _judged(
+    space: Space,
+    u0: np.ndarray,
+    f0: float,
+    free: np.ndarray,
+    measured: Measured,
+    noise: float | None,
+    check: Check,
+    free_rec: Curvature | None,
+    seen: list[tuple[np.ndarray, np.ndarray]],
+) -> Checking:
+    """Smoothness first (`smoothness.examine`, a few more points), then the verdict on the smooth
+    part, and an escape along a kinked valley's floor where it still goes down."""
+    points = np.concatenate([p for p, _ in seen])
+    values = np.concatenate([v for _, v in seen])
+    try:
+        found = yield from examine(
+            space, u0, f0, free, (points, values), measured.hessian, noise=noise
+        )
+    except Halt as halt:
+        return Checked(
+            verdict=Verdict.UNCHECKED, curvature=free_rec,
+            note=f"the smoothness check could not finish: {halt.reason}",
+        )
+    checked = _verdict(space, free, measured, f0, noise, check, free_rec, found.breaks,
+                       (found.basis, found.known))
+    if found.note:
+        checked = dataclasses.replace(checked, note=found.note)
+    if checked.escape is None and found.downhill is not None:
+        escape = np.zeros(space.size)
+        escape[free] = found.downhill
+        checked = dataclasses.replace(checked, escape=escape)
+    return checked
 
 
 def _verdict(
@@ -398,27 +470,41 @@ def _verdict(
     measured: Measured,
     f0: float,
     noise: float | None,
-    method: str,
+    check: Check,
     free_rec: Curvature | None,
+    breaks: list[tuple[np.ndarray, Finding]] | None = None,
+    smooth_part: tuple[np.ndarray, dict[int, tuple[float, float]]] | None = None,
 ) -> Checked:
     level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
-    smallest = measured.steps if method == "quick" else measured.steps / RATIO ** (STEPS - 1)
+    smallest = measured.steps if check == Check.QUICK else measured.steps / RATIO ** (STEPS - 1)
     error = measured.error + noise_margin(smallest, level)
-    d = equilibration(np.maximum(np.abs(measured.hessian), error))
-    eigenvalues, eigenvectors = np.linalg.eigh(measured.hessian / np.outer(d, d))
-    margins = eigenvalue_margins(eigenvectors, error / np.outer(d, d))
-    margins += 64.0 * EPSILON * float(np.max(np.abs(eigenvalues)))
-    verdict = classify(eigenvalues, margins)
-    margin = float(margins[0])  # that of the smallest eigenvalue, the one the verdict turns on
-    directions = eigenvectors / d[:, None]  # back from the equilibrated to the scaled coordinates
+    breaks = breaks or []
+    # the curvature is judged on the smooth part only: the directions orthogonal to the breaks
+    basis, known = smooth_part or (np.eye(int(free.sum())), {})
+    hessian = basis.T @ measured.hessian @ basis
+    reduced = np.abs(basis).T @ error @ np.abs(basis)
+    for column, (curvature, bar) in known.items():
+        hessian[column, column], reduced[column, column] = curvature, bar
+    d = equilibration(np.maximum(np.abs(hessian), reduced))
+    eigenvalues, eigenvectors = np.linalg.eigh(hessian / np.outer(d, d))
+    margins = eigenvalue_margins(eigenvectors, reduced / np.outer(d, d))
+    if len(eigenvalues):
+        margins += 64.0 * EPSILON * float(np.max(np.abs(eigenvalues)))
+    verdict = _with_breaks(classify(eigenvalues, margins), breaks)
+    margin = float(margins[0]) if len(margins) else math.nan  # the smallest eigenvalue's
+    directions = basis @ (eigenvectors / d[:, None])  # back to the scaled coordinates
     scale = space.scale[free]
     names = labels(space, free)
     zero = np.abs(eigenvalues) <= margins
     undetermined = tuple(combination(scale * directions[:, i], names) for i in np.flatnonzero(zero))
     curvature = record(
-        measured.hessian, error, scale, method, names=names, margin=margin,
+        measured.hessian, error, scale, str(check), names=names, margin=margin,
         undetermined=undetermined, free=free_rec,
     )
+    if breaks:
+        curvature = dataclasses.replace(
+            curvature, breaks=tuple(_break(v, f, scale, names, space, free) for v, f in breaks)
+        )
     escape = None
     if verdict in (Verdict.SADDLE, Verdict.MAXIMUM):
         escape = np.zeros(space.size)
@@ -426,6 +512,38 @@ def _verdict(
         escape[free] = most / np.linalg.norm(most)
     return Checked(verdict=verdict, curvature=curvature, escape=escape,
                    eigenvalues=(eigenvalues, margins))
+
+
+def _with_breaks(smooth: Verdict, breaks: list[tuple[np.ndarray, Finding]]) -> Verdict:
+    """The verdict when the objective is not smooth along ``breaks``: negative curvature of the
+    smooth part still wins (it can be escaped), then a combination not determined, then NONSMOOTH.
+    With every direction broken the smooth part is empty (UNCHECKED from `classify`)."""
+    if not breaks:
+        return smooth
+    if smooth in (Verdict.SADDLE, Verdict.MAXIMUM, Verdict.FLAT):
+        return smooth
+    return Verdict.NONSMOOTH
+
+
+def _break(
+    v: np.ndarray, found: Finding, scale: np.ndarray, names: tuple[str, ...], space: Space,
+    free: np.ndarray,
+) -> Break:
+    """A `Break` record in search coordinates for the unit direction ``v`` (scaled, free)."""
+    w = scale * v
+    length = float(np.linalg.norm(w))
+    sign = 1.0 if w[np.argmax(np.abs(w))] > 0 else -1.0  # as `combination` writes it
+    slopes = np.array(found.slopes) / length
+    if sign < 0:
+        slopes = slopes[::-1]
+    involved = np.abs(w) >= 0.1 * np.max(np.abs(w))
+    parameters = tuple(str(n) for n, keep in zip(np.array(space.names)[free], involved) if keep)
+    axis = np.abs(v) > AXIS
+    return Break(
+        along=names[int(np.argmax(axis))] if axis.any() else combination(w, names),
+        kind=found.kind, parameters=parameters, slopes=(float(slopes[0]), float(slopes[1])),
+        change=found.change, step=found.step * length,
+    )
 
 
 # ----------------------------------------------------------------------------- escape
@@ -456,7 +574,7 @@ def escape(
     if not ts:
         return best
     try:
-        values = yield Batch(points=space.to_user(u0 + np.array(ts)[:, None] * d), purpose="escape")
+        values = yield Batch(points=space.to_user(u0 + np.array(ts)[:, None] * d), purpose=Purpose.ESCAPE)
         known = {0.0: f0, **{t: float(v) for t, v in zip(ts, values)}}
         for t, v in known.items():
             if v < best.value:
@@ -467,7 +585,7 @@ def escape(
         try:
             ts_next = next(search)
             while True:
-                values = yield Batch(points=space.to_user(u0 + ts_next[:, None] * d), purpose="escape")
+                values = yield Batch(points=space.to_user(u0 + ts_next[:, None] * d), purpose=Purpose.ESCAPE)
                 for t, v in zip(ts_next, values):
                     if v < best.value:
                         best = Escaped(point=u0 + t * d, value=float(v))
@@ -494,31 +612,32 @@ class Settled:
     point: np.ndarray | None = None  # the outcome's point in user coordinates
 
 
-Restart = Callable[[np.ndarray], Outcome]
+Restart = Callable[[np.ndarray], Generator[Request, Any, Outcome]]
 
 
 def settle(
-    driver: Driver,
     space: Space,
     settings: Settings,
     outcome: Outcome,
     *,
-    check: str | None,
+    check: Check | None,
     escapes: int,
     noise: float | None,
     restart: Restart | None = None,
-    search: int = 0,
-) -> Settled:
+    budget: int | None = None,
+) -> Generator[Request, Any, Settled]:
     """Check the search's point, escape saddles and maxima, and check again (at most ``escapes``).
 
-    ``restart(u)`` runs the search from an escape point through ``driver`` and returns its
-    outcome (default: `search.powell` from ``u``); that outcome replaces the old one, with the
-    cycles added up.  Every generator runs through ``driver``, so counts, cache and journal go on.
+    A generator for the driver, joined to the search with ``yield from``.  ``restart(u)`` is the
+    search from an escape point (default: `search.powell` from ``u``); its outcome replaces the
+    old one, with the cycles added up.  The cost of each check is asked of the driver (`SPENT`);
+    ``budget`` (None: no cap) is the search's budget, which the check may not overrun: what is
+    left of it after the search decides whether a check is begun (`check_point`'s ``room``).
     """
     if restart is None:
 
-        def restart(u: np.ndarray) -> Outcome:
-            return driver.run(powell(space, settings, start=u), search=search)
+        def restart(u: np.ndarray) -> Generator[Batch, np.ndarray, Outcome]:
+            return powell(space, settings, start=u)
 
     notes: list[str] = []
     escaped = 0
@@ -532,18 +651,16 @@ def settle(
             notes.append(f"not checked: the search stopped before converging ({outcome.stop.value})")
             return _settled(space, outcome, verdict=Verdict.UNCHECKED, curvature=curvature,
                            notes=tuple(notes), escapes=escaped)
-        before = driver.spent
+        before = yield SPENT
         active = space.on_bound(space.to_user(outcome.point), 10.0 * settings.point_tolerance)
-        room = getattr(driver, "budget", None)
-        room = math.inf if room is None else room - driver.spent
-        checked = driver.run(
-            check_point(space, outcome.point, outcome.value, free_scaled, method=check, noise=noise,
-                        active=active, room=room),
-            search=search,
+        room = math.inf if budget is None else budget - before
+        checked = yield from check_point(
+            space, outcome.point, outcome.value, free_scaled, check=check, noise=noise,
+            active=active, room=room,
         )
         curvature = checked.curvature
         if curvature is not None and curvature.source != "free":
-            curvature = dataclasses.replace(curvature, evaluations=driver.spent - before)
+            curvature = dataclasses.replace(curvature, evaluations=(yield SPENT) - before)
         if checked.note:
             notes.append(checked.note)
         if checked.escape is None or escaped >= escapes:
@@ -551,8 +668,7 @@ def settle(
                 notes.append(f"still a {checked.verdict.value} after {escaped} escapes")
             return _settled(space, outcome, verdict=checked.verdict, curvature=curvature,
                            notes=tuple(notes), escapes=escaped)
-        moved = driver.run(escape(space, settings, outcome.point, outcome.value, checked.escape),
-                           search=search)
+        moved = yield from escape(space, settings, outcome.point, outcome.value, checked.escape)
         where = _describe(space, outcome.point)
         along = combination(space.scale * checked.escape, labels(space, np.ones(space.size, bool)))
         # a gain the search itself would call no progress does not count as an escape
@@ -564,6 +680,9 @@ def settle(
             notes.append(f"{checked.verdict.value} at {where}: the escape along {along} was stopped")
             return _settled(space, outcome, verdict=checked.verdict, curvature=curvature,
                             notes=tuple(notes), escapes=escaped)
+        if not moved.value < outcome.value - floor and checked.verdict is Verdict.NONSMOOTH:
+            return _settled(space, outcome, verdict=checked.verdict, curvature=curvature,
+                            notes=tuple(notes), escapes=escaped)  # the slope along it was tiny
         if not moved.value < outcome.value - floor:
             notes.append(
                 f"{checked.verdict.value} at {where}: no appreciably lower point along {along}; "
@@ -578,10 +697,11 @@ def settle(
         escaped += 1
         notes.append(
             f"escape {escaped}: {checked.verdict.value} at {where} (f = {outcome.value:.6g}); "
-            f"along {along} to f = {moved.value:.6g}, then the search went on"
+            f"along {along} to f = {moved.value:.6g} (lower by {outcome.value - moved.value:.2g}), "
+            "then the search went on"
         )
         cycles = outcome.cycles
-        outcome = restart(moved.point)
+        outcome = yield from restart(moved.point)
         outcome = dataclasses.replace(outcome, cycles=cycles + outcome.cycles)
 
 
@@ -605,8 +725,11 @@ def settled_solution(solution: Solution, settled: Settled, notes: tuple[str, ...
     if settled.point is not None and math.isfinite(settled.outcome.value):
         point, value = settled.point, settled.outcome.value
         if solution.value < value:
+            # the best value is printed beside the notes: say by how much it was beaten, not again
+            # what it is (two values equal to ten digits would read as no news)
             notes += (
-                f"an evaluation of the check came out lower, f = {solution.value:.10g} at "
+                f"an evaluation of the check came out lower by {value - solution.value:.2g} "
+                f"(relative {(value - solution.value) / max(abs(value), 1e-300):.1g}) at "
                 + "(" + ", ".join(f"{n}={v:.6g}" for n, v in zip(solution.names, solution.point))
                 + ")",
             )
