@@ -4,17 +4,53 @@ Powell's conjugate directions with safeguarded parabolic line searches, for obje
 runs of somebody else's code: few evaluations, bounds respected, every evaluation kept.
 """
 
-from directional.api.calibration import calibrate
-from directional.api.explore import Landscape, explore
-from directional.api.minimization import line_minimum, minimize
+import importlib
+from typing import TYPE_CHECKING, Any
+
 from directional.errors import JournalError, ObjectiveError, ProblemError
-from directional.interface.problemfile import Problem
-from directional.method.linesearch import LineResult
-from directional.method.noise import estimate_noise
-from directional.parameters import Parameter
-from directional.records import Curvature, Stop, Verdict
-from directional.run.journal import resume
-from directional.solution import Solution
+
+if TYPE_CHECKING:  # the names below are imported on first use (PEP 562), so that the command
+    # line starts without loading numpy, scipy and matplotlib (``directional --help``)
+    from directional.api.calibration import calibrate
+    from directional.api.explore import Landscape, explore
+    from directional.api.minimization import line_minimum, minimize
+    from directional.interface.problemfile import Problem
+    from directional.method.linesearch import LineResult
+    from directional.method.noise import estimate_noise
+    from directional.parameters import Parameter
+    from directional.records import Curvature, Stop, Verdict
+    from directional.run.journal import resume
+    from directional.solution import Solution
+
+_LAZY = {
+    "calibrate": "directional.api.calibration",
+    "Landscape": "directional.api.explore",
+    "explore": "directional.api.explore",
+    "line_minimum": "directional.api.minimization",
+    "minimize": "directional.api.minimization",
+    "Problem": "directional.interface.problemfile",
+    "LineResult": "directional.method.linesearch",
+    "estimate_noise": "directional.method.noise",
+    "Parameter": "directional.parameters",
+    "Curvature": "directional.records",
+    "Stop": "directional.records",
+    "Verdict": "directional.records",
+    "resume": "directional.run.journal",
+    "Solution": "directional.solution",
+}
+
+
+def __getattr__(name: str) -> Any:
+    if name in _LAZY:
+        value = getattr(importlib.import_module(_LAZY[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'directional' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY))
+
 
 __version__ = "0.1.0"
 

@@ -250,7 +250,7 @@ def calibrate(
         )
     squares = SumOfSquares(residuals, deviations)
     watched = Progress(squares, budget=budget, enabled=None) if progress else None
-    with journal_for(journal, identity, budget=budget) as book, (
+    with journal_for(journal, identity, budget=budget, objective=squares) as book, (
         contextlib.closing(watched) if watched else contextlib.nullcontext()
     ):
         driver = Driver(
@@ -270,7 +270,9 @@ def calibrate(
         free = ~space.on_bound(space.to_user(outcome.point), 10.0 * settings.point_tolerance)
         jacobian = driver.run(extrapolated_jacobian(space, squares, outcome.point, free))
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
-        solution = settled_solution(_solution(space, settings, driver, outcome), settled, noted)
+        solution = settled_solution(
+            _solution(space, settings, driver, outcome), settled, (*noted, *book.notes)
+        )
     x = space.to_user(outcome.point)
     notes = list(outcome.notes) + list(solution.notes)
     result = None

@@ -25,6 +25,7 @@ References
 from __future__ import annotations
 
 import concurrent.futures as cf
+import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -48,6 +49,7 @@ from directional.records import Stop, Verdict
 from directional.run.driver import Evaluation, Objective
 from directional.run.journal import journal_for, run_identity
 from directional.run.pool import Runner, check_picklable
+from directional.run.workers import process_pool
 from directional.solution import Solution
 
 SAME_POINT = 1e-3  # scaled distance below which two end points are one minimum
@@ -348,12 +350,12 @@ def explore(
     made = None
     if executor is None and workers is not None:
         check_picklable(objective)
-        executor = made = cf.ProcessPoolExecutor(max_workers=workers)
+        executor = made = process_pool(workers)
     elif isinstance(executor, cf.ProcessPoolExecutor):
         check_picklable(objective)
     plan = _Plan(space, settings, method, escapes, float(same_point), float(same_value))
     try:
-        with journal_for(journal, identity, budget=budget) as kept, Runner(
+        with journal_for(journal, identity, budget=budget, objective=objective) as kept, Runner(
             objective=objective,
             budget=budget,
             total=total_budget,
@@ -362,8 +364,10 @@ def explore(
             workers=workers,
             record=kept.hooks().get("record"),
             known=kept.stored,
+            retry=kept.retry,
         ) as runner:
             land = _explore(plan, runner, scaled_starts, noise)
+            land = dataclasses.replace(land, notes=(*land.notes, *kept.notes))
             kept.finish(_overall(land.stops), "", replayed=runner.replayed)
     finally:
         if made is not None:

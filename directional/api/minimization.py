@@ -120,7 +120,7 @@ def minimize(
     )
     if progress:
         objective = Progress(objective, budget=budget, enabled=None)
-    with journal_for(journal, identity, budget=budget) as book, _driver(
+    with journal_for(journal, identity, budget=budget, objective=objective) as book, _driver(
         objective, budget, time_limit, executor, book
     ) as driver:
         level, noted = noise_level(driver, space, noise)
@@ -131,7 +131,9 @@ def minimize(
         )
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
-        return settled_solution(_solution(space, settings, driver, outcome), settled, noted)
+        return settled_solution(
+            _solution(space, settings, driver, outcome), settled, (*noted, *book.notes)
+        )
 
 
 @contextlib.contextmanager
@@ -157,6 +159,7 @@ def _driver(
             workers=None,
             record=book.hooks().get("record"),
             known=book.stored,
+            retry=book.retry,
         ) as runner:
             yield runner.lane()
     finally:

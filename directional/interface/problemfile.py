@@ -24,6 +24,7 @@ The schema (every table but ``[[parameter]]`` and ``[objective]`` is optional)::
     # timeout = 600               # seconds a run may take (command only)
     # read = "stdout"             # or "file:NAME" or "json:KEY" (command only)
     # workdir = "runs"            # folder the program runs in, default this file's folder
+    # version = "solver 4.2, tables 2024-03"   # what no hash can see (see below)
     kind = "residuals"            # or "value" (the default)
 
     [search]
@@ -37,8 +38,13 @@ The schema (every table but ``[[parameter]]`` and ``[objective]`` is optional)::
     workers = 1                   # processes for many starts
     seed = 0                      # of the start design
 
-    [journal]
+    [journal]                     # default: NAME.journal.sqlite beside this file NAME.toml
     path = "runs/culture.sqlite"  # relative to this file
+
+The objective's *fingerprint* is stored in the journal (`Problem.fingerprint`): for a function,
+its module, name and source; for a program, the command, ``read``, ``workdir`` and a hash of every
+existing file the command names.  ``version`` adds what no hash can see (a compiled solver's data
+files, a licence server's model library): change it when the model changes.
 
     [report]
     fit = "model:fit"             # optional: model against data, for the calibration plots
@@ -46,6 +52,7 @@ The schema (every table but ``[[parameter]]`` and ``[objective]`` is optional)::
 
 from __future__ import annotations
 
+import dataclasses
 import importlib
 import importlib.util
 import math
@@ -68,7 +75,8 @@ KINDS = ("value", "residuals")
 
 _TOP = ("title", "parameter", "objective", "search", "journal", "report")
 _PARAMETER = ("name", "start", "lower", "upper", "scale", "unit")
-_OBJECTIVE = ("function", "command", "kind", "timeout", "read", "workdir")
+_OBJECTIVE = ("function", "command", "kind", "timeout", "read", "workdir", "version")
+JOURNAL_SUFFIX = ".journal.sqlite"  # the default journal: NAME.journal.sqlite beside NAME.toml
 _SEARCH = (
     "budget",
     "point_tolerance",
@@ -161,6 +169,7 @@ class ObjectiveSpec:
     timeout: float | None = None
     read: str = "stdout"
     workdir: Path | None = None
+    version: str | None = None
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -209,6 +218,7 @@ class Problem:
     fit: str | None = None
     source: Path | None = None
     lines: Mapping[str, int] = field(default_factory=dict, repr=False, compare=False)
+    journal_default: bool = False  # the journal is the default one, not named by [journal]
 
     @classmethod
     def from_file(cls, path: str | Path) -> Problem:
@@ -279,6 +289,25 @@ class Problem:
             return function
         return self._command()
 
+    def fingerprint(self) -> dict[str, Any]:
+        """What identifies the objective, for the journal (`directional.run.identity`).
+
+        Raises
+        ------
+        ProblemError
+            When a function cannot be loaded.
+        """
+        from directional.run.identity import function_fingerprint, program_fingerprint
+
+        spec = self.objective
+        if spec.function is not None:
+            found = function_fingerprint(self.make_objective().load())  # type: ignore[attr-defined]
+            if spec.version is not None:
+                found["version"] = spec.version
+            return found
+        workdir = spec.workdir if spec.workdir is not None else self.folder
+        return program_fingerprint(list(spec.command or ()), spec.read, workdir, spec.version)
+
     def make_fit(self) -> Callable[[np.ndarray], Any] | None:
         """The ``[report] fit`` function (model against data, for plots), or None.
 
@@ -342,6 +371,12 @@ class FunctionObjective:
 
     def __call__(self, x: np.ndarray) -> Any:
         return self.load()(x)
+
+    def fingerprint(self) -> dict[str, Any]:
+        """The loaded function's fingerprint (`directional.run.identity.function_fingerprint`)."""
+        from directional.run.identity import function_fingerprint
+
+        return function_fingerprint(self.load())
 
     def load(self) -> Callable[..., Any]:
         """Import the module and return the function.
@@ -448,11 +483,15 @@ class _Reader:
             raise self.fail(("report", "fit"), f"report.fit must be 'module:function', got {fit!r}")
         for key in ("title", "journal.path", "report.fit", *(f"objective.{k}" for k in _OBJECTIVE)):
             self.lines[key] = self.keys.line(*key.split("."))
+        default = path is None and self.source is not None
+        if default:
+            path = self.source.name.removesuffix(self.source.suffix) + JOURNAL_SUFFIX
         return Problem(
             title=title,
             parameters=parameters,
             objective=objective,
             search=search,
+            journal_default=default,
             journal=None if path is None else (self.folder / path).absolute(),
             fit=fit,
             source=self.source,
@@ -529,6 +568,7 @@ class _Reader:
         timeout = self._get(table, (*at, "timeout"), float, None)
         read = self._get(table, (*at, "read"), str, "stdout")
         workdir = self._get(table, (*at, "workdir"), str, None)
+        version = self._get(table, (*at, "version"), str, None)
         if (function is None) == (command is None):
             raise self.fail(at, "[objective] needs exactly one of 'function' and 'command'")
         if kind not in KINDS:
@@ -542,8 +582,9 @@ class _Reader:
             for key in ("timeout", "read", "workdir"):
                 if key in table:
                     raise self.fail((*at, key), f"objective.{key} applies to a command only")
-            return ObjectiveSpec(function=function, kind=kind)
-        return self._command(table, command, kind, timeout, read, workdir, parameters)
+            return ObjectiveSpec(function=function, kind=kind, version=version)
+        spec = self._command(table, command, kind, timeout, read, workdir, parameters)
+        return dataclasses.replace(spec, version=version)
 
     def _command(self, table, command, kind, timeout, read, workdir, parameters) -> ObjectiveSpec:
         at = ("objective", "command")

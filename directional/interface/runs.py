@@ -17,7 +17,6 @@ import dataclasses
 import io
 import math
 import os
-import sqlite3
 import tempfile
 from collections.abc import Callable
 from pathlib import Path
@@ -25,14 +24,17 @@ from typing import Any
 
 import numpy as np
 
-from directional.errors import ObjectiveError, ProblemError
+from directional.errors import JournalError, ObjectiveError, ProblemError
 from directional.interface.problemfile import Problem
 from directional.records import Stop
 from directional.run import journal as journals
+from directional.run.identity import canonical, describe_place, difference
+from directional.run.lockfile import holder
 from directional.run.progress import Progress
 from directional.solution import Solution
 
 PROBLEM_KEY = "problem"  # header note: the absolute path of the problem file
+WORKERS_KEY = "workers"  # header note: the processes of a many-start run, used again on resume
 
 
 def entry_point(problem: Problem) -> Callable[..., Any]:
@@ -117,7 +119,12 @@ def solve(
     if spec.noise is not None:
         options["noise"] = spec.noise
     if path is not None:
-        options["journal"] = journals.Target(path, {PROBLEM_KEY: str(problem.source or "")})
+        options["journal"] = journals.Target(
+            path,
+            {PROBLEM_KEY: str(problem.source or ""), WORKERS_KEY: spec.workers},
+            objective=problem.fingerprint(),
+            refresh=problem.fingerprint,
+        )
     many = problem.search.starts > 1
     if many:
         options.update(starts=spec.starts, seed=spec.seed)
@@ -174,26 +181,73 @@ def resume(
     *,
     budget: int | None = None,
     quiet: bool = False,
-) -> Solution:
+    retry_failed: bool = False,
+) -> Any:
     """Continue the run in the journal at ``path`` with ``problem``'s objective.
+
+    The problem must be the one the journal was written for (`check_problem`), and its objective
+    the same or one that reproduces the stored values (`journal.Journal.open`); a refused resume
+    leaves the journal as it was.  ``retry_failed`` evaluates the stored failures again.
 
     Raises
     ------
     JournalError
-        When the journal is not one, is damaged, in use, or the run asks for other points.
+        When the journal is not one, is damaged, in use, belongs to another problem, or the run
+        asks for other points.
     ProblemError, ObjectiveError
         As the library function that runs the problem.
     """
     contents = journals.read(path)
-    done = sum(1 for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    check_problem(path, problem, contents.header)
+    done = len(contents.stored)
     objective = problem.make_objective()
     total = budget or contents.header.budget
+    options: dict[str, Any] = {"fingerprint": problem.fingerprint(), "retry_failed": retry_failed}
+    workers = contents.header.info.get(WORKERS_KEY, 1)
+    if contents.header.kind == "explore" and isinstance(workers, int) and workers > 1:
+        return journals.resume(path, objective, budget=budget, workers=workers, **options)
     bar = Progress(objective, budget=total, kind=problem.objective.kind,
                    enabled=False if quiet else None, done=done)
     try:
-        return journals.resume(path, bar, budget=budget)
+        return journals.resume(path, bar, budget=budget, **options)
     finally:
         bar.close()
+
+
+_KINDS = {"minimize": "value", "explore": "value", "calibrate": "residuals"}
+
+
+def check_problem(path: str | os.PathLike[str], problem: Problem, header: journals.Header) -> None:
+    """Refuse a problem other than the one the journal at ``path`` was written for.
+
+    The parameters (names, starts, bounds, scales, units), the kind of objective and the search
+    settings the problem file sets must agree with the journal's; the number of starts may
+    differ (``run --starts`` overrides the file, the journal keeps what was run).
+
+    Raises
+    ------
+    JournalError
+        Naming the first difference, before anything is evaluated or written.
+    """
+    where = problem.source or "the problem"
+    mine = journals.run_identity("", problem.parameters)["parameters"]
+    found = difference(header.identity.get("parameters", []), mine, "parameters")
+    if found is None and _KINDS.get(header.kind, problem.objective.kind) != problem.objective.kind:
+        found = ("objective.kind", _KINDS[header.kind], problem.objective.kind)
+    spec = problem.search
+    arguments = header.identity.get("arguments", {})
+    for key, value in (("point_tolerance", spec.point_tolerance),
+                       ("value_tolerance", spec.value_tolerance), ("check", spec.check),
+                       ("noise", spec.noise), ("seed", spec.seed)):
+        if found is None and key in arguments and canonical(arguments[key]) != canonical(value):
+            found = (f"search.{key}", arguments[key], value)
+    if found is not None:
+        place, old, new = found
+        raise JournalError(
+            f"journal {str(path)!r} was not written for {str(where)!r}: "
+            f"{describe_place(place, header.identity)} is {old!r} in the journal but {new!r} in "
+            "the problem file; give the problem file the journal was written for (--problem FILE)"
+        )
 
 
 def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
@@ -208,29 +262,42 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
         When the journal cannot be read or does not replay.
     """
     contents = journals.read(path)
-    stored = sum(1 for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    stored = len(contents.stored)
     if stored == 0:
         raise ObjectiveError(f"journal {str(path)!r} holds no evaluation yet")
     with tempfile.TemporaryDirectory(prefix="directional-show-") as folder:
         copy = Path(folder) / "journal.sqlite"
-        _copy_database(Path(path), copy)
+        journals.snapshot(Path(path), copy)
+        target = journals.Target(copy, verify=False)
         with contextlib.redirect_stderr(io.StringIO()):
             if contents.header.kind == "explore":
                 from directional.api.explore import explore
 
                 arguments = dict(contents.header.identity.get("arguments", {}))
-                result = explore(_refuse, contents.header.parameters, journal=copy,
+                result = explore(_refuse, contents.header.parameters, journal=target,
                                  budget=contents.header.budget, total_budget=stored, **arguments)
             else:
-                result = journals.resume(copy, _refuse, budget=stored)
+                result = journals.resume(target, _refuse, budget=stored)
     if isinstance(result, Solution):
-        result = _ended(result, contents)
+        result = _ended(result, contents, holder(Path(path)), stored)
     return result, contents
 
 
-def _ended(sol: Solution, contents: journals.Contents) -> Solution:
-    """A replay stopped by its budget where the run itself did not: say where the journal ends."""
+def _ended(
+    sol: Solution, contents: journals.Contents, running: int | None = None, stored: int = 0
+) -> Solution:
+    """A replay stopped by its budget where the run itself did not: say where the journal ends.
+
+    ``running`` is the process id of a run still writing the journal (`lockfile.holder`).
+    """
     last = contents.sessions[-1] if contents.sessions else {}
+    if running is not None:
+        return dataclasses.replace(
+            sol,
+            stop=Stop.INTERRUPTED,
+            reason=f"running, {stored} evaluations so far (process {running}); this is where the "
+            "run stands now",
+        )
     if sol.stop is Stop.BUDGET and last.get("stop") != "budget":
         how = last.get("stop") or "still running, or killed"
         sol = dataclasses.replace(
@@ -243,14 +310,6 @@ def _ended(sol: Solution, contents: journals.Contents) -> Solution:
 
 def _refuse(x: np.ndarray) -> float:
     raise ObjectiveError("show evaluates nothing")  # never called: the budget ends first
-
-
-def _copy_database(source: Path, target: Path) -> None:
-    uri = source.resolve().as_uri() + "?mode=ro"
-    with contextlib.closing(sqlite3.connect(uri, uri=True)) as src, contextlib.closing(
-        sqlite3.connect(target)
-    ) as dst:
-        src.backup(dst)
 
 
 def value_of(result: Any, kind: str) -> float:

@@ -25,7 +25,8 @@ stored one (a difference raises `JournalError`: the journal was written for othe
 another version), and the stored value is sent without calling the objective.  A replayed
 evaluation is logged, cached and counted against the budget like a live one, but not recorded
 again.  The search is deterministic given its values, so it then goes on live from exactly where
-the journal ends.
+the journal ends.  With ``retry`` a stored evaluation that failed or timed out is made again
+when the search asks for its point, and recorded under the same sequence number.
 
 Ctrl-C. When the run is in the main thread and SIGINT has Python's default handler, the driver
 installs its own for the duration of `Driver.run`: a Ctrl-C while the objective runs raises
@@ -51,6 +52,7 @@ from directional.records import Batch, Halt, Outcome, Stop
 from directional.run.interrupts import Interrupts
 
 Objective = Callable[[np.ndarray], object]
+RETRIED = ("failed", "timed-out")  # stored statuses that a resume with ``retry`` makes again
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -147,6 +149,8 @@ class Driver:
     replay: Mapping[int, Sequence[Evaluation]] = field(default_factory=dict)
     log: Log = field(default_factory=Log)
     replayed: int = 0
+    retry: bool = False  # stored failed and timed-out evaluations are made again (see `_one`)
+    _diverged: set[int] = field(default_factory=set)
     _cache: dict[bytes, float] = field(default_factory=dict)
     _sequence: dict[int, int] = field(default_factory=dict)
     _failures_in_a_row: int = 0
@@ -200,7 +204,7 @@ class Driver:
 
     def _check_limits(self) -> None:
         if self._interrupts.pending:
-            raise Halt(Stop.INTERRUPTED, "interrupted by the user")
+            raise Halt(Stop.INTERRUPTED, self._interrupts.reason)
         if self.spent >= self.budget:
             raise Halt(Stop.BUDGET, f"the budget of {self.budget} evaluations is spent")
         if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
@@ -210,7 +214,17 @@ class Driver:
         sequence = self._sequence.get(search, 0)
         self._sequence[search] = sequence + 1
         stored = self._stored(search, sequence)
-        if stored is not None:
+        if stored is not None and self.retry and stored.status in RETRIED:
+            # Made again live under the same sequence number (the journal keeps both rows); a
+            # new value changes the search's path, so the rest of its stored evaluations go.
+            _replayed(stored, x, purpose, self.spent)  # the same point, or JournalError
+            evaluation = self._live(x, purpose, search, sequence)
+            if evaluation.value != stored.value:
+                self._diverged.add(search)
+            self.log.add(evaluation)
+            if self.record is not None:
+                self.record(evaluation)
+        elif stored is not None:
             evaluation = _replayed(stored, x, purpose, self.spent)
             self.replayed += 1
             self.log.add(evaluation)
@@ -235,7 +249,7 @@ class Driver:
         return value
 
     def _stored(self, search: int, sequence: int) -> Evaluation | None:
-        stored = self.replay.get(search, ())
+        stored = () if search in self._diverged else self.replay.get(search, ())
         return stored[sequence] if sequence < len(stored) else None
 
     def _live(self, x: np.ndarray, purpose: str, search: int, sequence: int) -> Evaluation:
@@ -245,7 +259,7 @@ class Driver:
             with self._interrupts.raising():
                 value, status, detail = call(self.objective, x)
         except KeyboardInterrupt:
-            value, status, detail = math.inf, "interrupted", "interrupted by the user"
+            value, status, detail = math.inf, "interrupted", self._interrupts.reason
         if status != "ok" and self._interrupts.pending:  # failed because of the Ctrl-C
             value, status = math.inf, "interrupted"
         evaluation = Evaluation(
@@ -263,7 +277,7 @@ class Driver:
         if status == "interrupted":  # journaled, to be made again on resume; never logged
             if self.record is not None:
                 self.record(evaluation)
-            raise Halt(Stop.INTERRUPTED, "interrupted by the user")
+            raise Halt(Stop.INTERRUPTED, self._interrupts.reason)
         return evaluation
 
 

@@ -38,6 +38,22 @@ def _ended(owner: str) -> bool:
     return False
 
 
+def holder(journal: Path) -> int | None:
+    """The process id of the live run that holds ``journal``'s lock, or None.
+
+    Read from the lock file without locking (a report must not keep a run off its journal): the
+    file exists while a run holds the lock, or after one was killed (then its process is gone).
+    """
+    path = journal.with_name(journal.name + ".lock")
+    try:
+        owner = path.read_text(encoding="ascii", errors="replace").strip()
+    except OSError:
+        return None
+    if not owner.isdigit() or int(owner) == os.getpid() or _ended(owner):
+        return None
+    return int(owner)
+
+
 class Lock:
     """An exclusive ``flock`` on ``<journal>.lock``, holding the owner's process id."""
 

@@ -46,8 +46,9 @@ import numpy as np
 from directional.errors import JournalError, ObjectiveError, ProblemError
 from directional.method.search import Search
 from directional.records import Batch, Halt, Outcome, Stop
-from directional.run.driver import Evaluation, Log, Objective, call
+from directional.run.driver import RETRIED, Evaluation, Log, Objective, call
 from directional.run.interrupts import Interrupts
+from directional.run.workers import process_pool, stop_workers
 
 DIED = "worker process died"
 
@@ -149,12 +150,14 @@ class Runner:
     stall_after: int = 50
     record: Callable[[Evaluation], None] | None = None
     known: Iterable[Evaluation] = ()
+    retry: bool = False  # known failed and timed-out points are evaluated again when asked for
     replace: Callable[[], cf.Executor] | None = None
     log: Log = field(default_factory=Log)
     replayed: int = 0
     interrupted: bool = False
     _interrupts: Interrupts = field(default_factory=Interrupts)
     _cache: dict[bytes, float] = field(default_factory=dict)
+    _retry: set[bytes] = field(default_factory=set)
     _journal: dict[int, dict[bytes, int]] = field(default_factory=dict)  # search -> point -> seq
     _tasks: dict[int, _Task] = field(default_factory=dict)
     _pending: dict[bytes, _Pending] = field(default_factory=dict)
@@ -171,13 +174,19 @@ class Runner:
             self.workers = getattr(self.executor, "_max_workers", None)
         if self.replace is None and isinstance(self.executor, cf.ProcessPoolExecutor):
             size = self.workers or self.executor._max_workers
-            self.replace = lambda: cf.ProcessPoolExecutor(max_workers=size)
+            self.replace = lambda: process_pool(size)
         for evaluation in sorted(self.known, key=lambda e: e.index):
             key = evaluation.point.tobytes()
             self._journal.setdefault(evaluation.search, {})[key] = evaluation.sequence
             self._cache[key] = evaluation.value
             self.log.add(evaluation)
             self.replayed += 1
+            if self.retry and evaluation.status in RETRIED:  # the latest record of a point counts
+                self._retry.add(key)
+            else:
+                self._retry.discard(key)
+        for key in self._retry:
+            del self._cache[key]
 
     @property
     def spent(self) -> int:
@@ -247,9 +256,10 @@ class Runner:
         except KeyboardInterrupt:
             self.interrupted = True
             self._abandon()
+            stop_workers(self.executor)
             for task in tasks:
                 if task.outcome is None:
-                    self._halt(task, Halt(Stop.INTERRUPTED, "interrupted by the user"))
+                    self._halt(task, Halt(Stop.INTERRUPTED, self._interrupts.reason))
         except BaseException:
             self._abandon()
             raise
@@ -284,7 +294,9 @@ class Runner:
 
     def _ask(self, task: _Task, batch: Batch) -> None:
         new = [
-            x.tobytes() not in self._cache and x.tobytes() not in self._pending
+            x.tobytes() not in self._cache
+            and x.tobytes() not in self._pending
+            and x.tobytes() not in self._retry
             for x in batch.points
         ]
         if any(new) and task.journaled - {x.tobytes() for x in batch.points}:
@@ -329,7 +341,7 @@ class Runner:
     def _run_limits(self) -> None:
         """Before a new evaluation: Ctrl-C, the total budget and the time limit."""
         if self.interrupted or self._interrupts.pending:
-            raise Halt(Stop.INTERRUPTED, "interrupted by the user")
+            raise Halt(Stop.INTERRUPTED, self._interrupts.reason)
         if self.total is not None and self.spent + len(self._pending) >= self.total:
             raise Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
         if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
@@ -445,6 +457,10 @@ class Runner:
             sequence=owner.sequence,
         )
         owner.sequence += 1
+        if pending.key in self._retry:  # a retried point: the searches may now take new paths
+            self._retry.discard(pending.key)
+            for ident, _, _ in pending.waiters:
+                self._tasks[ident].journaled.clear()
         self.log.add(evaluation)
         self._cache[pending.key] = value
         if self.record is not None:
