@@ -27,7 +27,7 @@ import pytest
 
 import directional as dl
 from directional.interface import cli
-from directional.report.summary import failure_groups, solution_document, summary_text
+from directional.report import summary as report
 from directional.run import journal as jr
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -106,11 +106,16 @@ print((a - CENTRE) ** 2 + 3.0 * (b + 0.5) ** 2 + 1.0)
 """
 
 
-def problem(folder: Path, objective: str = 'function = "model:bowl"', extra: str = "") -> Path:
+def problem(
+    folder: Path, objective: str = 'function = "model:bowl"', *, journal: bool = True
+) -> Path:
+    """A problem file in ``folder``; its journal ``problem.journal.sqlite`` (named in a
+    [journal] table, so that a test of another fault does not depend on the default journal)."""
     folder.mkdir(parents=True, exist_ok=True)
     (folder / "model.py").write_text(MODEL)
     path = folder / "problem.toml"
-    path.write_text(PROBLEM.format(objective=objective) + extra)
+    table = '\n[journal]\npath = "problem.journal.sqlite"\n' if journal else ""
+    path.write_text(PROBLEM.format(objective=objective) + table)
     return path
 
 
@@ -336,17 +341,18 @@ def test_retry_failed_in_a_many_start_run(tmp_path):
 
 
 def test_run_keeps_a_journal_beside_the_problem_file_and_says_where(tmp_path, capsys):
-    path = problem(tmp_path)
+    path = problem(tmp_path, journal=False)
     code, _, err = run_cli("run", str(path), "--quiet", capsys=capsys)
     journal = tmp_path / "problem.journal.sqlite"
     assert code == cli.OK and journal.exists()
     assert err.splitlines()[0].startswith("directional: journal ")
-    assert "problem.journal.sqlite" in err.splitlines()[0] and "--no-journal" in err
+    assert "problem.journal.sqlite beside the problem file" in err.splitlines()[0]
+    assert "--no-journal" in err
     assert len(jr.read(journal).evaluations) > 0
 
 
 def test_no_journal_keeps_none(tmp_path, capsys):
-    path = problem(tmp_path)
+    path = problem(tmp_path, journal=False)
     code, _, _ = run_cli("run", str(path), "--quiet", "--no-journal", capsys=capsys)
     assert code == cli.OK and not (tmp_path / "problem.journal.sqlite").exists()
 
@@ -485,16 +491,16 @@ def two_ways_to_fail(x):
 
 def test_failures_are_grouped_by_reason_in_the_summary_and_the_json(tmp_path):
     sol = dl.minimize(two_ways_to_fail, [0.0, 0.0], bounds=[(-3, 3), (-3, 3)], names=["a", "b"])
-    groups = failure_groups(sol.history)
+    groups = report.failure_groups(sol.history)
     assert sum(g.count for g in groups) == sol.failures > 0
     reasons = {g.reason for g in groups}
     assert "RuntimeError: mesh did not converge" in reasons
     mesh = next(g for g in groups if g.reason.startswith("RuntimeError"))
     assert mesh.example[0] > 1.5  # the example point failed that way
-    text = summary_text(sol)
+    text = report.summary_text(sol)
     assert f"failures ({sol.failures}), by reason:" in text
     assert f"{mesh.count:>6}  failed: RuntimeError: mesh did not converge" in text
-    document = solution_document(sol)
+    document = report.solution_document(sol)
     assert sum(item["count"] for item in document["failures"]) == document["failed"]
     first = document["failures"][0]
     assert set(first["example"]) == {"a", "b"} and first["status"] == "failed"

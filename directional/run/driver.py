@@ -28,8 +28,9 @@ again.  The search is deterministic given its values, so it then goes on live fr
 the journal ends.  With ``retry`` a stored evaluation that failed or timed out is made again
 when the search asks for its point, and recorded under the same sequence number.
 
-Ctrl-C. When the run is in the main thread and SIGINT has Python's default handler, the driver
-installs its own for the duration of `Driver.run`: a Ctrl-C while the objective runs raises
+Ctrl-C (and SIGTERM, SIGHUP: `interrupts.Interrupts`, the one handler). When the run is in the
+main thread and SIGINT has Python's default handler, the driver installs its own for the duration
+of `Driver.run`, or joins the one the command line holds: a Ctrl-C while the objective runs raises
 `KeyboardInterrupt` there as usual (the evaluation is recorded with status ``interrupted`` and no
 value, and is made again on resume; so is one that failed in any way after the Ctrl-C, e.g. an
 objective that turned the interrupt into its own error); a Ctrl-C at any other moment is noted, and

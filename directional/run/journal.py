@@ -26,8 +26,18 @@ arguments of the entry point that change the search (tolerances, ``check``, seed
 search settings.  The budget and the time limit are *not* part of it: a user may resume with a
 larger budget to go further (the budget counts the journaled evaluations too).
 
-An evaluation interrupted by Ctrl-C is stored with status ``interrupted`` and no value; it is
-informative only and is evaluated again on resume.
+The *objective* is identified too, by a fingerprint kept beside the identity (header key
+``objective``; `identity.fingerprint`: a function's module, name and source hashes, a program's
+command, files and ``version``).  It is compared on every open of an existing journal, but a
+difference does not refuse the journal by itself: the first stored evaluation and the best are
+made again (`reproduced`), and the run goes on, with a note, only if their values come back within
+the noise; otherwise `JournalError` says what changed, before anything is written.  Files that a
+program rewrites during a run are found when the journal closes and are no longer compared.
+
+An evaluation interrupted by Ctrl-C (or SIGTERM, SIGHUP) is stored with status ``interrupted`` and
+no value; it is informative only and is evaluated again on resume.  A resume with ``retry`` makes
+the stored failed and timed-out evaluations again; the new row keeps the failure's search and
+sequence number, and `effective` puts it in the failure's place (both rows stay in the file).
 
 Durability. The journal runs in WAL mode with ``synchronous=NORMAL`` by default, and switches to
 ``synchronous=FULL`` for the commit of any evaluation that took at least `SYNC_AFTER` seconds
