@@ -24,6 +24,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import directional as dl
 from directional.interface import cli
@@ -643,3 +645,38 @@ def test_one_signal_handler_in_the_package():
         and p.parent.name != "testproblems"  # a simulated program that ignores SIGTERM, on purpose
     )
     assert installing == ["run/interrupts.py", "run/workers.py"]
+
+
+# ------------------------------------------------------------------- the retried rows' place
+
+
+def row(index: int, sequence: int, value: float, status: str = "ok") -> jr.Evaluation:
+    return jr.Evaluation(index=index, point=np.array([float(index)]), value=value, status=status,
+                         sequence=sequence)
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    failed=st.lists(st.booleans(), min_size=1, max_size=12),
+    same=st.booleans(),
+    more=st.integers(0, 5),
+)
+def test_a_retried_row_takes_the_failures_place_and_a_new_value_ends_the_old_tail(
+    failed, same, more
+):
+    """Invariant of `journal.effective` (common practice for an append-only log, no source): the
+    replayed rows of a search are numbered 0, 1, 2, ... and are the first session's up to the
+    retried failure, the retry, then the old tail if the retry gave the same value (it failed
+    again) or the new session's rows if it did not."""
+    first = [row(i, i, math.inf if bad else float(i), "failed" if bad else "ok")
+             for i, bad in enumerate(failed)]
+    if not any(failed):
+        assert jr.effective(first) == tuple(first)
+        return
+    k = failed.index(True)
+    retry = row(len(first), k, math.inf if same else -1.0, "failed" if same else "ok")
+    after = [row(len(first) + 1 + j, k + 1 + j, float(j)) for j in range(0 if same else more)]
+    kept = jr.effective([*first, retry, *after])
+    expected = first[:k] + [retry] + (first[k + 1 :] if same else after)
+    assert [e.index for e in kept] == sorted(e.index for e in expected)
+    assert sorted(e.sequence for e in kept) == list(range(len(expected)))
