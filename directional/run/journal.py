@@ -896,7 +896,8 @@ def _compare(path: Path, header: Header, identity: Mapping[str, Any]) -> None:
         )
     raise JournalError(
         f"journal {str(path)!r} belongs to another problem: {describe_place(where, header.identity)} "
-        f"is {old!r} in the journal but {new!r} now; use another journal file, or the same "
+        f"is {old!r} in the journal but {new!r} now; use another journal file (or move this one "
+        f"aside: mv {shlex.quote(str(path))} {shlex.quote(str(path) + '.old')}), or the same "
         "settings to resume"
     )
 
@@ -972,15 +973,16 @@ def evaluations_in_order(searches: Mapping[int, list[Evaluation]]) -> list[Evalu
 def reproduced(
     objective: Any, header: Header, stored: Sequence[Evaluation], fingerprint: Mapping[str, Any]
 ) -> str:
-    """Evaluate the first stored point and the best one again; a note, or `JournalError`.
+    """Evaluate the first stored point that succeeded and the best one again; a note, or
+    `JournalError`.
 
     They reproduce when each new value is within ``6 * noise`` of the stored one (the noise the
     run was given, or the level its noise estimate found in the journal; the difference of two
     noisy values has a standard deviation of sqrt(2) times the noise, common practice, no
     source), and never closer than ``1e-9 * max(1, |f|)`` (rounding); two failures agree.
     """
-    first = min(stored, key=lambda e: e.index)
-    good = [e for e in stored if e.status == "ok"]
+    good = [e for e in stored if e.status == "ok"]  # a stored failure may be cured since
+    first = min(good or stored, key=lambda e: e.index)
     chosen = [first] + ([min(good, key=lambda e: e.value)] if good else [])
     if len(chosen) == 2 and chosen[1].point.tobytes() == first.point.tobytes():
         chosen = chosen[:1]
