@@ -30,6 +30,7 @@ References
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import contextlib
 import dataclasses
 import math
@@ -40,7 +41,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from directional.api.minimization import _solution, checked_arguments
+from directional.api.minimization import _driver, _solution, checked_arguments
 from directional.errors import ProblemError
 from directional.method.curvature import combination, labels, settle, settled_solution
 from directional.method.leastsquares import (
@@ -223,8 +224,10 @@ def calibrate(
         The covariance is still scaled by s² = S / (m - p), which is near 1 when they are right.
 
     The other arguments are those of `directional.minimize`; ``budget`` counts every evaluation
-    (search, Levenberg–Marquardt, check and Jacobian).  A calibration runs its evaluations in
-    process: ``executor`` must stay None (many starts on an executor: `directional.api.explore`).
+    (search, Levenberg–Marquardt, check and Jacobian).  ``executor`` evaluates the points of a
+    batch in parallel; the residual vectors must come back to this process, so it must share
+    its memory: a thread pool (for a program, each evaluation is its own process anyway;
+    `directional.run.ordered.InOrder` keeps the journal in the serial order).
 
     Raises
     ------
@@ -243,19 +246,17 @@ def calibrate(
         point_tolerance=point_tolerance, value_tolerance=value_tolerance, check=check,
         escapes=escapes, noise=noise, sigma=None if deviations is None else deviations.tolist(),
     )
-    if executor is not None:
+    if executor is not None and isinstance(getattr(executor, "_inner", executor),
+                                           cf.ProcessPoolExecutor):
         raise ProblemError(
-            "calibrate evaluates in process: executor must be None (many starts on an executor: "
-            "directional.api.explore)"
+            "calibrate needs each residual vector back in this process: give a thread pool as "
+            "executor, not a process pool (many starts on processes: directional.api.explore)"
         )
     squares = SumOfSquares(residuals, deviations)
     watched = Progress(squares, budget=budget, enabled=None) if progress else None
     with journal_for(journal, identity, budget=budget) as book, (
         contextlib.closing(watched) if watched else contextlib.nullcontext()
-    ):
-        driver = Driver(
-            objective=watched or squares, budget=budget, time_limit=time_limit, **book.hooks()
-        )
+    ), _driver(watched or squares, budget, time_limit, executor, book) as driver:
         level, noted = noise_level(driver, space, noise)
         settings = floored(settings, level)
         outcome = _search(

@@ -104,7 +104,8 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--budget", type=_positive, metavar="N", help="most evaluations (overrides the file)")
     run.add_argument("--starts", type=_positive, metavar="K",
                      help="searches from K starts (overrides the file)")
-    run.add_argument("--workers", type=_positive, metavar="W", help="processes for many starts")
+    run.add_argument("--workers", type=_positive, metavar="W",
+                     help="parallel evaluations: of many starts, or of one search's batches")
     run.add_argument("--dask", metavar="ADDRESS",
                      help="evaluate many starts on the Dask scheduler at ADDRESS (needs [dask])")
     where = run.add_mutually_exclusive_group()

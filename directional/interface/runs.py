@@ -12,6 +12,7 @@ journal ends, which gives the solution as the run had it at that moment.
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import contextlib
 import dataclasses
 import io
@@ -93,6 +94,8 @@ def solve(
     """Run ``problem``; return its `Solution`, or the `Landscape` of a many-start run.
 
     ``executor`` (a many-start run only) evaluates the starts' points, e.g. on a Dask cluster.
+    One search with ``search.workers`` above 1 evaluates the points of each batch in parallel
+    (`batch_executor`); its journal is the same as a serial run's, in the same order.
 
     ``journal=True`` uses the problem's own journal path (if any), a path overrides it, None or
     False keeps none.  ``budget`` overrides the problem's.  The progress bar goes to standard
@@ -131,9 +134,13 @@ def solve(
     else:
         options["budget"] = budget
         bar_total = budget or 1000 * (len(problem.parameters) + 1)
+        executor = batch_executor(problem, spec.workers)
+        if executor is not None:
+            options["executor"] = executor
     wrapped = objective
     bar = None
-    if not (many and (spec.workers > 1 or executor is not None)):
+    in_process = not isinstance(getattr(executor, "_inner", None), cf.ProcessPoolExecutor)
+    if not (many and (spec.workers > 1 or executor is not None)) and in_process:
         bar = Progress(objective, budget=bar_total, kind=problem.objective.kind,
                        enabled=False if quiet else None)
         wrapped = bar
@@ -144,6 +151,43 @@ def solve(
     finally:
         if bar is not None:
             bar.close()
+        if not many and executor is not None:
+            executor.shutdown(wait=True, cancel_futures=True)
+
+
+def batch_executor(problem: Problem, workers: int) -> Any:
+    """The executor that evaluates one search's batches on ``workers``, or None for one.
+
+    A program runs on threads of this process (each evaluation is a process of its own, so
+    they run in parallel; a residual vector comes back in memory); a Python function of kind
+    ``"value"`` on a process pool, one of kind ``"residuals"`` on threads (faster only where it
+    releases the GIL: numpy, a wrapped compiled model).  Results are delivered in submission
+    order (`directional.run.ordered.InOrder`), so the journal is that of a serial run.
+
+    Raises
+    ------
+    ProblemError
+        For a program that reads its answer from a file in one shared folder: parallel runs
+        would overwrite each other's file (use ``fresh_folder = true``).
+    """
+    if workers <= 1:
+        return None
+    from directional.interface.reading import parse
+    from directional.run.ordered import InOrder
+
+    spec = problem.objective
+    if spec.command is not None:
+        if not spec.fresh_folder and parse(spec.read, vector=spec.kind == "residuals").file:
+            raise ProblemError(
+                f"{problem.where('objective.read')}: with {workers} workers the runs would share "
+                f"one folder and overwrite each other's {spec.read!r}: set fresh_folder = true"
+            )
+        inner: cf.Executor = cf.ThreadPoolExecutor(workers, thread_name_prefix="directional")
+    elif spec.kind == "residuals":
+        inner = cf.ThreadPoolExecutor(workers, thread_name_prefix="directional")
+    else:
+        inner = cf.ProcessPoolExecutor(workers)
+    return InOrder(inner, workers=workers)
 
 
 def problem_of_journal(path: str | os.PathLike[str], problem_file: str | Path | None = None) -> Problem:
