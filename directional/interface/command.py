@@ -19,9 +19,10 @@ import shutil
 import signal
 import string
 import tempfile
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -260,8 +261,14 @@ class Command:
             where = "" if folder is None else f"; folder: {folder}"
             raise EvaluationFailed(FAILED, f"could not start {args[0]!r}: {error}{where}") from None
 
-    def __call__(self, x: Sequence[float] | np.ndarray) -> float | np.ndarray:
+    def __call__(
+        self, x: Sequence[float] | np.ndarray, check: Callable[[Any], Any] | None = None
+    ) -> Any:
         """Run the program once at ``x`` and return the value (or, ``vector``, the array) it reports.
+
+        ``check``, if given, is applied to the answer before the run counts as a success (e.g.
+        the length of a vector): what it returns is returned, and an `EvaluationFailed` it raises
+        fails the run like any other failure (the folder is kept and named).
 
         Raises
         ------
@@ -276,6 +283,12 @@ class Command:
             before = _stamp(self._base() / self._read.file)
         outcome = self.run(x)
         value = self._value(outcome, before)
+        if check is not None:
+            try:
+                value = check(value)
+            except EvaluationFailed as error:
+                where = "" if outcome.directory is None else f"\nfolder: {outcome.directory}"
+                raise EvaluationFailed(error.status, error.detail + where) from None
         if self.per_evaluation_dir and not self.keep and outcome.directory is not None:
             shutil.rmtree(outcome.directory, ignore_errors=True)
         return value

@@ -34,7 +34,7 @@ from typing import Any
 import numpy as np
 
 from directional.errors import ProblemError
-from directional.interface.command import FAILED, EvaluationFailed
+from directional.interface.command import FAILED, Command, EvaluationFailed
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -191,11 +191,12 @@ class TableResiduals:
         return f"TableResiduals({self.predict!r}, {self.table.path.name!r})"
 
     def __call__(self, x: np.ndarray) -> np.ndarray:
-        return self.table.residuals(self.predict(x))
+        return self.table.residuals(_checked(self.predict, x, self.table.predictions))
 
     def series(self, x: np.ndarray) -> list[dict[str, Any]]:
         """The model against the data at ``x``, for ``fit.png`` and ``residuals.png``."""
-        return self.table.series(self.predict(np.asarray(x, dtype=float)))
+        x = np.asarray(x, dtype=float)
+        return self.table.series(_checked(self.predict, x, self.table.predictions))
 
 
 class SteadyLength:
@@ -215,7 +216,10 @@ class SteadyLength:
         return f"SteadyLength({self.residuals!r})"
 
     def __call__(self, x: np.ndarray) -> np.ndarray:
-        r = np.asarray(self.residuals(x), dtype=float).reshape(-1)
+        return _checked(self.residuals, x, self._steady)
+
+    def _steady(self, result: object) -> np.ndarray:
+        r = np.asarray(result, dtype=float).reshape(-1)
         if self.length is None:
             self.length = r.size
         elif r.size != self.length:
@@ -223,3 +227,11 @@ class SteadyLength:
                 FAILED, f"the program gave {r.size} residuals where its first run gave {self.length}"
             )
         return r
+
+
+def _checked(function: Callable[..., Any], x: np.ndarray, check: Callable[[Any], Any]) -> Any:
+    """``check(function(x))``; a program checks its answer before it counts as a success, so
+    that the folder of a run whose answer is rejected is kept."""
+    if isinstance(function, Command):
+        return function(x, check=check)
+    return check(function(x))

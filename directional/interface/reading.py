@@ -191,7 +191,7 @@ def _finite(value: object, where: str, *, vector: bool) -> float | np.ndarray | 
         array = np.array(value, dtype=float)
         off = np.flatnonzero(~np.isfinite(array))
         if off.size:
-            return f"entry {off[0]} of {where} is {array[off[0]]!r}, not a finite value"
+            return f"entry {off[0]} of {where} is {float(array[off[0]])!r}, not a finite value"
         return array
     if isinstance(value, bool) or not isinstance(value, int | float):
         return f"{where} is {_short(value)}, not a number"
