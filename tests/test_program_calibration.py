@@ -336,3 +336,35 @@ def test_crashing_program_fails_and_the_search_steps_around_it(tmp_path):
     assert all("SIGABRT" in e.detail for e in crashed)
     point = json.loads((tmp_path / "o.json").read_text())["point"]
     assert point["a"] == pytest.approx(5.03, abs=0.1)  # the fit, below the crash
+
+
+# --- residual vectors in the journal (issue 16, item 5) ---------------------------------------
+
+
+def test_show_gives_the_uncertainty_from_stored_residual_vectors(tmp_path):
+    problem = json_problem(tmp_path)
+    journal = tmp_path / "j.sqlite"
+    assert run(problem, "--journal", journal, "--json", tmp_path / "run.json") == 0
+    (tmp_path / "decay.py").write_text("raise SystemExit(9)")  # show must not run the program
+    assert main(["show", str(journal), "--json", str(tmp_path / "show.json"),
+                 "--plot-evaluations", "0"]) == 0
+    ran, shown = (json.loads((tmp_path / f).read_text()) for f in ("run.json", "show.json"))
+    assert shown["point"] == ran["point"]
+    assert shown["uncertainty"]["standard_errors"] == ran["uncertainty"]["standard_errors"]
+    assert not any("recomputed" in note for note in shown["notes"])
+
+
+def test_a_journal_without_the_residual_column_still_opens(tmp_path):
+    import sqlite3
+
+    import directional as dl
+
+    identity = journals.run_identity("calibrate", [dl.Parameter("a", 1.0)])
+    path = tmp_path / "old.sqlite"
+    with journals.Journal.open(path, identity):
+        pass
+    with sqlite3.connect(path) as connection:  # as written before the column existed
+        connection.execute("ALTER TABLE evaluation DROP COLUMN residuals")
+    assert journals.read(path).evaluations == ()
+    with journals.Journal.open(path, identity) as journal:
+        assert journal.stored_vectors() == {}

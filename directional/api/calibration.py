@@ -257,6 +257,10 @@ def calibrate(
     with journal_for(journal, identity, budget=budget) as book, (
         contextlib.closing(watched) if watched else contextlib.nullcontext()
     ), _driver(watched or squares, budget, time_limit, executor, book) as driver:
+        squares.vectors.update(book.stored_vectors())  # a resumed journal: nothing recomputed
+        if squares.size is None and squares.vectors:
+            squares.size = next(iter(squares.vectors.values())).size
+        book.vectors = squares.vectors.get
         level, noted = noise_level(driver, space, noise)
         settings = floored(settings, level)
         outcome = _search(

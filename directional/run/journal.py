@@ -16,7 +16,9 @@ The file (stdlib `sqlite3`, write-ahead log) has three tables:
 - ``evaluation``: one row per evaluation: search id, sequence number within that search, the
   point (float64 little-endian bytes, exact), the value (``inf`` when failed), status (``ok``,
   ``failed``, ``timed-out``, ``interrupted``), error text, purpose, start and end time (Unix
-  seconds), and the session that made it;
+  seconds), the session that made it, and for a calibration the residual vector (float64 bytes;
+  NULL otherwise, and absent from journals written before it existed: the column is added when
+  such a journal is resumed), so that a resumed or shown calibration recomputes nothing;
 - ``session``: one row per run on the journal (the first and each resume): process id, package
   version, budget, how many evaluations were replayed and made, how it ended.
 
@@ -58,7 +60,7 @@ import sqlite3
 import sys
 import threading
 import time
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, TextIO
@@ -113,7 +115,8 @@ _SCHEMA = (
         purpose TEXT NOT NULL,
         started REAL NOT NULL,
         ended REAL NOT NULL,
-        session INTEGER NOT NULL)""",
+        session INTEGER NOT NULL,
+        residuals BLOB)""",
     """CREATE TABLE session (
         session INTEGER PRIMARY KEY,
         opened REAL NOT NULL,
@@ -128,7 +131,7 @@ _SCHEMA = (
 )
 _INSERT = (
     "INSERT INTO evaluation (search, sequence, point, value, status, detail, purpose, started, "
-    "ended, session) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"
+    "ended, session, residuals) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"
 )
 
 
@@ -195,6 +198,8 @@ class Journal:
         self._full = sync == "full"
         self._stop: tuple[str, str] | None = None
         self._replayed: int | None = None
+        # For a calibration: the residual vector of a point (its float64 bytes), or None.
+        self.vectors: Callable[[bytes], np.ndarray | None] | None = None
 
     # -- opening
 
@@ -246,6 +251,7 @@ class Journal:
                     header = _read_header(connection, path)
                     _compare(path, header, identity)
                     _use_wal(connection, path)
+                    _add_vector_column(connection)
                     stored = tuple(
                         e for e in _read_evaluations(connection, path, header) if e.status != INTERRUPTED
                     )
@@ -286,6 +292,7 @@ class Journal:
         if self._sync == "adaptive":
             self._adapt(evaluation.seconds >= SYNC_AFTER)
         point = np.ascontiguousarray(evaluation.point, dtype="<f8").tobytes()
+        vector = None if self.vectors is None else self.vectors(evaluation.point.tobytes())
         row = (
             evaluation.search,
             evaluation.sequence,
@@ -297,6 +304,7 @@ class Journal:
             evaluation.started,
             evaluation.started + evaluation.seconds,
             self._session,
+            None if vector is None else np.ascontiguousarray(vector, dtype="<f8").tobytes(),
         )
         try:
             self._connection.execute(_INSERT, row)
@@ -307,6 +315,17 @@ class Journal:
                 "on resume"
             ) from None
         self.written += 1
+
+    def stored_vectors(self) -> dict[bytes, np.ndarray]:
+        """The residual vectors stored with earlier evaluations, by point (float64 bytes)."""
+        rows = self._connection.execute(
+            "SELECT point, residuals FROM evaluation WHERE residuals IS NOT NULL"
+        ).fetchall()
+        return {
+            np.frombuffer(point, dtype="<f8").astype(float).tobytes():
+                np.frombuffer(vector, dtype="<f8").astype(float)
+            for point, vector in rows
+        }
 
     @property
     def synchronous(self) -> str:
@@ -367,6 +386,10 @@ class _NoJournal:
     """Stands in for `Journal` when a run keeps none."""
 
     stored: tuple[Evaluation, ...] = ()
+    vectors: Callable[[bytes], np.ndarray | None] | None = None
+
+    def stored_vectors(self) -> dict[bytes, np.ndarray]:
+        return {}
 
     def hooks(self) -> dict[str, Any]:
         return {}
@@ -660,6 +683,13 @@ def _create(
         connection.execute("ROLLBACK")
         raise
     return header
+
+
+def _add_vector_column(connection: sqlite3.Connection) -> None:
+    """Give a journal written before residual vectors were kept their (nullable) column."""
+    columns = {row[1] for row in connection.execute("PRAGMA table_info(evaluation)")}
+    if "residuals" not in columns:
+        connection.execute("ALTER TABLE evaluation ADD COLUMN residuals BLOB")
 
 
 def _is_empty(connection: sqlite3.Connection) -> bool:
