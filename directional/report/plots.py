@@ -6,7 +6,9 @@
 - ``profiles.png``: the objective along each parameter through the minimum, with the parabola of
   the Hessian's diagonal drawn over it.
 - ``fit.png`` and ``residuals.png``: for a calibration, the model against the data and the
-  residuals at the minimum.
+  residuals at the minimum, model minus data (divided by sigma where known), the sign of the
+  residual vector the calibration minimizes.  With a problem file's ``[data]`` table the series
+  come from the table and one report-only run of the objective at the minimum.
 
 Maps and profiles need values the search never computed.  They are *report-only evaluations*:
 made here by calling the objective directly, at most ``extra`` of them, never journaled and never
@@ -678,21 +680,21 @@ def _fit(series: list[dict[str, Any]], path: Path, title: str) -> Path:
 
 @_styled
 def _residual_series(series: list[dict[str, Any]], path: Path, title: str) -> Path:
-    """Data minus model at the minimum, in units of the data's sigma when it is known."""
+    """Model minus data at the minimum, in units of the data's sigma when it is known."""
     n = len(series)
     fig = _figure(5.4 * n, 3.8)
     for k, s in enumerate(series):
         ax = fig.add_subplot(1, n, k + 1)
         x = np.asarray(s["x"], dtype=float)
-        r = np.asarray(s["observed"], dtype=float) - np.asarray(s["predicted"], dtype=float)
+        r = np.asarray(s["predicted"], dtype=float) - np.asarray(s["observed"], dtype=float)
         sigma = s.get("sigma")
         unit = s.get("unit", "")
         if sigma is not None:
             r = r / np.broadcast_to(np.asarray(sigma, dtype=float), r.shape)
             ax.axhspan(-2.0, 2.0, color="tab:green", alpha=0.1, label="± 2 sigma")
-            ax.set_ylabel("(data − model) / sigma")
+            ax.set_ylabel("(model − data) / sigma")
         else:
-            ax.set_ylabel(f"data − model [{unit}]" if unit else "data − model")
+            ax.set_ylabel(f"model − data [{unit}]" if unit else "model − data")
         ax.axhline(0.0, color="black", lw=0.8)
         ax.vlines(x, 0.0, r, color="tab:blue", lw=1.2)
         ax.plot(x, r, "o", color="tab:blue", ms=4, label="residual")
