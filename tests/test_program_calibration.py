@@ -368,3 +368,39 @@ def test_a_journal_without_the_residual_column_still_opens(tmp_path):
     assert journals.read(path).evaluations == ()
     with journals.Journal.open(path, identity) as journal:
         assert journal.stored_vectors() == {}
+
+
+def test_check_verifies_the_length_of_the_first_answer(tmp_path, capsys):
+    problem = table_problem(tmp_path, objective=f"""
+        [objective]
+        command = [{json.dumps(sys.executable)}, "predict.py", "more"]
+        templates = ["deck.in"]
+        files = ["predict.py"]
+        read = "csv:out.csv:y"
+        """)
+    assert main(["check", str(problem)]) == 1
+    out = capsys.readouterr().out
+    assert "must give 8 predictions" in out and "gave 10 predictions" in out
+
+
+@pytest.mark.parametrize(
+    ("spec", "text", "expected"),
+    [
+        ("csv:o.csv:u,v", "t,u,v\n0,1,4\n1,2,5\n", [1, 2, 4, 5]),
+        ("csv:o.csv:v", "t,u,v\n0,1,x\n", "data row 1, column 'v': 'x' is not a number"),
+        ("csv:o.csv:w", "t,u,v\n0,1,2\n", "no column 'w' (columns: t, u, v)"),
+        ("stdout", "1, 2\n\n3\n", [1, 2, 3]),
+        ("stdout", "1 2\nresidual 3\n", "line 2 of test is not a row of numbers"),
+        ("json:r", '{"r": [1, true]}', "entry 1 of JSON 'r' is True, not a number"),
+        ("json:r", '{"r": 7}', [7]),
+    ],
+)
+def test_vectors_are_read_strictly(spec, text, expected):
+    # Common practice, no source: CSV with a header row, numbers in the usual notation.
+    from directional.interface import reading
+
+    got = reading.vector(reading.parse(spec, vector=True), text, "test")
+    if isinstance(expected, str):
+        assert isinstance(got, str) and expected in got
+    else:
+        assert got.tolist() == expected

@@ -290,6 +290,11 @@ def _check(args: argparse.Namespace) -> int:
     print(f"  objective ({spec.kind}): {what}")
     if problem.journal is not None:
         print(f"  journal: {problem.journal}")
+    if problem.data is not None:
+        table = problem.table()
+        rows, series = table.observed.shape
+        print(f"  data: {table.path.name}, {rows} rows x {series} series "
+              f"({', '.join(table.names)}): the objective must give {table.size} predictions")
     tick = time.perf_counter()
     if spec.kind == "residuals":
         value, status, detail, count = _residuals_once(objective, start)
