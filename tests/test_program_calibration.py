@@ -19,6 +19,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from directional.errors import ProblemError
 from directional.interface.cli import main
@@ -404,3 +406,17 @@ def test_vectors_are_read_strictly(spec, text, expected):
         assert isinstance(got, str) and expected in got
     else:
         assert got.tolist() == expected
+
+
+@settings(max_examples=200, deadline=None)
+@given(value=st.floats(allow_nan=False, allow_infinity=False))
+def test_template_values_read_back_bit_for_bit(tmp_path_factory, value):
+    # Common practice, no source: repr and 17 significant digits round-trip a double.
+    from directional.interface.templates import Template
+
+    path = tmp_path_factory.mktemp("deck") / "deck.in"
+    path.write_text("a = {a}\nb = {a:.17g}\n")
+    text = Template.read(path, ["a"]).render({"a": value})
+    first, second = (float(line.split("=")[1]) for line in text.splitlines())
+    assert np.float64(first).tobytes() == np.float64(value).tobytes()
+    assert np.float64(second).tobytes() == np.float64(value).tobytes()
