@@ -7,16 +7,15 @@ runs of somebody else's code: few evaluations, bounds respected, every evaluatio
 from directional.api.calibration import calibrate
 from directional.api.explore import Landscape, explore
 from directional.api.minimization import line_minimum, minimize
+from directional.api.resume import resume
 from directional.errors import JournalError, ObjectiveError, ProblemError
 from directional.interface.problemfile import Problem
 from directional.method.linesearch import LineResult
 from directional.method.noise import estimate_noise
 from directional.parameters import Parameter
 from directional.records import Curvature, Stop, Verdict
-from directional.run.journal import resume
 from directional.solution import Solution
-
-__version__ = "0.1.0"
+from directional.version import VERSION as __version__  # noqa: F401  (re-exported)
 
 __all__ = [
     "Curvature",

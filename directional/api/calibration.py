@@ -73,7 +73,9 @@ class Uncertainty:
     Arrays run over all parameters in order (``names``); a parameter on a bound has nan errors
     and intervals.  ``intervals`` is (p, 2): lower and upper ends at ``level`` (95 %).
     ``residual_variance`` is ``s² = S / (m - p)`` with ``p`` the free parameters.
-    ``undetermined`` names the parameter combinations the data do not determine.
+    ``undetermined`` names the parameter combinations the data do not determine; ``rough`` the
+    parameters where the curvature check found the misfit not smooth (a kink or a jump): a
+    linearization says nothing there, so their errors and intervals are nan.
     """
 
     names: tuple[str, ...]
@@ -87,6 +89,7 @@ class Uncertainty:
     observations: int
     level: float = LEVEL
     undetermined: tuple[str, ...] = ()
+    rough: tuple[str, ...] = ()  # not smooth there (curvature check): no error, no interval
 
     def strongest(self, count: int = 3) -> list[tuple[str, str, float]]:
         """The ``count`` largest correlations in absolute value, as (name, name, r)."""
@@ -156,8 +159,28 @@ def uncertainty(
     )
 
 
+def _rough(result: Uncertainty, curvature: object) -> Uncertainty:
+    """No standard error or interval for a parameter where the misfit is not smooth."""
+    rough = {name for b in getattr(curvature, "breaks", ()) for name in b.parameters}
+    if not rough:
+        return result
+    keep = np.array([name not in rough for name in result.names])
+    errors = np.where(keep, result.standard_errors, np.nan)
+    intervals = np.where(keep[:, None], result.intervals, np.nan)
+    correlation = np.where(np.outer(keep, keep), result.correlation, np.nan)
+    return dataclasses.replace(
+        result, standard_errors=errors, intervals=intervals, correlation=correlation,
+        rough=tuple(name for name in result.names if name in rough),
+    )
+
+
 def _warnings(result: Uncertainty) -> list[str]:
     messages = []
+    if result.rough:
+        messages.append(
+            "no linearized interval for " + ", ".join(result.rough) + ": the misfit is not "
+            "smooth there (a kink or a jump, see the curvature check), so s²(JᵀJ)⁻¹ does not apply"
+        )
     if result.undetermined:
         messages.append(
             "the data do not determine " + "; ".join(result.undetermined)
@@ -282,7 +305,7 @@ def calibrate(
     if jacobian is None:
         notes.append("no uncertainty: an evaluation for the Jacobian failed or was not allowed")
     else:
-        result = uncertainty(space, x, jacobian, outcome.value, free)
+        result = _rough(uncertainty(space, x, jacobian, outcome.value, free), settled.curvature)
         for message in _warnings(result):
             warnings.warn(message, stacklevel=2)
             notes.append(message)

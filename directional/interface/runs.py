@@ -16,7 +16,6 @@ import concurrent.futures as cf
 import contextlib
 import dataclasses
 import io
-import math
 import os
 import sqlite3
 import tempfile
@@ -26,6 +25,9 @@ from typing import Any
 
 import numpy as np
 
+from directional.api.explore import explore
+from directional.api.resume import ENTRY_POINTS
+from directional.api.resume import resume as resumed
 from directional.errors import ObjectiveError, ProblemError
 from directional.interface.problemfile import Problem
 from directional.records import Stop
@@ -36,35 +38,22 @@ from directional.solution import Solution
 PROBLEM_KEY = "problem"  # header note: the absolute path of the problem file
 
 
-def entry_point(problem: Problem) -> Callable[..., Any]:
-    """The library function that runs ``problem``: minimize, calibrate or explore.
+def run_kind(problem: Problem) -> str:
+    """The kind of run ``problem`` asks for: "explore", "calibrate" or "minimize".
 
     Raises
     ------
     ProblemError
-        When the function the problem needs is not in this version of the package.
+        For many starts of a residuals objective, which no entry point runs.
     """
     if problem.search.starts > 1:
-        from directional.api.explore import explore
-
         if problem.objective.kind == "residuals":
             raise ProblemError(
                 f"{problem.where('search.starts')}: many starts of a residuals objective are not "
                 "supported; use kind = \"value\" with the sum of squares, or starts = 1"
             )
-        return explore
-    if problem.objective.kind == "residuals":
-        try:
-            from directional.api.calibration import calibrate
-        except ImportError:
-            raise ProblemError(
-                f"{problem.where('objective.kind')}: kind = \"residuals\" needs dl.calibrate, "
-                "which this version does not have yet"
-            ) from None
-        return calibrate
-    from directional.api.minimization import minimize
-
-    return minimize
+        return "explore"
+    return "calibrate" if problem.objective.kind == "residuals" else "minimize"
 
 
 def best(result: Any) -> Solution:
@@ -106,7 +95,7 @@ def solve(
     ProblemError, ObjectiveError, JournalError
         As the library function that runs the problem.
     """
-    run = entry_point(problem)
+    run = ENTRY_POINTS[run_kind(problem)]
     spec = problem.search
     objective = problem.make_objective() if objective is None else objective
     path = problem.journal if journal is True else (journal or None)
@@ -235,7 +224,7 @@ def resume(
     bar = Progress(objective, budget=total, kind=problem.objective.kind,
                    enabled=False if quiet else None, done=done)
     try:
-        return journals.resume(path, bar, budget=budget)
+        return resumed(path, bar, budget=budget)
     finally:
         bar.close()
 
@@ -260,13 +249,11 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
         _copy_database(Path(path), copy)
         with contextlib.redirect_stderr(io.StringIO()):
             if contents.header.kind == "explore":
-                from directional.api.explore import explore
-
                 arguments = dict(contents.header.identity.get("arguments", {}))
                 result = explore(_refuse, contents.header.parameters, journal=copy,
                                  budget=contents.header.budget, total_budget=stored, **arguments)
             else:
-                result = journals.resume(copy, _refuse, budget=stored)
+                result = resumed(copy, _refuse, budget=stored)
     if isinstance(result, Solution):
         result = _ended(result, contents)
     return result, contents
@@ -295,12 +282,3 @@ def _copy_database(source: Path, target: Path) -> None:
         sqlite3.connect(target)
     ) as dst:
         src.backup(dst)
-
-
-def value_of(result: Any, kind: str) -> float:
-    """One objective result as a number (the sum of squares for residuals); nan if not one."""
-    if kind == "residuals":
-        r = np.asarray(result, dtype=float).ravel()
-        return float(r @ r)
-    value = float(np.asarray(result, dtype=float).reshape(()))
-    return value if math.isfinite(value) else math.nan

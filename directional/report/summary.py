@@ -16,59 +16,18 @@ from typing import Any
 import numpy as np
 
 from directional.parameters import Parameter
-from directional.solution import Solution
+from directional.solution import CAUTION, Solution
 
 FORMAT = "directional-solution/1"
 
 
 def summary_text(sol: Solution, title: str = "") -> str:
-    """The summary table of ``sol``, under ``title`` when there is one.
-
-    For a calibration whose own summary shows no uncertainty, the uncertainty table is added.
-    """
+    """The summary table of ``sol`` (`Solution.summary`, with the uncertainty table of a
+    calibration), under ``title`` when there is one."""
     text = sol.summary()
-    if sol.uncertainty is not None and not any(
-        word in text for word in ("std. error", "standard error", "interval")
-    ):
-        text += "\n" + "\n".join(uncertainty_lines(sol))
     if title:
         text = f"{title}\n{'=' * len(title)}\n{text}"
     return text
-
-
-def uncertainty_lines(sol: Solution) -> list[str]:
-    """The uncertainty table: estimate, standard error, interval, and the largest correlations.
-
-    Linearized at the minimum (Bates & Watts 1988, sec. 2.3): read it as a local statement.
-    """
-    u = sol.uncertainty
-    errors = getattr(u, "standard_errors", None)
-    if errors is None:
-        return []
-    errors = np.asarray(errors, dtype=float).ravel()
-    intervals = getattr(u, "intervals", None)
-    rows = None if intervals is None else np.asarray(intervals, dtype=float).reshape(-1, 2)
-    level = getattr(u, "level", 0.95)
-    dof = getattr(u, "degrees_of_freedom", None)
-    variance = getattr(u, "residual_variance", None)
-    head = f"  uncertainty (linearized at the minimum; {100 * level:g} % intervals"
-    if variance is not None and dof is not None:
-        head += f"; s² = {variance:.4g} on {dof} degrees of freedom"
-    width = max(9, *(len(n) for n in sol.names))
-    lines = ["", head + ")",
-             f"  {'parameter':<{width}}  {'estimate':>14}  {'standard error':>14}  interval"]
-    for i, name in enumerate(sol.names):
-        if name in sol.active:
-            lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {'on a bound':>14}")
-            continue
-        band = "" if rows is None else f"[{rows[i][0]:.6g}, {rows[i][1]:.6g}]"
-        lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {errors[i]:>14.4g}  {band}")
-    strongest = getattr(u, "strongest", None)
-    if callable(strongest):
-        pairs = [f"{a}–{b} {r:+.3f}" for a, b, r in strongest(3)]
-        if pairs:
-            lines.append(f"  largest correlations: {', '.join(pairs)}")
-    return lines
 
 
 def solution_document(
@@ -111,6 +70,7 @@ def solution_document(
         "uncertainty": _uncertainty(sol),
         "directions": _matrix(sol.directions),
         "notes": list(sol.notes),
+        "caution": CAUTION,
     }
     return document
 
@@ -163,6 +123,11 @@ def _curvature(sol: Solution, by_name: dict[str, Parameter]) -> dict[str, Any] |
         "eigenvalues": [_number(v) for v in np.asarray(c.eigenvalues).ravel()],
         "eigenvectors": _matrix(c.eigenvectors),
         "condition": _number(c.condition),
+        "breaks": [
+            {"along": b.along, "kind": b.kind, "parameters": list(b.parameters),
+             "slopes": [_number(v) for v in b.slopes], "change": _number(b.change)}
+            for b in getattr(c, "breaks", ())
+        ],
     }
 
 
@@ -194,6 +159,9 @@ def _uncertainty(sol: Solution) -> dict[str, Any] | None:
     undetermined = getattr(u, "undetermined", None)
     if undetermined is not None:
         out["undetermined"] = list(undetermined)
+    rough = getattr(u, "rough", None)
+    if rough:
+        out["not_smooth"] = list(rough)
     return out
 
 

@@ -30,7 +30,7 @@ def run_identity(
 ) -> dict[str, Any]:
     """Return the identity of a run: what must agree for its journal to be resumed.
 
-    ``kind`` names the entry point (a key of `journal.ENTRY_POINTS`); ``arguments`` are the keyword
+    ``kind`` names the entry point (a key of `api.resume.ENTRY_POINTS`); ``arguments`` are the keyword
     arguments of that entry point that change the search, other than the parameters, the budget
     and the time limit (e.g. ``point_tolerance``, ``check``, ``seed``, ``starts``); ``settings``
     is the search's settings dataclass, stored in full so that a change of a default is caught.

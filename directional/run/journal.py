@@ -4,10 +4,10 @@ Theory of operation.  The driver calls `Journal.append` with each new evaluation
 exists; the row is committed at once, in its own transaction, so a committed row survives the
 process being killed at any instant (``kill -9``, an out-of-memory kill, a batch system ending the
 job).  The search is deterministic given the values it receives, so a run can be continued from
-its journal: the stored values are fed back to a new search (`driver.Driver` ``replay``), each
-point it asks for is checked bit for bit against the stored one, and when the stored evaluations
-run out the run goes on live.  Nothing is evaluated twice, and the resumed run ends exactly where
-the uninterrupted run would have.
+its journal (`api.resume`): the stored values are fed back to a new search (`driver.Driver`
+``replay``), each point it asks for is checked bit for bit against the stored one, and when the
+stored evaluations run out the run goes on live.  Nothing is evaluated twice, and the resumed run
+ends exactly where the uninterrupted run would have.
 
 The file (stdlib `sqlite3`, write-ahead log) has three tables:
 
@@ -51,7 +51,6 @@ the same journal is refused with `JournalError`.
 from __future__ import annotations
 
 import contextlib
-import importlib
 import json
 import math
 import os
@@ -72,9 +71,9 @@ from directional.parameters import Parameter
 from directional.run.driver import Evaluation
 from directional.run.identity import canonical, describe_place, difference, digest, run_identity
 from directional.run.lockfile import Lock
+from directional.version import VERSION
 
 __all__ = [
-    "ENTRY_POINTS",
     "INTERRUPTED",
     "Contents",
     "Header",
@@ -82,7 +81,6 @@ __all__ = [
     "Target",
     "journal_for",
     "read",
-    "resume",
     "run_identity",
 ]
 
@@ -93,14 +91,6 @@ SYNC_MODES = ("adaptive", "normal", "full")
 PAGE_SIZE = 1024  # bytes: a commit writes whole pages to the log, and a row is ~150 bytes
 CHECKPOINT_PAGES = 10_000  # log pages between checkpoints (each costs fsyncs): 10 MB
 INTERRUPTED = "interrupted"
-
-# The run kinds that `resume` can continue: kind -> (module, entry point).  Each entry point is
-# called as ``entry(objective, parameters, journal=path, budget=..., time_limit=..., **arguments)``.
-ENTRY_POINTS = {
-    "minimize": ("directional.api.minimization", "minimize"),
-    "calibrate": ("directional.api.calibration", "calibrate"),
-    "explore": ("directional.api.explore", "explore"),
-}
 
 _SCHEMA = (
     "CREATE TABLE header (key TEXT PRIMARY KEY, value TEXT NOT NULL)",
@@ -486,74 +476,6 @@ def read(path: str | os.PathLike[str]) -> Contents:
     )
 
 
-def resume(
-    path: str | os.PathLike[str],
-    objective: object,
-    *,
-    budget: int | None = None,
-    time_limit: float | None = None,
-    **options: object,
-) -> Any:
-    """Continue the run kept in the journal at ``path``; return what that run returns.
-
-    The problem (parameters, tolerances, kind of run) is rebuilt from the journal's header, the
-    stored evaluations are fed back without calling ``objective`` (each requested point checked
-    bit for bit against the stored one), then the run goes on live, writing the same journal.
-    The result is the one the uninterrupted run would have given, and no evaluation is repeated.
-
-    >>> import directional as dl                                    # doctest: +SKIP
-    >>> sol = dl.resume("runs/culture.sqlite", misfit)              # doctest: +SKIP
-
-    Parameters
-    ----------
-    objective
-        The same objective as the first run (the journal cannot check that it is).
-    budget
-        Evaluations allowed in total, the journaled ones included (default: the last budget the
-        journal was run with).  Give a larger one to go on after a run stopped on its budget.
-    time_limit
-        Seconds of wall time for this session.
-    options
-        Other keyword arguments of the entry point that do not change the search (``progress``).
-
-    Raises
-    ------
-    JournalError
-        When the file is not a journal, is damaged, is in use by another run, or when the run asks
-        for a point other than the stored one (another objective's settings or another version).
-    """
-    header = read(path).header
-    entry = _entry_point(path, header.kind)
-    arguments = dict(header.identity.get("arguments", {}))
-    overlap = sorted(set(arguments) & set(options))
-    if overlap:
-        raise ProblemError(
-            f"{overlap[0]!r} is fixed by the journal ({arguments[overlap[0]]!r}) and cannot be changed "
-            "on resume"
-        )
-    return entry(
-        objective,
-        header.parameters,
-        journal=path,
-        budget=header.budget if budget is None else budget,
-        time_limit=time_limit,
-        **arguments,
-        **options,
-    )
-
-
-def _entry_point(path: object, kind: str) -> Any:
-    if kind not in ENTRY_POINTS:
-        raise JournalError(f"journal {str(path)!r} holds a run of unknown kind {kind!r}")
-    module, name = ENTRY_POINTS[kind]
-    try:
-        return getattr(importlib.import_module(module), name)
-    except (ImportError, AttributeError):
-        raise JournalError(
-            f"journal {str(path)!r} holds a {kind!r} run, which this version cannot resume"
-        ) from None
-
-
 # ----------------------------------------------------------------------------- file helpers
 
 
@@ -656,7 +578,7 @@ def _create(
     header = Header(
         identity=dict(identity),
         digest=digest(identity),
-        version=_package_version(),
+        version=VERSION,
         created=time.time(),
         budget=None if budget is None else int(budget),
         info=json.loads(canonical(dict(info))),
@@ -816,12 +738,6 @@ def _check_places(path: Path, stored: Sequence[Evaluation]) -> None:
 def _begin_session(connection: sqlite3.Connection, budget: int | None) -> int:
     cursor = connection.execute(
         "INSERT INTO session (opened, pid, version, budget) VALUES (?, ?, ?, ?)",
-        (time.time(), os.getpid(), _package_version(), budget),
+        (time.time(), os.getpid(), VERSION, budget),
     )
     return int(cursor.lastrowid or 0)
-
-
-def _package_version() -> str:
-    from directional import __version__  # at call time: the package is fully imported by then
-
-    return __version__
