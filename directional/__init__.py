@@ -8,18 +8,19 @@ import importlib
 from typing import TYPE_CHECKING, Any
 
 from directional.errors import JournalError, ObjectiveError, ProblemError
+from directional.version import VERSION as __version__  # noqa: F401  (re-exported)
 
 if TYPE_CHECKING:  # the names below are imported on first use (PEP 562), so that the command
     # line starts without loading numpy, scipy and matplotlib (``directional --help``)
     from directional.api.calibration import calibrate
     from directional.api.explore import Landscape, explore
     from directional.api.minimization import line_minimum, minimize
+    from directional.api.resume import resume
     from directional.interface.problemfile import Problem
     from directional.method.linesearch import LineResult
     from directional.method.noise import estimate_noise
     from directional.parameters import Parameter
     from directional.records import Curvature, Stop, Verdict
-    from directional.run.journal import resume
     from directional.solution import Solution
 
 _LAZY = {
@@ -35,7 +36,7 @@ _LAZY = {
     "Curvature": "directional.records",
     "Stop": "directional.records",
     "Verdict": "directional.records",
-    "resume": "directional.run.journal",
+    "resume": "directional.api.resume",
     "Solution": "directional.solution",
 }
 
@@ -51,8 +52,6 @@ def __getattr__(name: str) -> Any:
 def __dir__() -> list[str]:
     return sorted(set(globals()) | set(_LAZY))
 
-
-__version__ = "0.1.0"
 
 __all__ = [
     "Curvature",

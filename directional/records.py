@@ -30,6 +30,7 @@ class Verdict(enum.Enum):
     SADDLE = "saddle"
     MAXIMUM = "maximum"
     FLAT = "flat"
+    NONSMOOTH = "nonsmooth"
     UNCHECKED = "unchecked"
 
 
@@ -108,3 +109,25 @@ class Curvature:
     undetermined: tuple[str, ...] = ()
     evaluations: int = 0
     free: Curvature | None = None
+    breaks: tuple[Break, ...] = ()
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class Break:
+    """Where the curvature check found the objective not smooth (`directional.method.smoothness`).
+
+    ``along`` names the parameter or combination (search coordinates, as ``Curvature.names``);
+    ``parameters`` the parameters taking part.  ``kind``: "corner" (the one-sided slopes differ
+    and both rise away from the point: still a minimum along it), "kink" (they differ and one
+    falls), "edge" (the value jumps up on one side, the other is not lower: the point is the low
+    edge of a jump) or "jump" (it jumps, and one side is lower).  ``slopes`` are the rates of
+    rise away from the point, backward then forward along ``along`` per unit of it, read at
+    ``step``; ``change`` is the size of the jump (0 for a kink).
+    """
+
+    along: str
+    kind: str
+    parameters: tuple[str, ...]
+    slopes: tuple[float, float]
+    change: float = 0.0
+    step: float = math.nan

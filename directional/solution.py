@@ -8,12 +8,14 @@ from typing import Any
 
 import numpy as np
 
-from directional.records import Curvature, Stop, Verdict
+from directional.records import Break, Curvature, Stop, Verdict
 from directional.run.driver import Evaluation
 
+# Ends every summary a person reads (and is a field of the JSON): results can be used to decide
+# things that hurt someone when they are wrong.
 CAUTION = (
-    "Caution: validate a calibrated model independently before any safety-relevant use, and defer "
-    "to local codes and licensed practice."
+    "Caution: validate a calibrated or tuned model independently before any safety-relevant use, "
+    "and defer to local codes and licensed professional practice."
 )
 
 
@@ -55,8 +57,8 @@ class Solution:
         return sum(1 for e in self.history if e.status != "ok")
 
     def summary(self) -> str:
-        """A plain-text table of the result, for people."""
-        return "\n".join(summary_lines(self))
+        """A plain-text table of the result, for people, ending with the caution."""
+        return "\n".join([*summary_lines(self), "", CAUTION])
 
 
 def summary_lines(sol: Solution) -> list[str]:
@@ -106,11 +108,31 @@ def _curvature_lines(curvature: Curvature | None) -> list[str]:
         lines.append(f"  free estimate (no extra evaluation): condition number {free.condition:.3g}")
     for combination in curvature.undetermined:
         lines.append(f"  not determined: {combination}")
+    lines.extend(f"  not smooth: {describe_break(b)}" for b in curvature.breaks)
     return lines
 
 
+def describe_break(b: Break) -> str:
+    """One line for people: where the objective is not smooth and what the point is there."""
+    back, forward = b.slopes
+    if b.kind == "corner":
+        return (f"{b.along}, a corner minimum (it rises both ways: slopes {back:.3g} backward and "
+                f"{forward:.3g} forward)")
+    if b.kind == "kink":
+        return (f"{b.along}, a kink that is not a minimum (slopes {back:.3g} backward and "
+                f"{forward:.3g} forward)")
+    if b.kind == "edge":
+        return (f"{b.along}, the edge of a jump of {b.change:+.3g} within {b.step:.2g}: the point "
+                "is on the lower side, not at a smooth minimum")
+    return f"{b.along}, a jump of {b.change:+.3g} within {b.step:.2g}, with a lower side"
+
+
 def _uncertainty_lines(sol: Solution) -> list[str]:
-    """The calibration table: estimates, standard errors, intervals, strongest correlations."""
+    """The calibration table: estimates, standard errors, intervals, strongest correlations.
+
+    Linearized at the minimum (Bates & Watts 1988, sec. 2.3): read it as a local statement.  A
+    parameter on a bound has no standard error (it is not free to move); it says so.
+    """
     u = sol.uncertainty
     if u is None:
         return []
@@ -121,7 +143,13 @@ def _uncertainty_lines(sol: Solution) -> list[str]:
         f"  {'parameter':<{width}}  {'estimate':>14}  {'std. error':>11}  {level:>27}",
     ]
     for i, name in enumerate(sol.names):
+        if name in sol.active:
+            lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {'on a bound':>11}")
+            continue
         low, high = u.intervals[i]
+        if name in getattr(u, "rough", ()):
+            lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {'—':>11}  {'not smooth':>27}")
+            continue
         lines.append(
             f"  {name:<{width}}  {sol.point[i]:>14.8g}  {u.standard_errors[i]:>11.5g}  "
             f"{'[' + f'{low:.6g}, {high:.6g}' + ']':>27}"
@@ -143,6 +171,7 @@ def _verdict_hint(verdict: Verdict) -> str:
         Verdict.SADDLE: " (negative curvature in some direction: not a minimum)",
         Verdict.MAXIMUM: " (negative curvature in every direction)",
         Verdict.FLAT: " (some parameter combination is not determined)",
+        Verdict.NONSMOOTH: " (the objective has a kink or a jump at the point: see below)",
         Verdict.UNCHECKED: " (no curvature check was made)",
     }[verdict]
 

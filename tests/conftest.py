@@ -1,4 +1,4 @@
-"""Shared test helpers: where the published reference values live."""
+"""Shared test helpers: where the published reference values live (``tests/reference/``)."""
 
 from __future__ import annotations
 
@@ -13,7 +13,8 @@ import pytest
 if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
     signal.signal(signal.SIGINT, signal.default_int_handler)
 
-REFERENCE = Path(__file__).resolve().parents[1].parent / "shared" / "reference"
+# Published check data, copied into the project with its provenance (see reference/README.md).
+REFERENCE = Path(__file__).resolve().parent / "reference"
 
 
 @pytest.fixture(scope="session")
@@ -22,3 +23,17 @@ def mgh_reference() -> dict[int, dict]:
     with open(REFERENCE / "mgh1981.toml", "rb") as handle:
         data = tomllib.load(handle)
     return {p["number"]: p for p in data["problem"]}
+
+
+def carries_the_caution(text: str) -> bool:
+    """True when ``text`` carries the caution of the README ("Caution"), in its own words.
+
+    Whatever the line breaks: validate independently before any safety-relevant use, and defer
+    to local codes and licensed professional practice.
+    """
+    flat = " ".join(text.lower().split())
+    return all(
+        words in flat
+        for words in ("validate", "independently", "safety-relevant use", "local codes",
+                      "licensed professional practice")
+    )

@@ -105,5 +105,6 @@ def test_docstring_examples():
     from directional.benchmarking import baselines, scaling, solvers
 
     for module in (profiles, baselines, scaling, solvers):
-        failed, _ = doctest.testmod(module)
+        failed, attempted = doctest.testmod(module)
+        assert attempted > 0, f"{module.__name__} has no examples"
         assert failed == 0, module.__name__

@@ -1,12 +1,14 @@
 """Smoke test of `directional bench`: the smallest run writes RESULTS.md and the figures.
 
-Benchmarks are not tests (DESIGN.md): nothing here checks a number or a time, only that the run
+Benchmarks are not tests (their numbers go to benchmarks/RESULTS.md, written by `directional bench`;
+README, "The command line"): nothing here checks a number or a time, only that the run
 completes and writes what it promises.
 """
 
 from __future__ import annotations
 
 import numpy as np
+from matplotlib import image
 
 from directional.benchmarking import main, problems, solvers
 from directional.benchmarking.runner import default_out
@@ -23,7 +25,8 @@ def test_smoke_run_writes_results_and_figures(tmp_path):
         assert heading in text
     assert "## From `results/journal.md`" in text and "| resume | ok |" in text
     for name in ("profiles-data.png", "profiles-performance.png", "scaling.png"):
-        assert (tmp_path / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+        height, width = image.imread(tmp_path / name, format="png").shape[:2]  # decoded whole
+        assert height >= 300 and width >= 300, name
 
 
 def test_default_output_folder(tmp_path):

@@ -3,11 +3,16 @@
 from __future__ import annotations
 
 import concurrent.futures as cf
+import contextlib
+import functools
+import io
+import re
 
 import numpy as np
 import pytest
 
 import directional as dl
+from directional.run import progress
 
 
 def rosenbrock(x):
@@ -42,10 +47,43 @@ def test_a_journal_written_on_an_executor_resumes_on_one(tmp_path):
     assert len(calls) == len(set(calls)) == alone.evaluations  # nothing evaluated twice
 
 
-def test_a_progress_bar_changes_nothing(capsys):
-    plain = dl.minimize(rosenbrock, [-1.2, 1.0], check=False)
-    shown = dl.minimize(rosenbrock, [-1.2, 1.0], check=False, progress=True)
+class Terminal(io.StringIO):
+    """Standard error that says it is a terminal: the progress bar is drawn on it."""
+
+    def isatty(self) -> bool:
+        return True
+
+
+@pytest.fixture
+def terminal(monkeypatch) -> Terminal:
+    """A terminal for standard error, and a bar redrawn at every evaluation (not every 0.1 s).
+
+    Used as ``with contextlib.redirect_stderr(terminal)`` inside the test: pytest sets its own
+    standard error back between a fixture and the test.
+    """
+    stream = Terminal()
+    monkeypatch.setattr(progress, "tqdm", functools.partial(progress.tqdm, mininterval=0,
+                                                            miniters=1))
+    return stream
+
+
+def frames(text: str) -> list[tuple[int, int, str]]:
+    """(evaluations, budget, best value) of every frame of the bar that shows a best value."""
+    return [(int(m[1]), int(m[2]), m[3])
+            for m in re.finditer(r"(\d+)/(\d+) \[[^\]]*?best ([^,\]]+)", text)]
+
+
+def test_a_progress_bar_changes_nothing(terminal):
+    with contextlib.redirect_stderr(terminal):
+        plain = dl.minimize(rosenbrock, [-1.2, 1.0], check=False)
+        assert terminal.getvalue() == ""  # no bar unless asked
+        shown = dl.minimize(rosenbrock, [-1.2, 1.0], check=False, progress=True)
     assert np.array_equal(plain.point, shown.point)
+    drawn = frames(terminal.getvalue())
+    assert [n for n, _, _ in drawn] == list(range(1, shown.evaluations + 1))  # every evaluation
+    assert {total for _, total, _ in drawn} == {3000}  # the default budget, 1000 (n + 1)
+    assert drawn[-1][2] == f"{shown.value:.6g}"
+    assert terminal.getvalue().endswith("\r")  # the bar is removed at the end
 
 
 def test_an_executor_that_is_not_one_is_a_problem_error():
@@ -53,7 +91,7 @@ def test_an_executor_that_is_not_one_is_a_problem_error():
         dl.minimize(rosenbrock, [-1.2, 1.0], executor="pool")
 
 
-def test_calibrate_shows_progress_and_refuses_an_executor():
+def test_calibrate_shows_progress_and_refuses_a_process_pool(terminal):
     # y = 3 exp(-0.7 t) exactly: the fit is (3, 0.7) (analytic, zero residuals).
     t = np.linspace(0.0, 5.0, 12)
     y = 3.0 * np.exp(-0.7 * t)
@@ -61,7 +99,15 @@ def test_calibrate_shows_progress_and_refuses_an_executor():
     def residuals(x):
         return x[0] * np.exp(-x[1] * t) - y
 
-    sol = dl.calibrate(residuals, [1.0, 0.2], progress=True)
+    with contextlib.redirect_stderr(terminal):
+        sol = dl.calibrate(residuals, [1.0, 0.2], progress=True)
     assert sol.point == pytest.approx([3.0, 0.7], abs=1e-6)
-    with pytest.raises(dl.ProblemError, match="executor"):
-        dl.calibrate(residuals, [1.0, 0.2], executor=cf.ThreadPoolExecutor(1))
+    drawn = frames(terminal.getvalue())
+    assert [n for n, _, _ in drawn] == list(range(1, sol.evaluations + 1))
+    # the best value shown is the sum of squares, the least one evaluated
+    assert drawn[-1][2] == f"{min(e.value for e in sol.history):.6g}"
+    with cf.ThreadPoolExecutor(2) as threads:  # the residual vectors come back in memory
+        assert dl.calibrate(residuals, [1.0, 0.2], executor=threads).point == pytest.approx(
+            sol.point, abs=1e-9)
+    with pytest.raises(dl.ProblemError, match="thread pool"), cf.ProcessPoolExecutor(1) as pool:
+        dl.calibrate(residuals, [1.0, 0.2], executor=pool)

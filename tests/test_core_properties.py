@@ -22,7 +22,8 @@ FORBIDDEN = {"sqlite3", "concurrent", "time", "os", "subprocess", "socket", "thr
 
 @pytest.mark.parametrize("module", PURE)
 def test_the_algorithm_modules_do_no_io(module):
-    # Sans-I/O design (DESIGN.md): the search imports no clock, disk, pool or network.
+    # The method does no I/O (directional/method/__init__.py and the theory of operation at the
+    # top of directional/method/search.py): it imports no clock, disk, pool or network.
     tree = ast.parse((Path(dl.__file__).parent / module).read_text())
     imported = set()
     for node in ast.walk(tree):

@@ -23,6 +23,7 @@ from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 from pathlib import Path
 
+import distributed  # a test dependency (the [test] extra): missing, the tests fail loudly
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -369,7 +370,6 @@ def test_process_pool_and_sequential_give_the_same_landscape(sequential):
 
 
 def test_dask_local_cluster_gives_the_same_landscape():
-    distributed = pytest.importorskip("distributed")
     alone = dl.explore(himmelblau, BOX, starts=8, seed=0, check="quick")
     with distributed.LocalCluster(
         n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0"
@@ -661,14 +661,25 @@ def test_an_unpicklable_objective_is_refused_for_a_process_pool():
 
 
 def test_start_map_is_drawn_from_the_evaluations_made_without_new_ones(tmp_path, sequential):
-    from directional.report.startmap import start_map
+    from matplotlib import image
 
-    path = start_map(sequential, None, tmp_path / "starts.png")
-    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    from directional.report.maps import start_map
+
+    calls = []
+
+    def counting(x):
+        calls.append(x.copy())
+        return himmelblau(x)
+
+    for objective, extra in ((counting, 0), (counting, 24), (None, 400)):
+        path = start_map(sequential, objective, tmp_path / "starts.png", extra=extra)
+        assert calls == []  # no grid of at least 5 x 5 allowed, or no objective: no evaluation
+        height, width = image.imread(path, format="png").shape[:2]  # a PNG decoded whole
+        assert height >= 600 and width >= 600
 
 
 def test_start_map_spends_at_most_extra_report_evaluations(tmp_path, sequential):
-    from directional.report.startmap import start_map
+    from directional.report.maps import start_map
 
     calls = []
 
@@ -677,12 +688,12 @@ def test_start_map_spends_at_most_extra_report_evaluations(tmp_path, sequential)
         return himmelblau(x)
 
     start_map(sequential, counting, tmp_path / "starts.png", extra=100)
-    assert 25 <= len(calls) <= 100
+    assert len(calls) == 100  # a square grid of 10 x 10, the most that fits in 100
     assert all(-5.0 <= x[0] <= 5.0 and -5.0 <= x[1] <= 5.0 for x in calls)
 
 
 def test_start_map_of_log_parameters_and_bad_pairs(tmp_path):
-    from directional.report.startmap import start_map
+    from directional.report.maps import start_map
 
     params = [
         dl.Parameter("rate", 1.0, 0.01, 100.0, scale="log"),

@@ -21,6 +21,7 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
+import distributed  # a test dependency (the [test] extra): missing, the tests fail loudly
 import numpy as np
 import pytest
 
@@ -184,7 +185,6 @@ class KillsItsWorkerOnce:
 def test_a_lost_dask_worker_costs_nothing(tmp_path):
     """Dask runs the task of a worker that died again on another one (its scheduler's own
     retry): the landscape is the one found without the death, no evaluation failed."""
-    distributed = pytest.importorskip("distributed")
     alone = dl.explore(himmelblau, BOX, starts=4, seed=0, check=False)
     objective = KillsItsWorkerOnce(str(tmp_path / "died"))
     with distributed.LocalCluster(

@@ -130,7 +130,9 @@ def test_a_missing_journal_folder_is_made(folder, capsys):
     path.write_text(GOOD + '\n[journal]\npath = "no/such/folder/run.sqlite"\n', encoding="utf-8")
     code, out, _ = run_cli("run", str(path), "--quiet", capsys=capsys)
     assert code == cli.UNVERIFIED  # check = false: no verified minimum, but the run went through
-    assert len(read_journal(folder / "no/such/folder/run.sqlite").evaluations) > 0
+    spent = int(re.search(r"and (\d+) evaluations", out)[1])  # as the summary reports them
+    assert spent > 0
+    assert len(read_journal(folder / "no/such/folder/run.sqlite").evaluations) == spent
 
 
 def read_only_folder(folder: Path) -> Path:

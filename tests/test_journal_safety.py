@@ -229,6 +229,52 @@ def test_an_edited_simulator_script_is_refused_on_the_command_line(tmp_path, cap
     assert code == cli.BAD_INPUT and "sim.py" in err and sha(journal) == before
 
 
+DECK_SIM = """\
+import sys
+values = dict(line.split("=") for line in open("deck.in").read().split())
+a, b = float(values["a"]), float(values["b"])
+print((a - CENTRE) ** 2 + 3.0 * (b + 0.5) ** 2 + 1.0)
+"""
+
+
+def deck_problem(folder: Path, centre: float = 1.0, deck: str = "a={a}\nb={b}\n") -> Path:
+    """A program fed through an input template (``deck.in``) and a copied script (``sim.py``),
+    each evaluation in its own folder."""
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "sim.py").write_text(DECK_SIM.replace("CENTRE", repr(centre)))
+    (folder / "deck.in").write_text(deck)
+    objective = (
+        f'command = [{json.dumps(sys.executable)}, "sim.py"]\n'
+        'templates = ["deck.in"]\nfiles = ["sim.py"]'
+    )
+    return problem(folder, objective)
+
+
+@pytest.mark.parametrize(
+    ("edit", "said"),
+    [
+        ({"centre": 1.5}, "the input file 'sim.py' has changed"),
+        ({"deck": "b={b}\na={a}\n"}, "the input file 'deck.in' has changed"),
+    ],
+)
+def test_an_edited_template_or_copied_file_is_refused(tmp_path, capsys, edit, said):
+    # the command names no file of its own folder: only the hashes of the template and of the
+    # copied files can tell the journal that the model changed
+    path = deck_problem(tmp_path)
+    journal = tmp_path / "problem.journal.sqlite"
+    code, first, _ = run_cli("run", str(path), "--quiet", capsys=capsys)
+    assert code == cli.OK
+    assert set(jr.read(journal).header.objective["inputs"]) == {"deck.in", "sim.py"}
+    before = sha(journal)
+    deck_problem(tmp_path, **edit)
+    code, out, err = run_cli("run", str(path), "--quiet", capsys=capsys)
+    if "centre" in edit:  # another model: the stored values are not reproduced
+        assert code == cli.BAD_INPUT and said in err and sha(journal) == before
+    else:  # the same model, its deck written in another order: reproduced, goes on with a note
+        assert code == cli.OK and said in out
+        assert first.split("\n")[0] == out.split("\n")[0]
+
+
 def test_a_new_objective_version_that_reproduces_goes_on_with_a_note(tmp_path, capsys):
     path = program_problem(tmp_path, version="tables 2024")
     code, first, _ = run_cli("run", str(path), "--quiet", capsys=capsys)

@@ -1,8 +1,9 @@
 """Checks of `directional.testproblems.mgh` against Moré, Garbow & Hillstrom (1981).
 
 Source of every reported value: J. J. Moré, B. S. Garbow and K. E. Hillstrom, "Testing Unconstrained
-Optimization Software", ACM TOMS 7(1):17-41, 1981, as transcribed in the shared reference file
-``shared/reference/mgh1981.toml`` (read here, never by the package).  Each assertion message names
+Optimization Software", ACM TOMS 7(1):17-41, 1981, as transcribed in
+``tests/reference/mgh1981.toml`` (read here, never by the package; provenance in its header and in
+``tests/reference/README.md``).  Each assertion message names
 the problem as "Moré, Garbow & Hillstrom 1981, problem N".
 
 Tolerances, and why:
@@ -26,11 +27,11 @@ from __future__ import annotations
 import math
 import tomllib
 from decimal import Decimal
-from pathlib import Path
 
 import numdifftools as nd
 import numpy as np
 import pytest
+from conftest import REFERENCE as REFERENCE_FOLDER
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.polynomial import chebyshev
@@ -39,9 +40,7 @@ from scipy.integrate import quad
 from directional.errors import ProblemError
 from directional.testproblems.mgh import TestProblem, catalogue, problem
 
-REFERENCE_FILE = (
-    Path(__file__).resolve().parents[1].parent / "shared" / "reference" / "mgh1981.toml"
-)
+REFERENCE_FILE = REFERENCE_FOLDER / "mgh1981.toml"
 REFERENCE = {
     entry["number"]: entry
     for entry in tomllib.loads(REFERENCE_FILE.read_text(encoding="utf-8"))["problem"]

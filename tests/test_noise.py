@@ -71,7 +71,8 @@ def test_failure_signals_of_the_table():
 
 def test_a_too_small_step_is_enlarged_until_the_noise_shows():
     # values rounded to 1e-6: with the step 1e-9 every value is the same; growing the step by
-    # 100 twice resolves the rounding (uniform rounding error: sigma = 1e-6 / sqrt(12))
+    # 100 twice resolves the rounding.  Rounding to a quantum q leaves an error spread evenly over
+    # a width q, of standard deviation q / sqrt(12) (common practice, no source)
     def f(x):
         return round(float(np.sum(np.sin(3 * x))), 6)
 

@@ -1,6 +1,6 @@
 """Problem files: the schema, and one malformed file per kind of mistake, each named with its line.
 
-The checks here are of our own file format (DESIGN.md, "A problem file"); the outside facts used
+The checks here are of our own file format (README, "Problem files"); the outside facts used
 are TOML's own (the TOML 1.0 specification, read through the standard library's `tomllib`).
 """
 
@@ -263,7 +263,10 @@ def test_key_lines_find_every_key_of_every_table(keys):
 
 
 def test_check_may_be_quick_but_no_other_word(tmp_path):
-    assert Problem.from_file(write(tmp_path, GOOD.replace("check = false", 'check = "quick"')))
+    quick = Problem.from_file(write(tmp_path, GOOD.replace("check = false", 'check = "quick"')))
+    assert quick.search.check == "quick"
+    plain = Problem.from_file(write(tmp_path, GOOD))
+    assert plain.search.check is False
     message = error_of(tmp_path, GOOD.replace("check = false", 'check = "thorough"'))
     assert "search.check" in message and line_of(message) == 24
 

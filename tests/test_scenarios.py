@@ -1,6 +1,7 @@
 """Checks of the demo scenarios' models: the batch bioreactor and the heater loop.
 
-The models are our own (DESIGN.md, "Demo and example data are invented"); what is checked here
+The models and their data are our own and invented (README, "directional demo"; each
+examples/*/README.md says so); what is checked here
 against the outside world is analytic: exact solutions of special cases, conservation laws,
 steady states, an independent integrator, and the chi-square law of weighted residuals.
 """
@@ -18,7 +19,8 @@ from hypothesis import strategies as st
 from scipy import stats
 from scipy.integrate import solve_ivp
 
-from directional import Parameter, ProblemError
+import directional as dl
+from directional import Parameter, ProblemError, Verdict
 from directional.testproblems import bioreactor, heater
 
 TRUTH = np.array([bioreactor.TRUTH[name] for name in bioreactor.NAMES])
@@ -360,6 +362,30 @@ def test_best_gains_sit_on_the_kp_bound():
     assert heater.cost((0.9 * kp_param.upper, best_ki)) > at_bound
 
 
+@pytest.mark.parametrize("ki", [0.005, 0.012845468, 0.03])
+def test_cost_is_continuous_in_kp(ki):
+    # Common practice, no source: a continuous function sampled ten times more finely changes ten
+    # times less between neighbours (a jump keeps its size).  The old all-or-nothing anti-windup
+    # made the cost jump by 4.6e-5 between Kp = 2.4991 and 2.4992 at Ki = 0.012845468.
+    coarse = np.array([heater.cost((kp, ki)) for kp in np.linspace(2.40, 2.50, 101)])
+    fine = np.array([heater.cost((kp, ki)) for kp in np.linspace(2.49, 2.50, 101)])
+    assert np.max(np.abs(np.diff(fine))) < 0.3 * np.max(np.abs(np.diff(coarse)))
+
+
+def test_one_search_and_six_starts_tell_the_same_story():
+    # The example's claim (examples/heater/README.md): Kp ends on its upper bound 2.5, Ki inside
+    # its bounds, the same from one start and from six, with a verdict of minimum.
+    one = dl.minimize(heater.cost, heater.PARAMETERS)
+    many = dl.explore(heater.cost, heater.PARAMETERS, starts=6)
+    for sol in (one, many.best):
+        assert sol.named["Kp"] == heater.PARAMETERS[0].upper
+        assert sol.active == ("Kp",)
+        assert sol.verdict is Verdict.MINIMUM
+    assert len(many.minima) == 1
+    assert many.best.named["Ki"] == pytest.approx(one.named["Ki"], rel=1e-4)
+    assert many.best.value == pytest.approx(one.value, rel=1e-9)
+
+
 @pytest.mark.parametrize(
     ("params", "match"),
     [((1.0,), "expected 2"), ((-1.0, 0.0), "'Kp'"), ((1.0, math.inf), "'Ki'"), ({"Kp": 1}, "Ki")],
@@ -388,5 +414,6 @@ def test_bad_plant_is_named(field, value):
 
 @pytest.mark.parametrize("module", [bioreactor, heater])
 def test_docstring_examples(module):
-    failures, _ = doctest.testmod(module)
+    failures, attempted = doctest.testmod(module)
+    assert attempted > 0, f"{module.__name__} has no examples"
     assert failures == 0

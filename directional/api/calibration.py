@@ -30,6 +30,7 @@ References
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import contextlib
 import dataclasses
 import math
@@ -40,7 +41,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from directional.api.minimization import _solution, checked_arguments
+from directional.api.minimization import _driver, _solution, checked_arguments
 from directional.errors import ProblemError
 from directional.method.curvature import combination, labels, settle, settled_solution
 from directional.method.leastsquares import (
@@ -72,7 +73,9 @@ class Uncertainty:
     Arrays run over all parameters in order (``names``); a parameter on a bound has nan errors
     and intervals.  ``intervals`` is (p, 2): lower and upper ends at ``level`` (95 %).
     ``residual_variance`` is ``s² = S / (m - p)`` with ``p`` the free parameters.
-    ``undetermined`` names the parameter combinations the data do not determine.
+    ``undetermined`` names the parameter combinations the data do not determine; ``rough`` the
+    parameters where the curvature check found the misfit not smooth (a kink or a jump): a
+    linearization says nothing there, so their errors and intervals are nan.
     """
 
     names: tuple[str, ...]
@@ -86,6 +89,7 @@ class Uncertainty:
     observations: int
     level: float = LEVEL
     undetermined: tuple[str, ...] = ()
+    rough: tuple[str, ...] = ()  # not smooth there (curvature check): no error, no interval
 
     def strongest(self, count: int = 3) -> list[tuple[str, str, float]]:
         """The ``count`` largest correlations in absolute value, as (name, name, r)."""
@@ -155,8 +159,28 @@ def uncertainty(
     )
 
 
+def _rough(result: Uncertainty, curvature: object) -> Uncertainty:
+    """No standard error or interval for a parameter where the misfit is not smooth."""
+    rough = {name for b in getattr(curvature, "breaks", ()) for name in b.parameters}
+    if not rough:
+        return result
+    keep = np.array([name not in rough for name in result.names])
+    errors = np.where(keep, result.standard_errors, np.nan)
+    intervals = np.where(keep[:, None], result.intervals, np.nan)
+    correlation = np.where(np.outer(keep, keep), result.correlation, np.nan)
+    return dataclasses.replace(
+        result, standard_errors=errors, intervals=intervals, correlation=correlation,
+        rough=tuple(name for name in result.names if name in rough),
+    )
+
+
 def _warnings(result: Uncertainty) -> list[str]:
     messages = []
+    if result.rough:
+        messages.append(
+            "no linearized interval for " + ", ".join(result.rough) + ": the misfit is not "
+            "smooth there (a kink or a jump, see the curvature check), so s²(JᵀJ)⁻¹ does not apply"
+        )
     if result.undetermined:
         messages.append(
             "the data do not determine " + "; ".join(result.undetermined)
@@ -223,8 +247,10 @@ def calibrate(
         The covariance is still scaled by s² = S / (m - p), which is near 1 when they are right.
 
     The other arguments are those of `directional.minimize`; ``budget`` counts every evaluation
-    (search, Levenberg–Marquardt, check and Jacobian).  A calibration runs its evaluations in
-    process: ``executor`` must stay None (many starts on an executor: `directional.api.explore`).
+    (search, Levenberg–Marquardt, check and Jacobian).  ``executor`` evaluates the points of a
+    batch in parallel; the residual vectors must come back to this process, so it must share
+    its memory: a thread pool (for a program, each evaluation is its own process anyway;
+    `directional.run.ordered.InOrder` keeps the journal in the serial order).
 
     Raises
     ------
@@ -243,19 +269,21 @@ def calibrate(
         point_tolerance=point_tolerance, value_tolerance=value_tolerance, check=check,
         escapes=escapes, noise=noise, sigma=None if deviations is None else deviations.tolist(),
     )
-    if executor is not None:
+    if executor is not None and isinstance(getattr(executor, "_inner", executor),
+                                           cf.ProcessPoolExecutor):
         raise ProblemError(
-            "calibrate evaluates in process: executor must be None (many starts on an executor: "
-            "directional.api.explore)"
+            "calibrate needs each residual vector back in this process: give a thread pool as "
+            "executor, not a process pool (many starts on processes: directional.api.explore)"
         )
     squares = SumOfSquares(residuals, deviations)
     watched = Progress(squares, budget=budget, enabled=None) if progress else None
     with journal_for(journal, identity, budget=budget, objective=squares) as book, (
         contextlib.closing(watched) if watched else contextlib.nullcontext()
-    ):
-        driver = Driver(
-            objective=watched or squares, budget=budget, time_limit=time_limit, **book.hooks()
-        )
+    ), _driver(watched or squares, budget, time_limit, executor, book) as driver:
+        squares.vectors.update(book.stored_vectors())  # a resumed journal: nothing recomputed
+        if squares.size is None and squares.vectors:
+            squares.size = next(iter(squares.vectors.values())).size
+        book.vectors = squares.vectors.get
         level, noted = noise_level(driver, space, noise)
         settings = floored(settings, level)
         outcome = _search(
@@ -279,7 +307,7 @@ def calibrate(
     if jacobian is None:
         notes.append("no uncertainty: an evaluation for the Jacobian failed or was not allowed")
     else:
-        result = uncertainty(space, x, jacobian, outcome.value, free)
+        result = _rough(uncertainty(space, x, jacobian, outcome.value, free), settled.curvature)
         for message in _warnings(result):
             warnings.warn(message, stacklevel=2)
             notes.append(message)

@@ -50,7 +50,7 @@ from directional.run.driver import Evaluation, Objective
 from directional.run.journal import journal_for, run_identity
 from directional.run.pool import Runner, check_picklable
 from directional.run.workers import process_pool
-from directional.solution import Solution
+from directional.solution import CAUTION, Solution, describe_break
 
 SAME_POINT = 1e-3  # scaled distance below which two end points are one minimum
 SAME_VALUE = 1e-6  # relative agreement of their values
@@ -120,6 +120,7 @@ def cluster(
     same_point: float = SAME_POINT,
     same_value: float = SAME_VALUE,
     noise: float = 0.0,
+    rough: Sequence[bool] = (),
 ) -> tuple[list[int], list[int]]:
     """Group end points into distinct minima, best first.
 
@@ -127,7 +128,10 @@ def cluster(
     in no group).  Returns ``(leaders, label)``: the index of each group's best point, best group
     first, and for each point the number of its group (-1 for a failed search).  A point joins the
     first (best) group whose leader is within ``same_point`` (Euclidean, scaled) and whose value
-    agrees within ``same_value * max(1, |f1|, |f2|)`` or ``6 * noise``.
+    agrees within ``same_value * max(1, |f1|, |f2|)`` or ``6 * noise``.  Where either point is
+    marked ``rough`` (its check found a kink or a jump there), nearness alone decides: beside a
+    corner the value changes at the slope's rate, so two searches that stopped a tolerance apart
+    on either side of it differ in value by far more than any relative agreement.
 
     >>> cluster(np.array([[0.0], [0.5], [1e-5]]), np.array([1.0, 0.0, 1.0]))
     ([1, 0], [1, 0, 1])
@@ -141,13 +145,18 @@ def cluster(
         for g, j in enumerate(leaders):
             near = float(np.linalg.norm(points[i] - points[j])) < same_point
             scale = max(1.0, abs(values[i]), abs(values[j]))
-            if near and abs(values[i] - values[j]) <= max(same_value * scale, NOISE_SPREAD * noise):
+            agree = abs(values[i] - values[j]) <= max(same_value * scale, NOISE_SPREAD * noise)
+            if near and (agree or _rough(rough, i) or _rough(rough, j)):
                 label[i] = g
                 break
         else:
             label[i] = len(leaders)
             leaders.append(i)
     return leaders, label
+
+
+def _rough(rough: Sequence[bool], i: int) -> bool:
+    return i < len(rough) and bool(rough[i])
 
 
 # --------------------------------------------------------------------------------- landscape
@@ -194,8 +203,8 @@ class Landscape:
         return self.minima[0]
 
     def summary(self) -> str:
-        """A plain-text table of the distinct minima, for people."""
-        return "\n".join(_summary_lines(self))
+        """A plain-text table of the distinct minima, for people, ending with the caution."""
+        return "\n".join([*_summary_lines(self), "", CAUTION])
 
 
 def _summary_lines(land: Landscape) -> list[str]:
@@ -232,6 +241,8 @@ def _summary_lines(land: Landscape) -> list[str]:
         if sol.curvature is not None and sol.verdict is Verdict.FLAT:
             for combination in getattr(sol.curvature, "undetermined", ()):
                 lines.append(f"  #{i + 1}: not determined: {combination}")
+        for piece in getattr(sol.curvature, "breaks", ()):
+            lines.append(f"  #{i + 1}: not smooth: {describe_break(piece)}")
     return lines
 
 
@@ -419,7 +430,11 @@ def _explore(
         if label[j] >= 0:
             final = settled[leaders[label[j]]].outcome
             final_u[j], final_f[j] = final.point, final.value
-    groups, reached = cluster(final_u, final_f, plan.same_point, plan.same_value, spread)
+    rough = [
+        label[j] >= 0 and bool(getattr(settled[leaders[label[j]]].curvature, "breaks", ()))
+        for j in range(k)
+    ]
+    groups, reached = cluster(final_u, final_f, plan.same_point, plan.same_value, spread, rough)
     evaluations = runner.log.evaluations
     if not groups and not interrupted and evaluations:
         last = evaluations[-1]

@@ -54,7 +54,7 @@ def minimize(
 
     >>> import directional as dl
     >>> sol = dl.minimize(lambda x: (x[0] - 1) ** 2 + 10 * (x[1] - x[0] ** 2) ** 2, [-1.2, 1.0])
-    >>> [round(v, 4) for v in sol.point]
+    >>> sol.point.round(4).tolist()
     [1.0, 1.0]
 
     Parameters
@@ -81,7 +81,7 @@ def minimize(
     check
         What proves the point a minimum (`directional.method.curvature`): True, a numerical Hessian with
         Richardson extrapolation and error estimate (about 6 n² + 1 evaluations); "quick", one
-        central-difference stencil (at most 2 n² + 1); False, none (the verdict stays UNCHECKED;
+        central-difference stencil (at most 2 n² + 2 n + 1); False, none (the verdict stays UNCHECKED;
         ``sol.curvature`` then holds the free estimate from the line searches).  Parameters on a
         bound are left out and listed in ``sol.active``.
     escapes

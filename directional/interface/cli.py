@@ -164,7 +164,8 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--budget", type=_positive, metavar="N", help="most evaluations (overrides the file)")
     run.add_argument("--starts", type=_positive, metavar="K",
                      help="searches from K starts (overrides the file)")
-    run.add_argument("--workers", type=_positive, metavar="W", help="processes for many starts")
+    run.add_argument("--workers", type=_positive, metavar="W",
+                     help="parallel evaluations: of many starts, or of one search's batches")
     run.add_argument("--dask", metavar="ADDRESS",
                      help="evaluate many starts on the Dask scheduler at ADDRESS (needs [dask])")
     where = run.add_mutually_exclusive_group()
@@ -272,9 +273,9 @@ def _count(text: str) -> int:
 
 
 def _version() -> str:
-    from directional import __version__
+    from directional.version import VERSION
 
-    return __version__
+    return VERSION
 
 
 # ----------------------------------------------------------------------------- the commands
@@ -287,10 +288,29 @@ def load_problem(path: str | Path) -> Problem:
     return Problem.from_file(path)
 
 
-def _demo(args: argparse.Namespace) -> int:
-    from directional.interface.demo import run
+def _demo(args: argparse.Namespace, out: TextIO | None = None) -> int:
+    """Write the demo's problem file and data into ``args.folder``, run it, write the results."""
+    from directional.interface import demo
+    from directional.interface.runs import solve
 
-    return run(args.folder, quiet=args.quiet)
+    out = sys.stdout if out is None else out
+    folder = Path(args.folder)
+    path = demo.prepare(folder)
+    problem = load_problem(path)
+    print(f"directional demo: calibrating {problem.title!r}", file=out)
+    print(demo.NOTICE, file=out)
+    sol = solve(problem, quiet=args.quiet)
+    return finish(
+        sol,
+        problem,
+        json_path=folder / "solution.json",
+        plots=folder / "plots",
+        summary=folder / "summary.txt",
+        journal=problem.journal,
+        out=out,
+        show_files=True,
+        inputs=(path, folder / "data.csv"),
+    )
 
 
 def _run(args: argparse.Namespace) -> int:
@@ -402,6 +422,11 @@ def _check(args: argparse.Namespace) -> int:
     print(f"  objective ({spec.kind}): {what}")
     if problem.journal is not None:
         print(f"  journal: {problem.journal}")
+    if problem.data is not None:
+        table = problem.table()
+        rows, series = table.observed.shape
+        print(f"  data: {table.path.name}, {rows} rows x {series} series "
+              f"({', '.join(table.names)}): the objective must give {table.size} predictions")
     tick = time.perf_counter()
     if spec.kind == "residuals":
         value, status, detail, count = _residuals_once(objective, start)
@@ -433,13 +458,10 @@ def _bench(argv: list[str]) -> int:
     """Hand the arguments to `directional.benchmarking.main` as they are."""
     try:
         from directional.benchmarking import main as bench_main
-    except ImportError:
-        if "-h" in argv or "--help" in argv:
-            print("usage: directional bench [--quick]\n\nRun the benchmarks on the standard test "
-                  "problems (not yet available in this version).")
-        else:
-            print("directional bench: not yet available in this version")
-        return OK
+    except ImportError as error:  # a damaged install: say so, do not pretend it ran
+        print(f"directional: error: the benchmarks cannot be imported ({error}); reinstall "
+              "directional", file=sys.stderr)
+        return BAD_INPUT
     try:
         return int(bench_main(argv) or 0)
     except SystemExit as done:  # its own argument parser: --help, or a bad option
@@ -486,7 +508,9 @@ def finish(
     parameters = list(problem.parameters) if problem is not None else parameters
     landscape = None if isinstance(result, Solution) else result
     if landscape is not None:
-        print(landscape.summary() + "\n\nThe best minimum:\n", file=out)
+        # the caution ends the best minimum's summary below: said once
+        table = landscape.summary().removesuffix(CAUTION).rstrip()
+        print(table + "\n\nThe best minimum:\n", file=out)
     sol = best(result)
     print(report.summary_text(sol, title, failures=landscape is None), file=out)
     if landscape is not None:
@@ -518,8 +542,6 @@ def finish(
         print("\nFiles:", file=out)
         for path in written:
             print(f"  {_shown(path)}", file=out)
-    if problem is not None and problem.objective.kind == "residuals":
-        print(f"\n{CAUTION}", file=out)
     return exit_code(sol)
 
 
@@ -563,7 +585,7 @@ def _plots(
         extra=extra, title=title,
     )
     if landscape is not None and len(sol.names) >= 2:
-        from directional.report.startmap import start_map
+        from directional.report.maps import start_map
 
         written.append(start_map(landscape, objective, folder / "starts.png", kind=kind,
                                  extra=extra, title=title))

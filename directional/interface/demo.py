@@ -11,14 +11,15 @@ biomass and substrate.  The demo writes, into ``./directional-demo/``:
 - ``plots/*.png``: the search, the profiles, the fit and the residuals.
 
 `residuals` and `fit` are the functions the problem file names (``directional.interface.demo:residuals``).
+The command line runs it (`cli`): `prepare` writes the files, then the problem file is run as
+``directional run`` would.
 """
 
 from __future__ import annotations
 
-import sys
 from importlib import resources
 from pathlib import Path
-from typing import Any, TextIO
+from typing import Any
 
 import numpy as np
 
@@ -26,6 +27,7 @@ from directional.testproblems import bioreactor
 
 FOLDER = "directional-demo"
 TITLE = "Batch culture (invented data): Monod growth constants"
+NOTICE = "  (the data are invented for this demo; they are not measurements)"
 
 PROBLEM = f'''\
 # The directional demo: calibrate a batch-bioreactor model (Monod growth with decay) to an
@@ -119,28 +121,3 @@ def prepare(folder: str | Path = FOLDER) -> Path:
     data = resources.files("directional.testproblems").joinpath(bioreactor.DATA_FILE)
     (folder / "data.csv").write_text(data.read_text(encoding="utf-8"), encoding="utf-8")
     return problem
-
-
-def run(folder: str | Path = FOLDER, *, quiet: bool = False, out: TextIO | None = None) -> int:
-    """Run the demo into ``folder``; return the exit code of ``directional demo``."""
-    from directional.interface.cli import finish, load_problem
-    from directional.interface.runs import solve
-
-    out = sys.stdout if out is None else out
-    path = prepare(folder)
-    problem = load_problem(path)
-    print(f"directional demo: calibrating {problem.title!r}", file=out)
-    print("  (the data are invented for this demo; they are not measurements)", file=out)
-    sol = solve(problem, quiet=quiet)
-    folder = Path(folder)
-    return finish(
-        sol,
-        problem,
-        json_path=folder / "solution.json",
-        plots=folder / "plots",
-        summary=folder / "summary.txt",
-        journal=problem.journal,
-        out=out,
-        show_files=True,
-        inputs=(path, folder / "data.csv"),
-    )

@@ -12,10 +12,10 @@ journal ends, which gives the solution as the run had it at that moment.
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import contextlib
 import dataclasses
 import io
-import math
 import os
 import tempfile
 from collections.abc import Callable
@@ -24,6 +24,9 @@ from typing import Any
 
 import numpy as np
 
+from directional.api.explore import explore
+from directional.api.resume import ENTRY_POINTS
+from directional.api.resume import resume as resumed
 from directional.errors import JournalError, ObjectiveError, ProblemError
 from directional.interface.problemfile import Problem
 from directional.records import Stop
@@ -37,35 +40,22 @@ PROBLEM_KEY = "problem"  # header note: the absolute path of the problem file
 WORKERS_KEY = "workers"  # header note: the processes of a many-start run, used again on resume
 
 
-def entry_point(problem: Problem) -> Callable[..., Any]:
-    """The library function that runs ``problem``: minimize, calibrate or explore.
+def run_kind(problem: Problem) -> str:
+    """The kind of run ``problem`` asks for: "explore", "calibrate" or "minimize".
 
     Raises
     ------
     ProblemError
-        When the function the problem needs is not in this version of the package.
+        For many starts of a residuals objective, which no entry point runs.
     """
     if problem.search.starts > 1:
-        from directional.api.explore import explore
-
         if problem.objective.kind == "residuals":
             raise ProblemError(
                 f"{problem.where('search.starts')}: many starts of a residuals objective are not "
                 "supported; use kind = \"value\" with the sum of squares, or starts = 1"
             )
-        return explore
-    if problem.objective.kind == "residuals":
-        try:
-            from directional.api.calibration import calibrate
-        except ImportError:
-            raise ProblemError(
-                f"{problem.where('objective.kind')}: kind = \"residuals\" needs dl.calibrate, "
-                "which this version does not have yet"
-            ) from None
-        return calibrate
-    from directional.api.minimization import minimize
-
-    return minimize
+        return "explore"
+    return "calibrate" if problem.objective.kind == "residuals" else "minimize"
 
 
 def best(result: Any) -> Solution:
@@ -95,6 +85,8 @@ def solve(
     """Run ``problem``; return its `Solution`, or the `Landscape` of a many-start run.
 
     ``executor`` (a many-start run only) evaluates the starts' points, e.g. on a Dask cluster.
+    One search with ``search.workers`` above 1 evaluates the points of each batch in parallel
+    (`batch_executor`); its journal is the same as a serial run's, in the same order.
 
     ``journal=True`` uses the problem's own journal path (if any), a path overrides it, None or
     False keeps none.  ``budget`` overrides the problem's.  The progress bar goes to standard
@@ -105,7 +97,7 @@ def solve(
     ProblemError, ObjectiveError, JournalError
         As the library function that runs the problem.
     """
-    run = entry_point(problem)
+    run = ENTRY_POINTS[run_kind(problem)]
     spec = problem.search
     objective = problem.make_objective() if objective is None else objective
     path = problem.journal if journal is True else (journal or None)
@@ -138,9 +130,13 @@ def solve(
     else:
         options["budget"] = budget
         bar_total = budget or 1000 * (len(problem.parameters) + 1)
+        executor = batch_executor(problem, spec.workers)
+        if executor is not None:
+            options["executor"] = executor
     wrapped = objective
     bar = None
-    if not (many and (spec.workers > 1 or executor is not None)):
+    in_process = not isinstance(getattr(executor, "_inner", None), cf.ProcessPoolExecutor)
+    if not (many and (spec.workers > 1 or executor is not None)) and in_process:
         bar = Progress(objective, budget=bar_total, kind=problem.objective.kind,
                        enabled=False if quiet else None)
         wrapped = bar
@@ -151,6 +147,45 @@ def solve(
     finally:
         if bar is not None:
             bar.close()
+        if not many and executor is not None:
+            executor.shutdown(wait=True, cancel_futures=True)
+
+
+def batch_executor(problem: Problem, workers: int) -> Any:
+    """The executor that evaluates one search's batches on ``workers``, or None for one.
+
+    A program runs on threads of this process (each evaluation is a process of its own, so
+    they run in parallel; a residual vector comes back in memory); a Python function of kind
+    ``"value"`` on a process pool, one of kind ``"residuals"`` on threads (faster only where it
+    releases the GIL: numpy, a wrapped compiled model).  Results are delivered in submission
+    order (`directional.run.ordered.InOrder`), so the journal is that of a serial run.
+
+    Raises
+    ------
+    ProblemError
+        For a program that reads its answer from a file in one shared folder: parallel runs
+        would overwrite each other's file (use ``fresh_folder = true``).
+    """
+    if workers <= 1:
+        return None
+    from directional.interface.reading import parse
+    from directional.run.ordered import InOrder
+
+    spec = problem.objective
+    if spec.command is not None:
+        if not spec.fresh_folder and parse(spec.read, vector=spec.kind == "residuals").file:
+            raise ProblemError(
+                f"{problem.where('objective.read')}: with {workers} workers the runs would share "
+                f"one folder and overwrite each other's {spec.read!r}: set fresh_folder = true"
+            )
+        inner: cf.Executor = cf.ThreadPoolExecutor(workers, thread_name_prefix="directional")
+    elif spec.kind == "residuals":
+        inner = cf.ThreadPoolExecutor(workers, thread_name_prefix="directional")
+    else:
+        from directional.run.workers import process_pool
+
+        inner = process_pool(workers)  # the workers end with this process (`run.workers`)
+    return InOrder(inner, workers=workers)
 
 
 def problem_of_journal(path: str | os.PathLike[str], problem_file: str | Path | None = None) -> Problem:
@@ -205,11 +240,11 @@ def resume(
     options: dict[str, Any] = {"fingerprint": problem.fingerprint(), "retry_failed": retry_failed}
     workers = contents.header.info.get(WORKERS_KEY, 1)
     if contents.header.kind == "explore" and isinstance(workers, int) and workers > 1:
-        return journals.resume(path, objective, budget=budget, workers=workers, **options)
+        return resumed(path, objective, budget=budget, workers=workers, **options)
     bar = Progress(objective, budget=total, kind=problem.objective.kind,
                    enabled=False if quiet else None, done=done)
     try:
-        return journals.resume(path, bar, budget=budget, **options)
+        return resumed(path, bar, budget=budget, **options)
     finally:
         bar.close()
 
@@ -271,13 +306,11 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
         target = journals.Target(copy, verify=False)
         with contextlib.redirect_stderr(io.StringIO()):
             if contents.header.kind == "explore":
-                from directional.api.explore import explore
-
                 arguments = dict(contents.header.identity.get("arguments", {}))
                 result = explore(_refuse, contents.header.parameters, journal=target,
                                  budget=contents.header.budget, total_budget=stored, **arguments)
             else:
-                result = journals.resume(target, _refuse, budget=stored)
+                result = resumed(target, _refuse, budget=stored)
     if isinstance(result, Solution):
         result = _ended(result, contents, holder(Path(path)), stored)
     return result, contents
@@ -312,10 +345,3 @@ def _refuse(x: np.ndarray) -> float:
     raise ObjectiveError("show evaluates nothing")  # never called: the budget ends first
 
 
-def value_of(result: Any, kind: str) -> float:
-    """One objective result as a number (the sum of squares for residuals); nan if not one."""
-    if kind == "residuals":
-        r = np.asarray(result, dtype=float).ravel()
-        return float(r @ r)
-    value = float(np.asarray(result, dtype=float).reshape(()))
-    return value if math.isfinite(value) else math.nan

@@ -12,7 +12,7 @@ point it returns is checked.
 2. Paid check.  A Hessian in scaled coordinates (`directional.method.space`) over the parameters that are
    not on a bound: by numdifftools' central differences with Richardson extrapolation and its
    error estimate (``check=True``, 6 n² + 1 evaluations), or by one plain central-difference
-   stencil (``check="quick"``, 2 n² + 1).  Every stencil point is known before any value is, so
+   stencil (``check="quick"``, 2 n² + 2 n + 1).  Every stencil point is known before any value is, so
    the stencil goes to the driver as one batch (an executor evaluates it in parallel); see
    `directional.method.hessian`.  Steps are never below what the noise allows; with a stated noise
    level, a stencil whose steps were sized from a curvature that the measurement belies is
@@ -23,7 +23,12 @@ point it returns is checked.
    (`eigenvalue_margins`): an eigenvalue above its bar is clearly positive, one below minus its
    bar clearly negative, the rest indistinguishable from zero.  MINIMUM: all clearly positive;
    MAXIMUM: all clearly negative; SADDLE: some clearly negative; FLAT: none negative, some zero
-   (the combinations of parameters along those eigenvectors are reported by name).
+   (the combinations of parameters along those eigenvectors are reported by name).  Before that,
+   the stencil's values along each axis are tested for kinks and jumps
+   (`directional.method.smoothness`); where the objective is not smooth the verdict is NONSMOOTH
+   (unless the smooth rest is a saddle or flat), the break is named (`records.Break`), and the
+   curvature is judged on the directions orthogonal to it only.  A direction along a kinked
+   valley that still goes down is escaped along, like one of negative curvature.
 4. Escape.  On SADDLE or MAXIMUM the eigenvector of most negative curvature is line-searched both
    ways, the direction-set search restarts from the better point, and the new point is checked:
    at most ``escapes`` times.  When the line search gains less than the search's own value
@@ -61,8 +66,9 @@ from directional.method.hessian import (
 )
 from directional.method.linesearch import line_search
 from directional.method.search import FIRST_STEP, Settings, powell
+from directional.method.smoothness import AXIS, Finding, examine
 from directional.method.space import Space
-from directional.records import Batch, Curvature, Halt, Outcome, Stop, Verdict
+from directional.records import Batch, Break, Curvature, Halt, Outcome, Stop, Verdict
 from directional.run.driver import Driver
 from directional.solution import Solution
 
@@ -120,7 +126,7 @@ def equilibration(hessian: np.ndarray, *, sweeps: int = 60) -> np.ndarray:
     """
     a = np.abs(np.asarray(hessian, dtype=float))
     d = np.ones(len(a))
-    for _ in range(sweeps):
+    for _ in range(sweeps if len(a) else 0):
         rows = np.max(a / np.outer(d, d), axis=1)
         step = np.sqrt(np.where(rows > 0.0, rows, 1.0))
         d = d * step
@@ -307,13 +313,14 @@ def check_point(
         )
     room = np.minimum(u0 - space.lower_u, space.upper_u - u0)[free]
     diagonal = np.full(int(free.sum()), np.nan) if free_scaled is None else np.diag(free_scaled)[free]
+    seen: list[tuple[np.ndarray, np.ndarray]] = []  # every stencil point and value, for smoothness
     for attempt in range(RESIZES + 1):
         steps = step_sizes(diagonal, f0, noise, room, method)
         try:
             if method == "quick":
-                measured = yield from quick_hessian(space, u0, free, steps)
+                measured = yield from _seen(quick_hessian(space, u0, free, steps), seen)
             else:
-                measured = yield from extrapolated_hessian(space, u0, free, steps)
+                measured = yield from _seen(extrapolated_hessian(space, u0, free, steps), seen)
         except Halt as halt:
             return Checked(
                 verdict=Verdict.UNCHECKED, curvature=free_rec,
@@ -329,7 +336,56 @@ def check_point(
         if noise is None or attempt == RESIZES or not np.any(found < 0.25 * used):
             break
         diagonal = np.where(found < 0.25 * used, found, diagonal)
-    return _verdict(space, free, measured, f0, noise, method, free_rec)
+    return (yield from _judged(space, u0, f0, free, measured, noise, method, free_rec, seen))
+
+
+def _seen(
+    stencil: Generator[Batch, np.ndarray, Measured], seen: list[tuple[np.ndarray, np.ndarray]]
+) -> Generator[Batch, np.ndarray, Measured]:
+    """Pass a stencil's batches through unchanged, keeping each batch's points and values."""
+    try:
+        batch = next(stencil)
+        while True:
+            values = yield batch
+            seen.append((batch.points, np.asarray(values, dtype=float)))
+            batch = stencil.send(values)
+    except StopIteration as stop:
+        return stop.value
+
+
+def _judged(
+    space: Space,
+    u0: np.ndarray,
+    f0: float,
+    free: np.ndarray,
+    measured: Measured,
+    noise: float | None,
+    method: str,
+    free_rec: Curvature | None,
+    seen: list[tuple[np.ndarray, np.ndarray]],
+) -> Check:
+    """Smoothness first (`smoothness.examine`, a few more points), then the verdict on the smooth
+    part, and an escape along a kinked valley's floor where it still goes down."""
+    points = np.concatenate([p for p, _ in seen])
+    values = np.concatenate([v for _, v in seen])
+    try:
+        found = yield from examine(
+            space, u0, f0, free, (points, values), measured.hessian, noise=noise
+        )
+    except Halt as halt:
+        return Checked(
+            verdict=Verdict.UNCHECKED, curvature=free_rec,
+            note=f"the smoothness check could not finish: {halt.reason}",
+        )
+    checked = _verdict(space, free, measured, f0, noise, method, free_rec, found.breaks,
+                       (found.basis, found.known))
+    if found.note:
+        checked = dataclasses.replace(checked, note=found.note)
+    if checked.escape is None and found.downhill is not None:
+        escape = np.zeros(space.size)
+        escape[free] = found.downhill
+        checked = dataclasses.replace(checked, escape=escape)
+    return checked
 
 
 def _verdict(
@@ -340,17 +396,27 @@ def _verdict(
     noise: float | None,
     method: str,
     free_rec: Curvature | None,
+    breaks: list[tuple[np.ndarray, Finding]] | None = None,
+    smooth_part: tuple[np.ndarray, dict[int, tuple[float, float]]] | None = None,
 ) -> Checked:
     level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
     smallest = measured.steps if method == "quick" else measured.steps / RATIO ** (STEPS - 1)
     error = measured.error + noise_margin(smallest, level)
-    d = equilibration(np.maximum(np.abs(measured.hessian), error))
-    eigenvalues, eigenvectors = np.linalg.eigh(measured.hessian / np.outer(d, d))
-    margins = eigenvalue_margins(eigenvectors, error / np.outer(d, d))
-    margins += 64.0 * EPSILON * float(np.max(np.abs(eigenvalues)))
-    verdict = classify(eigenvalues, margins)
-    margin = float(margins[0])  # that of the smallest eigenvalue, the one the verdict turns on
-    directions = eigenvectors / d[:, None]  # back from the equilibrated to the scaled coordinates
+    breaks = breaks or []
+    # the curvature is judged on the smooth part only: the directions orthogonal to the breaks
+    basis, known = smooth_part or (np.eye(int(free.sum())), {})
+    hessian = basis.T @ measured.hessian @ basis
+    reduced = np.abs(basis).T @ error @ np.abs(basis)
+    for column, (curvature, bar) in known.items():
+        hessian[column, column], reduced[column, column] = curvature, bar
+    d = equilibration(np.maximum(np.abs(hessian), reduced))
+    eigenvalues, eigenvectors = np.linalg.eigh(hessian / np.outer(d, d))
+    margins = eigenvalue_margins(eigenvectors, reduced / np.outer(d, d))
+    if len(eigenvalues):
+        margins += 64.0 * EPSILON * float(np.max(np.abs(eigenvalues)))
+    verdict = _with_breaks(classify(eigenvalues, margins), breaks)
+    margin = float(margins[0]) if len(margins) else math.nan  # the smallest eigenvalue's
+    directions = basis @ (eigenvectors / d[:, None])  # back to the scaled coordinates
     scale = space.scale[free]
     names = labels(space, free)
     zero = np.abs(eigenvalues) <= margins
@@ -359,12 +425,48 @@ def _verdict(
         measured.hessian, error, scale, method, names=names, margin=margin,
         undetermined=undetermined, free=free_rec,
     )
+    if breaks:
+        curvature = dataclasses.replace(
+            curvature, breaks=tuple(_break(v, f, scale, names, space, free) for v, f in breaks)
+        )
     escape = None
     if verdict in (Verdict.SADDLE, Verdict.MAXIMUM):
         escape = np.zeros(space.size)
         most = directions[:, int(np.argmin(eigenvalues))]
         escape[free] = most / np.linalg.norm(most)
     return Checked(verdict=verdict, curvature=curvature, escape=escape)
+
+
+def _with_breaks(smooth: Verdict, breaks: list[tuple[np.ndarray, Finding]]) -> Verdict:
+    """The verdict when the objective is not smooth along ``breaks``: negative curvature of the
+    smooth part still wins (it can be escaped), then a combination not determined, then NONSMOOTH.
+    With every direction broken the smooth part is empty (UNCHECKED from `classify`)."""
+    if not breaks:
+        return smooth
+    if smooth in (Verdict.SADDLE, Verdict.MAXIMUM, Verdict.FLAT):
+        return smooth
+    return Verdict.NONSMOOTH
+
+
+def _break(
+    v: np.ndarray, found: Finding, scale: np.ndarray, names: tuple[str, ...], space: Space,
+    free: np.ndarray,
+) -> Break:
+    """A `Break` record in search coordinates for the unit direction ``v`` (scaled, free)."""
+    w = scale * v
+    length = float(np.linalg.norm(w))
+    sign = 1.0 if w[np.argmax(np.abs(w))] > 0 else -1.0  # as `combination` writes it
+    slopes = np.array(found.slopes) / length
+    if sign < 0:
+        slopes = slopes[::-1]
+    involved = np.abs(w) >= 0.1 * np.max(np.abs(w))
+    parameters = tuple(str(n) for n, keep in zip(np.array(space.names)[free], involved) if keep)
+    axis = np.abs(v) > AXIS
+    return Break(
+        along=names[int(np.argmax(axis))] if axis.any() else combination(w, names),
+        kind=found.kind, parameters=parameters, slopes=(float(slopes[0]), float(slopes[1])),
+        change=found.change, step=found.step * length,
+    )
 
 
 # ----------------------------------------------------------------------------- escape
@@ -501,6 +603,9 @@ def settle(
             notes.append(f"{checked.verdict.value} at {where}: the escape along {along} was stopped")
             return _settled(space, outcome, verdict=checked.verdict, curvature=curvature,
                             notes=tuple(notes), escapes=escaped)
+        if not moved.value < outcome.value - floor and checked.verdict is Verdict.NONSMOOTH:
+            return _settled(space, outcome, verdict=checked.verdict, curvature=curvature,
+                            notes=tuple(notes), escapes=escaped)  # the slope along it was tiny
         if not moved.value < outcome.value - floor:
             notes.append(
                 f"{checked.verdict.value} at {where}: no appreciably lower point along {along}; "

@@ -53,11 +53,18 @@ def powell_accepts(f0: float, fn: float, fe: float, largest_drop: float) -> bool
 
     ``f0`` is the value at the start of the cycle, ``fn`` at its end, ``fe`` at the point
     extrapolated as far again, ``largest_drop`` the largest decrease of one line search in the
-    cycle.  The new direction is taken when extrapolating helps and when the decrease is not owed
-    mostly to the one direction it would replace; this keeps the set from collapsing.
+    cycle.  The new direction replaces the one of largest decrease when extrapolating helps and
+    the cycle's decrease is owed mostly to that one direction; otherwise the set is kept, which
+    keeps it from collapsing.
 
-    >>> powell_accepts(10.0, 4.0, 3.0, 1.0)
+    A cycle that lowered f from 10 to 4, with 3 one step further on: if one line search gave 5
+    of the 6, its direction is replaced; if the decrease was spread (at most 1 per search), the
+    set is kept.
+
+    >>> powell_accepts(10.0, 4.0, 3.0, 5.0)
     True
+    >>> powell_accepts(10.0, 4.0, 3.0, 1.0)
+    False
     """
     if not fe < f0:
         return False

@@ -7,8 +7,9 @@ stencil point is known before any value is, so each stencil goes out as one batc
 
 - `extrapolated_hessian`: numdifftools' central differences at three steps with Richardson
   extrapolation and its error estimate; 6 n² + 1 evaluations.
-- `quick_hessian`: one central-difference stencil, at most 2 n² + 1 evaluations; its error bars
-  hold the noise's share only.
+- `quick_hessian`: one central-difference stencil and the half steps along the axes (for
+  `directional.method.smoothness`), at most 2 n² + 2 n + 1 evaluations; its error bars hold the
+  noise's share only.
 
 `step_sizes` chooses the steps from the expected curvatures and the noise level, never below
 what the noise allows.
@@ -23,19 +24,18 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Generator
+from collections.abc import Generator
 from dataclasses import dataclass
 
-import numdifftools as nd
 import numpy as np
 
+from directional.method import differences
+from directional.method.differences import RATIO, STEPS
 from directional.method.space import Space
 from directional.records import Batch
 
 EPSILON = float(np.finfo(float).eps)
 LARGEST_STEP = 0.1  # no stencil step beyond a tenth of the problem's size (scaled coordinates)
-RATIO = 2.0  # ratio of the successive steps numdifftools extrapolates from
-STEPS = 3  # steps numdifftools extrapolates from: 3 stencils of 2 n² points, 6 n² + 1 evaluations
 SMALLEST_STEP = EPSILON ** (1.0 / 3.0)  # the points' own rounding stays below 1e-10 of a step
 NOISE_SHARE = 0.01  # noise may spoil at most 1 % of a curvature (at 3 sigma) at the smallest step
 
@@ -102,42 +102,6 @@ class Measured:
     problem: str = ""  # why the measurement is unusable ("" when it is fine)
 
 
-def _estimate_fields(result: object) -> tuple[np.ndarray, np.ndarray]:
-    """numdifftools' estimate and error estimate, by name, whatever its version returns.
-
-    0.11 returns a named tuple ``EstimateResult(estimate, error_estimate, final_step,
-    best_index)``; some earlier versions return ``(estimate, info)`` with ``info.error_estimate``.
-    """
-    estimate = getattr(result, "estimate", None)
-    if estimate is not None:
-        return np.asarray(estimate, dtype=float), np.asarray(result.error_estimate, dtype=float)
-    estimate, info = result  # type: ignore[misc]
-    return np.asarray(estimate, dtype=float), np.asarray(info.error_estimate, dtype=float)
-
-
-def numdifftools_hessian(
-    function: Callable[[np.ndarray], float], steps: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """The adapter: numdifftools' extrapolated central-difference Hessian of ``function`` at 0.
-
-    ``steps`` are the largest steps per coordinate; numdifftools uses ``steps / 2**k`` for
-    k = 0, 1, 2 and extrapolates.  Returns ``(hessian, error_estimate)``, both (k, k).  The
-    function is evaluated at 0 so that numdifftools' nominal step is 1 in every coordinate.
-    """
-    generator = nd.MaxStepGenerator(
-        base_step=np.asarray(steps, dtype=float),
-        step_ratio=RATIO,
-        num_steps=STEPS,
-        step_nom=1.0,
-        offset=0,
-        use_exact_steps=True,
-    )
-    hessian = nd.Hessian(function, step=generator, method="central", full_output=True)
-    estimate, error = _estimate_fields(hessian(np.zeros(len(steps))))
-    k = len(steps)
-    return estimate.reshape(k, k), error.reshape(k, k)
-
-
 def _embed(space: Space, u0: np.ndarray, free: np.ndarray, v: np.ndarray) -> np.ndarray:
     """User points for steps ``v`` (rows, over the free parameters) from the scaled point u0."""
     u = np.repeat(u0[None, :], len(v), axis=0)
@@ -151,15 +115,15 @@ def extrapolated_hessian(
     """numdifftools' Hessian with the stencil evaluated as one batch (purpose "hessian").
 
     numdifftools calls its function one point at a time.  A first pass with a function that only
-    records the points (their positions do not depend on the values for fixed steps) collects the
-    stencil; it is evaluated as one batch; a second pass reads the values back.  Should the second
+    records the points (`differences.Recorder`) collects the stencil; it is evaluated as one
+    batch; a second pass reads the values back.  Should the second
     pass ask for a point not recorded, that point is evaluated in a further batch and the pass
     repeated (at most twice).
     """
-    table = _Table()
+    table = differences.Recorder(0.0)
     for _ in range(3):
         table.missing = {}
-        hessian, error = numdifftools_hessian(table.lookup, steps)
+        hessian, error = differences.hessian(table, steps)
         if not table.missing:
             return _checked_measure(hessian, error, steps, table.known)
         values = yield Batch(
@@ -171,22 +135,6 @@ def extrapolated_hessian(
             problem = f"{bad} of the {len(values)} stencil evaluations failed"
             return Measured(hessian=hessian, error=error, steps=steps, problem=problem)
     return Measured(hessian=hessian, error=error, steps=steps, problem="the stencil kept changing")
-
-
-class _Table:
-    """Values known so far by stencil step (bytes of the step vector), and the steps still missing."""
-
-    def __init__(self) -> None:
-        self.known: dict[bytes, float] = {}
-        self.missing: dict[bytes, np.ndarray] = {}
-
-    def lookup(self, v: np.ndarray) -> float:
-        v = np.asarray(v, dtype=float)
-        key = v.tobytes()
-        if key in self.known:
-            return self.known[key]
-        self.missing.setdefault(key, v.copy())
-        return 0.0
 
 
 def _checked_measure(
@@ -202,12 +150,14 @@ def _checked_measure(
 def quick_hessian(
     space: Space, u0: np.ndarray, free: np.ndarray, steps: np.ndarray
 ) -> Generator[Batch, np.ndarray, Measured]:
-    """A plain central-difference Hessian: one batch of at most 2 k² + 1 points (k free).
+    """A plain central-difference Hessian: one batch of at most 2 k² + 2 k + 1 points (k free).
 
     ``H_ii = (f(+h_i) - 2 f(0) + f(-h_i)) / h_i²`` and
     ``H_ij = (f(+h_i, +h_j) - f(+h_i, -h_j) - f(-h_i, +h_j) + f(-h_i, -h_j)) / (4 h_i h_j)``
-    (common practice, no source).  Its error bars hold the noise's share only (`_noise_margin`,
-    added by the caller): a single stencil cannot estimate its own truncation error.
+    (common practice, no source).  The batch also holds ``±h_i / 2`` along each axis: unused
+    here, they give the smoothness test its second scale.  Its error bars hold the noise's share
+    only (`_noise_margin`, added by the caller): a single stencil cannot estimate its own
+    truncation error.
     """
     k = len(steps)
     rows = [np.zeros(k)]
@@ -221,6 +171,11 @@ def quick_hessian(
         for si, sj in ((1.0, 1.0), (1.0, -1.0), (-1.0, 1.0), (-1.0, -1.0)):
             v = np.zeros(k)
             v[i], v[j] = si * steps[i], sj * steps[j]
+            rows.append(v)
+    for i in range(k):  # half steps along each axis: two scales, for the smoothness test
+        for sign in (0.5, -0.5):
+            v = np.zeros(k)
+            v[i] = sign * steps[i]
             rows.append(v)
     values = yield Batch(points=_embed(space, u0, free, np.array(rows)), purpose="hessian")
     known = {row.tobytes(): float(value) for row, value in zip(rows, values)}

@@ -22,10 +22,10 @@ import math
 from collections.abc import Callable, Generator
 from dataclasses import dataclass
 
-import numdifftools as nd
 import numpy as np
 
 from directional.errors import ObjectiveError
+from directional.method import differences
 from directional.method.space import Space
 from directional.records import Batch, Halt, Stop
 
@@ -38,6 +38,23 @@ JACOBIAN_STEP = 1e-3  # largest step of numdifftools' extrapolated Jacobian (sca
 
 
 # ----------------------------------------------------------------------------- the objective
+
+
+def sum_of_squares(result: object) -> float:
+    """The value of a residual vector: the sum of its squares (nan when it is not numeric).
+
+    For reports and the progress bar, which must not fail; the search's own objective is
+    `SumOfSquares`, which raises on a result that is not a flat array.
+
+    >>> sum_of_squares([3.0, 4.0])
+    25.0
+    """
+    try:
+        r = np.asarray(result, dtype=float).ravel()
+    except (TypeError, ValueError):
+        return math.nan
+    with np.errstate(over="ignore", invalid="ignore"):  # inf when it overflows: no warning
+        return float(r @ r)
 
 
 class SumOfSquares:
@@ -240,8 +257,9 @@ def extrapolated_jacobian(
 ) -> Generator[Batch, np.ndarray, np.ndarray | None]:
     """numdifftools' extrapolated central-difference Jacobian (scaled coordinates), one batch.
 
-    The stencil is recorded in a first pass, evaluated as one batch (purpose "jacobian"), and
-    read back in a second, as for the Hessian (`hessian.extrapolated_hessian`).  Columns of
+    The stencil is recorded in a first pass (`differences.Recorder`), evaluated as one batch
+    (purpose "jacobian"), and read back in a second, as for the Hessian
+    (`hessian.extrapolated_hessian`).  Columns of
     parameters not ``free`` are zero; None when an evaluation failed.
     """
     columns = np.flatnonzero(free)
@@ -249,55 +267,25 @@ def extrapolated_jacobian(
         return np.zeros((squares.size or 0, space.size))
     below, above = room_to_bounds(space, u)
     steps = np.minimum(JACOBIAN_STEP, np.minimum(below, above)[columns])
-    known: dict[bytes, np.ndarray] = {}
     size = squares.size or 1
+    table = differences.Recorder(np.zeros(size))
     for _ in range(3):
-        missing: dict[bytes, np.ndarray] = {}
-        estimate = _nd_jacobian(_Lookup(known, missing, size), steps)
-        if not missing:
+        table.missing = {}
+        estimate = differences.jacobian(table, steps)
+        if not table.missing:
             if not np.all(np.isfinite(estimate)):
                 return None
             jacobian = np.zeros((estimate.shape[0], space.size))
             jacobian[:, columns] = estimate
             return jacobian
-        offsets = np.zeros((len(missing), space.size))
-        offsets[:, columns] = np.array(list(missing.values()))
+        offsets = np.zeros((len(table.missing), space.size))
+        offsets[:, columns] = np.array(list(table.missing.values()))
         points = space.to_user(u + offsets)
         try:
             values = yield Batch(points=points, purpose="jacobian")
         except Halt:
             return None
-        for key, x, value in zip(missing, points, values):
+        for key, x, value in zip(table.missing, points, values):
             r = squares.vector(x) if math.isfinite(value) else None
-            known[key] = np.full(size, np.nan) if r is None else r
+            table.known[key] = np.full(size, np.nan) if r is None else r
     return None
-
-
-class _Lookup:
-    """numdifftools' function for the recording and reading passes (see `extrapolated_jacobian`)."""
-
-    def __init__(self, known: dict[bytes, np.ndarray], missing: dict[bytes, np.ndarray], size: int):
-        self.known, self.missing, self.size = known, missing, size
-
-    def __call__(self, v: np.ndarray) -> np.ndarray:
-        v = np.asarray(v, dtype=float)
-        key = v.tobytes()
-        if key in self.known:
-            return self.known[key]
-        self.missing.setdefault(key, v.copy())
-        return np.zeros(self.size)
-
-
-def _nd_jacobian(function: Callable[[np.ndarray], np.ndarray], steps: np.ndarray) -> np.ndarray:
-    """The numdifftools adapter for a Jacobian at 0 (nominal step 1), extrapolated from 3 steps."""
-    generator = nd.MaxStepGenerator(
-        base_step=np.asarray(steps, dtype=float), step_ratio=2.0, num_steps=3, step_nom=1.0,
-        offset=0, use_exact_steps=True,
-    )
-    result = nd.Jacobian(function, step=generator, method="central", full_output=True)(
-        np.zeros(len(steps))
-    )
-    estimate = getattr(result, "estimate", None)
-    if estimate is None:
-        estimate = result[0]
-    return np.atleast_2d(np.asarray(estimate, dtype=float)).reshape(-1, len(steps))

@@ -6,7 +6,9 @@
 - ``profiles.png``: the objective along each parameter through the minimum, with the parabola of
   the Hessian's diagonal drawn over it.
 - ``fit.png`` and ``residuals.png``: for a calibration, the model against the data and the
-  residuals at the minimum.
+  residuals at the minimum, model minus data (divided by sigma where known), the sign of the
+  residual vector the calibration minimizes.  With a problem file's ``[data]`` table the series
+  come from the table and one report-only run of the objective at the minimum.
 
 Maps and profiles need values the search never computed.  They are *report-only evaluations*:
 made here by calling the objective directly, at most ``extra`` of them, never journaled and never
@@ -28,7 +30,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from directional.parameters import Parameter
-from directional.run.progress import sum_of_squares
+from directional.report.maps import MAP, evaluate_grid, grid_map, report_value, scattered_map
 from directional.solution import Solution
 
 STYLE = {
@@ -42,7 +44,7 @@ STYLE = {
 }
 DPI = 120
 PROFILE_POINTS = 15  # report-only evaluations per parameter (common practice, no source)
-MAP_SIDE = 20  # the contour map's grid is at most MAP_SIDE x MAP_SIDE
+MAP_SIDE = 20  # the contour map's grid is at most MAP_SIDE x MAP_SIDE (maps: `report.maps`)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -92,7 +94,7 @@ def write_plots(
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     axes = _coordinates(sol, parameters)
-    value = _valuer(objective, kind) if objective is not None and extra > 0 else None
+    value = report_value(objective, kind) if objective is not None and extra > 0 else None
     written = [_history(sol, folder / "history.png", kind, title)]
     budget = extra
     widths = _widths(sol, axes, kind, value)
@@ -136,25 +138,6 @@ def _coordinates(sol: Solution, parameters: Sequence[Parameter] | None) -> _Axes
         lower = np.where(log, np.log(np.where(log, sol.lower, 1.0)), sol.lower)
         upper = np.where(log, np.log(np.where(log, sol.upper, 1.0)), sol.upper)
     return _Axes(log=log, lower=lower, upper=upper)
-
-
-def _valuer(objective: Callable[[np.ndarray], Any], kind: str) -> Callable[[np.ndarray], float]:
-    """The objective as a plain number, nan when it fails (report-only evaluations)."""
-
-    def value(x: np.ndarray) -> float:
-        try:
-            result = objective(np.array(x, dtype=float))
-        except Exception:  # a failed report evaluation leaves a gap
-            return math.nan
-        if kind == "residuals":
-            return sum_of_squares(result)
-        try:
-            v = float(np.asarray(result, dtype=float).reshape(()))
-        except (TypeError, ValueError):
-            return math.nan
-        return v if math.isfinite(v) else math.nan
-
-    return value
 
 
 def _label(sol: Solution, i: int) -> str:
@@ -519,16 +502,11 @@ def _path(
     ax = fig.add_subplot()
     side = min(MAP_SIDE, int(math.sqrt(max(budget, 0)))) if value is not None else 0
     if side >= 5:
-        gy = np.linspace(*box[0], side)
-        gz = np.linspace(*box[1], side)
-        grid = np.full((side, side), math.nan)
-        for a, yi in enumerate(gy):
-            for b, yj in enumerate(gz):
-                x = np.array(sol.point, dtype=float)
-                x[i], x[j] = axes.to_x(yi, i), axes.to_x(yj, j)
-                grid[b, a] = value(x)
-        _contours(fig, ax, axes.to_x(gy, i), axes.to_x(gz, j), grid, kind)
-    elif sol.point.size == 2 and _scattered(fig, ax, sol, kind):
+        gx = axes.to_x(np.linspace(*box[0], side), i)
+        gy = axes.to_x(np.linspace(*box[1], side), j)
+        grid = evaluate_grid(value, sol.point, (i, j), gx, gy)
+        grid_map(fig, ax, gx, gy, grid, look=MAP, label=_value_label(kind))
+    elif sol.point.size == 2 and _scattered(fig, ax, sol, axes, kind):
         ax.text(0.5, 0.97, "map drawn from the search's own evaluations (coarse)",
                 transform=ax.transAxes, ha="center", va="top", fontsize=9, color="0.3")
     else:
@@ -560,49 +538,16 @@ def _path(
     return _save(fig, path)
 
 
-def _scattered(fig: Figure, ax: Any, sol: Solution, kind: str) -> bool:
+def _scattered(fig: Figure, ax: Any, sol: Solution, axes: _Axes, kind: str) -> bool:
     """A map of a two-parameter objective from the evaluations already made (no new ones)."""
-    from matplotlib.tri import Triangulation
-
-    points = np.array([e.point for e in sol.history if e.status == "ok"])
-    values = np.array([e.value for e in sol.history if e.status == "ok"])
-    if len(points) < 10:
+    ok = [e for e in sol.history if e.status == "ok"]
+    if not ok:
         return False
-    points, unique = np.unique(points, axis=0, return_index=True)
-    values = values[unique]
-    try:
-        triangles = Triangulation(points[:, 0], points[:, 1])
-    except (ValueError, RuntimeError):  # collinear or too few distinct points
-        return False
-    levels = contour_levels(values)
-    if levels is None:
-        return False
-    from matplotlib.colors import BoundaryNorm
-
-    filled = ax.tricontourf(triangles, values, levels=levels, cmap="viridis",
-                            norm=BoundaryNorm(levels, 256), alpha=0.9, zorder=1)
-    bar = fig.colorbar(filled, ax=ax, format="%.3g")
-    bar.set_label(_value_label(kind))
-    return True
-
-
-def contour_levels(values: np.ndarray, floor: float = 0.02) -> np.ndarray | None:
-    """Levels spaced geometrically above the lowest value, so valleys and slopes both show.
-
-    The first level above the lowest is the ``floor`` quantile of the rise above it.  None when
-    fewer than four values are finite or they are all equal.
-    """
-    finite = values[np.isfinite(values)]
-    if finite.size < 4:
-        return None
-    low, high = float(finite.min()), float(finite.max())
-    if not high > low:
-        return None
-    rise = finite - low
-    smallest = max(float(np.quantile(rise[rise > 0], floor)), (high - low) * 1e-9)
-    levels = low + np.concatenate(([0.0], np.geomspace(smallest, high - low, 14)))
-    levels[-1] = high
-    return np.unique(levels)
+    points = np.array([e.point for e in ok])
+    values = np.array([e.value for e in ok])
+    return scattered_map(fig, ax, points[:, 0], points[:, 1], values, look=MAP,
+                         label=_value_label(kind), log=(bool(axes.log[0]), bool(axes.log[1])),
+                         fewest=10)
 
 
 def _figure_legend(fig: Figure) -> None:
@@ -614,25 +559,6 @@ def _figure_legend(fig: Figure) -> None:
     if seen:
         fig.legend(list(seen.values()), list(seen), loc="outside lower center",
                    ncols=min(len(seen), 4), frameon=False)
-
-
-def _contours(fig: Figure, ax: Any, gx: np.ndarray, gy: np.ndarray, grid: np.ndarray, kind: str):
-    """Filled contours at levels spaced geometrically above the map's lowest value.
-
-    The valley and the slopes then both show, whatever the range of the values.
-    """
-    levels = contour_levels(grid.ravel())
-    if levels is None:
-        return
-    from matplotlib.colors import BoundaryNorm
-
-    masked = np.ma.masked_invalid(grid)
-    norm = BoundaryNorm(levels, 256)
-    filled = ax.contourf(gx, gy, masked, levels=levels, cmap="viridis", norm=norm, alpha=0.9,
-                         zorder=1)
-    ax.contour(gx, gy, masked, levels=levels, colors="white", linewidths=0.5, alpha=0.6, zorder=2)
-    bar = fig.colorbar(filled, ax=ax, format="%.3g")
-    bar.set_label(_value_label(kind))
 
 
 # ----------------------------------------------------------------------------- calibration
@@ -678,21 +604,21 @@ def _fit(series: list[dict[str, Any]], path: Path, title: str) -> Path:
 
 @_styled
 def _residual_series(series: list[dict[str, Any]], path: Path, title: str) -> Path:
-    """Data minus model at the minimum, in units of the data's sigma when it is known."""
+    """Model minus data at the minimum, in units of the data's sigma when it is known."""
     n = len(series)
     fig = _figure(5.4 * n, 3.8)
     for k, s in enumerate(series):
         ax = fig.add_subplot(1, n, k + 1)
         x = np.asarray(s["x"], dtype=float)
-        r = np.asarray(s["observed"], dtype=float) - np.asarray(s["predicted"], dtype=float)
+        r = np.asarray(s["predicted"], dtype=float) - np.asarray(s["observed"], dtype=float)
         sigma = s.get("sigma")
         unit = s.get("unit", "")
         if sigma is not None:
             r = r / np.broadcast_to(np.asarray(sigma, dtype=float), r.shape)
             ax.axhspan(-2.0, 2.0, color="tab:green", alpha=0.1, label="± 2 sigma")
-            ax.set_ylabel("(data − model) / sigma")
+            ax.set_ylabel("(model − data) / sigma")
         else:
-            ax.set_ylabel(f"data − model [{unit}]" if unit else "data − model")
+            ax.set_ylabel(f"model − data [{unit}]" if unit else "model − data")
         ax.axhline(0.0, color="black", lw=0.8)
         ax.vlines(x, 0.0, r, color="tab:blue", lw=1.2)
         ax.plot(x, r, "o", color="tab:blue", ms=4, label="residual")

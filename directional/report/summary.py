@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 
 from directional.parameters import Parameter
-from directional.solution import Solution
+from directional.solution import CAUTION, Solution
 
 FORMAT = "directional-solution/1"
 
@@ -83,57 +83,20 @@ def failure_lines(history: Iterable[Any], names: Sequence[str]) -> list[str]:
 def summary_text(sol: Solution, title: str = "", *, failures: bool = True) -> str:
     """The summary table of ``sol``, under ``title`` when there is one.
 
-    For a calibration whose own summary shows no uncertainty, the uncertainty table is added;
-    with ``failures``, the failed evaluations grouped by reason (`failure_lines`).  A solution
-    replayed from the journal of a run still going says "running" (its reason says so).
+    `Solution.summary` (with the uncertainty table of a calibration); with ``failures``, the
+    failed evaluations grouped by reason (`failure_lines`).  A solution replayed
+    from the journal of a run still going says "running" (its reason says so).
     """
     text = sol.summary()
     if sol.reason.startswith("running,"):
         text = text.replace("stopped: interrupted", "running: so far", 1)
-    if failures:
-        text += "\n".join(["", *failure_lines(sol.history, sol.names)]) if sol.failures else ""
-    if sol.uncertainty is not None and not any(
-        word in text for word in ("std. error", "standard error", "interval")
-    ):
-        text += "\n" + "\n".join(uncertainty_lines(sol))
+    if failures and sol.failures:  # the failure table goes above the caution, which ends it
+        table = "\n".join(["", *failure_lines(sol.history, sol.names)])
+        body = text.removesuffix(CAUTION)
+        text = body.rstrip() + table + (f"\n\n{CAUTION}" if body != text else "")
     if title:
         text = f"{title}\n{'=' * len(title)}\n{text}"
     return text
-
-
-def uncertainty_lines(sol: Solution) -> list[str]:
-    """The uncertainty table: estimate, standard error, interval, and the largest correlations.
-
-    Linearized at the minimum (Bates & Watts 1988, sec. 2.3): read it as a local statement.
-    """
-    u = sol.uncertainty
-    errors = getattr(u, "standard_errors", None)
-    if errors is None:
-        return []
-    errors = np.asarray(errors, dtype=float).ravel()
-    intervals = getattr(u, "intervals", None)
-    rows = None if intervals is None else np.asarray(intervals, dtype=float).reshape(-1, 2)
-    level = getattr(u, "level", 0.95)
-    dof = getattr(u, "degrees_of_freedom", None)
-    variance = getattr(u, "residual_variance", None)
-    head = f"  uncertainty (linearized at the minimum; {100 * level:g} % intervals"
-    if variance is not None and dof is not None:
-        head += f"; s² = {variance:.4g} on {dof} degrees of freedom"
-    width = max(9, *(len(n) for n in sol.names))
-    lines = ["", head + ")",
-             f"  {'parameter':<{width}}  {'estimate':>14}  {'standard error':>14}  interval"]
-    for i, name in enumerate(sol.names):
-        if name in sol.active:
-            lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {'on a bound':>14}")
-            continue
-        band = "" if rows is None else f"[{rows[i][0]:.6g}, {rows[i][1]:.6g}]"
-        lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {errors[i]:>14.4g}  {band}")
-    strongest = getattr(u, "strongest", None)
-    if callable(strongest):
-        pairs = [f"{a}–{b} {r:+.3f}" for a, b, r in strongest(3)]
-        if pairs:
-            lines.append(f"  largest correlations: {', '.join(pairs)}")
-    return lines
 
 
 def solution_document(
@@ -177,6 +140,7 @@ def solution_document(
         "directions": _matrix(sol.directions),
         "notes": list(sol.notes),
         "failures": failures_document(sol.history, names),
+        "caution": CAUTION,
     }
     return document
 
@@ -244,6 +208,11 @@ def _curvature(sol: Solution, by_name: dict[str, Parameter]) -> dict[str, Any] |
         "eigenvalues": [_number(v) for v in np.asarray(c.eigenvalues).ravel()],
         "eigenvectors": _matrix(c.eigenvectors),
         "condition": _number(c.condition),
+        "breaks": [
+            {"along": b.along, "kind": b.kind, "parameters": list(b.parameters),
+             "slopes": [_number(v) for v in b.slopes], "change": _number(b.change)}
+            for b in getattr(c, "breaks", ())
+        ],
     }
 
 
@@ -275,6 +244,9 @@ def _uncertainty(sol: Solution) -> dict[str, Any] | None:
     undetermined = getattr(u, "undetermined", None)
     if undetermined is not None:
         out["undetermined"] = list(undetermined)
+    rough = getattr(u, "rough", None)
+    if rough:
+        out["not_smooth"] = list(rough)
     return out
 
 

@@ -34,7 +34,7 @@ def run_identity(
 ) -> dict[str, Any]:
     """Return the identity of a run: what must agree for its journal to be resumed.
 
-    ``kind`` names the entry point (a key of `journal.ENTRY_POINTS`); ``arguments`` are the keyword
+    ``kind`` names the entry point (a key of `api.resume.ENTRY_POINTS`); ``arguments`` are the keyword
     arguments of that entry point that change the search, other than the parameters, the budget
     and the time limit (e.g. ``point_tolerance``, ``check``, ``seed``, ``starts``); ``settings``
     is the search's settings dataclass, stored in full so that a change of a default is caught.
@@ -136,7 +136,8 @@ def fingerprint(objective: object) -> dict[str, Any]:
     source is available, of its code object.  A wrapper is seen through: one made by this package
     (progress bar, sum of squares, a problem file's function) and anything with ``__wrapped__``
     (`functools.wraps`).  An object with a ``fingerprint()`` method gives its own; a program (an
-    object with ``argv``, ``read`` and ``workdir``) is described by `program_fingerprint`.
+    object with ``argv``, ``read`` and ``workdir``) is described by `program_fingerprint`, with the
+    contents of its ``templates`` and ``files`` when it has them.
     Anything else: its class, as a function.
 
     >>> fingerprint(len)["name"]
@@ -150,7 +151,16 @@ def fingerprint(objective: object) -> dict[str, Any]:
         return fingerprint(inner)
     if all(hasattr(objective, key) for key in ("argv", "read", "workdir")):
         argv = [str(a) for a in objective.argv]  # type: ignore[attr-defined]
-        return program_fingerprint(argv, objective.read, objective.workdir)  # type: ignore[attr-defined]
+        inputs = {
+            str(path): path
+            for path in (
+                *(getattr(t, "path", t) for t in getattr(objective, "templates", ())),
+                *getattr(objective, "files", ()),
+            )
+        }
+        return program_fingerprint(
+            argv, objective.read, objective.workdir, inputs=inputs  # type: ignore[attr-defined]
+        )
     return function_fingerprint(objective)
 
 
@@ -203,13 +213,22 @@ def function_fingerprint(function: object) -> dict[str, Any]:
 
 
 def program_fingerprint(
-    argv: Sequence[str], read: str, workdir: object, version: str | None = None
+    argv: Sequence[str],
+    read: str,
+    workdir: object,
+    version: str | None = None,
+    *,
+    inputs: Mapping[str, object] | None = None,
 ) -> dict[str, Any]:
     """The command, ``read``, ``workdir`` and the SHA-256 of every existing file it names.
 
     An argument names a file when, taken as a path (relative to ``workdir``), it is an existing
     file; so is the part after ``=`` of an ``--option=FILE`` argument.  Arguments with a
     ``{parameter}`` placeholder change with every evaluation and name no fixed file.
+    ``inputs`` (a name -> path mapping: the input templates and the files copied into each
+    evaluation's folder) are hashed by content under ``inputs``; a folder by the names and
+    contents of the files in it.  Unlike the files the command names, they are never taken for
+    the program's outputs (`outputs_seen`).
     """
     folder = Path(os.fspath(workdir)) if workdir is not None else Path.cwd()
     files: dict[str, str] = {}
@@ -227,9 +246,26 @@ def program_fingerprint(
         "workdir": str(folder),
         "files": files,
     }
+    if inputs:
+        found["inputs"] = {name: content_sha256(path) for name, path in inputs.items()}
     if version is not None:
         found["version"] = version
     return found
+
+
+def content_sha256(path: object) -> str:
+    """The SHA-256 of a file's bytes; of a folder, of the sorted names and hashes of its files;
+    ``"missing"`` when there is nothing at ``path``."""
+    place = Path(os.fspath(path))  # type: ignore[arg-type]
+    if place.is_file():
+        return file_sha256(place)
+    if place.is_dir():
+        digest_ = hashlib.sha256()
+        for item in sorted(p for p in place.rglob("*") if p.is_file()):
+            digest_.update(item.relative_to(place).as_posix().encode() + b"\0")
+            digest_.update(file_sha256(item).encode() + b"\n")
+        return digest_.hexdigest()
+    return "missing"
 
 
 def comparable(stored: Mapping[str, Any] | None, new: Mapping[str, Any]) -> dict[str, Any]:
@@ -287,6 +323,13 @@ def describe_change(old: Mapping[str, Any] | None, new: Mapping[str, Any]) -> st
                     words.append(f"the command names other files ({name!r} is new or gone)")
                 elif before[name] != after[name]:
                     words.append(f"the file {name!r} named by the command has changed")
+        elif key in ("inputs", "data") and isinstance(before, dict) and isinstance(after, dict):
+            role = "input file" if key == "inputs" else "data file"
+            for name in sorted(set(before) | set(after)):
+                if name not in before or name not in after:
+                    words.append(f"the {role}s differ ({name!r} is new or gone)")
+                elif before[name] != after[name]:
+                    words.append(f"the {role} {name!r} has changed")
         elif key in ("source", "module_source", "code"):
             words.append(f"{_LABELS[key]} has changed ({_short(before)} -> {_short(after)})")
         else:
@@ -305,6 +348,8 @@ _LABELS = {
     "read": "objective.read",
     "workdir": "objective.workdir",
     "files": "the files named by the command",
+    "inputs": "the templates and files copied for each evaluation",
+    "data": "the [data] file",
     "version": "objective.version",
 }
 

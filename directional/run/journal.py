@@ -4,10 +4,10 @@ Theory of operation.  The driver calls `Journal.append` with each new evaluation
 exists; the row is committed at once, in its own transaction, so a committed row survives the
 process being killed at any instant (``kill -9``, an out-of-memory kill, a batch system ending the
 job).  The search is deterministic given the values it receives, so a run can be continued from
-its journal: the stored values are fed back to a new search (`driver.Driver` ``replay``), each
-point it asks for is checked bit for bit against the stored one, and when the stored evaluations
-run out the run goes on live.  Nothing is evaluated twice, and the resumed run ends exactly where
-the uninterrupted run would have.
+its journal (`api.resume`): the stored values are fed back to a new search (`driver.Driver`
+``replay``), each point it asks for is checked bit for bit against the stored one, and when the
+stored evaluations run out the run goes on live.  Nothing is evaluated twice, and the resumed run
+ends exactly where the uninterrupted run would have.
 
 The file (stdlib `sqlite3`, write-ahead log) has three tables:
 
@@ -16,7 +16,9 @@ The file (stdlib `sqlite3`, write-ahead log) has three tables:
 - ``evaluation``: one row per evaluation: search id, sequence number within that search, the
   point (float64 little-endian bytes, exact), the value (``inf`` when failed), status (``ok``,
   ``failed``, ``timed-out``, ``interrupted``), error text, purpose, start and end time (Unix
-  seconds), and the session that made it;
+  seconds), the session that made it, and for a calibration the residual vector (float64 bytes;
+  NULL otherwise, and absent from journals written before it existed: the column is added when
+  such a journal is resumed), so that a resumed or shown calibration recomputes nothing;
 - ``session``: one row per run on the journal (the first and each resume): process id, package
   version, budget, how many evaluations were replayed and made, how it ended.
 
@@ -59,9 +61,7 @@ the same journal is refused with `JournalError`.
 from __future__ import annotations
 
 import contextlib
-import dataclasses
 import functools
-import importlib
 import json
 import math
 import os
@@ -96,9 +96,9 @@ from directional.run.identity import (
 from directional.run.identity import fingerprint as objective_fingerprint
 from directional.run.interrupts import held
 from directional.run.lockfile import Lock
+from directional.version import VERSION
 
 __all__ = [
-    "ENTRY_POINTS",
     "INTERRUPTED",
     "Contents",
     "Header",
@@ -106,7 +106,6 @@ __all__ = [
     "Target",
     "journal_for",
     "read",
-    "resume",
     "run_identity",
 ]
 
@@ -118,14 +117,6 @@ PAGE_SIZE = 1024  # bytes: a commit writes whole pages to the log, and a row is 
 CHECKPOINT_PAGES = 10_000  # log pages between checkpoints (each costs fsyncs): 10 MB
 INTERRUPTED = "interrupted"
 NOISE_POINTS = 9  # values per noise-estimate try (`method.noise.estimate`'s default)
-
-# The run kinds that `resume` can continue: kind -> (module, entry point).  Each entry point is
-# called as ``entry(objective, parameters, journal=path, budget=..., time_limit=..., **arguments)``.
-ENTRY_POINTS = {
-    "minimize": ("directional.api.minimization", "minimize"),
-    "calibrate": ("directional.api.calibration", "calibrate"),
-    "explore": ("directional.api.explore", "explore"),
-}
 
 _SCHEMA = (
     "CREATE TABLE header (key TEXT PRIMARY KEY, value TEXT NOT NULL)",
@@ -140,7 +131,8 @@ _SCHEMA = (
         purpose TEXT NOT NULL,
         started REAL NOT NULL,
         ended REAL NOT NULL,
-        session INTEGER NOT NULL)""",
+        session INTEGER NOT NULL,
+        residuals BLOB)""",
     """CREATE TABLE session (
         session INTEGER PRIMARY KEY,
         opened REAL NOT NULL,
@@ -155,7 +147,7 @@ _SCHEMA = (
 )
 _INSERT = (
     "INSERT INTO evaluation (search, sequence, point, value, status, detail, purpose, started, "
-    "ended, session) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"
+    "ended, session, residuals) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"
 )
 
 
@@ -235,6 +227,8 @@ class Journal:
         self._replayed: int | None = None
         self._fingerprint: dict[str, Any] | None = None
         self._refresh: Callable[[], Mapping[str, Any]] | None = None
+        # For a calibration: the residual vector of a point (its float64 bytes), or None.
+        self.vectors: Callable[[bytes], np.ndarray | None] | None = None
 
     # -- opening
 
@@ -307,6 +301,7 @@ class Journal:
                     if changed and stored and reproduce is not None:
                         notes = (_reproduce(path, reproduce, header, stored, fingerprint),)
                     _use_wal(connection, path)
+                    _add_vector_column(connection)  # after the checks: a refusal writes nothing
                     if changed:
                         _set_header(connection, {"objective": canonical(fingerprint)})
                     if budget is not None:
@@ -352,6 +347,7 @@ class Journal:
         if self._sync == "adaptive":
             self._adapt(evaluation.seconds >= SYNC_AFTER)
         point = np.ascontiguousarray(evaluation.point, dtype="<f8").tobytes()
+        vector = None if self.vectors is None else self.vectors(evaluation.point.tobytes())
         row = (
             evaluation.search,
             evaluation.sequence,
@@ -363,6 +359,7 @@ class Journal:
             evaluation.started,
             evaluation.started + evaluation.seconds,
             self._session,
+            None if vector is None else np.ascontiguousarray(vector, dtype="<f8").tobytes(),
         )
         try:
             self._connection.execute(_INSERT, row)
@@ -373,6 +370,17 @@ class Journal:
                 "on resume"
             ) from None
         self.written += 1
+
+    def stored_vectors(self) -> dict[bytes, np.ndarray]:
+        """The residual vectors stored with earlier evaluations, by point (float64 bytes)."""
+        rows = self._connection.execute(
+            "SELECT point, residuals FROM evaluation WHERE residuals IS NOT NULL"
+        ).fetchall()
+        return {
+            np.frombuffer(point, dtype="<f8").astype(float).tobytes():
+                np.frombuffer(vector, dtype="<f8").astype(float)
+            for point, vector in rows
+        }
 
     @property
     def synchronous(self) -> str:
@@ -448,6 +456,10 @@ class _NoJournal:
     stored: tuple[Evaluation, ...] = ()
     notes: tuple[str, ...] = ()
     retry = False
+    vectors: Callable[[bytes], np.ndarray | None] | None = None
+
+    def stored_vectors(self) -> dict[bytes, np.ndarray]:
+        return {}
 
     def hooks(self) -> dict[str, Any]:
         return {}
@@ -632,94 +644,6 @@ def _read(path: Path, shown: Path) -> Contents:
     )
 
 
-def resume(
-    path: str | os.PathLike[str] | Target,
-    objective: object,
-    *,
-    budget: int | None = None,
-    time_limit: float | None = None,
-    retry_failed: bool = False,
-    fingerprint: Mapping[str, Any] | None = None,
-    **options: object,
-) -> Any:
-    """Continue the run kept in the journal at ``path``; return what that run returns.
-
-    The problem (parameters, tolerances, kind of run) is rebuilt from the journal's header, the
-    stored evaluations are fed back without calling ``objective`` (each requested point checked
-    bit for bit against the stored one), then the run goes on live, writing the same journal.
-    The result is the one the uninterrupted run would have given, and no evaluation is repeated.
-
-    >>> import directional as dl                                    # doctest: +SKIP
-    >>> sol = dl.resume("runs/culture.sqlite", misfit)              # doctest: +SKIP
-
-    Parameters
-    ----------
-    objective
-        The same objective as the first run.  The journal keeps a fingerprint of the objective
-        (`identity.fingerprint`); when it differs, the first stored evaluation and the best are
-        made again, and the run goes on (with a note) only if they reproduce their values within
-        the noise; otherwise `JournalError` says what changed, and the journal is left untouched.
-    budget
-        Evaluations allowed in total, the journaled ones included (default: the last budget the
-        journal was run with).  Give a larger one to go on after a run stopped on its budget.
-    time_limit
-        Seconds of wall time for this session.
-    retry_failed
-        Evaluate again the stored evaluations that failed or timed out, when the search asks for
-        their points (after a licence server came back, say); the journal keeps both records.
-    fingerprint
-        Used instead of the objective's own fingerprint (the command line passes the problem
-        file's, which knows the program's files and ``version``).
-    options
-        Other keyword arguments of the entry point that do not change the search (``progress``,
-        ``workers`` for a many-start run).
-
-    Raises
-    ------
-    JournalError
-        When the file is not a journal, is damaged, is in use by another run, or when the run asks
-        for a point other than the stored one (another objective's settings or another version).
-    """
-    given = path if isinstance(path, Target) else Target(path)
-    path = given.path
-    header = read(path).header
-    entry = _entry_point(path, header.kind)
-    arguments = dict(header.identity.get("arguments", {}))
-    overlap = sorted(set(arguments) & set(options))
-    if overlap:
-        raise ProblemError(
-            f"{overlap[0]!r} is fixed by the journal ({arguments[overlap[0]]!r}) and cannot be changed "
-            "on resume"
-        )
-    target = dataclasses.replace(
-        given,
-        info=dict(header.info),
-        objective=given.objective if fingerprint is None else fingerprint,
-        retry=given.retry or bool(retry_failed),
-    )
-    return entry(
-        objective,
-        header.parameters,
-        journal=target,
-        budget=header.budget if budget is None else budget,
-        time_limit=time_limit,
-        **arguments,
-        **options,
-    )
-
-
-def _entry_point(path: object, kind: str) -> Any:
-    if kind not in ENTRY_POINTS:
-        raise JournalError(f"journal {str(path)!r} holds a run of unknown kind {kind!r}")
-    module, name = ENTRY_POINTS[kind]
-    try:
-        return getattr(importlib.import_module(module), name)
-    except (ImportError, AttributeError):
-        raise JournalError(
-            f"journal {str(path)!r} holds a {kind!r} run, which this version cannot resume"
-        ) from None
-
-
 # ----------------------------------------------------------------------------- file helpers
 
 
@@ -794,7 +718,7 @@ def _create(
     header = Header(
         identity=dict(identity),
         digest=digest(identity),
-        version=_package_version(),
+        version=VERSION,
         created=time.time(),
         budget=None if budget is None else int(budget),
         info=json.loads(canonical(dict(info))),
@@ -823,6 +747,13 @@ def _create(
         connection.execute("ROLLBACK")
         raise
     return header
+
+
+def _add_vector_column(connection: sqlite3.Connection) -> None:
+    """Give a journal written before residual vectors were kept their (nullable) column."""
+    columns = {row[1] for row in connection.execute("PRAGMA table_info(evaluation)")}
+    if "residuals" not in columns:
+        connection.execute("ALTER TABLE evaluation ADD COLUMN residuals BLOB")
 
 
 def _is_empty(connection: sqlite3.Connection) -> bool:
@@ -1063,12 +994,6 @@ def _reproduce(
 def _begin_session(connection: sqlite3.Connection, budget: int | None) -> int:
     cursor = connection.execute(
         "INSERT INTO session (opened, pid, version, budget) VALUES (?, ?, ?, ?)",
-        (time.time(), os.getpid(), _package_version(), budget),
+        (time.time(), os.getpid(), VERSION, budget),
     )
     return int(cursor.lastrowid or 0)
-
-
-def _package_version() -> str:
-    from directional import __version__  # at call time: the package is fully imported by then
-
-    return __version__

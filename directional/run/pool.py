@@ -530,6 +530,15 @@ class Lane:
         return self.runner.replayed
 
     @property
+    def budget(self) -> int:
+        """The search's budget (calibration narrows it for a while, as on `driver.Driver`)."""
+        return self.runner.budget
+
+    @budget.setter
+    def budget(self, value: int) -> None:
+        self.runner.budget = value
+
+    @property
     def log(self) -> Log:
         return self.runner.log
 

@@ -20,14 +20,7 @@ from typing import IO, Any
 import numpy as np
 from tqdm import tqdm
 
-
-def sum_of_squares(result: Any) -> float:
-    """The value of a residual vector: the sum of its squares (nan when it is not numeric)."""
-    try:
-        r = np.asarray(result, dtype=float).ravel()
-    except (TypeError, ValueError):
-        return math.nan
-    return float(r @ r)
+from directional.method.leastsquares import sum_of_squares
 
 
 class Progress:

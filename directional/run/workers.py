@@ -45,8 +45,10 @@ def stop_workers(executor: object) -> None:
 
     Each worker gets SIGTERM, which its handler turns into `KeyboardInterrupt`: a program it runs
     is ended with its process group at once, instead of the stopped run waiting for it.  Pools
-    made elsewhere (the caller's, Dask's) are left alone.
+    made elsewhere (the caller's, Dask's) are left alone.  A pool wrapped in
+    `directional.run.ordered.InOrder` (``--workers`` for one search) is seen through.
     """
+    executor = getattr(executor, "_inner", executor)
     if not getattr(executor, "_directional_workers", False):
         return
     for process in list((getattr(executor, "_processes", None) or {}).values()):

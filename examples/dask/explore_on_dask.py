@@ -18,7 +18,7 @@ from pathlib import Path
 import distributed
 
 import directional as dl
-from directional.report.startmap import start_map
+from directional.report.maps import start_map
 from directional.testproblems import bioreactor
 
 HERE = Path(__file__).resolve().parent
