@@ -14,11 +14,10 @@ if TYPE_CHECKING:  # the names below are imported on first use (PEP 562), so tha
     # line starts without loading numpy, scipy and matplotlib (``directional --help``)
     from directional.api.calibration import calibrate
     from directional.api.explore import Landscape, explore
-    from directional.api.minimization import line_minimum, minimize
+    from directional.api.minimization import estimate_noise, line_minimum, minimize
     from directional.api.resume import resume
     from directional.interface.problemfile import Problem
     from directional.method.linesearch import LineResult
-    from directional.method.noise import estimate_noise
     from directional.parameters import Parameter
     from directional.records import Curvature, Stop, Verdict
     from directional.solution import Solution
@@ -31,7 +30,7 @@ _LAZY = {
     "minimize": "directional.api.minimization",
     "Problem": "directional.interface.problemfile",
     "LineResult": "directional.method.linesearch",
-    "estimate_noise": "directional.method.noise",
+    "estimate_noise": "directional.api.minimization",
     "Parameter": "directional.parameters",
     "Curvature": "directional.records",
     "Stop": "directional.records",

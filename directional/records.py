@@ -3,6 +3,8 @@
 The search yields a `Batch` of points to evaluate and receives their values (a float array; a failed
 evaluation arrives as ``+inf``).  When the driver must end a search early (budget spent, time up,
 Ctrl-C) it throws `Halt` into the generator, which returns its `Outcome` with that stop reason.
+A generator that needs to know what it has cost yields `SPENT` instead of a batch and is sent
+back the number of distinct points its search has asked the driver for so far.
 """
 
 from __future__ import annotations
@@ -21,6 +23,36 @@ class Stop(enum.Enum):
     BUDGET = "budget"
     INTERRUPTED = "interrupted"
     STALLED = "stalled"
+
+
+class Status(enum.StrEnum):
+    """How one evaluation ended; the values are the strings the journal stores."""
+
+    OK = "ok"
+    FAILED = "failed"  # an exception, NaN or +inf: the search receives +inf
+    TIMED_OUT = "timed-out"  # an external program ran out of time (a failure too)
+    INTERRUPTED = "interrupted"  # Ctrl-C while it ran: journaled, made again on resume
+
+
+class Purpose(enum.StrEnum):
+    """What the points of a batch are for (journal and reports); never changes what is done."""
+
+    START = "start"
+    LINE = "line"
+    EXTRAPOLATE = "extrapolate"
+    NOISE = "noise"
+    HESSIAN = "hessian"
+    SMOOTHNESS = "smoothness"
+    ESCAPE = "escape"
+    JACOBIAN = "jacobian"
+    GAUSS_NEWTON = "gauss-newton"
+
+
+class Check(enum.StrEnum):
+    """The paid curvature check (the public ``check``: True is EXTRAPOLATED; False is none)."""
+
+    EXTRAPOLATED = "extrapolated"  # numdifftools' Richardson extrapolation, with error estimate
+    QUICK = "quick"  # one central-difference stencil
 
 
 class Verdict(enum.Enum):
@@ -43,16 +75,29 @@ class Halt(Exception):
         self.reason = reason
 
 
+class Spent(enum.Enum):
+    """The question "how many points has my search asked for?" (the sentinel `SPENT`)."""
+
+    SPENT = "spent"
+
+
+SPENT = Spent.SPENT
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Batch:
     """Points the search wants evaluated, one per row, in the user's coordinates.
 
-    ``purpose`` says what the points are for ("start", "line", "probe", "hessian", ...), for the
-    journal and for people reading it; it never changes what the driver does.
+    ``purpose`` says what the points are for (`Purpose`), for the journal and for people reading
+    it; it never changes what the driver does.  ``limit`` (None: the budget) lowers the budget
+    for the points of this batch: the driver halts the search (BUDGET) rather than evaluate a
+    point new to it once the search has asked for ``limit`` points, so that a stage of a run can
+    keep evaluations for the stages after it without anyone editing the budget.
     """
 
     points: np.ndarray
-    purpose: str = "line"
+    purpose: str = Purpose.LINE
+    limit: int | None = None
 
     def __post_init__(self) -> None:
         points = np.array(self.points, dtype=float, copy=True)
@@ -60,6 +105,9 @@ class Batch:
             raise ValueError(f"a batch needs a (k, n) array with k >= 1, got shape {points.shape!r}")
         points.setflags(write=False)
         object.__setattr__(self, "points", points)
+
+
+Request = Batch | Spent  # what a generator of a run yields: points to evaluate, or the question
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

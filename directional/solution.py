@@ -8,7 +8,7 @@ from typing import Any
 
 import numpy as np
 
-from directional.records import Break, Curvature, Stop, Verdict
+from directional.records import Break, Curvature, Status, Stop, Verdict
 from directional.run.driver import Evaluation
 
 # Ends every summary a person reads (and is a field of the JSON): results can be used to decide
@@ -54,7 +54,7 @@ class Solution:
     @property
     def failures(self) -> int:
         """How many evaluations failed."""
-        return sum(1 for e in self.history if e.status != "ok")
+        return sum(1 for e in self.history if e.status != Status.OK)
 
     def summary(self) -> str:
         """A plain-text table of the result, for people, ending with the caution."""

@@ -401,3 +401,22 @@ def test_dask_with_one_start_is_bad_input(tmp_path, bowl):
     done = directional("run", str(bowl), "--dask", "tcp://127.0.0.1:1", cwd=tmp_path)
     assert done.returncode == 2
     assert "--starts" in done.stderr
+
+
+def test_many_starts_resumed_from_their_journal_give_the_whole_run(tmp_path, bowl):
+    """``directional resume`` of a many-start run (in process, with its progress bar)."""
+    import numpy as np
+
+    from directional.interface import runs
+    from directional.interface.problemfile import Problem
+
+    text = bowl.read_text(encoding="utf-8") + "\n[search]\nstarts = 3\n"
+    (tmp_path / "many.toml").write_text(text, encoding="utf-8")
+    problem = Problem.from_file(tmp_path / "many.toml")
+    whole = runs.solve(problem, journal=None, quiet=True)
+    cut = runs.solve(problem, budget=10, quiet=True)  # every search stops on its budget
+    assert cut.evaluations < whole.evaluations
+    done = runs.resume(tmp_path / "runs" / "bowl.sqlite", problem, budget=3000, quiet=True)
+    assert done.evaluations == whole.evaluations
+    assert np.array_equal(done.minima[0].point, whole.minima[0].point)
+    assert done.stops == whole.stops

@@ -7,6 +7,7 @@ import contextlib
 import functools
 import io
 import re
+import sys
 
 import numpy as np
 import pytest
@@ -47,11 +48,43 @@ def test_a_journal_written_on_an_executor_resumes_on_one(tmp_path):
     assert len(calls) == len(set(calls)) == alone.evaluations  # nothing evaluated twice
 
 
+def test_a_journal_written_on_a_pool_resumes_in_process(tmp_path):
+    """One replay rule (by point): where a journal was written does not matter."""
+    path = tmp_path / "pooled.sqlite"
+    alone = dl.minimize(rosenbrock, [-1.2, 1.0])
+    calls = []
+
+    def counted(x):
+        calls.append(x.tobytes())
+        return rosenbrock(x)
+
+    with cf.ThreadPoolExecutor(2) as pool:
+        first = dl.minimize(counted, [-1.2, 1.0], executor=pool, journal=path, budget=60)
+    assert first.stop is dl.Stop.BUDGET
+    done = dl.resume(path, counted, budget=10_000)
+    assert np.array_equal(done.point, alone.point)
+    assert len(calls) == len(set(calls)) == alone.evaluations == done.evaluations
+
+
 class Terminal(io.StringIO):
     """Standard error that says it is a terminal: the progress bar is drawn on it."""
 
     def isatty(self) -> bool:
         return True
+
+
+def test_a_process_pool_with_a_progress_bar_on_a_terminal(monkeypatch):
+    """The bar is an observer of the driver: the objective sent to the workers is the caller's.
+
+    (It once wrapped the objective, and the pool failed to pickle the bar's terminal stream.)
+    """
+    alone = dl.minimize(rosenbrock, [-1.2, 1.0], check=False)
+    terminal = Terminal()
+    monkeypatch.setattr(sys, "stderr", terminal)
+    with cf.ProcessPoolExecutor(2) as pool:
+        shown = dl.minimize(rosenbrock, [-1.2, 1.0], executor=pool, progress=True, check=False)
+    assert "directional" in terminal.getvalue() and "eval" in terminal.getvalue()
+    assert np.array_equal(shown.point, alone.point) and shown.evaluations == alone.evaluations
 
 
 @pytest.fixture

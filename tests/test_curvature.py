@@ -46,7 +46,7 @@ def check_at(f, centre, method="extrapolated", names=None, noise=None):
     u0 = np.zeros(space.size)
     checked = driver.run(
         curvature.check_point(
-            space, u0, f(np.asarray(centre, float)), None, method=method, noise=noise,
+            space, u0, f(np.asarray(centre, float)), None, check=method, noise=noise,
             active=np.zeros(space.size, bool),
         )
     )
@@ -131,12 +131,13 @@ def _four_wells(v: np.ndarray) -> float:
 def test_a_maximum_is_recognised_and_escaped(check):
     space = build_space([0.0, 0.0])
     driver = Driver(objective=_four_wells, budget=5000)
-    settled = curvature.settle(
-        driver, space, Settings(), converged_at([0.0, 0.0], 2.0), check=check, escapes=3,
+    settled = driver.run(curvature.settle(
+        space, Settings(), converged_at([0.0, 0.0], 2.0), check=check, escapes=3,
         noise=None,
-    )
+    ))
     assert settled.escapes == 1
     assert settled.notes[0].startswith("escape 1: maximum at (x0=0, x1=0)")
+    assert "(lower by " in settled.notes[0]  # the gain, not only two values that may print alike
     assert settled.verdict is Verdict.MINIMUM
     assert np.abs(settled.point) == pytest.approx([1.0, 1.0], abs=1e-6)
     assert settled.outcome.value == pytest.approx(0.0, abs=1e-12)
@@ -146,10 +147,10 @@ def test_a_maximum_is_recognised_and_escaped(check):
 def test_a_maximum_with_no_escape_is_reported_as_maximum():
     space = build_space([0.0, 0.0])
     driver = Driver(objective=_four_wells, budget=5000)
-    settled = curvature.settle(
-        driver, space, Settings(), converged_at([0.0, 0.0], 2.0), check="quick", escapes=0,
+    settled = driver.run(curvature.settle(
+        space, Settings(), converged_at([0.0, 0.0], 2.0), check="quick", escapes=0,
         noise=None,
-    )
+    ))
     assert settled.verdict is Verdict.MAXIMUM
     assert settled.curvature.eigenvalues == pytest.approx([-4.0, -4.0], rel=1e-5)
     assert settled.notes == ()
@@ -168,10 +169,10 @@ def test_escaping_a_maximum_onto_a_ring_of_minima_ends_flat_or_minimum():
     # and the point counts as flat.  Either way the point lies on the ring with f = 0.
     space = build_space([0.0, 0.0])
     driver = Driver(objective=_ring, budget=5000)
-    settled = curvature.settle(
-        driver, space, Settings(), converged_at([0.0, 0.0], 1.0), check="extrapolated",
+    settled = driver.run(curvature.settle(
+        space, Settings(), converged_at([0.0, 0.0], 1.0), check="extrapolated",
         escapes=3, noise=None,
-    )
+    ))
     assert settled.notes[0].startswith("escape 1: maximum at (x0=0, x1=0)")
     assert np.hypot(*settled.point) == pytest.approx(1.0, abs=1e-6)
     assert settled.verdict in (Verdict.FLAT, Verdict.MINIMUM)
@@ -286,7 +287,7 @@ def test_the_stencil_goes_out_as_one_batch():
     space = build_space(list(centre))
     for method, size in (("extrapolated", 6 * 4 + 1), ("quick", 2 * 4 + 2 * 2 + 1)):
         gen = curvature.check_point(
-            space, np.zeros(2), 0.0, None, method=method, noise=None, active=np.zeros(2, bool)
+            space, np.zeros(2), 0.0, None, check=method, noise=None, active=np.zeros(2, bool)
         )
         batch = next(gen)
         assert batch.purpose == "hessian"

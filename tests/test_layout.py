@@ -193,25 +193,7 @@ def _layer_modules(name: str) -> list[str]:
     return sorted(m for m in modules() if layer(m) == name)
 
 
-# The method's curvature check and noise estimate still start a driver of their own; the work on
-# one driver (issue 12, item 1) turns them into generators joined by the caller, and this mark goes.
-_STILL_RUN_A_DRIVER = {"directional.method.curvature", "directional.method.noise"}
-
-
-@pytest.mark.parametrize(
-    "name",
-    [
-        pytest.param(
-            name,
-            marks=pytest.mark.xfail(
-                strict=True, reason="imports run.driver: its own Driver, until the one-driver work"
-            ),
-        )
-        if name in _STILL_RUN_A_DRIVER
-        else name
-        for name in _layer_modules("method")
-    ],
-)
+@pytest.mark.parametrize("name", _layer_modules("method"))
 def test_the_method_imports_no_other_layer_and_does_no_io(name):
     module = modules()[name]
     above = sorted(m for m in module.imports if layer(m) not in (None, "method"))
@@ -236,25 +218,7 @@ def test_the_method_is_a_layer_with_modules():
     assert len(_layer_modules("method")) >= 8
 
 
-# explore and calibrate take helpers of minimize by their underscore names; the options record of
-# the same issue (item 2) gives them public ones, and this mark goes.
-_STILL_SHARE_PRIVATE_HELPERS = {"directional.api.calibration", "directional.api.explore"}
-
-
-@pytest.mark.parametrize(
-    "name",
-    [
-        pytest.param(
-            name,
-            marks=pytest.mark.xfail(
-                strict=True, reason="imports minimize's helpers, until the options record"
-            ),
-        )
-        if name in _STILL_SHARE_PRIVATE_HELPERS
-        else name
-        for name in sorted(modules())
-    ],
-)
+@pytest.mark.parametrize("name", sorted(modules()))
 def test_no_module_imports_another_modules_underscore_names(name):
     assert not modules()[name].private
 

@@ -22,6 +22,7 @@ import directional as dl
 from directional.method.leastsquares import sum_of_squares
 from directional.report import plots
 from directional.report import summary as report
+from directional.run.driver import Evaluation
 from directional.run.progress import Progress
 
 PARAMETERS = [
@@ -203,12 +204,15 @@ def test_affordable_follows_the_evaluation_time(solution):
     assert plots.affordable(solution, seconds=mean * 10, most=500) in (9, 10, 11)
 
 
-def test_progress_counts_every_call_and_tracks_the_best():
+def _evaluation(value, status="ok"):
+    return Evaluation(index=0, point=np.zeros(1), value=value, status=status, seconds=0.01)
+
+
+def test_progress_counts_every_evaluation_and_tracks_the_best():
     stream = io.StringIO()
-    values = iter([5.0, 3.0, float("nan"), 4.0])
-    bar = Progress(lambda x: next(values), budget=10, enabled=True, stream=stream)
-    for _ in range(4):
-        bar(np.zeros(1))
+    bar = Progress(budget=10, enabled=True, stream=stream)
+    for value, status in ((5.0, "ok"), (3.0, "ok"), (math.inf, "failed"), (4.0, "ok")):
+        bar(_evaluation(value, status))
     assert bar.count == 4 and bar.best == 3.0
     bar.cycle = 2
     assert "best 3" in bar.status() and "cycle 2" in bar.status()
@@ -220,20 +224,16 @@ def test_progress_counts_every_call_and_tracks_the_best():
 
 def test_progress_is_off_when_not_a_terminal():
     stream = io.StringIO()
-    bar = Progress(lambda x: 1.0, budget=10, stream=stream)
-    bar(np.zeros(1))
+    bar = Progress(budget=10, stream=stream)
+    bar(_evaluation(1.0))
     bar.close()
     assert stream.getvalue() == "" and bar.count == 1
 
 
-def test_progress_passes_failures_through():
-    def broken(x):
-        raise RuntimeError("crash")
-
-    bar = Progress(broken, budget=3, enabled=False)
-    with pytest.raises(RuntimeError):
-        bar(np.zeros(2))
-    assert bar.count == 1 and bar.best == math.inf
+def test_progress_does_not_count_an_evaluation_cut_by_ctrl_c():
+    bar = Progress(budget=3, enabled=False, done=2)
+    bar(_evaluation(math.inf, "interrupted"))
+    assert bar.count == 2 and bar.best == math.inf
 
 
 def test_sum_of_squares_of_residuals():

@@ -16,7 +16,7 @@ from hypothesis import strategies as st
 import directional as dl
 from directional.api.explore import cluster
 from directional.method.smoothness import axis_lines, complement, line_finding
-from directional.records import Verdict
+from directional.records import Check, Verdict
 
 STEPS = np.array([1e-4, 2e-4, 4e-4])
 
@@ -306,7 +306,7 @@ def test_the_check_asks_for_the_probes_as_one_more_batch():
 
     space = build_space([0.0, 0.0], bounds=[(-1, 1), (-1, 1)])
     gen = curvature.check_point(
-        space, space.to_scaled(np.zeros(2)), 0.0, None, method="quick", noise=None,
+        space, space.to_scaled(np.zeros(2)), 0.0, None, check=Check.QUICK, noise=None,
         active=np.zeros(2, bool),
     )
     batch = next(gen)

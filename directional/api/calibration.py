@@ -31,19 +31,20 @@ References
 from __future__ import annotations
 
 import concurrent.futures as cf
-import contextlib
 import dataclasses
 import math
 import warnings
 from collections.abc import Generator, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy import stats
 
-from directional.api.minimization import _driver, _solution, checked_arguments
+from directional.api.options import Options, calibrate_options
+from directional.api.session import session, solution
 from directional.errors import ProblemError
-from directional.method.curvature import combination, labels, settle, settled_solution
+from directional.method.curvature import Settled, combination, labels, settle, settled_solution
 from directional.method.leastsquares import (
     Polished,
     Residuals,
@@ -54,10 +55,7 @@ from directional.method.leastsquares import (
 from directional.method.noise import floored, noise_level
 from directional.method.search import Settings, powell
 from directional.method.space import Space
-from directional.records import Batch, Halt, Outcome, Stop
-from directional.run.driver import Driver
-from directional.run.journal import journal_for, run_identity
-from directional.run.progress import Progress
+from directional.records import SPENT, Batch, Halt, Outcome, Purpose, Request, Stop
 from directional.solution import Solution
 
 EPSILON = float(np.finfo(float).eps)
@@ -259,15 +257,10 @@ def calibrate(
     ObjectiveError
         When the start fails, or the residuals are not a flat array of numbers of a fixed length.
     """
-    space, settings, budget, method, escapes, noise = checked_arguments(
-        "residuals", residuals, start, bounds, names, budget, point_tolerance, value_tolerance,
-        time_limit, check, escapes, noise,
-    )
-    deviations = _sigma(sigma)
-    identity = run_identity(
-        "calibrate", space.parameters, settings,
-        point_tolerance=point_tolerance, value_tolerance=value_tolerance, check=check,
-        escapes=escapes, noise=noise, sigma=None if deviations is None else deviations.tolist(),
+    options = calibrate_options(
+        residuals, start, bounds, names, budget, sigma=sigma, point_tolerance=point_tolerance,
+        value_tolerance=value_tolerance, time_limit=time_limit, check=check, escapes=escapes,
+        noise=noise,
     )
     if executor is not None and isinstance(getattr(executor, "_inner", executor),
                                            cf.ProcessPoolExecutor):
@@ -275,34 +268,22 @@ def calibrate(
             "calibrate needs each residual vector back in this process: give a thread pool as "
             "executor, not a process pool (many starts on processes: directional.api.explore)"
         )
-    squares = SumOfSquares(residuals, deviations)
-    watched = Progress(squares, budget=budget, enabled=None) if progress else None
-    with journal_for(journal, identity, budget=budget, objective=squares) as book, (
-        contextlib.closing(watched) if watched else contextlib.nullcontext()
-    ), _driver(watched or squares, budget, time_limit, executor, book) as driver:
+    squares = SumOfSquares(residuals, options.sigma)
+    space = options.space
+    with session(squares, options, journal, executor=executor, progress=progress) as (
+        driver, book
+    ):
         squares.vectors.update(book.stored_vectors())  # a resumed journal: nothing recomputed
         if squares.size is None and squares.vectors:
             squares.size = next(iter(squares.vectors.values())).size
-        book.vectors = squares.vectors.get
-        level, noted = noise_level(driver, space, noise)
-        settings = floored(settings, level)
-        outcome = _search(
-            driver, space, settings, squares, None, reserve=_reserve(space.size, budget),
-            second_opinion=True,
-        )
-        settled = settle(
-            driver, space, settings, outcome, check=method, escapes=escapes, noise=level,
-            restart=lambda u: _search(driver, space, settings, squares, u, reserve=0),
-        )
+        book.vectors = squares.vectors.get  # the journal keeps each evaluation's vector
+        settled, settings, noted, free, jacobian = driver.run(calibration(options, squares))
         outcome = settled.outcome
-        free = ~space.on_bound(space.to_user(outcome.point), 10.0 * settings.point_tolerance)
-        jacobian = driver.run(extrapolated_jacobian(space, squares, outcome.point, free))
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
-        solution = settled_solution(
-            _solution(space, settings, driver, outcome), settled, (*noted, *book.notes)
-        )
+        found = solution(space, driver.log, outcome, settings.point_tolerance)
+        solution_ = settled_solution(found, settled, (*noted, *book.notes))
     x = space.to_user(outcome.point)
-    notes = list(outcome.notes) + list(solution.notes)
+    notes = list(outcome.notes) + list(solution_.notes)
     result = None
     if jacobian is None:
         notes.append("no uncertainty: an evaluation for the Jacobian failed or was not allowed")
@@ -314,22 +295,35 @@ def calibrate(
     if squares.recomputed:
         notes.append(f"{squares.recomputed} residual vectors were recomputed (replayed journal)")
     return dataclasses.replace(
-        solution, point=x, value=outcome.value, uncertainty=result, notes=tuple(notes)
+        solution_, point=x, value=outcome.value, uncertainty=result, notes=tuple(notes)
     )
 
 
-def _sigma(sigma: object) -> np.ndarray | None:
-    if sigma is None:
-        return None
-    try:
-        deviations = np.array(sigma, dtype=float).reshape(-1)
-    except (TypeError, ValueError):
-        raise ProblemError(f"sigma must be positive numbers, one per residual, got {sigma!r}") from None
-    bad = np.flatnonzero(~(np.isfinite(deviations) & (deviations > 0.0)))
-    if bad.size or np.ndim(sigma) > 1 or deviations.size == 0:
-        where = f" (entry {bad[0]}: {deviations[bad[0]]!r})" if bad.size else ""
-        raise ProblemError(f"sigma must be positive finite numbers, one per residual{where}")
-    return deviations
+def calibration(
+    options: Options, squares: SumOfSquares
+) -> Generator[Request, Any, tuple[Settled, Settings, tuple[str, ...], np.ndarray, object]]:
+    """The whole of `calibrate` as one generator for the driver.
+
+    Noise estimate, direction-set search finished by Levenberg–Marquardt (keeping some of the
+    budget for it), curvature check and escapes, and the Jacobian for the uncertainty; returns
+    what the check settled, the settings used, the notes, the mask of free parameters and the
+    Jacobian (None when it could not be had).
+    """
+    space = options.space
+    level, noted = yield from noise_level(space, options.noise)
+    settings = floored(options.settings, level)
+    outcome = yield from _search(
+        space, settings, squares, None, budget=options.budget,
+        reserve=_reserve(space.size, options.budget), second_opinion=True,
+    )
+    settled = yield from settle(
+        space, settings, outcome, check=options.check, escapes=options.escapes, noise=level,
+        restart=lambda u: _search(space, settings, squares, u, budget=options.budget, reserve=0),
+    )
+    point = settled.outcome.point
+    free = ~space.on_bound(space.to_user(point), 10.0 * settings.point_tolerance)
+    jacobian = yield from extrapolated_jacobian(space, squares, point, free)
+    return settled, settings, noted, free, jacobian
 
 
 def _reserve(n: int, budget: int) -> int:
@@ -338,49 +332,75 @@ def _reserve(n: int, budget: int) -> int:
 
 
 def _search(
-    driver: Driver,
     space: Space,
     settings: Settings,
     squares: SumOfSquares,
     start: np.ndarray | None,
     *,
+    budget: int,
     reserve: int,
     second_opinion: bool = False,
-) -> Outcome:
+) -> Generator[Request, Any, Outcome]:
     """The direction-set search finished by Levenberg–Marquardt; optionally a second opinion.
 
-    The second opinion is Levenberg–Marquardt alone from the start: damped Gauss–Newton steps do
+    The search leaves ``reserve`` evaluations of the ``budget`` to Levenberg–Marquardt (but
+    always has one new evaluation).  The second opinion is Levenberg–Marquardt alone from the
+    start: damped Gauss–Newton steps do
     not jump, so it stays in the start's basin where a line search of the direction-set method
     may leap across a pole of the model into another branch (seen on NIST's Hahn1 from its second
     start), while the direction-set search gets off plateaus where Gauss–Newton steps stall
     (NIST's BoxBOD from its first start).  The lower sum of squares wins.
     """
-    budget = driver.budget
-    driver.budget = max(driver.spent + 1, budget - reserve)
-    try:
-        outcome = driver.run(powell(space, settings, start))
-    finally:
-        driver.budget = budget
+    search = powell(space, settings, start)
+    if reserve > 0:
+        spent = yield SPENT
+        search = limited(search, max(spent + 1, budget - reserve))
+    outcome = yield from search
     if outcome.stop in (Stop.INTERRUPTED, Stop.STALLED) or not math.isfinite(outcome.value):
         return outcome
-    polished = driver.run(levenberg_marquardt(space, squares, outcome.point, outcome.value))
+    polished = yield from levenberg_marquardt(space, squares, outcome.point, outcome.value)
     outcome = _replaced(outcome, polished, "Levenberg-Marquardt after the search")
     if not second_opinion or outcome.stop is Stop.INTERRUPTED:
         return outcome
-    other = driver.run(_from_start(space, squares))
+    other = yield from _from_start(space, squares)
     if other.value < outcome.value - 4.0 * EPSILON * abs(outcome.value):
+        lower = outcome.value - other.value  # the size of the gain, not the two values again
         note = (
-            f"Levenberg-Marquardt from the start reached S = {other.value:.10g}, below the "
-            f"{outcome.value:.10g} of the direction-set search; its point is taken"
+            f"Levenberg-Marquardt from the start reached a sum of squares lower by {lower:.2g} "
+            f"(relative {lower / abs(outcome.value):.1g}) than the direction-set search; "
+            "its point is taken"
         )
         outcome = _replaced(outcome, other, note)
     return outcome
 
 
+def limited(
+    search: Generator[Batch, np.ndarray, Outcome], limit: int
+) -> Generator[Batch, np.ndarray, Outcome]:
+    """``search`` with its batches limited to ``limit`` points of its search's budget."""
+    try:
+        batch = next(search)
+    except StopIteration as done:
+        return done.value
+    while True:
+        try:
+            values = yield dataclasses.replace(batch, limit=limit)
+        except Halt as halt:
+            try:
+                batch = search.throw(halt)
+            except StopIteration as done:
+                return done.value
+            continue
+        try:
+            batch = search.send(values)
+        except StopIteration as done:
+            return done.value
+
+
 def _from_start(space: Space, squares: SumOfSquares) -> Generator[Batch, np.ndarray, Polished]:
     u = np.zeros(space.size)
     try:
-        values = yield Batch(points=space.to_user(u)[None, :], purpose="start")
+        values = yield Batch(points=space.to_user(u)[None, :], purpose=Purpose.START)
     except Halt as halt:
         return Polished(point=u, value=math.inf, stop=halt.stop, reason=halt.reason, steps=0)
     return (yield from levenberg_marquardt(space, squares, u, float(values[0])))

@@ -4,7 +4,7 @@ Calibration objectives often have several local minima; which one a search reach
 where it starts.  `explore` starts one direction-set search (`search.powell`) from each point of
 a scrambled Sobol design in the bounds (Sobol 1967; scrambling by Owen 1998, as
 `scipy.stats.qmc` does it), plus the user's start when given, runs them all at once on an
-executor (`pool.Runner`), groups the end points into distinct minima and checks each one.
+executor (`run.driver.Driver`), groups the end points into distinct minima and checks each one.
 
 Two end points are the same minimum when their distance in scaled coordinates (each parameter,
 or its logarithm when log-scaled, divided by the width of its bounds) is below ``same_point``
@@ -29,26 +29,28 @@ import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 from scipy.stats import qmc
 
-from directional.api.minimization import (  # the same checks and records as minimize
-    _active,
-    _budget,
-    _directions_in_search_coordinates,
-    _settings,
+from directional.api.options import (
+    Options,
+    budget_option,
+    search_settings,
+    time_limit_option,
 )
+from directional.api.session import active, search_directions, session
 from directional.errors import ObjectiveError, ProblemError
-from directional.method.curvature import Settled, check_method, escape_count, settle, settled_solution
+from directional.method.curvature import Settled, check_kind, escape_count, settle, settled_solution
 from directional.method.noise import floored, noise_level, noise_option
 from directional.method.search import Settings, powell
 from directional.method.space import Space, build_space, space_from_parameters
 from directional.parameters import Parameter
-from directional.records import Stop, Verdict
-from directional.run.driver import Evaluation, Objective
-from directional.run.journal import journal_for, run_identity
-from directional.run.pool import Runner, check_picklable
+from directional.records import Status, Stop, Verdict
+from directional.run.driver import Driver, Evaluation, Objective, Observer
+from directional.run.executors import check_picklable
+from directional.run.identity import run_identity
 from directional.run.workers import process_pool
 from directional.solution import CAUTION, Solution, describe_break
 
@@ -280,7 +282,7 @@ def explore(
     function at the top level of a module); with an ``executor`` (any
     `concurrent.futures.Executor`, e.g. a Dask cluster's ``Client(address).get_executor()``) on
     that executor as it is, at most ``workers`` evaluations in flight (None: no limit).  The
-    minima are the same whichever way the run is made (`pool`).  Each distinct minimum is then
+    minima are the same whichever way the run is made (`run.driver`).  Each distinct minimum is then
     checked as `minimize` checks its point (`curvature.settle`: Hessian, verdict, escape from a
     saddle), its Hessian stencil evaluated as one batch on the executor.
 
@@ -331,15 +333,94 @@ def explore(
     JournalError
         When the journal belongs to another problem or is damaged.
     """
+    return exploration(
+        objective, bounds, starts=starts, executor=executor, workers=workers, seed=seed,
+        start=start, names=names, include_start=include_start, budget=budget,
+        total_budget=total_budget, point_tolerance=point_tolerance,
+        value_tolerance=value_tolerance, time_limit=time_limit, journal=journal, check=check,
+        escapes=escapes, noise=noise, same_point=same_point, same_value=same_value,
+    )
+
+
+def exploration(
+    objective: Objective,
+    bounds: object,
+    *,
+    observers: Sequence[Observer] = (),
+    executor: object = None,
+    workers: int | None = None,
+    journal: object = None,
+    **arguments: Any,
+) -> Landscape:
+    """`explore` with ``observers`` told of each evaluation (the command line's progress bar).
+
+    ``arguments`` are the other keyword arguments of `explore`.
+
+    Raises
+    ------
+    ProblemError, ObjectiveError, JournalError
+        As `explore`.
+    """
     if not callable(objective):
         raise ProblemError(f"objective must be callable, got {objective!r}")
+    options = explore_options(
+        bounds, executor=executor, workers=workers, journal=journal, **arguments
+    )
+    made = None
+    if executor is None and workers is not None:
+        check_picklable(objective)
+        executor = made = process_pool(workers)
+    elif isinstance(executor, cf.ProcessPoolExecutor):
+        check_picklable(objective)
+    try:
+        with session(
+            objective, options, journal, executor=executor, workers=workers, observers=observers
+        ) as (driver, kept):
+            land = _explore(options, driver)
+            land = dataclasses.replace(land, notes=(*land.notes, *kept.notes))
+            kept.finish(_overall(land.stops), "", replayed=driver.replayed)
+    finally:
+        if made is not None:
+            made.shutdown(wait=True, cancel_futures=True)
+    return land
+
+
+def explore_options(
+    bounds: object,
+    starts: int = 16,
+    seed: object = 0,
+    *,
+    start: object = None,
+    names: Sequence[str] | None = None,
+    include_start: bool | None = None,
+    budget: int | None = None,
+    total_budget: int | None = None,
+    point_tolerance: float = 1e-6,
+    value_tolerance: float = 1e-10,
+    time_limit: float | None = None,
+    check: bool | str = True,
+    escapes: int = 3,
+    noise: float | str | None = None,
+    same_point: float = SAME_POINT,
+    same_value: float = SAME_VALUE,
+    executor: object = None,
+    workers: int | None = None,
+    journal: object = None,
+) -> Options:
+    """The options of `explore`, validated before any evaluation, with the design of starts.
+
+    Raises
+    ------
+    ProblemError
+        Naming the first bad argument.
+    """
     space, given = _space(bounds, start, names)
     include = given if include_start is None else bool(include_start)
-    settings = _settings(point_tolerance, value_tolerance)
-    budget = _budget(budget, space.size)
-    total_budget = _total(total_budget, space.size)
-    method, escapes, noise = check_method(check), escape_count(escapes), noise_option(noise)
-    _options(executor, workers, time_limit, same_point, same_value)
+    settings = search_settings(point_tolerance, value_tolerance)
+    allowed = budget_option(budget, space.size)
+    total = None if total_budget is None else budget_option(total_budget, space.size, "total_budget")
+    kind, escapes, noise = check_kind(check), escape_count(escapes), noise_option(noise)
+    time_limit = _options(executor, workers, time_limit, same_point, same_value)
     if journal is not None and (isinstance(seed, bool) or not isinstance(seed, int | np.integer)):
         raise ProblemError(f"seed must be a whole number when a journal is kept, got {seed!r}")
     scaled_starts = design(space, starts, seed, include_start=include)
@@ -358,42 +439,11 @@ def explore(
         same_point=float(same_point),
         same_value=float(same_value),
     )
-    made = None
-    if executor is None and workers is not None:
-        check_picklable(objective)
-        executor = made = process_pool(workers)
-    elif isinstance(executor, cf.ProcessPoolExecutor):
-        check_picklable(objective)
-    plan = _Plan(space, settings, method, escapes, float(same_point), float(same_value))
-    try:
-        with journal_for(journal, identity, budget=budget, objective=objective) as kept, Runner(
-            objective=objective,
-            budget=budget,
-            total=total_budget,
-            time_limit=time_limit,
-            executor=executor,
-            workers=workers,
-            record=kept.hooks().get("record"),
-            known=kept.stored,
-            retry=kept.retry,
-        ) as runner:
-            land = _explore(plan, runner, scaled_starts, noise)
-            land = dataclasses.replace(land, notes=(*land.notes, *kept.notes))
-            kept.finish(_overall(land.stops), "", replayed=runner.replayed)
-    finally:
-        if made is not None:
-            made.shutdown(wait=True, cancel_futures=True)
-    return land
-
-
-@dataclass(frozen=True, slots=True)
-class _Plan:
-    space: Space
-    settings: Settings
-    method: str | None
-    escapes: int
-    same_point: float
-    same_value: float
+    return Options(
+        kind="explore", space=space, settings=settings, budget=allowed, time_limit=time_limit,
+        check=kind, escapes=escapes, noise=noise, identity=identity, starts=scaled_starts,
+        total_budget=total, same_point=float(same_point), same_value=float(same_value),
+    )
 
 
 def _overall(stops: Sequence[Stop]) -> Stop:
@@ -403,25 +453,34 @@ def _overall(stops: Sequence[Stop]) -> Stop:
     )
 
 
-def _explore(
-    plan: _Plan, runner: Runner, scaled_starts: np.ndarray, noise: float | str | None
-) -> Landscape:
-    """The searches, then the check of each distinct minimum, then the landscape."""
-    space = plan.space
+def _explore(options: Options, driver: Driver) -> Landscape:
+    """The searches, then the check of each distinct minimum, then the landscape.
+
+    Three stages on one driver (one cache, budget rule, log and journal): the noise estimate
+    under search id k (after the searches' ids), the k searches at once, then the check of each
+    distinct minimum under the id of the search that reached it (its budget goes on).
+    """
+    space = options.space
+    scaled_starts = options.starts
+    assert scaled_starts is not None
     k = len(scaled_starts)
-    lane = runner.lane()
-    level, noted = noise_level(lane, space, noise, search=k)  # id k: after the searches
-    settings = floored(plan.settings, level)
-    outcomes = runner.run({j: powell(space, settings, start=u) for j, u in enumerate(scaled_starts)})
+    level, noted = driver.run(noise_level(space, options.noise), search=k)
+    settings = floored(options.settings, level)
+    outcomes = driver.run_all(
+        {j: powell(space, settings, start=u) for j, u in enumerate(scaled_starts)}
+    )
     ends = np.array([outcomes[j].point for j in range(k)])
     values = np.array([outcomes[j].value for j in range(k)])
     spread = 0.0 if level is None else float(level)
-    leaders, label = cluster(ends, values, plan.same_point, plan.same_value, spread)
+    leaders, label = cluster(ends, values, options.same_point, options.same_value, spread)
     interrupted = any(o.stop is Stop.INTERRUPTED for o in outcomes.values())
-    method = None if interrupted else plan.method
-    settled = {
-        j: settle(lane, space, settings, outcomes[j], check=method, escapes=plan.escapes,
-                  noise=level, search=j)
+    check = None if interrupted else options.check
+    settled: dict[int, Settled] = {
+        j: driver.run(
+            settle(space, settings, outcomes[j], check=check, escapes=options.escapes,
+                   noise=level),
+            search=j,
+        )
         for j in leaders
     }
     # An escape moves a minimum, maybe onto another: group again by where each start ended up.
@@ -434,8 +493,8 @@ def _explore(
         label[j] >= 0 and bool(getattr(settled[leaders[label[j]]].curvature, "breaks", ()))
         for j in range(k)
     ]
-    groups, reached = cluster(final_u, final_f, plan.same_point, plan.same_value, spread, rough)
-    evaluations = runner.log.evaluations
+    groups, reached = cluster(final_u, final_f, options.same_point, options.same_value, spread, rough)
+    evaluations = driver.log.evaluations
     if not groups and not interrupted and evaluations:
         last = evaluations[-1]
         if last.value == -math.inf:  # not a failure: the objective is unbounded below
@@ -459,7 +518,7 @@ def _explore(
         ends=space.to_user(ends),
         reached=tuple(reached),
         evaluations=len(evaluations),
-        failures=sum(1 for e in evaluations if e.status != "ok"),
+        failures=sum(1 for e in evaluations if e.status != Status.OK),
         names=space.names,
         scales=tuple(p.scale for p in space.parameters),
         lower=space.lower.copy(),
@@ -483,10 +542,10 @@ def _minimum(
         cycles=outcome.cycles,
         stop=outcome.stop,
         verdict=Verdict.UNCHECKED,
-        active=_active(space, point, settings),
+        active=active(space, point, settings.point_tolerance),
         curvature=None,
         uncertainty=None,
-        directions=_directions_in_search_coordinates(space, outcome.directions),
+        directions=search_directions(space, outcome.directions),
         names=space.names,
         units=tuple(p.unit for p in space.parameters),
         lower=space.lower.copy(),
@@ -530,31 +589,17 @@ def _space(bounds: object, start: object, names: Sequence[str] | None) -> tuple[
     return build_space(centre, [tuple(p) for p in pairs], names), False
 
 
-def _total(total_budget: int | None, n: int) -> int | None:
-    if total_budget is None:
-        return None
-    if isinstance(total_budget, bool) or not isinstance(total_budget, int | np.integer):
-        raise ProblemError(f"total_budget must be a whole number of evaluations, got {total_budget!r}")
-    if total_budget < n + 1:
-        raise ProblemError(
-            f"total_budget must allow at least n + 1 = {n + 1} evaluations, got {total_budget!r}"
-        )
-    return int(total_budget)
-
-
 def _options(
     executor: object, workers: object, time_limit: object, same_point: object, same_value: object
-) -> None:
+) -> float | None:
     if executor is not None and not isinstance(executor, cf.Executor) and not hasattr(executor, "submit"):
         raise ProblemError(f"executor must be a concurrent.futures.Executor, got {executor!r}")
     if workers is not None and (
         isinstance(workers, bool) or not isinstance(workers, int | np.integer) or workers < 1
     ):
         raise ProblemError(f"workers must be a whole number of at least 1, got {workers!r}")
-    if time_limit is not None and (
-        isinstance(time_limit, bool) or not isinstance(time_limit, int | float) or not time_limit > 0
-    ):
-        raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
+    time_limit = time_limit_option(time_limit)
     for key, value in (("same_point", same_point), ("same_value", same_value)):
         if isinstance(value, bool) or not isinstance(value, int | float) or not value >= 0:
             raise ProblemError(f"{key} must be a number of at least 0, got {value!r}")
+    return time_limit  # type: ignore[return-value]

@@ -1,33 +1,32 @@
-"""`minimize` and `line_minimum`: the public entry points that put search and driver together."""
+"""`minimize`, `line_minimum` and `estimate_noise`: entry points that put method and driver together."""
 
 from __future__ import annotations
 
 import concurrent.futures as cf
-import contextlib
 import math
-from collections.abc import Callable, Generator, Iterator, Sequence
+from collections.abc import Callable, Generator, Sequence
 from typing import Any
 
 import numpy as np
 
+from directional.api.options import Options, minimize_options
+from directional.api.session import session, solution
 from directional.errors import ObjectiveError, ProblemError
-from directional.method.curvature import check_method, escape_count, settle, settled_solution
-from directional.method.directions import DirectionSet, hessian_estimate
+from directional.method.curvature import Settled, settle, settled_solution
 from directional.method.linesearch import LineResult, line_search
-from directional.method.noise import floored, noise_level, noise_option
+from directional.method.noise import (
+    FAILED,
+    NoiseLevel,
+    check_options,
+    estimate,
+    floored,
+    noise_level,
+)
 from directional.method.search import Settings, powell
-from directional.method.space import Space, build_space
-from directional.records import Batch, Curvature, Halt, Outcome, Stop, Verdict
+from directional.method.space import build_space
+from directional.records import Batch, Halt, Purpose, Request, Status
 from directional.run.driver import Driver, Objective
-from directional.run.journal import journal_for, run_identity
-from directional.run.pool import Lane, Runner
-from directional.run.progress import Progress
 from directional.solution import Solution
-
-
-def default_budget(n: int) -> int:
-    """Evaluations allowed when the caller sets no budget: 1000 (n + 1)."""
-    return 1000 * (n + 1)
 
 
 def minimize(
@@ -94,10 +93,12 @@ def minimize(
     executor
         A `concurrent.futures.Executor` (a process pool, or a Dask cluster's
         ``client.get_executor()``) on which the points of a batch (both bracketing probes, the
-        Hessian stencil) are evaluated at once.  A journal written this way is resumed by point:
-        give ``dl.resume`` an executor too.  Default None: one evaluation at a time, in process.
+        Hessian stencil) are evaluated at once, with the same result as in process; a journal
+        written either way resumes either way.  Default None: one evaluation at a time, in
+        process.
     progress
-        Show a progress bar on standard error (when it is a terminal).
+        Show a progress bar on standard error (when it is a terminal); the driver tells it of
+        each evaluation, so it works with any executor.
 
     Raises
     ------
@@ -109,206 +110,40 @@ def minimize(
     JournalError
         When ``journal`` is not a journal, is damaged, is in use, or belongs to another problem.
     """
-    space, settings, budget, method, escapes, noise = checked_arguments(
-        "objective", objective, start, bounds, names, budget, point_tolerance, value_tolerance,
-        time_limit, check, escapes, noise,
+    options = minimize_options(
+        objective, start, bounds, names, budget, point_tolerance=point_tolerance,
+        value_tolerance=value_tolerance, time_limit=time_limit, check=check, escapes=escapes,
+        noise=noise,
     )
-    identity = run_identity(
-        "minimize", space.parameters, settings,
-        point_tolerance=point_tolerance, value_tolerance=value_tolerance, check=check,
-        escapes=escapes, noise=noise,
-    )
-    if progress:
-        objective = Progress(objective, budget=budget, enabled=None)
-    with journal_for(journal, identity, budget=budget, objective=objective) as book, _driver(
-        objective, budget, time_limit, executor, book
-    ) as driver:
-        level, noted = noise_level(driver, space, noise)
-        settings = floored(settings, level)
-        outcome = driver.run(powell(space, settings))
-        settled = settle(
-            driver, space, settings, outcome, check=method, escapes=escapes, noise=level
-        )
+    if executor is not None and not isinstance(executor, cf.Executor):
+        raise ProblemError(f"executor must be a concurrent.futures.Executor, got {executor!r}")
+    with session(objective, options, journal, executor=executor, progress=progress) as (
+        driver, book
+    ):
+        settled, settings, noted = driver.run(minimization(options))
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
-        return settled_solution(
-            _solution(space, settings, driver, outcome), settled, (*noted, *book.notes)
-        )
+        found = solution(options.space, driver.log, outcome, settings.point_tolerance)
+        return settled_solution(found, settled, (*noted, *book.notes))
 
 
-@contextlib.contextmanager
-def _driver(
-    objective: Objective, budget: int, time_limit: float | None, executor: object, book: Any
-) -> Iterator[Driver | Lane]:
-    """The driver of one search: in process, or on ``executor`` (batches evaluated in parallel).
+def minimization(
+    options: Options,
+) -> Generator[Request, Any, tuple[Settled, Settings, tuple[str, ...]]]:
+    """The whole of `minimize` as one generator for the driver.
 
-    On an executor the evaluations of a batch complete in any order, so its journal is replayed
-    by point (`pool.Runner`); resume it with an executor too (any one, e.g. ``InProcess()``).
+    The noise estimate (when asked), the search, the curvature check and its escapes, joined
+    with ``yield from``; returns what the check settled, the settings the search used (their
+    value tolerance floored by the noise) and the notes for the user.
     """
-    try:
-        if executor is None:
-            yield Driver(objective=objective, budget=budget, time_limit=time_limit, **book.hooks())
-            return
-        if not isinstance(executor, cf.Executor):
-            raise ProblemError(f"executor must be a concurrent.futures.Executor, got {executor!r}")
-        with Runner(
-            objective=objective,
-            budget=budget,
-            time_limit=time_limit,
-            executor=executor,
-            workers=None,
-            record=book.hooks().get("record"),
-            known=book.stored,
-            retry=book.retry,
-        ) as runner:
-            yield runner.lane()
-    finally:
-        if isinstance(objective, Progress):
-            objective.close()
-
-
-def checked_arguments(
-    role: str,
-    function: object,
-    start: object,
-    bounds: object,
-    names: Sequence[str] | None,
-    budget: int | None,
-    point_tolerance: float,
-    value_tolerance: float,
-    time_limit: float | None,
-    check: bool | str,
-    escapes: int,
-    noise: float | str | None,
-) -> tuple[Space, Settings, int, str, int, float | str | None]:
-    """The arguments `minimize` and `calibrate` share, validated before any evaluation.
-
-    Returns the space, the search settings, the budget, the check method, the escape count and
-    the noise option.
-
-    Raises
-    ------
-    ProblemError
-        Naming the argument (``role`` names the function: "objective" or "residuals").
-    """
-    if not callable(function):
-        raise ProblemError(f"{role} must be callable, got {function!r}")
-    space = build_space(start, bounds, names)
-    settings = _settings(point_tolerance, value_tolerance)
-    budget = _budget(budget, space.size)
-    if time_limit is not None and (
-        isinstance(time_limit, bool)
-        or not (isinstance(time_limit, int | float) and time_limit > 0)
-    ):
-        raise ProblemError(f"time_limit must be a positive number of seconds, got {time_limit!r}")
-    return space, settings, budget, check_method(check), escape_count(escapes), noise_option(noise)
-
-
-def _settings(point_tolerance: float, value_tolerance: float) -> Settings:
-    for key, value in (("point_tolerance", point_tolerance), ("value_tolerance", value_tolerance)):
-        if isinstance(value, bool) or not isinstance(value, int | float) or not value > 0:
-            raise ProblemError(f"{key} must be a positive number, got {value!r}")
-        if not math.isfinite(value):
-            raise ProblemError(f"{key} must be finite, got {value!r}")
-    return Settings(point_tolerance=float(point_tolerance), value_tolerance=float(value_tolerance))
-
-
-def _budget(budget: int | None, n: int) -> int:
-    if budget is None:
-        return default_budget(n)
-    if isinstance(budget, bool) or not isinstance(budget, int | np.integer):
-        raise ProblemError(f"budget must be a whole number of evaluations, got {budget!r}")
-    if budget < n + 1:
-        raise ProblemError(
-            f"budget must allow at least n + 1 = {n + 1} evaluations, got {budget!r}"
-        )
-    return int(budget)
-
-
-def _solution(space: Space, settings: Settings, driver: Driver, outcome: Outcome) -> Solution:
-    log = driver.log
-    if not log.evaluations:
-        if outcome.stop is Stop.INTERRUPTED:  # Ctrl-C before anything was computed
-            raise KeyboardInterrupt(outcome.reason)
-        raise ObjectiveError(f"no evaluation was made: {outcome.reason or outcome.stop.value}")
-    first = log.evaluations[0]
-    if first.status != "ok" and outcome.cycles == 0 and outcome.stop is Stop.STALLED:
-        raise ObjectiveError(
-            f"the objective failed at the start point {first.point.tolist()!r}: "
-            f"{first.detail or first.status}"
-        )
-    best = log.best
-    if best is None:
-        raise ObjectiveError(
-            f"every evaluation failed ({len(log.evaluations)}); last error: "
-            f"{log.evaluations[-1].detail}"
-        )
-    free = hessian_estimate(
-        DirectionSet(
-            vectors=outcome.directions,
-            curvatures=outcome.curvatures,
-            steps=np.zeros(space.size),
-        )
+    space = options.space
+    level, noted = yield from noise_level(space, options.noise)
+    settings = floored(options.settings, level)
+    outcome = yield from powell(space, settings)
+    settled = yield from settle(
+        space, settings, outcome, check=options.check, escapes=options.escapes, noise=level
     )
-    return Solution(
-        point=best.point.copy(),
-        value=best.value,
-        evaluations=len(log.evaluations),
-        cycles=outcome.cycles,
-        stop=outcome.stop,
-        verdict=Verdict.UNCHECKED,
-        active=_active(space, best.point, settings),
-        curvature=None if free is None else _free_curvature(space, free),
-        uncertainty=None,
-        directions=_directions_in_search_coordinates(space, outcome.directions),
-        names=space.names,
-        units=tuple(p.unit for p in space.parameters),
-        lower=space.lower.copy(),
-        upper=space.upper.copy(),
-        reason=_with_last_error(outcome, log.evaluations),
-        history=tuple(log.evaluations),
-    )
-
-
-def _with_last_error(outcome: Outcome, evaluations: list) -> str:
-    """The search's reason for stopping, with the last failure's text when it stalled on failures."""
-    failed = [e for e in evaluations if e.status != "ok"]
-    if outcome.stop is Stop.STALLED and failed and "last error" not in outcome.reason:
-        return f"{outcome.reason}; last error: {failed[-1].detail or failed[-1].status}"
-    return outcome.reason
-
-
-def _active(space: Space, point: np.ndarray, settings: Settings) -> tuple[str, ...]:
-    flags = space.on_bound(point, 10.0 * settings.point_tolerance)
-    return tuple(name for name, flag in zip(space.names, flags) if flag)
-
-
-def _directions_in_search_coordinates(space: Space, directions: np.ndarray) -> np.ndarray:
-    rows = directions * space.scale
-    return rows / np.linalg.norm(rows, axis=1, keepdims=True)
-
-
-def _free_curvature(space: Space, scaled_hessian: np.ndarray) -> Curvature:
-    """The free Hessian estimate, moved from scaled to search coordinates."""
-    inverse_scale = 1.0 / space.scale
-    hessian = scaled_hessian * np.outer(inverse_scale, inverse_scale)
-    return curvature_record(hessian, None, "free")
-
-
-def curvature_record(hessian: np.ndarray, error: np.ndarray | None, source: str) -> Curvature:
-    """Eigen-decompose a symmetric Hessian into a `Curvature` record."""
-    eigenvalues, eigenvectors = np.linalg.eigh(hessian)
-    top = np.max(np.abs(eigenvalues))
-    low = np.min(np.abs(eigenvalues))
-    condition = math.inf if low == 0.0 else float(top / low)
-    return Curvature(
-        hessian=hessian,
-        error=error,
-        eigenvalues=eigenvalues,
-        eigenvectors=eigenvectors,
-        condition=condition,
-        source=source,
-    )
+    return settled, settings, noted
 
 
 def line_minimum(
@@ -380,7 +215,7 @@ def _drive_line(driver: Driver, search: Generator[np.ndarray, np.ndarray, LineRe
         ts = next(search)
         try:
             while True:
-                values = yield Batch(points=ts[:, None].copy(), purpose="line")
+                values = yield Batch(points=ts[:, None].copy(), purpose=Purpose.LINE)
                 ts = search.send(values)
         except StopIteration as done:
             return done.value
@@ -400,3 +235,57 @@ def _drive_line(driver: Driver, search: Generator[np.ndarray, np.ndarray, LineRe
             evaluations=driver.spent,
         )
     return result
+
+
+def estimate_noise(
+    objective: Objective,
+    point: object,
+    *,
+    bounds: object = None,
+    names: Sequence[str] | None = None,
+    step: float = 1e-6,
+    points: int = 9,
+    seed: int | np.random.Generator | None = 0,
+    retries: int = 2,
+) -> NoiseLevel:
+    """Return the level of computational noise of ``objective`` near ``point``.
+
+    Evaluates the objective at ``points`` equally spaced points along a random direction through
+    ``point`` and reads the noise off the difference table (Moré & Wild 2011; see
+    `directional.method.noise`).  ``step`` is the spacing in scaled coordinates: a fraction of
+    each parameter's size (its bound width, else its magnitude, else 1).  A failure signal is
+    reported in ``status`` rather than raised: the cure (another step) is tried ``retries`` times
+    first.
+
+    >>> import numpy as np
+    >>> noise = estimate_noise(lambda x: float(np.sum(x**2)) + 1.0, [0.5, 0.5])
+    >>> noise.status, noise.level < 1e-14
+    ('detected', True)
+
+    Raises
+    ------
+    ProblemError
+        For a bad point, bounds, step, number of points or retries.
+    ObjectiveError
+        When the objective returns something that is not a number, or fails at ``point``.
+
+    References
+    ----------
+    .. [1] J. J. Moré and S. M. Wild, "Estimating computational noise", *SIAM Journal on
+       Scientific Computing* 33(3) (2011) 1292-1314.
+    """
+    if not callable(objective):
+        raise ProblemError(f"objective must be callable, got {objective!r}")
+    check_options(step, points, retries)
+    space = build_space(point, bounds, names)
+    driver = Driver(objective=objective, budget=(retries + 1) * points)
+    result: NoiseLevel = driver.run(estimate(space, np.zeros(space.size), step=step, points=points,
+                                             seed=seed, retries=retries))
+    if result.status == FAILED and all(e.status != Status.OK for e in driver.log.evaluations):
+        raise ObjectiveError(
+            f"the objective failed at every point near {space.start.tolist()!r}: "
+            f"{driver.log.evaluations[-1].detail}"
+        )
+    return result
+
+

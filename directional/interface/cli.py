@@ -150,7 +150,8 @@ def _parser() -> argparse.ArgumentParser:
     demo = command(
         "demo", "run the bundled scenario end to end",
         "Calibrate a batch-bioreactor model (Monod growth) to an invented, noisy data set and "
-        "write the problem file, journal, summary, JSON and plots into ./directional-demo/.",
+        "write the problem file, journal, summary, JSON, plots and an HTML report into "
+        "./directional-demo/.",
     )
     demo.add_argument("--folder", default="directional-demo", help="where to write (default: %(default)s)")
     demo.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -222,6 +223,8 @@ def _parser() -> argparse.ArgumentParser:
 def _outputs(sub: argparse.ArgumentParser, progress: bool = True) -> None:
     sub.add_argument("--json", metavar="OUT", help="write the solution as JSON to OUT")
     sub.add_argument("--plots", metavar="DIR", help="write PNG plots into DIR")
+    sub.add_argument("--html", metavar="FILE",
+                     help="write the report as one self-contained HTML page to FILE")
     sub.add_argument(
         "--plot-evaluations", type=_count, default=None, metavar="N",
         help="most report-only evaluations for maps and profiles, not journaled "
@@ -310,6 +313,7 @@ def _demo(args: argparse.Namespace, out: TextIO | None = None) -> int:
         out=out,
         show_files=True,
         inputs=(path, folder / "data.csv"),
+        html=folder / "report.html",
     )
 
 
@@ -344,7 +348,7 @@ def _run(args: argparse.Namespace) -> int:
         )
     used = problem.journal if journal is True else journal
     return finish(result, problem, json_path=args.json, plots=args.plots, journal=used,
-                  extra=args.plot_evaluations)
+                  extra=args.plot_evaluations, html=args.html)
 
 
 @contextlib.contextmanager
@@ -379,7 +383,7 @@ def _resume(args: argparse.Namespace) -> int:
     result = resume(args.journal, problem, budget=args.budget, quiet=args.quiet,
                     retry_failed=args.retry_failed)
     return finish(result, problem, json_path=args.json, plots=args.plots,
-                  journal=Path(args.journal), extra=args.plot_evaluations)
+                  journal=Path(args.journal), extra=args.plot_evaluations, html=args.html)
 
 
 def _show(args: argparse.Namespace) -> int:
@@ -403,7 +407,8 @@ def _show(args: argparse.Namespace) -> int:
                   file=sys.stderr)
     parameters = contents.header.parameters
     return finish(result, problem, json_path=args.json, plots=args.plots,
-                  journal=Path(args.journal), extra=args.plot_evaluations, parameters=parameters)
+                  journal=Path(args.journal), extra=args.plot_evaluations, parameters=parameters,
+                  html=args.html)
 
 
 def _check(args: argparse.Namespace) -> int:
@@ -491,6 +496,7 @@ def finish(
     out: TextIO | None = None,
     show_files: bool = False,
     inputs: Sequence[Path] = (),
+    html: str | Path | None = None,
 ) -> int:
     """Print the summary, write the requested files, say where they are; return the exit code.
 
@@ -536,8 +542,12 @@ def finish(
     if json_path is not None:
         written.append(report.write_json(sol, json_path, title=title, parameters=parameters,
                                          landscape=landscape))
+    # both the PNG plots and the page: their report-only evaluations are the same points, made once
+    made = _Remembered(problem) if problem is not None and plots and html else None
     if plots is not None:
-        written += _plots(sol, problem, Path(plots), extra, parameters, landscape)
+        written += _plots(sol, problem, Path(plots), extra, parameters, landscape, made)
+    if html is not None:
+        written.append(_html(result, sol, problem, Path(html), extra, parameters, journal, made))
     if written:
         print("\nFiles:", file=out)
         for path in written:
@@ -567,6 +577,7 @@ def _plots(
     extra: int | None,
     parameters: Sequence | None,
     landscape: Any = None,
+    made: Any = None,
 ) -> list[Path]:
     from directional.report.plots import affordable, write_plots
 
@@ -577,7 +588,7 @@ def _plots(
     if problem is not None:
         kind = problem.objective.kind
         if extra > 0:
-            objective = problem.make_objective()
+            objective = made if made is not None else problem.make_objective()
         fit = problem.make_fit()
     title = problem.title if problem is not None else ""
     written = write_plots(
@@ -590,6 +601,55 @@ def _plots(
         written.append(start_map(landscape, objective, folder / "starts.png", kind=kind,
                                  extra=extra, title=title))
     return written
+
+
+class _Remembered:
+    """The problem's objective, built on first use, remembering its result at each point."""
+
+    def __init__(self, problem: Problem) -> None:
+        self.problem = problem
+        self.objective: Any = None
+        self.seen: dict[bytes, Any] = {}
+
+    def __call__(self, x: np.ndarray) -> Any:
+        key = np.asarray(x, dtype=float).tobytes()
+        if key not in self.seen:
+            if self.objective is None:
+                self.objective = self.problem.make_objective()
+            self.seen[key] = self.objective(np.array(x, dtype=float))
+        return self.seen[key]
+
+
+def _html(
+    result: Any,
+    sol: Solution,
+    problem: Problem | None,
+    path: Path,
+    extra: int | None,
+    parameters: Sequence | None,
+    journal: Path | None,
+    made: Any = None,
+) -> Path:
+    """The HTML report (`directional.report.html`), its figures made as for ``--plots``."""
+    from directional.report.html import origin_of, write_html
+    from directional.report.plots import affordable
+    from directional.solution import Solution
+
+    if extra is None:
+        extra = affordable(sol, PLOT_SECONDS)
+    objective = fit = None
+    kind = "value"
+    if problem is not None:
+        kind = problem.objective.kind
+        if extra > 0:
+            objective = made if made is not None else problem.make_objective()
+        fit = problem.make_fit()
+    history = sol.history if isinstance(result, Solution) else result.history
+    origin = origin_of(problem_file=problem.source if problem is not None else None,
+                       journal=journal, history=history)
+    return write_html(result, path, title=problem.title if problem is not None else "",
+                      parameters=parameters, kind=kind, objective=objective, fit=fit,
+                      extra=extra, origin=origin)
 
 
 if __name__ == "__main__":

@@ -30,9 +30,10 @@ from directional.errors import ProblemError
 from directional.interface import reading
 from directional.interface.process import Outcome, run_program
 from directional.interface.templates import Template
+from directional.records import Status
 
-FAILED = "failed"
-TIMED_OUT = "timed-out"
+FAILED = Status.FAILED
+TIMED_OUT = Status.TIMED_OUT
 DETAIL_LIMIT = 2000  # characters of stderr kept in EvaluationFailed.detail
 
 class EvaluationFailed(Exception):

@@ -8,7 +8,8 @@ biomass and substrate.  The demo writes, into ``./directional-demo/``:
 - ``data.csv``: a copy of the invented data;
 - ``journal.sqlite``: every evaluation (``directional show`` / ``resume`` read it);
 - ``summary.txt``, ``solution.json``: the result for people and for programs;
-- ``plots/*.png``: the search, the profiles, the fit and the residuals.
+- ``plots/*.png``: the search, the profiles, the fit and the residuals;
+- ``report.html``: all of it in one self-contained page to open, print or send.
 
 `residuals` and `fit` are the functions the problem file names (``directional.interface.demo:residuals``).
 The command line runs it (`cli`): `prepare` writes the files, then the problem file is run as

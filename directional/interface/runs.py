@@ -29,7 +29,7 @@ from directional.api.resume import ENTRY_POINTS
 from directional.api.resume import resume as resumed
 from directional.errors import JournalError, ObjectiveError, ProblemError
 from directional.interface.problemfile import Problem
-from directional.records import Stop
+from directional.records import Stop, Verdict
 from directional.run import journal as journals
 from directional.run.identity import canonical, describe_place, difference
 from directional.run.lockfile import holder
@@ -119,35 +119,25 @@ def solve(
         )
     many = problem.search.starts > 1
     if many:
-        options.update(starts=spec.starts, seed=spec.seed)
+        options.update(starts=spec.starts, seed=spec.seed, budget=budget)
         if executor is not None:
             options["executor"] = executor
         if spec.workers > 1:
             options["workers"] = spec.workers
-        options["budget"] = budget
-        bounds = list(problem.parameters)
-        bar_total = None
-    else:
-        options["budget"] = budget
-        bar_total = budget or 1000 * (len(problem.parameters) + 1)
-        executor = batch_executor(problem, spec.workers)
-        if executor is not None:
-            options["executor"] = executor
-    wrapped = objective
-    bar = None
-    in_process = not isinstance(getattr(executor, "_inner", None), cf.ProcessPoolExecutor)
-    if not (many and (spec.workers > 1 or executor is not None)) and in_process:
-        bar = Progress(objective, budget=bar_total, kind=problem.objective.kind,
-                       enabled=False if quiet else None)
-        wrapped = bar
+        if spec.workers > 1 or executor is not None:  # no bar: the pool's own output is enough
+            return run(objective, list(problem.parameters), **options)
+        from directional.api.explore import exploration
+
+        with Progress(budget=None, enabled=False if quiet else None) as bar:
+            return exploration(objective, list(problem.parameters), observers=(bar,), **options)
+    options["budget"] = budget
+    executor = batch_executor(problem, spec.workers)
+    if executor is not None:
+        options["executor"] = executor
     try:
-        if many:
-            return run(wrapped, bounds, **options)
-        return run(wrapped, list(problem.parameters), **options)
+        return run(objective, list(problem.parameters), progress=not quiet, **options)
     finally:
-        if bar is not None:
-            bar.close()
-        if not many and executor is not None:
+        if executor is not None:
             executor.shutdown(wait=True, cancel_futures=True)
 
 
@@ -233,20 +223,27 @@ def resume(
         As the library function that runs the problem.
     """
     contents = journals.read(path)
-    check_problem(path, problem, contents.header)
-    done = len(contents.stored)
+    header = contents.header
+    check_problem(path, problem, header)
     objective = problem.make_objective()
-    total = budget or contents.header.budget
     options: dict[str, Any] = {"fingerprint": problem.fingerprint(), "retry_failed": retry_failed}
-    workers = contents.header.info.get(WORKERS_KEY, 1)
-    if contents.header.kind == "explore" and isinstance(workers, int) and workers > 1:
+    if header.kind != "explore":
+        return resumed(path, objective, budget=budget, progress=not quiet, **options)
+    workers = header.info.get(WORKERS_KEY, 1)
+    if isinstance(workers, int) and workers > 1:
         return resumed(path, objective, budget=budget, workers=workers, **options)
-    bar = Progress(objective, budget=total, kind=problem.objective.kind,
-                   enabled=False if quiet else None, done=done)
-    try:
-        return resumed(path, bar, budget=budget, **options)
-    finally:
-        bar.close()
+    from directional.api.explore import exploration  # as `api.resume.resume` would, with a bar
+
+    arguments = dict(header.identity.get("arguments", {}))
+    target = journals.Target(
+        path, dict(header.info), objective=problem.fingerprint(), retry=bool(retry_failed),
+        refresh=problem.fingerprint,
+    )
+    with Progress(budget=None, enabled=False if quiet else None) as bar:
+        return exploration(
+            objective, header.parameters, journal=target,
+            budget=header.budget if budget is None else budget, observers=(bar,), **arguments,
+        )
 
 
 _KINDS = {"minimize": "value", "explore": "value", "calibrate": "residuals"}
@@ -310,7 +307,15 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
                 result = explore(_refuse, contents.header.parameters, journal=target,
                                  budget=contents.header.budget, total_budget=stored, **arguments)
             else:
-                result = resumed(target, _refuse, budget=stored)
+                # A calibration's search leaves part of its budget to Levenberg-Marquardt, so it
+                # replays under the budget it ran with, from the residual vectors its journal
+                # keeps; other runs replay up to their last stored evaluation.
+                calibration = contents.header.kind == "calibrate"
+                budget = contents.header.budget if calibration and contents.header.budget else stored
+                try:
+                    result = resumed(target, _refuse, budget=max(budget, stored))
+                except _Refused:  # the run ended early, or its journal keeps no vectors
+                    result = _as_stored(contents)
     if isinstance(result, Solution):
         result = _ended(result, contents, holder(Path(path)), stored)
     return result, contents
@@ -341,7 +346,43 @@ def _ended(
     return sol
 
 
+class _Refused(ObjectiveError):
+    """The replay asked the objective itself for something the journal does not hold."""
+
+
 def _refuse(x: np.ndarray) -> float:
-    raise ObjectiveError("show evaluates nothing")  # never called: the budget ends first
+    # The budget ends the replay before any evaluation; but a calibration's least-squares steps
+    # need residual vectors, which the journal does not keep (it keeps each point's value).
+    raise _Refused("show evaluates nothing")
+
+
+def _as_stored(contents: journals.Contents) -> Solution:
+    """The run as its journal holds it, without replaying the search: the best stored point.
+
+    For a journal whose replay would need evaluations (a calibration's residual vectors): the
+    best value and point, every evaluation, the stop of the last session; no verdict, no
+    uncertainty, and a reason that says so.
+    """
+    parameters = contents.header.parameters
+    history = tuple(e for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    done = [e for e in history if e.status == "ok"]
+    if not done:
+        raise ObjectiveError("every evaluation in the journal failed: there is no best point")
+    best = min(done, key=lambda e: e.value)
+    last = contents.sessions[-1] if contents.sessions else {}
+    stops = {stop.value: stop for stop in Stop}
+    return Solution(
+        point=np.array(best.point, dtype=float), value=float(best.value),
+        evaluations=len(history), cycles=0,
+        stop=stops.get(str(last.get("stop")), Stop.INTERRUPTED), verdict=Verdict.UNCHECKED,
+        active=(), curvature=None, uncertainty=None, directions=np.eye(len(parameters)),
+        names=tuple(p.name for p in parameters), units=tuple(p.unit for p in parameters),
+        lower=np.array([p.lower for p in parameters], dtype=float),
+        upper=np.array([p.upper for p in parameters], dtype=float),
+        reason="the best point the journal holds; its least-squares steps cannot be replayed "
+        "without evaluating (the journal keeps values, not residual vectors), so no verdict "
+        "and no uncertainty are shown: directional resume recomputes them",
+        history=history,
+    )
 
 

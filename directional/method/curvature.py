@@ -49,6 +49,7 @@ import dataclasses
 import math
 from collections.abc import Callable, Generator
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -68,28 +69,39 @@ from directional.method.linesearch import line_search
 from directional.method.search import FIRST_STEP, Settings, powell
 from directional.method.smoothness import AXIS, Finding, examine
 from directional.method.space import Space
-from directional.records import Batch, Break, Curvature, Halt, Outcome, Stop, Verdict
-from directional.run.driver import Driver
+from directional.records import (
+    SPENT,
+    Batch,
+    Break,
+    Check,
+    Curvature,
+    Halt,
+    Outcome,
+    Purpose,
+    Request,
+    Stop,
+    Verdict,
+)
 from directional.solution import Solution
 
 RESIZES = 2  # with a noise level: times the stencil may be resized from measured curvatures
 FREE_FLAT = EPSILON**0.5  # free estimate: smaller eigenvalues (relative) count as zero
 
-Check = Generator[Batch, np.ndarray, "Checked"]
+Checking = Generator[Batch, np.ndarray, "Checked"]
 
 
-def check_method(check: object) -> str | None:
-    """The check the caller asked for: "extrapolated" (True), "quick", or None (False).
+def check_kind(check: object) -> Check | None:
+    """The check the caller asked for: EXTRAPOLATED (True), QUICK ("quick"), or None (False).
 
     Raises
     ------
     ProblemError
         For anything else.
     """
-    if check is True or check == "extrapolated":
-        return "extrapolated"
-    if check == "quick":
-        return "quick"
+    if check is True or check == Check.EXTRAPOLATED:
+        return Check.EXTRAPOLATED
+    if check == Check.QUICK:
+        return Check.QUICK
     if check is False or check is None:
         return None
     raise ProblemError(f"check must be True, False or 'quick', got {check!r}")
@@ -292,10 +304,10 @@ def check_point(
     f0: float,
     free_scaled: np.ndarray | None,
     *,
-    method: str,
+    check: Check,
     noise: float | None,
     active: np.ndarray,
-) -> Check:
+) -> Checking:
     """The paid check at the scaled point ``u0`` as a generator for the driver.
 
     With a noise level given, the free estimate's curvatures may be noise themselves (a parabola
@@ -315,9 +327,9 @@ def check_point(
     diagonal = np.full(int(free.sum()), np.nan) if free_scaled is None else np.diag(free_scaled)[free]
     seen: list[tuple[np.ndarray, np.ndarray]] = []  # every stencil point and value, for smoothness
     for attempt in range(RESIZES + 1):
-        steps = step_sizes(diagonal, f0, noise, room, method)
+        steps = step_sizes(diagonal, f0, noise, room, check)
         try:
-            if method == "quick":
+            if check == Check.QUICK:
                 measured = yield from _seen(quick_hessian(space, u0, free, steps), seen)
             else:
                 measured = yield from _seen(extrapolated_hessian(space, u0, free, steps), seen)
@@ -336,7 +348,7 @@ def check_point(
         if noise is None or attempt == RESIZES or not np.any(found < 0.25 * used):
             break
         diagonal = np.where(found < 0.25 * used, found, diagonal)
-    return (yield from _judged(space, u0, f0, free, measured, noise, method, free_rec, seen))
+    return (yield from _judged(space, u0, f0, free, measured, noise, check, free_rec, seen))
 
 
 def _seen(
@@ -360,10 +372,10 @@ def _judged(
     free: np.ndarray,
     measured: Measured,
     noise: float | None,
-    method: str,
+    check: Check,
     free_rec: Curvature | None,
     seen: list[tuple[np.ndarray, np.ndarray]],
-) -> Check:
+) -> Checking:
     """Smoothness first (`smoothness.examine`, a few more points), then the verdict on the smooth
     part, and an escape along a kinked valley's floor where it still goes down."""
     points = np.concatenate([p for p, _ in seen])
@@ -377,7 +389,7 @@ def _judged(
             verdict=Verdict.UNCHECKED, curvature=free_rec,
             note=f"the smoothness check could not finish: {halt.reason}",
         )
-    checked = _verdict(space, free, measured, f0, noise, method, free_rec, found.breaks,
+    checked = _verdict(space, free, measured, f0, noise, check, free_rec, found.breaks,
                        (found.basis, found.known))
     if found.note:
         checked = dataclasses.replace(checked, note=found.note)
@@ -394,13 +406,13 @@ def _verdict(
     measured: Measured,
     f0: float,
     noise: float | None,
-    method: str,
+    check: Check,
     free_rec: Curvature | None,
     breaks: list[tuple[np.ndarray, Finding]] | None = None,
     smooth_part: tuple[np.ndarray, dict[int, tuple[float, float]]] | None = None,
 ) -> Checked:
     level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
-    smallest = measured.steps if method == "quick" else measured.steps / RATIO ** (STEPS - 1)
+    smallest = measured.steps if check == Check.QUICK else measured.steps / RATIO ** (STEPS - 1)
     error = measured.error + noise_margin(smallest, level)
     breaks = breaks or []
     # the curvature is judged on the smooth part only: the directions orthogonal to the breaks
@@ -422,7 +434,7 @@ def _verdict(
     zero = np.abs(eigenvalues) <= margins
     undetermined = tuple(combination(scale * directions[:, i], names) for i in np.flatnonzero(zero))
     curvature = record(
-        measured.hessian, error, scale, method, names=names, margin=margin,
+        measured.hessian, error, scale, str(check), names=names, margin=margin,
         undetermined=undetermined, free=free_rec,
     )
     if breaks:
@@ -497,7 +509,7 @@ def escape(
     if not ts:
         return best
     try:
-        values = yield Batch(points=space.to_user(u0 + np.array(ts)[:, None] * d), purpose="escape")
+        values = yield Batch(points=space.to_user(u0 + np.array(ts)[:, None] * d), purpose=Purpose.ESCAPE)
         known = {0.0: f0, **{t: float(v) for t, v in zip(ts, values)}}
         for t, v in known.items():
             if v < best.value:
@@ -508,7 +520,7 @@ def escape(
         try:
             ts_next = next(search)
             while True:
-                values = yield Batch(points=space.to_user(u0 + ts_next[:, None] * d), purpose="escape")
+                values = yield Batch(points=space.to_user(u0 + ts_next[:, None] * d), purpose=Purpose.ESCAPE)
                 for t, v in zip(ts_next, values):
                     if v < best.value:
                         best = Escaped(point=u0 + t * d, value=float(v))
@@ -535,31 +547,29 @@ class Settled:
     point: np.ndarray | None = None  # the outcome's point in user coordinates
 
 
-Restart = Callable[[np.ndarray], Outcome]
+Restart = Callable[[np.ndarray], Generator[Request, Any, Outcome]]
 
 
 def settle(
-    driver: Driver,
     space: Space,
     settings: Settings,
     outcome: Outcome,
     *,
-    check: str | None,
+    check: Check | None,
     escapes: int,
     noise: float | None,
     restart: Restart | None = None,
-    search: int = 0,
-) -> Settled:
+) -> Generator[Request, Any, Settled]:
     """Check the search's point, escape saddles and maxima, and check again (at most ``escapes``).
 
-    ``restart(u)`` runs the search from an escape point through ``driver`` and returns its
-    outcome (default: `search.powell` from ``u``); that outcome replaces the old one, with the
-    cycles added up.  Every generator runs through ``driver``, so counts, cache and journal go on.
+    A generator for the driver, joined to the search with ``yield from``.  ``restart(u)`` is the
+    search from an escape point (default: `search.powell` from ``u``); its outcome replaces the
+    old one, with the cycles added up.  The cost of each check is asked of the driver (`SPENT`).
     """
     if restart is None:
 
-        def restart(u: np.ndarray) -> Outcome:
-            return driver.run(powell(space, settings, start=u), search=search)
+        def restart(u: np.ndarray) -> Generator[Batch, np.ndarray, Outcome]:
+            return powell(space, settings, start=u)
 
     notes: list[str] = []
     escaped = 0
@@ -573,16 +583,15 @@ def settle(
             notes.append(f"not checked: the search stopped before converging ({outcome.stop.value})")
             return _settled(space, outcome, verdict=Verdict.UNCHECKED, curvature=curvature,
                            notes=tuple(notes), escapes=escaped)
-        before = driver.spent
+        before = yield SPENT
         active = space.on_bound(space.to_user(outcome.point), 10.0 * settings.point_tolerance)
-        checked = driver.run(
-            check_point(space, outcome.point, outcome.value, free_scaled, method=check, noise=noise,
-                        active=active),
-            search=search,
+        checked = yield from check_point(
+            space, outcome.point, outcome.value, free_scaled, check=check, noise=noise,
+            active=active,
         )
         curvature = checked.curvature
         if curvature is not None and curvature.source != "free":
-            curvature = dataclasses.replace(curvature, evaluations=driver.spent - before)
+            curvature = dataclasses.replace(curvature, evaluations=(yield SPENT) - before)
         if checked.note:
             notes.append(checked.note)
         if checked.escape is None or escaped >= escapes:
@@ -590,8 +599,7 @@ def settle(
                 notes.append(f"still a {checked.verdict.value} after {escaped} escapes")
             return _settled(space, outcome, verdict=checked.verdict, curvature=curvature,
                            notes=tuple(notes), escapes=escaped)
-        moved = driver.run(escape(space, settings, outcome.point, outcome.value, checked.escape),
-                           search=search)
+        moved = yield from escape(space, settings, outcome.point, outcome.value, checked.escape)
         where = _describe(space, outcome.point)
         along = combination(space.scale * checked.escape, labels(space, np.ones(space.size, bool)))
         # a gain the search itself would call no progress does not count as an escape
@@ -620,10 +628,11 @@ def settle(
         escaped += 1
         notes.append(
             f"escape {escaped}: {checked.verdict.value} at {where} (f = {outcome.value:.6g}); "
-            f"along {along} to f = {moved.value:.6g}, then the search went on"
+            f"along {along} to f = {moved.value:.6g} (lower by {outcome.value - moved.value:.2g}), "
+            "then the search went on"
         )
         cycles = outcome.cycles
-        outcome = restart(moved.point)
+        outcome = yield from restart(moved.point)
         outcome = dataclasses.replace(outcome, cycles=cycles + outcome.cycles)
 
 
@@ -647,8 +656,11 @@ def settled_solution(solution: Solution, settled: Settled, notes: tuple[str, ...
     if settled.point is not None and math.isfinite(settled.outcome.value):
         point, value = settled.point, settled.outcome.value
         if solution.value < value:
+            # the best value is printed beside the notes: say by how much it was beaten, not again
+            # what it is (two values equal to ten digits would read as no news)
             notes += (
-                f"an evaluation of the check came out lower, f = {solution.value:.10g} at "
+                f"an evaluation of the check came out lower by {value - solution.value:.2g} "
+                f"(relative {(value - solution.value) / max(abs(value), 1e-300):.1g}) at "
                 + "(" + ", ".join(f"{n}={v:.6g}" for n, v in zip(solution.names, solution.point))
                 + ")",
             )

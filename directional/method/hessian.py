@@ -32,7 +32,7 @@ import numpy as np
 from directional.method import differences
 from directional.method.differences import RATIO, STEPS
 from directional.method.space import Space
-from directional.records import Batch
+from directional.records import Batch, Check, Purpose
 
 EPSILON = float(np.finfo(float).eps)
 LARGEST_STEP = 0.1  # no stencil step beyond a tenth of the problem's size (scaled coordinates)
@@ -44,13 +44,14 @@ NOISE_SHARE = 0.01  # noise may spoil at most 1 % of a curvature (at 3 sigma) at
 
 
 def step_sizes(
-    curvatures: np.ndarray, value: float, noise: float | None, room: np.ndarray, method: str
+    curvatures: np.ndarray, value: float, noise: float | None, room: np.ndarray, check: str
 ) -> np.ndarray:
     """Finite-difference steps (scaled coordinates) for a Hessian at a point with value ``value``.
 
     ``curvatures`` are the expected second derivatives along the axes (the free estimate's
     diagonal; nan or <= 0 where unknown); ``noise`` the absolute noise level (None: rounding only,
-    ``4 eps |f|``); ``room`` the distance to the nearest bound along each axis.
+    ``4 eps |f|``); ``room`` the distance to the nearest bound along each axis; ``check`` the
+    kind of check the steps are for (`records.Check`).
 
     A step balances truncation against rounding for a plain central second difference:
     ``h = (e / c)^(1/4)`` with ``e`` the noise (Gill, Murray & Wright 1981, sec. 8.6, from
@@ -74,7 +75,7 @@ def step_sizes(
     c = np.asarray(c, dtype=float)
     floor = np.sqrt(3.0 * math.sqrt(6.0) * level / (NOISE_SHARE * c))
     h = np.maximum((level / c) ** 0.25, SMALLEST_STEP)
-    if method == "quick":
+    if check == Check.QUICK:
         return np.minimum(np.maximum(h, floor), np.minimum(LARGEST_STEP, room))
     # steps 2h, h, h/2; numdifftools' diagonal reaches twice the largest step from the point.
     h = np.maximum(h, floor * RATIO ** (STEPS - 2))
@@ -127,7 +128,7 @@ def extrapolated_hessian(
         if not table.missing:
             return _checked_measure(hessian, error, steps, table.known)
         values = yield Batch(
-            points=_embed(space, u0, free, np.array(list(table.missing.values()))), purpose="hessian"
+            points=_embed(space, u0, free, np.array(list(table.missing.values()))), purpose=Purpose.HESSIAN
         )
         table.known.update(zip(table.missing, (float(v) for v in values)))
         bad = sum(1 for v in values if not math.isfinite(v))
@@ -177,7 +178,7 @@ def quick_hessian(
             v = np.zeros(k)
             v[i] = sign * steps[i]
             rows.append(v)
-    values = yield Batch(points=_embed(space, u0, free, np.array(rows)), purpose="hessian")
+    values = yield Batch(points=_embed(space, u0, free, np.array(rows)), purpose=Purpose.HESSIAN)
     known = {row.tobytes(): float(value) for row, value in zip(rows, values)}
     hessian = np.zeros((k, k))
     if not np.all(np.isfinite(values)):

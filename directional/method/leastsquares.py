@@ -27,7 +27,7 @@ import numpy as np
 from directional.errors import ObjectiveError
 from directional.method import differences
 from directional.method.space import Space
-from directional.records import Batch, Halt, Stop
+from directional.records import Batch, Halt, Purpose, Stop
 
 Residuals = Callable[[np.ndarray], object]
 
@@ -164,7 +164,7 @@ def difference_jacobian(
             minus[j] = -min(ONE_SIDED_STEP, below[j])
     offsets = np.vstack([np.diag(plus), np.diag(minus)])
     points = space.to_user(u + offsets)
-    values = yield Batch(points=points, purpose="jacobian")
+    values = yield Batch(points=points, purpose=Purpose.JACOBIAN)
     if not np.all(np.isfinite(values)):
         return None
     columns = []
@@ -223,7 +223,7 @@ def levenberg_marquardt(
                     return Polished(point=u, value=s_value, stop=Stop.CONVERGED, steps=steps,
                                     reason="", jacobian=jacobian)
                 x = space.to_user(trial)
-                values = yield Batch(points=x[None, :], purpose="gauss-newton")
+                values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
                 if values[0] < s_value:
                     u, s_value, lam = trial, float(values[0]), max(lam / 10.0, 1e-15)
                     r = squares.vector(x)
@@ -282,7 +282,7 @@ def extrapolated_jacobian(
         offsets[:, columns] = np.array(list(table.missing.values()))
         points = space.to_user(u + offsets)
         try:
-            values = yield Batch(points=points, purpose="jacobian")
+            values = yield Batch(points=points, purpose=Purpose.JACOBIAN)
         except Halt:
             return None
         for key, x, value in zip(table.missing, points, values):

@@ -35,16 +35,15 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from collections.abc import Generator, Sequence
+from collections.abc import Generator
 from dataclasses import dataclass
 
 import numpy as np
 
-from directional.errors import ObjectiveError, ProblemError
+from directional.errors import ProblemError
 from directional.method.search import Settings
-from directional.method.space import Space, build_space
-from directional.records import Batch, Halt
-from directional.run.driver import Driver, Objective
+from directional.method.space import Space
+from directional.records import Batch, Halt, Purpose
 
 DETECTED = "detected"
 TOO_SMALL = "step too small"
@@ -196,7 +195,7 @@ def estimate(
     for _ in range(retries + 1):
         t = offsets(points, h, lo, hi)
         try:
-            values = yield Batch(points=space.to_user(u + t[:, None] * direction), purpose="noise")
+            values = yield Batch(points=space.to_user(u + t[:, None] * direction), purpose=Purpose.NOISE)
         except Halt:
             return result
         spent += len(t)
@@ -230,58 +229,7 @@ def _from_values(
     return record(level, DETECTED, order, centre)
 
 
-def estimate_noise(
-    objective: Objective,
-    point: object,
-    *,
-    bounds: object = None,
-    names: Sequence[str] | None = None,
-    step: float = 1e-6,
-    points: int = 9,
-    seed: int | np.random.Generator | None = 0,
-    retries: int = 2,
-) -> NoiseLevel:
-    """Return the level of computational noise of ``objective`` near ``point``.
-
-    Evaluates the objective at ``points`` equally spaced points along a random direction through
-    ``point`` and reads the noise off the difference table (Moré & Wild 2011; see the module
-    docstring).  ``step`` is the spacing in scaled coordinates: a fraction of each parameter's size
-    (its bound width, else its magnitude, else 1).  A failure signal is reported in ``status``
-    rather than raised: the cure (another step) is tried ``retries`` times first.
-
-    >>> import numpy as np
-    >>> noise = estimate_noise(lambda x: float(np.sum(x**2)) + 1.0, [0.5, 0.5])
-    >>> noise.status, noise.level < 1e-14
-    ('detected', True)
-
-    Raises
-    ------
-    ProblemError
-        For a bad point, bounds, step, number of points or retries.
-    ObjectiveError
-        When the objective returns something that is not a number, or fails at ``point``.
-
-    References
-    ----------
-    .. [1] J. J. Moré and S. M. Wild, "Estimating computational noise", *SIAM Journal on
-       Scientific Computing* 33(3) (2011) 1292-1314.
-    """
-    if not callable(objective):
-        raise ProblemError(f"objective must be callable, got {objective!r}")
-    _check_options(step, points, retries)
-    space = build_space(point, bounds, names)
-    driver = Driver(objective=objective, budget=(retries + 1) * points)
-    result: NoiseLevel = driver.run(estimate(space, np.zeros(space.size), step=step, points=points,
-                                             seed=seed, retries=retries))
-    if result.status == FAILED and all(e.status != "ok" for e in driver.log.evaluations):
-        raise ObjectiveError(
-            f"the objective failed at every point near {space.start.tolist()!r}: "
-            f"{driver.log.evaluations[-1].detail}"
-        )
-    return result
-
-
-def _check_options(step: object, points: object, retries: object) -> None:
+def check_options(step: object, points: object, retries: object) -> None:
     if isinstance(step, bool) or not isinstance(step, int | float) or not 0.0 < step < 1.0:
         raise ProblemError(f"step must be a number in (0, 1), got {step!r}")
     if isinstance(points, bool) or not isinstance(points, int) or points < 5:
@@ -311,16 +259,17 @@ def noise_option(noise: object) -> float | str | None:
 
 
 def noise_level(
-    driver: Driver, space: Space, noise: float | str | None, *, search: int = 0
-) -> tuple[float | None, tuple[str, ...]]:
+    space: Space, noise: float | str | None
+) -> Generator[Batch, np.ndarray, tuple[float | None, tuple[str, ...]]]:
     """The noise level to plan with, and a note for the user when it was estimated.
 
-    ``"estimate"`` runs `estimate` at the start through ``driver`` (counted, journaled); when no
-    level is detected the note says why and the level stays None (rounding only).
+    A generator for the driver: ``"estimate"`` runs `estimate` at the start (counted,
+    journaled); when no level is detected the note says why and the level stays None (rounding
+    only).  Any other option is returned as it is, with nothing evaluated.
     """
     if noise != "estimate":
         return noise, ()  # type: ignore[return-value]
-    found: NoiseLevel = driver.run(estimate(space, np.zeros(space.size)), search=search)
+    found: NoiseLevel = yield from estimate(space, np.zeros(space.size))
     if found.detected:
         return found.level, (
             f"noise level {found.level:.3g} (relative {found.relative:.2g}) from a difference table "

@@ -41,7 +41,7 @@ from directional.method.directions import (
 )
 from directional.method.linesearch import LineResult, line_search
 from directional.method.space import Space
-from directional.records import Batch, Halt, Outcome, Stop
+from directional.records import Batch, Halt, Outcome, Purpose, Stop
 
 Search = Generator[Batch, np.ndarray, Outcome]
 
@@ -90,7 +90,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
     directions = principal_axes(n, FIRST_STEP)
     cycles = 0
     try:
-        values = yield Batch(points=space.to_user(u)[None, :], purpose="start")
+        values = yield Batch(points=space.to_user(u)[None, :], purpose=Purpose.START)
     except Halt as halt:  # halted at the start point (-inf there, time up, Ctrl-C)
         return _outcome(_Tracker(u, math.inf, 0.0), halt.stop, cycles, directions, halt.reason)
     best = _Tracker(u, float(values[0]), _resolution(settings, FIRST_STEP))
@@ -162,7 +162,7 @@ def _replace(
     if hi < length:
         return directions  # the extrapolated point is infeasible: keep the set
     fn = best.value
-    values = yield Batch(points=space.to_user(best.u + length * d)[None, :], purpose="extrapolate")
+    values = yield Batch(points=space.to_user(best.u + length * d)[None, :], purpose=Purpose.EXTRAPOLATE)
     fe = float(values[0])
     if not powell_accepts(f0, fn, fe, largest_drop):
         if fe < best.value:
@@ -199,7 +199,7 @@ def _line(
     try:
         ts = next(search)
         while True:
-            values = yield Batch(points=space.to_user(base + ts[:, None] * d), purpose="line")
+            values = yield Batch(points=space.to_user(base + ts[:, None] * d), purpose=Purpose.LINE)
             for t, value in zip(ts, values):
                 best.answered += math.isfinite(value)
                 if value < best.value:

@@ -41,7 +41,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from directional.method.space import Space
-from directional.records import Batch
+from directional.records import Batch, Purpose
 
 # Thresholds as powers of the ratio r of two steps (for r = 2: 1.5, between the ratio 1 of a smooth
 # function and the ratio 2 of a kink; common practice, no source)
@@ -389,6 +389,6 @@ def _probe(
     ]
     u = np.repeat(u0[None, :], len(rows), axis=0)
     u[:, free] += np.array(rows)
-    values = yield Batch(points=space.to_user(u), purpose="smoothness")
+    values = yield Batch(points=space.to_user(u), purpose=Purpose.SMOOTHNESS)
     values = np.asarray(values, dtype=float).reshape(len(directions), len(multiples), 2)
     return [(np.array(multiples) * s, v) for s, v in zip(sizes, values)]

@@ -8,9 +8,15 @@ Two kinds of map, drawn by the same helpers:
   evaluated points, free but coarse where the searches did not go.
 
 Levels are spaced geometrically above the lowest value (`contour_levels`), so that valleys and
-slopes both show.  Two looks: `MAP` (colour, the map is the picture: the search path in
-`plots`) and `BACKGROUND` (grey, the map is behind the markers: the start map here).  A failed
+slopes both show; a grid map is a smooth (Gouraud) shading coloured by the log of the rise above
+the lowest value, a scattered map filled contours at those levels; colour bars print every level
+differently (`level_format`).  Two looks: `MAP` (colour, the map is the picture: the search path
+in `plots`) and `BACKGROUND` (grey, the map is behind the markers: the start map here).  A failed
 report-only evaluation is a gap in the map, never an error.
+
+What every figure of the reports shares lives here too: the colours (`PALETTE`, Okabe & Ito
+2008), log axes exactly for log-scaled parameters with plain-number ticks (`scaled_axes`,
+`readable_ticks`), and scatters of many points drawn as an image inside a vector file (`RASTER`).
 
 The start map of an exploration (`start_map`): which start led to which minimum, over a map of
 the objective.  Each start is drawn coloured by the minimum its search reached (a cross in black
@@ -40,25 +46,28 @@ from directional.method.leastsquares import sum_of_squares
 
 DPI = 120
 START_MAP_STYLE = {"font.size": 11, "axes.titlesize": 12, "legend.fontsize": 9, "axes.grid": False}
-COLOURS = (
-    "tab:red", "tab:blue", "tab:green", "tab:orange", "tab:purple",
-    "tab:brown", "tab:pink", "tab:olive", "tab:cyan", "tab:gray",
-)
+# The Okabe & Ito (2008) palette, told apart with the common colour-vision deficiencies; what is
+# not told apart by colour is drawn in greys, and the maps' colour maps (viridis, greys) are safe too.
+PALETTE = {
+    "blue": "#0072B2", "orange": "#E69F00", "vermilion": "#D55E00", "green": "#009E73",
+    "purple": "#CC79A7", "sky": "#56B4E9", "yellow": "#F0E442",
+}
+# the start map's minima, in this order (best first), a grey after the seven colours
+COLOURS = tuple(PALETTE[name] for name in ("vermilion", "blue", "orange", "green", "purple", "sky",
+                                           "yellow")) + ("#7f7f7f",)
+RASTER = 2000  # more points than this in one scatter are drawn as an image inside a vector file
 
 
 @dataclass(frozen=True, slots=True)
 class Look:
-    """How a map is drawn: colour map, opacity, and the contour lines over it."""
+    """How a map is drawn: colour map and opacity."""
 
     colours: str
     alpha: float
-    lines: str
-    line_width: float
-    line_alpha: float
 
 
-MAP = Look(colours="viridis", alpha=0.9, lines="white", line_width=0.5, line_alpha=0.6)
-BACKGROUND = Look(colours="Greys_r", alpha=0.55, lines="0.35", line_width=0.4, line_alpha=1.0)
+MAP = Look(colours="viridis", alpha=0.9)
+BACKGROUND = Look(colours="Greys_r", alpha=0.55)
 
 
 # ----------------------------------------------------------------------------- the map helpers
@@ -84,6 +93,66 @@ def contour_levels(values: np.ndarray, floor: float = 0.02) -> np.ndarray | None
     levels = low + np.concatenate(([0.0], np.geomspace(smallest, high - low, 14)))
     levels[-1] = high
     return np.unique(levels)
+
+
+def level_format(levels: np.ndarray, least: int = 3) -> str:
+    """The shortest ``%.Ng`` format, N >= ``least``, that prints every level differently.
+
+    Levels close together above a large value ("25.5001, 25.501, 25.51") would otherwise carry one
+    label over and over on the colour bar.
+
+    >>> level_format(np.array([25.5, 25.5001, 25.501]))
+    '%.6g'
+    """
+    for digits in range(least, 17):
+        if len({f"{v:.{digits}g}" for v in levels}) == len(levels):
+            return f"%.{digits}g"
+    return "%.17g"
+
+
+def readable_ticks(axis: Any, log: bool, most: int = 5) -> None:
+    """At most about ``most`` + 1 major ticks on ``axis``, labelled as plain numbers.
+
+    Call after the limits are set.  A linear axis gets "nice" steps; a log axis over a decade or
+    more gets powers of ten (and 2, 5 between them when there is room), a narrower one gets nice
+    linear steps, which a log axis places correctly too.  Minor ticks carry no label, so labels
+    never crowd a narrow panel (matplotlib's default chooses up to nine ticks and labels the minor
+    ticks of a short log axis).
+    """
+    from matplotlib import ticker
+
+    low, high = sorted(axis.get_view_interval())
+    plain = ticker.FuncFormatter(lambda v, _: f"{v:.6g}")
+    if log and low > 0 and high / low >= 10.0:
+        decades = math.log10(high / low)
+        subs = (1.0,) if decades > 2.5 else (1.0, 2.0, 5.0)
+        axis.set_major_locator(ticker.LogLocator(base=10.0, subs=subs, numticks=most + 2))
+        axis.set_major_formatter(plain)
+        axis.set_minor_formatter(ticker.NullFormatter())
+    else:
+        axis.set_major_locator(ticker.MaxNLocator(nbins=most, steps=[1, 2, 2.5, 5, 10]))
+        if log:
+            axis.set_major_formatter(plain)
+            axis.set_minor_locator(ticker.NullLocator())
+            axis.set_minor_formatter(ticker.NullFormatter())
+
+
+def scaled_axes(
+    ax: Any, x: tuple[float, float], y: tuple[float, float], log: tuple[bool, bool]
+) -> None:
+    """Limits ``x`` and ``y`` on ``ax``, a log axis exactly where ``log`` says, readable ticks.
+
+    ``log`` follows each parameter's scale, whatever the range drawn, so that the same parameter
+    reads the same way in every figure; `readable_ticks` keeps a narrow log range legible.
+    """
+    if log[0]:
+        ax.set_xscale("log")
+    if log[1]:
+        ax.set_yscale("log")
+    ax.set_xlim(*x)
+    ax.set_ylim(*y)
+    readable_ticks(ax.xaxis, log[0])
+    readable_ticks(ax.yaxis, log[1])
 
 
 def report_value(objective: Callable[[np.ndarray], Any], kind: str) -> Callable[[np.ndarray], float]:
@@ -133,19 +202,32 @@ def evaluate_grid(
 def grid_map(
     fig: Figure, ax: Any, gx: np.ndarray, gy: np.ndarray, grid: np.ndarray, *, look: Look, label: str
 ) -> bool:
-    """Filled contours of ``grid`` (rows along ``gy``) with lines and a colour bar; False if flat."""
+    """A smooth shading of ``grid`` (rows along ``gy``) and a colour bar; False if flat.
+
+    Colours follow ``log(f - f_min + d)`` (``d`` the first rise of `contour_levels`), so the valley
+    and the slopes both show whatever the range.  A shading interpolated between the grid nodes
+    (Gouraud) rather than filled contours: contours of a valley narrower than a grid cell break up
+    into beads, and their lines crowd into white strips on steep slopes.  A failed evaluation
+    leaves a gap around its node only.  Rasterized: small in a vector file.
+    """
     levels = contour_levels(grid.ravel())
     if levels is None:
         return False
-    from matplotlib.colors import BoundaryNorm
+    from matplotlib.colors import FuncNorm
 
-    masked = np.ma.masked_invalid(grid)
-    norm = BoundaryNorm(levels, 256)
-    filled = ax.contourf(gx, gy, masked, levels=levels, cmap=look.colours, norm=norm,
-                         alpha=look.alpha, zorder=1)
-    ax.contour(gx, gy, masked, levels=levels, colors=look.lines, linewidths=look.line_width,
-               alpha=look.line_alpha, zorder=2)
-    fig.colorbar(filled, ax=ax, format="%.3g", label=label)
+    low, d = float(levels[0]), float(levels[1] - levels[0])
+
+    def forward(v: Any) -> Any:
+        return np.log(np.maximum(np.asarray(v, dtype=float) - low, 0.0) + d)
+
+    def inverse(t: Any) -> Any:
+        return np.exp(t) - d + low
+
+    norm = FuncNorm((forward, inverse), vmin=low, vmax=float(levels[-1]))
+    shaded = ax.pcolormesh(gx, gy, np.ma.masked_invalid(grid), shading="gouraud",
+                           cmap=look.colours, norm=norm, alpha=look.alpha, zorder=1,
+                           rasterized=True)
+    fig.colorbar(shaded, ax=ax, ticks=levels[::2], format=level_format(levels[::2]), label=label)
     return True
 
 
@@ -185,7 +267,7 @@ def scattered_map(
 
     filled = ax.tricontourf(mesh, values[keep], levels=levels, cmap=look.colours,
                             norm=BoundaryNorm(levels, 256), alpha=look.alpha, zorder=1)
-    fig.colorbar(filled, ax=ax, format="%.3g", label=label)
+    fig.colorbar(filled, ax=ax, format=level_format(levels), label=label)
     return True
 
 
@@ -237,12 +319,8 @@ def start_map(
             where = "map: the evaluations made, seen along the other parameters" if drawn else ""
 
         _starts(ax, landscape, i, j)
-        if log[0]:
-            ax.set_xscale("log")
-        if log[1]:
-            ax.set_yscale("log")
-        ax.set_xlim(landscape.lower[i], landscape.upper[i])
-        ax.set_ylim(landscape.lower[j], landscape.upper[j])
+        scaled_axes(ax, (landscape.lower[i], landscape.upper[i]),
+                    (landscape.lower[j], landscape.upper[j]), (log[0], log[1]))
         ax.set_xlabel(landscape.names[i] + (" (log scale)" if log[0] else ""))
         ax.set_ylabel(landscape.names[j] + (" (log scale)" if log[1] else ""))
         count = len(landscape.minima)
@@ -316,6 +394,7 @@ def _scattered(
 
 def _starts(ax: Any, landscape: Landscape, i: int, j: int) -> None:
     starts, ends = landscape.starts, landscape.ends
+    many = len(starts) > RASTER
     for g, (sol, count) in enumerate(zip(landscape.minima, landscape.counts)):
         colour = COLOURS[g % len(COLOURS)]
         members = [s for s, r in enumerate(landscape.reached) if r == g]
@@ -323,10 +402,10 @@ def _starts(ax: Any, landscape: Landscape, i: int, j: int) -> None:
             ax.plot([starts[s, i], ends[s, i]], [starts[s, j], ends[s, j]], "-", color=colour,
                     lw=0.8, alpha=0.7, zorder=3)
         ax.scatter(starts[members, i], starts[members, j], s=38, color=colour, edgecolor="black",
-                   linewidth=0.5, zorder=4)
+                   linewidth=0.5, zorder=4, rasterized=many)
         ax.plot(sol.point[i], sol.point[j], "*", color=colour, mec="black", ms=17, zorder=5,
                 label=f"#{g + 1}: f = {sol.value:.4g}, {count} start{'s' if count != 1 else ''}")
     lost = [s for s, r in enumerate(landscape.reached) if r < 0]
     if lost:
         ax.scatter(starts[lost, i], starts[lost, j], marker="x", s=40, color="black", zorder=4,
-                   label=f"start failed ({len(lost)})")
+                   label=f"start failed ({len(lost)})", rasterized=many)

@@ -30,7 +30,17 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from directional.parameters import Parameter
-from directional.report.maps import MAP, evaluate_grid, grid_map, report_value, scattered_map
+from directional.report.maps import (
+    MAP,
+    PALETTE,
+    RASTER,
+    evaluate_grid,
+    grid_map,
+    readable_ticks,
+    report_value,
+    scaled_axes,
+    scattered_map,
+)
 from directional.solution import Solution
 
 STYLE = {
@@ -43,6 +53,7 @@ STYLE = {
     "grid.alpha": 0.3,
 }
 DPI = 120
+# Colours: `maps.PALETTE` (Okabe & Ito 2008, colour-blind safe), with greys; maps in viridis.
 PROFILE_POINTS = 15  # report-only evaluations per parameter (common practice, no source)
 MAP_SIDE = 20  # the contour map's grid is at most MAP_SIDE x MAP_SIDE (maps: `report.maps`)
 
@@ -74,8 +85,9 @@ def write_plots(
     fit: Callable[[np.ndarray], Any] | None = None,
     extra: int = 500,
     title: str = "",
+    format: str = "png",
 ) -> list[Path]:
-    """Write the PNG files for ``sol`` into ``folder``; return their paths.
+    """Write the PNG (or ``format``: "svg", "pdf") files for ``sol`` into ``folder``; return them.
 
     Parameters
     ----------
@@ -90,29 +102,31 @@ def write_plots(
         ``curve_x``, ``curve`` (the model on a fine grid) and ``data_label``.
     extra
         The most report-only evaluations to spend (0: none).
+    format
+        The files' type, as matplotlib names it; the HTML report asks for "svg".
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     axes = _coordinates(sol, parameters)
     value = report_value(objective, kind) if objective is not None and extra > 0 else None
-    written = [_history(sol, folder / "history.png", kind, title)]
+    written = [_history(sol, folder / f"history.{format}", kind, title)]
     budget = extra
     widths = _widths(sol, axes, kind, value)
     if sol.point.size >= 1:
         profile_budget = min(budget, PROFILE_POINTS * sol.point.size)
         written.append(
-            _profiles(sol, folder / "profiles.png", axes, kind, value, widths, profile_budget, title)
+            _profiles(sol, folder / f"profiles.{format}", axes, kind, value, widths, profile_budget, title)
         )
         budget -= profile_budget if value is not None else 0
     if sol.point.size >= 2:
-        written.append(_path(sol, folder / "path.png", axes, kind, value, widths, budget, title))
+        written.append(_path(sol, folder / f"path.{format}", axes, kind, value, widths, budget, title))
     if fit is not None:
         series = _series(fit, sol.point)
         if series:
-            written.append(_fit(series, folder / "fit.png", title))
-            written.append(_residual_series(series, folder / "residuals.png", title))
+            written.append(_fit(series, folder / f"fit.{format}", title))
+            written.append(_residual_series(series, folder / f"residuals.{format}", title))
     elif kind == "residuals" and objective is not None and extra > 0:
-        written.append(_residual_vector(sol, objective, folder / "residuals.png", title))
+        written.append(_residual_vector(sol, objective, folder / f"residuals.{format}", title))
     return written
 
 
@@ -306,38 +320,41 @@ def _history(sol: Solution, path: Path, kind: str, title: str) -> Path:
     for group, color in _GROUPS:
         chosen = ok & (groups == group)
         if np.any(chosen):
-            ax.scatter(count[chosen], values[chosen], s=9, color=color, label=group, zorder=2)
+            ax.scatter(count[chosen], values[chosen], s=9, color=color, label=group, zorder=2,
+                       rasterized=len(history) > RASTER)
     shown = np.isfinite(best)
-    ax.step(count[shown], best[shown], where="post", color="tab:blue", lw=2,
+    ax.step(count[shown], best[shown], where="post", color=PALETTE["blue"], lw=2,
             label="best so far", zorder=3)
     if log:
         ax.set_yscale("log")
+        readable_ticks(ax.yaxis, True)
     elif finite.size:
-        low, high = float(finite.min()), float(np.quantile(finite, 0.9))
+        # the top follows most values, but never cuts off the start (the first value that counted)
+        low, high = float(finite.min()), max(float(np.quantile(finite, 0.9)), float(finite[0]))
         pad = 0.05 * (high - low) if high > low else max(abs(low), 1.0) * 0.05
         ax.set_ylim(low - pad, high + pad)
     failed = ~ok
     if np.any(failed):
         bottom = ax.get_ylim()[0]
-        ax.scatter(count[failed], np.full(failed.sum(), bottom), marker="x", color="tab:red",
+        ax.scatter(count[failed], np.full(failed.sum(), bottom), marker="x", color=PALETTE["vermilion"],
                    s=25, label=f"failed ({failed.sum()})", zorder=4, clip_on=False)
     ax.set_xlabel("evaluation")
     ax.set_ylabel(_value_label(kind) + (" (log scale)" if log else ""))
-    heading = "Best value against evaluations"
-    ax.set_title(f"{title}\n{heading}" if title else heading)
-    ax.legend(loc="upper right")
-    ax.annotate(
-        f"best {sol.value:.6g} after {sol.evaluations} evaluations; "
-        f"stop: {sol.stop.value}, verdict: {sol.verdict.value}",
-        xy=(0.01, 0.02), xycoords="axes fraction", fontsize=9, color="0.25",
+    # the caption and the legend stand outside the axes, where they cover no point (the failed
+    # evaluations' crosses sit on the bottom edge)
+    heading = (
+        f"Best value against evaluations\nbest {sol.value:.6g} after {sol.evaluations} "
+        f"evaluations; stop: {sol.stop.value}, verdict: {sol.verdict.value}"
     )
+    ax.set_title(f"{title}\n{heading}" if title else heading)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
     return _save(fig, path)
 
 
 _GROUPS = (
     ("search", "0.6"),
-    ("least-squares steps", "tab:purple"),
-    ("curvature check", "tab:orange"),
+    ("least-squares steps", PALETTE["purple"]),
+    ("curvature check", PALETTE["orange"]),
 )
 
 
@@ -385,21 +402,22 @@ def _profiles(
             xs = axes.to_x(ys, i)
             order = np.argsort(np.append(xs, sol.point[i]))
             ax.plot(np.append(xs, sol.point[i])[order], np.append(fs, sol.value)[order],
-                    "o-", color="tab:blue", ms=4, lw=1.5, label="objective (report-only)")
+                    "o-", color=PALETTE["blue"], ms=4, lw=1.5, label="objective (report-only)")
         fine = np.linspace(lo, hi, 200)
         h = diagonal[i]
         if h > 0 and not active:
             ax.plot(axes.to_x(fine, i), sol.value + 0.5 * h * (fine - y_best[i]) ** 2, "--",
-                    color="tab:orange", lw=1.5, label="Hessian parabola")
+                    color=PALETTE["orange"], lw=1.5, label="Hessian parabola")
         if intervals is not None and np.all(np.isfinite(intervals[i])):
-            ax.axvspan(intervals[i][0], intervals[i][1], color="tab:green", alpha=0.12,
+            ax.axvspan(intervals[i][0], intervals[i][1], color=PALETTE["green"], alpha=0.12,
                        label="95 % interval")
-        ax.plot([sol.point[i]], [sol.value], "*", color="tab:red", ms=12, label="minimum",
+        ax.plot([sol.point[i]], [sol.value], "*", color=PALETTE["vermilion"], ms=12, label="minimum",
                 zorder=5)
-        log = _log_axis(axes, i, lo, hi)
+        log = bool(axes.log[i])  # by the parameter's scale, as in every figure (`maps.scaled_axes`)
         if log:
             ax.set_xscale("log")
         ax.set_xlim(axes.to_x(lo, i), axes.to_x(hi, i))
+        readable_ticks(ax.xaxis, log)
         ax.set_xlabel(_label(sol, i) + (" (log scale)" if log else ""))
         ax.set_ylabel(_value_label(kind))
         head = f"{sol.names[i]} = {sol.point[i]:.5g}"
@@ -416,12 +434,6 @@ def _profiles(
     return _save(fig, path)
 
 
-def _log_axis(axes: _Axes, i: int, lo: float, hi: float) -> bool:
-    """A log axis for a log-scaled parameter whose range spans at least a factor of ten.
-
-    Narrower ranges read better on a linear axis (log tick labels there are all exponents).
-    """
-    return bool(axes.log[i] and hi - lo >= math.log(10.0))
 
 
 def _moved(point: np.ndarray, i: int, value: float) -> np.ndarray:
@@ -514,20 +526,16 @@ def _path(
                 transform=ax.transAxes, ha="center", va="top", fontsize=9, color="0.3")
     points = np.array([e.point for e in sol.history]) if sol.history else sol.point[None, :]
     ax.scatter(points[:, i], points[:, j], s=6, color="0.35", alpha=0.35, label="evaluations",
-               zorder=3)
-    ax.plot(walk[:, i], walk[:, j], "-o", color="tab:red", ms=3.5, lw=1.5,
+               zorder=3, rasterized=len(points) > RASTER)
+    ax.plot(walk[:, i], walk[:, j], "-o", color=PALETTE["vermilion"], ms=3.5, lw=1.5,
             label="search path (each new best)", zorder=4, clip_on=False)
     ax.plot(walk[0, i], walk[0, j], "s", color="white", mec="black", ms=9, label="start", zorder=5,
             clip_on=False)
-    ax.plot(sol.point[i], sol.point[j], "*", color="gold", mec="black", ms=16, label="minimum",
+    ax.plot(sol.point[i], sol.point[j], "*", color=PALETTE["yellow"], mec="black", ms=16, label="minimum",
             zorder=6, clip_on=False)
-    logs = [_log_axis(axes, k, *box[m]) for m, k in enumerate((i, j))]
-    if logs[0]:
-        ax.set_xscale("log")
-    if logs[1]:
-        ax.set_yscale("log")
-    ax.set_xlim(axes.to_x(box[0][0], i), axes.to_x(box[0][1], i))
-    ax.set_ylim(axes.to_x(box[1][0], j), axes.to_x(box[1][1], j))
+    logs = (bool(axes.log[i]), bool(axes.log[j]))
+    scaled_axes(ax, (axes.to_x(box[0][0], i), axes.to_x(box[0][1], i)),
+                (axes.to_x(box[1][0], j), axes.to_x(box[1][1], j)), logs)
     ax.set_xlabel(_label(sol, i) + (" (log scale)" if logs[0] else ""))
     ax.set_ylabel(_label(sol, j) + (" (log scale)" if logs[1] else ""))
     heading = f"Search path over the objective: {sol.names[i]} and {sol.names[j]}"
@@ -548,6 +556,7 @@ def _scattered(fig: Figure, ax: Any, sol: Solution, axes: _Axes, kind: str) -> b
     return scattered_map(fig, ax, points[:, 0], points[:, 1], values, look=MAP,
                          label=_value_label(kind), log=(bool(axes.log[0]), bool(axes.log[1])),
                          fewest=10)
+
 
 
 def _figure_legend(fig: Figure) -> None:
@@ -589,9 +598,9 @@ def _fit(series: list[dict[str, Any]], path: Path, title: str) -> Path:
         else:
             ax.plot(x, observed, "o", ms=4, color="black", label=label)
         if "curve_x" in s and "curve" in s:
-            ax.plot(s["curve_x"], s["curve"], "-", color="tab:blue", lw=2, label="fitted model")
+            ax.plot(s["curve_x"], s["curve"], "-", color=PALETTE["blue"], lw=2, label="fitted model")
         else:
-            ax.plot(x, s["predicted"], "-", color="tab:blue", lw=2, label="fitted model")
+            ax.plot(x, s["predicted"], "-", color=PALETTE["blue"], lw=2, label="fitted model")
         unit = s.get("unit", "")
         ax.set_ylabel(f"{s['name']} [{unit}]" if unit else s["name"])
         ax.set_xlabel(s.get("x_label", "x"))
@@ -604,7 +613,7 @@ def _fit(series: list[dict[str, Any]], path: Path, title: str) -> Path:
 
 @_styled
 def _residual_series(series: list[dict[str, Any]], path: Path, title: str) -> Path:
-    """Model minus data at the minimum, in units of the data's sigma when it is known."""
+    """Model minus data at the minimum (the README's sign), in units of sigma when known."""
     n = len(series)
     fig = _figure(5.4 * n, 3.8)
     for k, s in enumerate(series):
@@ -615,13 +624,13 @@ def _residual_series(series: list[dict[str, Any]], path: Path, title: str) -> Pa
         unit = s.get("unit", "")
         if sigma is not None:
             r = r / np.broadcast_to(np.asarray(sigma, dtype=float), r.shape)
-            ax.axhspan(-2.0, 2.0, color="tab:green", alpha=0.1, label="± 2 sigma")
+            ax.axhspan(-2.0, 2.0, color=PALETTE["green"], alpha=0.1, label="± 2 sigma")
             ax.set_ylabel("(model − data) / sigma")
         else:
             ax.set_ylabel(f"model − data [{unit}]" if unit else "model − data")
         ax.axhline(0.0, color="black", lw=0.8)
-        ax.vlines(x, 0.0, r, color="tab:blue", lw=1.2)
-        ax.plot(x, r, "o", color="tab:blue", ms=4, label="residual")
+        ax.vlines(x, 0.0, r, color=PALETTE["blue"], lw=1.2)
+        ax.plot(x, r, "o", color=PALETTE["blue"], ms=4, label="residual")
         ax.set_xlabel(s.get("x_label", "x"))
         ax.set_title(f"{s['name']}: residuals")
         ax.legend(loc="best")
@@ -646,10 +655,10 @@ def _residual_vector(
         dof = r.size - sol.point.size
         s = math.sqrt(float(r @ r) / dof) if dof > 0 else math.nan
         if math.isfinite(s):
-            ax.axhspan(-2 * s, 2 * s, color="tab:green", alpha=0.1, label="± 2 s")
+            ax.axhspan(-2 * s, 2 * s, color=PALETTE["green"], alpha=0.1, label="± 2 s")
         ax.axhline(0.0, color="black", lw=0.8)
-        ax.vlines(index, 0.0, r, color="tab:blue", lw=1.2)
-        ax.plot(index, r, "o", color="tab:blue", ms=4, label="residual")
+        ax.vlines(index, 0.0, r, color=PALETTE["blue"], lw=1.2)
+        ax.plot(index, r, "o", color=PALETTE["blue"], ms=4, label="residual")
         ax.legend(loc="best")
     else:
         ax.text(0.5, 0.5, "the residuals could not be evaluated", ha="center",

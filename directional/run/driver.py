@@ -1,59 +1,102 @@
-"""The driver: runs a search generator against an objective.  The only place with side effects.
+"""The driver: runs search generators against an objective.  The only place with side effects.
 
-Protocol.  The driver takes the first `Batch` from the generator, evaluates its points and sends
-back a float array of the same length, until the generator returns its `Outcome`.  For each point:
+Theory of operation.  A search is a generator that yields a `records.Batch` of points and is sent
+back a float array of their values, until it returns its result.  A whole run (noise estimate,
+search, least-squares finish, curvature check and escapes) is one generator tree joined with
+``yield from``; the driver drives one such tree (`Driver.run`) or many at once (`Driver.run_all`,
+one per start of a many-start run), each under its own search id, all against one cache, one
+budget rule, one log and one set of observers.  The points of every batch go to a
+`concurrent.futures.Executor` (default: in this process, one at a time); at most ``workers`` are
+in flight, and their results are taken back in the order they complete.  A search receives its
+values only when its whole batch is back, in the order of the batch, so every search sees
+exactly the values it would see alone: the outcome is the same whatever the executor, the
+number of workers or the order of completion.
 
-- an exact repeat of an earlier point is answered from the cache (not counted, not re-run);
+For each point a search asks for:
+
+- an exact repeat (bit for bit) of a point evaluated, replayed or in flight is answered from
+  that one evaluation: no point is evaluated twice (a cache hit is not counted);
 - otherwise the objective is called with a fresh copy of the point (it may mutate it freely);
   an exception, NaN or ``+inf`` makes the evaluation *failed* and the search receives ``+inf``;
-  a value that is not a real number raises `ObjectiveError` at once (a programming error);
-- ``-inf`` means the objective is unbounded below: the search is halted (STALLED, with the point).
+  a value that is not a real number raises `ObjectiveError` at once (a programming error).
 
-The search is halted by throwing `Halt` into it when the budget of evaluations is spent (BUDGET),
-the time limit has passed (BUDGET), Ctrl-C arrives (INTERRUPTED) or the last ``stall_after``
-evaluations all failed (STALLED, at once after the failure that makes them so). A partial batch is
-never sent back; the points of it that were evaluated still count and still reach the log, so
-nothing computed is lost.
+The driver ends a search by throwing `records.Halt` into it (the innermost generator catches it
+and returns what it has; the tree may go on with other work, whose new points are then subject
+to the same limits):
 
-Every evaluation carries the id of the search that asked for it (``run(..., search=k)``, 0 by
-default) and its ``sequence``, its place among that search's evaluations; several generators run
-one after another under the same id (the search, then the curvature check) continue its sequence.
+- BUDGET: before a point new to the search when the search has asked for ``budget`` distinct
+  points already (or for the batch's lower ``limit``: a stage that keeps evaluations for the
+  next), and before a new evaluation when the run has made ``total`` or the time limit has
+  passed.  Points of the batch before the limit are still evaluated: they count and reach the
+  log, so nothing computed is lost;
+- STALLED: at once when a point of the search's batch, taken in batch order, is ``-inf`` (the
+  objective is unbounded below) or is the ``stall_after``-th failure in a row of that search;
+  the rest of the batch is not evaluated;
+- INTERRUPTED: Ctrl-C (see below).
 
-Replay (resuming a journal).  ``replay`` holds stored evaluations per search id, in sequence order.
-While a search has stored evaluations left, the point it asks for is compared bit for bit with the
-stored one (a difference raises `JournalError`: the journal was written for other settings or by
-another version), and the stored value is sent without calling the objective.  A replayed
-evaluation is logged, cached and counted against the budget like a live one, but not recorded
-again.  The search is deterministic given its values, so it then goes on live from exactly where
-the journal ends.  With ``retry`` a stored evaluation that failed or timed out is made again
-when the search asks for its point, and recorded under the same sequence number.
+A partial batch is never sent back.  A generator may yield `records.SPENT` instead of a batch:
+it is sent back the number of distinct points its search has asked for (what a stage cost).
+Every new evaluation is logged and reported to the ``observers`` (the journal, the progress
+bar: they never wrap the objective) the moment it completes, with ``search``, the id of the
+search that asked for it first, and ``sequence``, its place among the evaluations made for that
+search (0, 1, 2, ... with no gap).
 
-Ctrl-C (and SIGTERM, SIGHUP: `interrupts.Interrupts`, the one handler). When the run is in the
-main thread and SIGINT has Python's default handler, the driver installs its own for the duration
-of `Driver.run`, or joins the one the command line holds: a Ctrl-C while the objective runs raises
-`KeyboardInterrupt` there as usual (the evaluation is recorded with status ``interrupted`` and no
-value, and is made again on resume; so is one that failed in any way after the Ctrl-C, e.g. an
-objective that turned the interrupt into its own error); a Ctrl-C at any other moment is noted, and
-the run halts before the next evaluation. So an interrupt never lands in the middle of the driver's
-or the journal's bookkeeping.
+Replay (resuming a journal) is by point: the ``stored`` evaluations answer their points without
+calling the objective, counted against the budget of the search that asks for them like live
+ones, and are not reported again; they enter the log first, in the order they were made, so a
+resumed run's log and best point are those of the uninterrupted run.  Since the search is
+deterministic given its values, it asks for the stored points again; the points are compared bit
+for bit (as keys of their float64 bytes), and a search that asks for a point the journal does not
+hold while the journal still holds points of that search it has not asked for has diverged:
+`JournalError` (the journal was written for other settings or by another version).  Replay by
+point does not depend on the order in which the first run's evaluations completed, so a journal
+written on a process pool is resumed in process and the other way round.  With ``retry`` a
+stored evaluation that failed or timed out does not answer its point: the point is evaluated again
+when a search asks for it (the journal keeps both records, the latest counts), and since its new
+value may change the search's path, the searches waiting on it are no longer held to the journal.
+
+Ctrl-C (and SIGTERM, SIGHUP: `interrupts.Interrupts`, the one handler).  When the run is in the
+main thread and SIGINT has Python's default handler, the driver installs its own, or joins the one
+the command line holds: a Ctrl-C while the objective runs in process, or while
+the driver waits on the executor, raises `KeyboardInterrupt` there; one at any other moment is
+noted and the run halts before the next evaluation.  An evaluation cut by it (or one that failed
+in any way after it, e.g. an objective that turned the interrupt into its own error) is reported
+to the observers with status ``interrupted`` and no value, never logged, and made again on
+resume; evaluations in flight on an executor are abandoned (the workers of a pool made by
+`workers.process_pool` are stopped, so a program they run ends at once).  Every search is then halted.
+
+A worker process that dies breaks a process pool: the pool is replaced (``replace``), and the
+evaluations that were in flight are run again one at a time; one that kills its worker while
+running alone is recorded failed (detail `DIED`).  Any other error of the executor (a Dask
+worker lost for good) makes that evaluation failed; the run goes on.
 """
 
 from __future__ import annotations
 
+import collections
+import concurrent.futures as cf
 import math
 import time
 import traceback
-from collections.abc import Callable, Generator, Mapping, Sequence
+from collections.abc import Callable, Generator, Iterable, Mapping, Sequence
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field, replace
+from typing import Any
 
 import numpy as np
 
 from directional.errors import JournalError, ObjectiveError
-from directional.records import Batch, Halt, Outcome, Stop
+from directional.records import SPENT, Batch, Halt, Request, Spent, Status, Stop
 from directional.run.interrupts import Interrupts
+from directional.run.workers import process_pool, stop_workers
 
 Objective = Callable[[np.ndarray], object]
-RETRIED = ("failed", "timed-out")  # stored statuses that a resume with ``retry`` makes again
+Search = Generator[Request, Any, Any]
+Observer = Callable[["Evaluation"], None]
+
+DIED = "worker process died"
+HALTS_IN_A_ROW = 10_000  # a generator halted this often with nothing evaluated has a bug
+RETRIED = (Status.FAILED, Status.TIMED_OUT)  # stored statuses that a resume with ``retry`` redoes
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -63,7 +106,7 @@ class Evaluation:
     index: int
     point: np.ndarray
     value: float  # +inf when failed
-    status: str  # "ok", "failed", "timed-out"; "interrupted" (journal only, never in the log)
+    status: str  # a `Status`; "interrupted" reaches the observers only, never the log
     detail: str = ""
     purpose: str = ""
     started: float = 0.0
@@ -82,7 +125,9 @@ class Log:
 
     def add(self, evaluation: Evaluation) -> None:
         self.evaluations.append(evaluation)
-        if evaluation.status == "ok" and (self.best is None or evaluation.value < self.best.value):
+        if evaluation.status == Status.OK and (
+            self.best is None or evaluation.value < self.best.value
+        ):
             self.best = evaluation
 
 
@@ -120,191 +165,524 @@ def call(objective: Objective, x: np.ndarray) -> tuple[float, str, str]:
     except ObjectiveError:
         raise
     except Exception as error:  # the objective's own failure: recorded, never fatal
-        status = getattr(error, "status", "failed")
-        detail = getattr(error, "detail", "") or _describe(error)
+        status = getattr(error, "status", Status.FAILED)
+        detail = getattr(error, "detail", "") or describe(error)
         return math.inf, str(status), str(detail)
     if math.isnan(value) or value == math.inf:
-        return math.inf, "failed", f"objective returned {value!r}"
-    return value, "ok", ""
+        return math.inf, Status.FAILED, f"objective returned {value!r}"
+    return value, Status.OK, ""
 
 
-def _describe(error: BaseException) -> str:
+def evaluate(objective: Objective, x: np.ndarray) -> tuple[float, str, str, float, float]:
+    """Evaluate once, inside a worker: ``(value, status, detail, started, seconds)``.
+
+    A top-level function, so that process pools and Dask can send it by reference.
+
+    Raises
+    ------
+    ObjectiveError
+        When the objective returns something that is not a number (as `call`).
+    """
+    started = time.time()
+    tick = time.perf_counter()
+    value, status, detail = call(objective, x)
+    return value, str(status), detail, started, time.perf_counter() - tick
+
+
+def describe(error: BaseException) -> str:
+    """An exception as one short text: its type and message (at most 2000 characters)."""
     lines = traceback.format_exception_only(type(error), error)
     return "".join(lines).strip()[-2000:]
 
 
+def _status(text: str) -> str:
+    """A `Status` where the text is one (an external program's error may carry its own)."""
+    try:
+        return Status(text)
+    except ValueError:
+        return text
+
+
+@dataclass(slots=True, kw_only=True)
+class _Task:
+    """One search and the batch it is waiting on."""
+
+    ident: int
+    search: Search
+    batch: Batch | None = None
+    serial: int = 0  # counts the batches, so that late results for a dropped batch are ignored
+    values: np.ndarray = field(default_factory=lambda: np.empty(0))
+    answered: np.ndarray = field(default_factory=lambda: np.empty(0, bool))
+    fresh: list[bool] = field(default_factory=list)  # rows asked, and whether new to the search
+    taken: int = 0  # rows of the batch already taken in order (failures, -inf)
+    halt: Halt | None = None  # a limit was met while asking: thrown once the rows asked are in
+    seen: set[bytes] = field(default_factory=set)  # distinct points asked for: its budget
+    journaled: set[bytes] = field(default_factory=set)  # its own points in the journal, unasked
+    sequence: int = 0  # of the next evaluation made for this search
+    failures_in_a_row: int = 0
+    halts_in_a_row: int = 0
+    ended: bool = False
+    result: Any = None
+
+
+@dataclass(slots=True, kw_only=True)
+class _Pending:
+    """A point queued or in flight, and the searches waiting for its value."""
+
+    key: bytes
+    point: np.ndarray
+    purpose: str
+    search: int
+    waiters: list[tuple[int, int, int]] = field(default_factory=list)  # (task, serial, row)
+    suspect: bool = False  # was in flight when a worker died: runs alone
+
+
 @dataclass(slots=True, kw_only=True)
 class Driver:
-    """Runs search generators against a plain Python callable (see the module docstring).
+    """Runs search generators against ``objective`` (see the module docstring).
 
-    ``record`` is called with each new `Evaluation` as soon as it exists (the journal's hook);
-    ``replay`` holds the evaluations of a journal being resumed, per search id, in sequence order.
-    ``replayed`` counts the evaluations taken from it.
+    ``budget`` caps the distinct points each search asks for, ``total`` (None: no cap) the
+    evaluations of the whole run, stored ones included.  ``executor`` None calls the objective
+    in this process, one evaluation at a time.  ``workers`` caps the evaluations in flight on an
+    executor (None: the executor's own number of workers when it says, as `concurrent.futures`
+    pools do; else no cap).  ``replace`` makes a fresh pool when a worker death breaks
+    ``executor`` (None: a process pool of the same size when ``executor`` is one, else the
+    breakage is an error); pools made here are shut down by `close`, the caller's executor is
+    left running.  ``observers`` are called with each new evaluation as it completes;
+    ``stored`` are the evaluations of a journal being resumed; with ``retry`` their failed and
+    timed-out points are evaluated again when asked for.
     """
 
     objective: Objective
     budget: int
+    executor: cf.Executor | None = None
+    workers: int | None = None
+    total: int | None = None
     time_limit: float | None = None
     stall_after: int = 50
-    record: Callable[[Evaluation], None] | None = None
-    replay: Mapping[int, Sequence[Evaluation]] = field(default_factory=dict)
+    observers: Sequence[Observer] = ()
+    stored: Iterable[Evaluation] = ()
+    replace: Callable[[], cf.Executor] | None = None
+    retry: bool = False
     log: Log = field(default_factory=Log)
     replayed: int = 0
-    retry: bool = False  # stored failed and timed-out evaluations are made again (see `_one`)
-    _diverged: set[int] = field(default_factory=set)
-    _cache: dict[bytes, float] = field(default_factory=dict)
-    _sequence: dict[int, int] = field(default_factory=dict)
-    _failures_in_a_row: int = 0
-    _clock_start: float = field(default_factory=time.monotonic)
+    interrupted: bool = False
     _interrupts: Interrupts = field(default_factory=Interrupts)
+    _cache: dict[bytes, float] = field(default_factory=dict)
+    _made: dict[bytes, Evaluation] = field(default_factory=dict)
+    _retry: set[bytes] = field(default_factory=set)  # stored failures to evaluate again
+    _last: dict[int, int] = field(default_factory=dict)  # search -> its last stored sequence
+    _journal: dict[int, dict[bytes, int]] = field(default_factory=dict)  # search -> point -> seq
+    _tasks: dict[int, _Task] = field(default_factory=dict)
+    _pending: dict[bytes, _Pending] = field(default_factory=dict)
+    _queue: collections.deque[bytes] = field(default_factory=collections.deque)
+    _flying: dict[cf.Future, bytes] = field(default_factory=dict)
+    _owned: list[cf.Executor] = field(default_factory=list)
+    _clock_start: float = field(default_factory=time.monotonic)
+
+    def __post_init__(self) -> None:
+        if self.executor is None:
+            self.workers = 1
+        elif self.workers is None:  # a pool's own size, where it has one (not Dask's executor)
+            self.workers = getattr(self.executor, "_max_workers", None)
+        if self.replace is None and isinstance(self.executor, cf.ProcessPoolExecutor):
+            size = self.workers or self.executor._max_workers
+            self.replace = lambda: process_pool(size)
+        for evaluation in sorted(self.stored, key=lambda e: e.index):
+            key = evaluation.point.tobytes()
+            earlier = self._made.get(key)
+            if earlier is not None and earlier.status in RETRIED and evaluation.value != earlier.value:
+                # a retry that succeeded: the failed search's later rows were an abandoned path
+                own = self._journal.get(earlier.search, {})
+                for old in [k for k, seq in own.items() if seq > earlier.sequence]:
+                    del own[old]
+            self._journal.setdefault(evaluation.search, {})[key] = evaluation.sequence
+            last = self._last.get(evaluation.search, -1)
+            self._last[evaluation.search] = max(last, evaluation.sequence)
+            self._cache[key] = evaluation.value
+            self._made[key] = evaluation
+            self.log.add(replace(evaluation, index=len(self.log.evaluations)))
+            self.replayed += 1
+            if self.retry and evaluation.status in RETRIED:  # the latest record of a point counts
+                self._retry.add(key)
+            else:
+                self._retry.discard(key)
+        for key in self._retry:
+            del self._cache[key]
 
     @property
     def spent(self) -> int:
         """Evaluations spent so far, replayed ones included (cache hits excluded)."""
         return len(self.log.evaluations)
 
-    def run(self, generator: Generator[Batch, np.ndarray, Outcome], *, search: int = 0) -> Outcome:
-        """Drive ``generator`` to its end and return its outcome; its evaluations carry ``search``.
+    def close(self) -> None:
+        """Shut down the pools this driver made (after a breakage); never the caller's."""
+        for pool in self._owned:
+            pool.shutdown(wait=True, cancel_futures=True)
+        self._owned.clear()
+
+    def __enter__(self) -> Driver:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # ----------------------------------------------------------------------------- the loop
+
+    def run(self, generator: Search, *, search: int = 0) -> Any:
+        """Drive one generator to its end under search id ``search``; return what it returns.
 
         Raises
         ------
         ObjectiveError
             When the objective returns something that is not a number.
         JournalError
-            When a replayed search asks for a point other than the stored one, or a row cannot
-            be written.
+            When a replayed search asks for points the journal does not hold.
         """
-        with self._interrupts:
-            try:
-                batch = next(generator)
-            except StopIteration as done:  # a generator with nothing to evaluate
-                return done.value
-            while True:
-                try:
-                    values = self._evaluate(batch, search)
-                except Halt as halt:
-                    return _halt(generator, halt)
-                except KeyboardInterrupt:  # only without our handler (not the main thread)
-                    return _halt(generator, Halt(Stop.INTERRUPTED, "interrupted by the user"))
-                try:
-                    batch = generator.send(values)
-                except StopIteration as done:
-                    return done.value
+        return self.run_all({search: generator})[search]
 
-    def _evaluate(self, batch: Batch, search: int) -> np.ndarray:
-        values = np.empty(len(batch.points))
-        for k, x in enumerate(batch.points):
-            key = x.tobytes()
-            if key in self._cache:
-                self.log.cache_hits += 1
-                values[k] = self._cache[key]
-                continue
-            self._check_limits()
-            values[k] = self._cache[key] = self._one(x, batch.purpose, search)
-        return values
+    def run_all(self, searches: Mapping[int, Search]) -> dict[int, Any]:
+        """Drive every generator to its end, all at once; what each returns, by search id.
 
-    def _check_limits(self) -> None:
-        if self._interrupts.pending:
-            raise Halt(Stop.INTERRUPTED, self._interrupts.reason)
-        if self.spent >= self.budget:
-            raise Halt(Stop.BUDGET, f"the budget of {self.budget} evaluations is spent")
-        if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
-            raise Halt(Stop.BUDGET, f"the time limit of {self.time_limit:g} s has passed")
+        A driver can run several groups one after another (the searches, then the checks of
+        the distinct minima) with one cache, log and journal; a generator run under the id of a
+        search that has ended continues that search's budget, sequence and journal.
 
-    def _one(self, x: np.ndarray, purpose: str, search: int) -> float:
-        sequence = self._sequence.get(search, 0)
-        self._sequence[search] = sequence + 1
-        stored = self._stored(search, sequence)
-        if stored is not None and self.retry and stored.status in RETRIED:
-            # Made again live under the same sequence number (the journal keeps both rows); a
-            # new value changes the search's path, so the rest of its stored evaluations go.
-            _replayed(stored, x, purpose, self.spent)  # the same point, or JournalError
-            evaluation = self._live(x, purpose, search, sequence)
-            if evaluation.value != stored.value:
-                self._diverged.add(search)
-            self.log.add(evaluation)
-            if self.record is not None:
-                self.record(evaluation)
-        elif stored is not None:
-            evaluation = _replayed(stored, x, purpose, self.spent)
-            self.replayed += 1
-            self.log.add(evaluation)
+        Raises
+        ------
+        ObjectiveError, JournalError
+            As `run`.
+        """
+        tasks = [self._task(ident, search) for ident, search in searches.items()]
+        try:
+            with self._interrupts:
+                for task in tasks:
+                    self._start(task)
+                while not all(task.ended for task in tasks):
+                    self._fill()
+                    if not self._flying:
+                        if not all(task.ended for task in tasks):  # a bug in the driver
+                            raise RuntimeError("searches wait on points nobody evaluates")
+                        break
+                    try:
+                        with self._interrupts.raising():
+                            done, _ = cf.wait(list(self._flying), return_when=cf.FIRST_COMPLETED)
+                    except KeyboardInterrupt:
+                        self._interrupt()
+                        continue
+                    for future in done:
+                        if future in self._flying:
+                            self._collect(future)
+        except BaseException:
+            self._abandon()
+            raise
+        return {task.ident: task.result for task in tasks}
+
+    def _task(self, ident: int, search: Search) -> _Task:
+        task = self._tasks.get(ident)
+        if task is None:
+            task = self._tasks[ident] = _Task(ident=ident, search=search)
+            own = self._journal.get(ident, {})
+            task.journaled = set(own)
+            task.sequence = 1 + self._last.get(ident, -1)  # the journal's are 0, 1, ...
+        elif not task.ended:
+            raise ValueError(f"search {ident!r} is still running")
         else:
-            evaluation = self._live(x, purpose, search, sequence)
-            self.log.add(evaluation)
-            if self.record is not None:
-                self.record(evaluation)
-        value = evaluation.value
-        self._failures_in_a_row = 0 if evaluation.status == "ok" else self._failures_in_a_row + 1
-        if value == -math.inf:
-            raise Halt(
-                Stop.STALLED,
-                f"the objective returned -inf at {x.tolist()!r}: it is unbounded below there",
-            )
-        if self._failures_in_a_row >= self.stall_after:  # at once, not at the next request
-            raise Halt(
-                Stop.STALLED,
-                f"the last {self._failures_in_a_row} evaluations all failed; last error: "
-                f"{evaluation.detail or evaluation.status}",
-            )
-        return value
+            task.search, task.ended, task.result, task.batch = search, False, None, None
+        return task
 
-    def _stored(self, search: int, sequence: int) -> Evaluation | None:
-        stored = () if search in self._diverged else self.replay.get(search, ())
-        return stored[sequence] if sequence < len(stored) else None
+    def _start(self, task: _Task) -> None:
+        try:
+            batch = next(task.search)
+        except StopIteration as done:
+            task.ended, task.result = True, done.value
+            return
+        self._take(task, batch)
 
-    def _live(self, x: np.ndarray, purpose: str, search: int, sequence: int) -> Evaluation:
+    def _take(self, task: _Task, batch: Batch | Spent | None) -> None:
+        """Make ``batch`` the one ``task`` waits on, until the search waits or ends."""
+        while batch is not None:
+            if batch is SPENT:  # a question, not a batch: answered at once
+                try:
+                    batch = task.search.send(len(task.seen))
+                except StopIteration as done:
+                    task.ended, task.result = True, done.value
+                    return
+                continue
+            task.batch, task.serial = batch, task.serial + 1
+            task.values = np.full(len(batch.points), math.inf)
+            task.answered = np.zeros(len(batch.points), dtype=bool)
+            task.fresh, task.taken, task.halt = [], 0, None
+            try:
+                self._ask(task, batch)
+            except Halt as halt:
+                task.halt = halt
+            batch = self._advance(task)
+
+    def _ask(self, task: _Task, batch: Batch) -> None:
+        """Answer what is known, queue the rest; raise `Halt` at a point past the budget."""
+        keys = [x.tobytes() for x in batch.points]
+        new = [
+            key not in self._cache and key not in self._pending and key not in self._retry
+            for key in keys
+        ]
+        unasked = task.journaled - set(keys)
+        if any(new) and unasked:
+            order = self._journal[task.ident]
+            first = min(unasked, key=order.__getitem__)  # where a deterministic search diverged
+            raise JournalError(
+                f"the journal does not match this run at search {task.ident}, evaluation "
+                f"{order[first]}: the journal holds the point {self._made[first].point.tolist()!r} "
+                f"but the search asks for {batch.points[new.index(True)].tolist()!r}; the journal "
+                "was written for other settings or by another version of directional"
+            )
+        limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
+        for row, (x, key) in enumerate(zip(batch.points, keys)):
+            fresh = key not in task.seen
+            if fresh and len(task.seen) >= limit:
+                raise Halt(Stop.BUDGET, f"the budget of {limit} evaluations is spent")
+            task.fresh.append(fresh)
+            task.journaled.discard(key)
+            task.seen.add(key)
+            if key in self._cache:
+                if not fresh:
+                    self.log.cache_hits += 1
+                self._answer(task, row, self._cache[key])
+            elif key in self._pending:
+                self._pending[key].waiters.append((task.ident, task.serial, row))
+            else:
+                pending = _Pending(key=key, point=x.copy(), purpose=batch.purpose, search=task.ident)
+                pending.waiters.append((task.ident, task.serial, row))
+                self._pending[key] = pending
+                self._queue.append(key)
+
+    def _answer(self, task: _Task, row: int, value: float) -> None:
+        task.values[row] = value
+        task.answered[row] = True
+
+    def _advance(self, task: _Task) -> Batch | Spent | None:
+        """Take the rows answered in batch order; halt, send or wait.  The next batch, if any."""
+        batch = task.batch
+        assert batch is not None
+        while task.taken < len(task.fresh) and task.answered[task.taken]:
+            row = task.taken
+            task.taken += 1
+            value = float(task.values[row])
+            if value == -math.inf:
+                x = batch.points[row].tolist()
+                return self._halt(task, Halt(
+                    Stop.STALLED,
+                    f"the objective returned -inf at {x!r}: it is unbounded below there",
+                ))
+            if not task.fresh[row]:
+                continue
+            task.failures_in_a_row = 0 if value < math.inf else task.failures_in_a_row + 1
+            if task.failures_in_a_row >= self.stall_after:  # at once, not at the next request
+                made = self._made.get(batch.points[row].tobytes())
+                last = (made.detail or made.status) if made is not None else "failed"
+                return self._halt(task, Halt(
+                    Stop.STALLED,
+                    f"the last {task.failures_in_a_row} evaluations all failed; last error: {last}",
+                ))
+        if task.taken < len(task.fresh):
+            return None  # waiting on a row
+        if task.halt is not None:
+            return self._halt(task, task.halt)
+        task.batch, task.halts_in_a_row = None, 0
+        try:
+            return task.search.send(task.values.copy())
+        except StopIteration as done:
+            task.ended, task.result = True, done.value
+            return None
+
+    def _halt(self, task: _Task, halt: Halt) -> Batch | Spent | None:
+        """Throw ``halt`` into the search; what it yields next (it may go on), or None."""
+        self._drop(task)
+        task.batch = None
+        task.halts_in_a_row += 1
+        if task.halts_in_a_row > HALTS_IN_A_ROW:
+            task.search.close()
+            raise RuntimeError("a search keeps asking for points after being halted")  # a bug
+        try:
+            return task.search.throw(halt)
+        except StopIteration as done:
+            task.ended, task.result = True, done.value
+            return None
+
+    def _drop(self, task: _Task) -> None:
+        """Forget ``task``'s waits; points queued for nobody else are not evaluated."""
+        for key in list(self._queue):
+            pending = self._pending[key]
+            pending.waiters = [w for w in pending.waiters if w[0] != task.ident]
+            if not pending.waiters:
+                self._queue.remove(key)
+                del self._pending[key]
+
+    def _halt_queued(self, halt: Halt) -> None:
+        """A limit of the whole run: halt every search waiting on a point not yet started."""
+        waiting = {ident for key in self._queue for ident, _, _ in self._pending[key].waiters}
+        for ident in sorted(waiting):
+            task = self._tasks[ident]
+            if task.batch is not None:
+                self._take(task, self._halt(task, halt))
+
+    def _run_limit(self) -> Halt | None:
+        """Before a new evaluation starts: Ctrl-C, the total budget and the time limit."""
+        if self.interrupted or self._interrupts.pending:
+            return Halt(Stop.INTERRUPTED, self._interrupts.reason)
+        if self.total is not None and self.spent + len(self._flying) >= self.total:
+            return Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
+        if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
+            return Halt(Stop.BUDGET, f"the time limit of {self.time_limit:g} s has passed")
+        return None
+
+    # ------------------------------------------------------------------ evaluating the points
+
+    def _room(self) -> bool:
+        if any(self._pending[k].suspect for k in self._flying.values()):
+            return False
+        return self.workers is None or len(self._flying) < self.workers
+
+    def _fill(self) -> None:
+        """Start queued points while there is room; on an executor suspects first, each alone."""
+        suspects = [k for k in self._queue if self._pending[k].suspect]
+        for key in suspects:
+            self._queue.remove(key)
+        self._queue.extendleft(reversed(suspects))
+        while self._queue and self._room():
+            halt = self._run_limit()
+            if halt is not None:
+                self._halt_queued(halt)
+                continue
+            key = self._queue[0]
+            pending = self._pending[key]
+            if pending.suspect and self._flying:
+                return
+            if self.executor is None:
+                self._queue.popleft()
+                self._in_process(pending)
+                continue
+            try:
+                with self._interrupts.raising():  # an in-process executor runs it in submit
+                    future = self.executor.submit(evaluate, self.objective, pending.point)
+            except cf.BrokenExecutor:
+                self._broken()
+                continue
+            except KeyboardInterrupt:
+                self._interrupt()
+                continue
+            self._queue.popleft()
+            self._flying[future] = key
+
+    def _in_process(self, pending: _Pending) -> None:
+        """Call the objective here; a Ctrl-C cuts it (the evaluation is then `interrupted`)."""
         started = time.time()
         tick = time.perf_counter()
         try:
             with self._interrupts.raising():
-                value, status, detail = call(self.objective, x)
+                value, status, detail = call(self.objective, pending.point)
         except KeyboardInterrupt:
-            value, status, detail = math.inf, "interrupted", self._interrupts.reason
-        if status != "ok" and self._interrupts.pending:  # failed because of the Ctrl-C
-            value, status = math.inf, "interrupted"
+            value, status, detail = math.inf, Status.INTERRUPTED, self._interrupts.reason
+        if status != Status.OK and self._interrupts.pending:  # failed because of the Ctrl-C
+            value, status = math.inf, Status.INTERRUPTED
+        self._finish(pending, value, status, detail, started, time.perf_counter() - tick)
+
+    def _collect(self, future: cf.Future) -> None:
+        key = self._flying[future]
+        pending = self._pending[key]
+        try:
+            value, status, detail, started, seconds = future.result()
+        except BrokenProcessPool:
+            self._broken()
+            return
+        except ObjectiveError:
+            raise
+        except Exception as error:  # the executor's failure, not the objective's
+            value, status, started, seconds = math.inf, Status.FAILED, time.time(), 0.0
+            detail = f"the executor failed: {describe(error)}"
+        del self._flying[future]
+        self._finish(pending, value, status, detail, started, seconds)
+
+    def _finish(
+        self, pending: _Pending, value: float, status: str, detail: str, started: float,
+        seconds: float,
+    ) -> None:
+        del self._pending[pending.key]
+        owner = self._tasks[pending.search]
         evaluation = Evaluation(
             index=self.spent,
-            point=x.copy(),
+            point=pending.point,
             value=value,
-            status=status,
+            status=_status(status),
             detail=detail,
-            purpose=purpose,
+            purpose=pending.purpose,
             started=started,
-            seconds=time.perf_counter() - tick,
-            search=search,
-            sequence=sequence,
+            seconds=seconds,
+            search=pending.search,
+            sequence=owner.sequence,
         )
-        if status == "interrupted":  # journaled, to be made again on resume; never logged
-            if self.record is not None:
-                self.record(evaluation)
-            raise Halt(Stop.INTERRUPTED, self._interrupts.reason)
-        return evaluation
+        if status == Status.INTERRUPTED:  # reported, to be made again on resume; never logged
+            self._notify(evaluation)
+            self._interrupt()
+            return
+        owner.sequence += 1
+        if pending.key in self._retry:  # a retried point: the searches may now take new paths
+            self._retry.discard(pending.key)
+            for ident, _, _ in pending.waiters:
+                self._tasks[ident].journaled.clear()
+        self.log.add(evaluation)
+        self._cache[pending.key] = value
+        self._made[pending.key] = evaluation
+        self._notify(evaluation)
+        for ident, serial, row in pending.waiters:
+            task = self._tasks[ident]
+            if task.batch is None or task.serial != serial:
+                continue  # that search was halted meanwhile
+            self._answer(task, row, value)
+            self._take(task, self._advance(task))
 
+    def _notify(self, evaluation: Evaluation) -> None:
+        for observer in self.observers:
+            observer(evaluation)
 
-def _replayed(stored: Evaluation, x: np.ndarray, purpose: str, index: int) -> Evaluation:
-    """The stored evaluation as the answer to ``x``, after checking that it is for ``x``.
+    def _interrupt(self) -> None:
+        """Ctrl-C: abandon what is in flight and halt every search that waits."""
+        self.interrupted = True
+        for future, key in list(self._flying.items()):
+            future.cancel()
+            self._pending.pop(key, None)
+        if self._flying:
+            stop_workers(self.executor)
+        self._flying.clear()
+        halt = Halt(Stop.INTERRUPTED, self._interrupts.reason)
+        for task in list(self._tasks.values()):
+            if task.batch is not None:
+                self._take(task, self._halt(task, halt))
 
-    Raises
-    ------
-    JournalError
-        When the stored point differs from ``x`` in any bit.
-    """
-    if stored.point.tobytes() != x.tobytes():
-        raise JournalError(
-            f"the journal does not match this run at search {stored.search}, evaluation "
-            f"{stored.sequence}: the journal holds the point {stored.point.tolist()!r} but the "
-            f"search asks for {x.tolist()!r}; the journal was written for other settings or by "
-            "another version of directional"
-        )
-    return replace(stored, index=index, point=x.copy(), purpose=purpose or stored.purpose)
+    def _broken(self) -> None:
+        """A worker died and broke the pool: replace it, rerun or fail what was in flight."""
+        if self.replace is None:
+            raise RuntimeError(f"the executor {self.executor!r} is broken and cannot be replaced")
+        flying = [self._pending[k] for k in self._flying.values()]
+        self._flying.clear()
+        old = self.executor
+        self.executor = self.replace()
+        self._owned.append(self.executor)
+        if old in self._owned:
+            self._owned.remove(old)
+            old.shutdown(wait=False, cancel_futures=True)  # type: ignore[union-attr]
+        alone = len(flying) == 1
+        for pending in flying:
+            if alone or pending.suspect:
+                self._finish(pending, math.inf, Status.FAILED, DIED, time.time(), 0.0)
+            else:
+                pending.suspect = True
+                self._queue.appendleft(pending.key)
 
-
-def _halt(search: Generator[Batch, np.ndarray, Outcome], halt: Halt) -> Outcome:
-    """End the search with ``halt`` and return what it had."""
-    try:
-        search.throw(halt)
-    except StopIteration as done:
-        return done.value
-    search.close()
-    raise RuntimeError("a search yielded again after being halted")  # a bug in the search
+    def _abandon(self) -> None:
+        """Cancel what is queued or in flight (an error ends the run)."""
+        for future in self._flying:
+            future.cancel()
+        self._flying.clear()
+        self._queue.clear()
+        self._pending.clear()

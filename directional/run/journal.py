@@ -5,9 +5,9 @@ exists; the row is committed at once, in its own transaction, so a committed row
 process being killed at any instant (``kill -9``, an out-of-memory kill, a batch system ending the
 job).  The search is deterministic given the values it receives, so a run can be continued from
 its journal (`api.resume`): the stored values are fed back to a new search (`driver.Driver`
-``replay``), each point it asks for is checked bit for bit against the stored one, and when the
-stored evaluations run out the run goes on live.  Nothing is evaluated twice, and the resumed run
-ends exactly where the uninterrupted run would have.
+``stored``, replay by point), each point it asks for is checked bit for bit against the stored
+ones, and when the stored evaluations run out the run goes on live.  Nothing is evaluated twice,
+and the resumed run ends exactly where the uninterrupted run would have.
 
 The file (stdlib `sqlite3`, write-ahead log) has three tables:
 
@@ -68,6 +68,7 @@ import os
 import shlex
 import shutil
 import sqlite3
+import struct
 import sys
 import tempfile
 import time
@@ -81,7 +82,7 @@ import numpy as np
 from directional.errors import JournalError, ProblemError
 from directional.method.noise import DETECTED, detected_level, difference_table
 from directional.parameters import Parameter
-from directional.records import Batch, Halt
+from directional.records import Batch, Halt, Status
 from directional.run.driver import RETRIED, Driver, Evaluation
 from directional.run.identity import (
     canonical,
@@ -115,7 +116,7 @@ SYNC_AFTER = 0.1  # s: an evaluation at least this long is committed with synchr
 SYNC_MODES = ("adaptive", "normal", "full")
 PAGE_SIZE = 1024  # bytes: a commit writes whole pages to the log, and a row is ~150 bytes
 CHECKPOINT_PAGES = 10_000  # log pages between checkpoints (each costs fsyncs): 10 MB
-INTERRUPTED = "interrupted"
+INTERRUPTED = Status.INTERRUPTED
 NOISE_POINTS = 9  # values per noise-estimate try (`method.noise.estimate`'s default)
 
 _SCHEMA = (
@@ -322,12 +323,9 @@ class Journal:
     # -- the driver's side
 
     def hooks(self) -> dict[str, Any]:
-        """Keyword arguments for `driver.Driver`: ``record`` (append), ``replay`` (stored) and
-        ``retry`` (when asked for)."""
-        hooks: dict[str, Any] = {"record": self.append, "replay": self.by_search()}
-        if self.retry:
-            hooks["retry"] = True
-        return hooks
+        """Keyword arguments for `driver.Driver`: ``observers`` (append), ``stored`` and
+        ``retry`` (stored failures made again, when asked for)."""
+        return {"observers": (self.append,), "stored": self.stored, "retry": self.retry}
 
     def by_search(self) -> dict[int, list[Evaluation]]:
         """The stored evaluations of each search, in sequence order."""
@@ -352,7 +350,7 @@ class Journal:
             evaluation.search,
             evaluation.sequence,
             point,
-            evaluation.value,
+            _stored_value(evaluation.value),
             evaluation.status,
             evaluation.detail,
             evaluation.purpose,
@@ -833,6 +831,26 @@ def _compare(path: Path, header: Header, identity: Mapping[str, Any]) -> None:
     )
 
 
+def _stored_value(value: float) -> float | bytes:
+    """The value as the evaluation table keeps it: a REAL, except -0.0 as its 8 bytes.
+
+    SQLite stores a REAL that is a whole number as an integer, which loses the sign of -0.0; a
+    BLOB keeps it (a REAL column's affinity leaves a BLOB alone).  Journals from before this
+    have only REALs and read as before.
+    """
+    value = float(value)
+    if value == 0.0 and math.copysign(1.0, value) < 0:
+        return struct.pack("<d", value)
+    return value
+
+
+def _read_value(value: float | int | bytes) -> float:
+    """The value `_stored_value` kept."""
+    if isinstance(value, bytes):
+        return float(struct.unpack("<d", value)[0])
+    return float(value)
+
+
 def _read_evaluations(
     connection: sqlite3.Connection, path: Path, header: Header
 ) -> Iterator[Evaluation]:
@@ -846,7 +864,7 @@ def _read_evaluations(
         if not (
             isinstance(point, bytes)
             and len(point) == 8 * n
-            and isinstance(value, float | int)
+            and (isinstance(value, float | int) or (isinstance(value, bytes) and len(value) == 8))
             and isinstance(search, int)
             and isinstance(sequence, int)
             and isinstance(status, str)
@@ -855,7 +873,7 @@ def _read_evaluations(
         yield Evaluation(
             index=index,
             point=np.frombuffer(point, dtype="<f8").astype(float),
-            value=float(value) if status != INTERRUPTED else math.inf,
+            value=_read_value(value) if status != INTERRUPTED else math.inf,
             status=status,
             detail=str(detail),
             purpose=str(purpose),

@@ -28,7 +28,7 @@ class InOrder(cf.Executor):
     """Run calls on ``inner``; deliver their results in submission order (module docstring).
 
     ``_max_workers`` is ``workers``, so that a caller that sizes its queue from a pool's
-    ``_max_workers`` (as `directional.run.pool.Runner` does) keeps ``workers`` calls in flight.
+    ``_max_workers`` (as `directional.run.driver.Driver` does) keeps ``workers`` calls in flight.
     The inner executor is shut down with this one when ``owned``.
 
     >>> import concurrent.futures as cf

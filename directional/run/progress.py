@@ -1,62 +1,50 @@
-"""A progress bar for a running search: wrap the objective, see every real evaluation.
+"""A progress bar for a running search: an observer of the driver, told of every evaluation.
 
 The bar (tqdm, on standard error) shows the evaluations spent of the budget, the best value so
 far, the cycle when the caller reports it, and the wall time of the last evaluation.  It is off
 when standard error is not a terminal, or when asked (``--quiet``), so logs and pipes stay clean.
 
-Wrapping the objective rather than the driver keeps the driver untouched: the driver answers
-repeated points from its cache without calling the objective, so the wrapper counts exactly the
-evaluations the driver counts.
+The driver calls the bar with each new `driver.Evaluation` as it completes, as it calls the
+journal; the bar never wraps the objective, so the objective sent to a process pool or a Dask
+cluster is the caller's own (a bar holds its terminal stream, which does not pickle), and the
+bar counts exactly the evaluations the driver counts (cache hits are not evaluations).
 """
 
 from __future__ import annotations
 
 import math
 import sys
-import time
-from collections.abc import Callable
-from typing import IO, Any
+from typing import IO
 
-import numpy as np
 from tqdm import tqdm
 
-from directional.method.leastsquares import sum_of_squares
+from directional.records import Status
+from directional.run.driver import Evaluation
 
 
 class Progress:
-    """The objective, counted: a callable that forwards to ``objective`` and updates a bar.
+    """A progress bar that the driver notifies of each evaluation (an observer).
 
     Parameters
     ----------
-    objective
-        The objective to wrap; its return value is passed through unchanged.
     budget
         Evaluations allowed (the bar's total); None for a bar without a total.
-    kind
-        ``"value"`` or ``"residuals"`` (the best value is then the sum of squares).
     enabled
         None: on when ``stream`` is a terminal.
     stream
         Where the bar goes (default standard error).
     done
         Evaluations already spent before this bar started (a resumed run).
-
-    The wrapper holds a tqdm bar, so it does not pickle: use it in the process that runs the
-    driver, never as the objective shipped to worker processes.
     """
 
     def __init__(
         self,
-        objective: Callable[[np.ndarray], Any],
         *,
         budget: int | None,
-        kind: str = "value",
         enabled: bool | None = None,
         stream: IO[str] | None = None,
         done: int = 0,
     ) -> None:
-        self.objective = objective
-        self.kind = kind
         self.stream = sys.stderr if stream is None else stream
         if enabled is None:
             enabled = bool(getattr(self.stream, "isatty", lambda: False)())
@@ -79,15 +67,10 @@ class Progress:
             else None
         )
 
-    def __call__(self, x: np.ndarray) -> Any:
-        tick = time.perf_counter()
-        value = math.nan
-        try:
-            result = self.objective(x)
-            value = sum_of_squares(result) if self.kind == "residuals" else _number(result)
-            return result
-        finally:
-            self.note(value, time.perf_counter() - tick)
+    def __call__(self, evaluation: Evaluation) -> None:
+        """Count one evaluation the driver made (one cut by Ctrl-C is not counted)."""
+        if evaluation.status != Status.INTERRUPTED:
+            self.note(evaluation.value, evaluation.seconds)
 
     def note(self, value: float, seconds: float) -> None:
         """Count one evaluation of ``value`` that took ``seconds``."""
@@ -119,13 +102,6 @@ class Progress:
 
     def __exit__(self, *exc: object) -> None:
         self.close()
-
-
-def _number(result: Any) -> float:
-    try:
-        return float(np.asarray(result, dtype=float).reshape(()))
-    except (TypeError, ValueError):
-        return math.nan
 
 
 def _seconds(seconds: float) -> str:

@@ -18,11 +18,14 @@ from matplotlib.figure import Figure
 from directional.report import maps
 from directional.report.maps import (
     BACKGROUND,
+    COLOURS,
     MAP,
+    PALETTE,
     contour_levels,
     evaluate_grid,
     grid_map,
     report_value,
+    scaled_axes,
     scattered_map,
 )
 
@@ -91,6 +94,32 @@ def test_the_maps_are_drawn_or_declined(look):
     assert not scattered_map(fig, ax, x[:5], y[:5], x[:5], look=look, label="s")  # too few
     line = np.linspace(0.0, 1.0, 12)  # all on one line: no triangulation
     assert not scattered_map(fig, ax, line, line, line, look=look, label="s")
+
+
+def test_scaled_axes_follow_the_scale_not_the_range_and_print_plain_numbers():
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    fig = Figure()
+    ax = fig.add_subplot()
+    scaled_axes(ax, (0.3, 0.6), (1e-5, 1.0), (True, True))  # x: less than a decade, still log
+    FigureCanvasAgg(fig).draw()
+    assert ax.get_xscale() == "log" and ax.get_yscale() == "log"
+    for axis in (ax.xaxis, ax.yaxis):
+        low, high = axis.get_view_interval()
+        texts = [t.get_text() for t in axis.get_ticklabels()
+                 if t.get_text() and low <= t.get_position()[axis is ax.yaxis] <= high]
+        assert 2 <= len(texts) <= 7, texts  # matplotlib's default labels minor ticks of 0.3-0.6 too
+        for text in texts:  # no exponent notation to decode
+            float(text.replace("\N{MINUS SIGN}", "-"))
+    fig = Figure()
+    ax = fig.add_subplot()
+    scaled_axes(ax, (0.3, 0.6), (-1.0, 1.0), (False, False))
+    assert ax.get_xscale() == "linear" and ax.get_xlim() == (0.3, 0.6)
+
+
+def test_the_start_map_colours_are_the_palette():
+    # Okabe & Ito (2008): the seven colours, then a grey
+    assert set(COLOURS[:7]) == set(PALETTE.values()) and len(COLOURS) == 8
 
 
 def test_docstring_examples():
