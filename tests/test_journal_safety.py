@@ -346,6 +346,25 @@ def test_retry_failed_evaluates_the_stored_failures_again(tmp_path):
     assert len(rows(path)) == len(stored)  # nothing evaluated
 
 
+def test_a_retried_run_stopped_on_its_budget_goes_on_past_the_abandoned_rows(tmp_path):
+    # The retry that succeeded sent the search down a new path; the rows the failed run wrote
+    # after the failure stay in the file, but a later resume must not hold the search to them.
+    fresh = dl.minimize(licensed_bowl, [0.0, 0.0], bounds=BOUNDS)
+    path = tmp_path / "j.sqlite"
+    OUTAGE["on"] = True
+    try:
+        dl.minimize(licensed_bowl, [0.0, 0.0], bounds=BOUNDS, journal=path)
+    finally:
+        OUTAGE["on"] = False
+    statuses = [status for _, _, status, _ in rows(path)]
+    first = statuses.index("failed")
+    assert len(statuses) > first + 1  # rows after the failure: the path the retry abandons
+    cut = dl.resume(path, licensed_bowl, retry_failed=True, budget=first + 6)
+    assert cut.stop is dl.Stop.BUDGET
+    again = dl.resume(path, licensed_bowl, budget=fresh.evaluations + len(statuses))
+    assert again.point.tobytes() == fresh.point.tobytes() and again.value == fresh.value
+
+
 def test_retry_failed_on_the_command_line(tmp_path, capsys):
     path = problem(tmp_path)
     journal = tmp_path / "problem.journal.sqlite"
