@@ -25,7 +25,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from directional.errors import ProblemError
-from directional.interface.command import Command, EvaluationFailed, _last_number
+from directional.interface import reading
+from directional.interface.command import Command, EvaluationFailed
 from directional.testproblems import cooling_rod
 
 ROD = str(Path(cooling_rod.__file__).resolve())
@@ -33,7 +34,8 @@ TRUE = (cooling_rod.TRUE["conductivity"], cooling_rod.TRUE["coefficient"])
 
 
 def rod(*extra: str, **options) -> Command:
-    """The cooling-rod script as a command with parameters k and h."""
+    """The cooling-rod script as a command with parameters k and h (it prints "misfit VALUE")."""
+    options.setdefault("read", "label:misfit")
     argv = [sys.executable, ROD, "--conductivity", "{k}", "--coefficient", "{h}", *extra]
     return Command(argv, ["k", "h"], **options)
 
@@ -74,7 +76,7 @@ def read_pids(path: Path) -> list[int]:
 # --- reading the value ------------------------------------------------------------------------
 
 
-def test_stdout_value_is_the_last_number():
+def test_stdout_value_is_picked_by_its_label():
     # The script prints a temperature table, then "misfit <value>"; the same model in-process.
     assert rod(timeout=60)(TRUE) == pytest.approx(cooling_rod.misfit(*TRUE), rel=1e-12)
 
@@ -82,7 +84,7 @@ def test_stdout_value_is_the_last_number():
 def test_module_invocation_and_workdir(tmp_path):
     argv = [sys.executable, "-m", "directional.testproblems.cooling_rod",
             "--conductivity", "{k}", "--coefficient", "{h}", "--out", "m.txt"]
-    cmd = Command(argv, ["k", "h"], timeout=60, workdir=tmp_path)
+    cmd = Command(argv, ["k", "h"], timeout=60, workdir=tmp_path, read="label:misfit")
     assert cmd([150.0, 14.0]) == pytest.approx(cooling_rod.misfit(150.0, 14.0), rel=1e-12)
     assert (tmp_path / "m.txt").exists()  # the program ran in workdir
 
@@ -90,7 +92,7 @@ def test_module_invocation_and_workdir(tmp_path):
 def test_value_read_from_file(tmp_path):
     cmd = rod("--out", "out.txt", read="file:out.txt", workdir=tmp_path, timeout=60)
     assert cmd([160.0, 11.0]) == pytest.approx(cooling_rod.misfit(160.0, 11.0), rel=1e-12)
-    assert "misfit = " in (tmp_path / "out.txt").read_text()
+    assert (tmp_path / "out.txt").read_text() == f"{cooling_rod.misfit(160.0, 11.0)!r}\n"
 
 
 def test_stale_file_is_not_read(tmp_path):
@@ -158,31 +160,69 @@ def test_env_is_added():
     assert cmd([0.5]) == 1.5
 
 
+STDOUT = reading.ReadSpec("stdout")
+
+
 @pytest.mark.parametrize(
     ("text", "expected"),
     [
-        ("misfit 12.5\n", 12.5),
-        ("the misfit is 1e-3.", 1e-3),
-        ("x = -2.5e+3 (units)", -2500.0),
-        ("t = 3\nvalue: .5", 0.5),
-        ("result=[4, 7]", 7.0),
-        ("misfit 3\nelapsed 0.25 s", 0.25),  # the last number wins: print the value last
+        ("12.5\n", 12.5),
+        ("log line 1\n  -2.5e+3  \n\n", -2500.0),
+        ("step 1000\n.5", 0.5),
+        ("1E-3", 1e-3),
     ],
 )
-def test_last_number(text, expected):
+def test_last_line_one_number(text, expected):
     # Common practice, no source: a number is the usual decimal / exponent notation.
-    assert _last_number(text, "test") == expected
+    assert reading.number(STDOUT, text, "test") == expected
 
 
-@pytest.mark.parametrize("text", ["step42 done", "version 1.2.3", "12.5e", "", "infinite"])
-def test_no_number(text):
-    # not a value but the reason, which names where it looked and shows the end of the text
-    assert _last_number(text, "test") == f"no number in test; it ends with {text!r}"
+@pytest.mark.parametrize(
+    "text",
+    [
+        "misfit 3.5\ndone in 3 s, 1000 steps",  # issue 15 item 8: was read as 1000
+        "step42 done", "version 1.2.3", "12.5e", "", "infinite", "1 2", "misfit 12.5",
+    ],
+)
+def test_anything_but_one_number_on_the_last_line_fails_quoting_it(text):
+    reason = reading.number(STDOUT, text, "test")
+    assert isinstance(reason, str)
+    last = [line for line in text.splitlines() if line.strip()]
+    if last:
+        assert repr(last[-1].strip()) in reason
 
 
-@pytest.mark.parametrize("text", ["misfit nan", "misfit -inf", "misfit Infinity"])
+@pytest.mark.parametrize("text", ["nan", "-inf", "Infinity"])
 def test_non_finite_number_is_a_failure(text):
-    assert "not a finite value" in _last_number(text, "test")
+    assert "not a finite value" in reading.number(STDOUT, text, "test")
+
+
+@pytest.mark.parametrize(
+    ("text", "expected"),
+    [
+        ("cost = 1.25\ndone in 3 s, 1000 steps\n", 1.25),
+        ("cost: -2e-3\n", -2e-3),
+        ("cost 7\ncost = 8\nother = 9", 8.0),  # the last labelled line
+        ("  cost=0.5  ", 0.5),
+    ],
+)
+def test_value_picked_by_label(text, expected):
+    assert reading.number(reading.ReadSpec("label", "cost"), text, "test") == expected
+
+
+@pytest.mark.parametrize("text", ["costs = 1", "cost = 1 s", "total cost = 2", "cost = nan", ""])
+def test_label_needs_a_whole_line(text):
+    assert isinstance(reading.number(reading.ReadSpec("label", "cost"), text, "test"), str)
+
+
+def test_program_ending_with_a_count_fails_with_the_line_quoted():
+    # Issue 15 item 8: "done in 3 s, 1000 steps" after the value was stored as 1000.
+    code = "print(2.5 * float(__import__('sys').argv[1])); print('done in 3 s, 1000 steps')"
+    with pytest.raises(EvaluationFailed) as caught:
+        python(code, "{a}", timeout=60)([1.0])
+    assert "'done in 3 s, 1000 steps'" in caught.value.detail
+    labelled = "print('cost =', 2.5 * float(__import__('sys').argv[1])); print('done, 1000 steps')"
+    assert python(labelled, "{a}", timeout=60, read="label:cost")([2.0]) == 5.0
 
 
 # --- validation at construction ---------------------------------------------------------------
@@ -211,6 +251,11 @@ def test_non_finite_number_is_a_failure(text):
         (["{prog}", "{k}"], ["k"], {"read": "file:"}, "file name"),
         (["{prog}", "{k}"], ["k"], {"read": "json:fit..misfit"}, "dotted"),
         (["{prog}", "{k}"], ["k"], {"read": "json:"}, "dotted"),
+        (["{prog}", "{k}"], ["k"], {"read": "label:a b"}, "one word"),
+        (["{prog}", "{k}"], ["k"], {"read": "label:x", "vector": True}, "one number"),
+        (["{prog}", "{k}"], ["k"], {"read": "csv:out.csv:T"}, "vector"),
+        (["{prog}", "{k}"], ["k"], {"read": "csv:out.csv", "vector": True}, "csv:PATH:COLUMN"),
+        (["{prog}"], ["k"], {"files": ["/no/such/file"]}, "does not exist"),
         (["{prog}", "{k}"], ["k"], {"timeout": 0}, "timeout"),
         (["{prog}", "{k}"], ["k"], {"timeout": "60"}, "timeout"),
         (["{prog}", "{k}"], ["k"], {"grace": -1.0}, "grace"),
@@ -378,9 +423,11 @@ def test_nonzero_exit_is_a_failure_with_stderr():
 
 def test_garbage_is_a_failure():
     with pytest.raises(EvaluationFailed) as caught:
-        rod("--garbage", timeout=60)(TRUE)
+        rod("--garbage", timeout=60, read="stdout")(TRUE)
     assert caught.value.status == "failed"
-    assert "no number" in caught.value.detail
+    assert "exactly one number" in caught.value.detail and "'no result today'" in caught.value.detail
+    with pytest.raises(EvaluationFailed, match="no line of standard output reads 'misfit = "):
+        rod("--garbage", timeout=60)(TRUE)
 
 
 def test_stderr_in_detail_is_bounded():
@@ -397,7 +444,7 @@ def test_stderr_in_detail_is_bounded():
 
 
 def test_pickle_round_trip():
-    cmd = rod(timeout=60, read="stdout")
+    cmd = rod(timeout=60)
     copy = pickle.loads(pickle.dumps(cmd))
     assert repr(copy) == repr(cmd)
     assert "cooling_rod.py" in repr(cmd) and "{k}" in repr(cmd)

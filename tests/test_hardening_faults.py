@@ -46,6 +46,7 @@ def wood(x: np.ndarray) -> float:
 class Counting:
     def __init__(self) -> None:
         self.points: list[bytes] = []
+        self.__wrapped__ = wood  # the journal's fingerprint sees wood (identity.fingerprint)
 
     def __call__(self, x: np.ndarray) -> float:
         self.points.append(x.tobytes())
@@ -55,6 +56,9 @@ class Counting:
 def slow_wood(x: np.ndarray) -> float:
     time.sleep(0.001)  # long enough for a kill to land anywhere, short enough for CI
     return wood(x)
+
+
+slow_wood.__wrapped__ = wood  # wood's values, a little later: the same objective for the journal
 
 
 def _run(path: Path) -> None:

@@ -11,6 +11,7 @@ kills land in line searches, in the extrapolation of Powell's test and in the ch
 
 from __future__ import annotations
 
+import importlib.util
 import json
 import os
 import signal
@@ -47,17 +48,40 @@ def wood(x):
     return (100 * (b - a * a) ** 2 + (1 - a) ** 2 + 90 * (d - c * c) ** 2 + (1 - c) ** 2
             + 10.1 * ((b - 1) ** 2 + (d - 1) ** 2) + 19.8 * (b - 1) * (d - 1))
 
+import woodfunction  # beside this script: what the journal's fingerprint sees (see WOOD)
+wood.__wrapped__ = woodfunction.value
 sol = dl.minimize(wood, START, journal=path)
 print(json.dumps({"point": sol.point.tobytes().hex(), "value": sol.value, "stop": sol.stop.value,
                   "evaluations": sol.evaluations, "calls": calls}))
 '''.replace("START", repr(START), 1)
 
 
+# The objective's fingerprint, the same in the child and in the test that resumes its journal: a
+# module written beside the child (the journal sees through ``__wrapped__`` to it).
+WOOD = """def value(x):
+    a, b, c, d = x
+    return float(100 * (b - a * a) ** 2 + (1 - a) ** 2 + 90 * (d - c * c) ** 2 + (1 - c) ** 2
+                 + 10.1 * ((b - 1) ** 2 + (d - 1) ** 2) + 19.8 * (b - 1) * (d - 1))
+"""
+
+
+def wood_module(folder: Path):
+    path = folder / "woodfunction.py"
+    if not path.exists():
+        path.write_text(WOOD)
+    spec = importlib.util.spec_from_file_location("woodfunction", path)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
 class Wood:
     """Wood's function (MGH 1981, problem 14), counting its calls and the points it saw."""
 
-    def __init__(self) -> None:
+    def __init__(self, folder: Path | None = None) -> None:
         self.points: list[bytes] = []
+        if folder is not None:
+            self.__wrapped__ = wood_module(folder).value
 
     def __call__(self, x: np.ndarray) -> float:
         self.points.append(x.tobytes())
@@ -76,6 +100,7 @@ def reference() -> dl.Solution:
 def start_child(tmp_path: Path, mode: str, at: int, pause: float = 0.0) -> subprocess.Popen:
     script = tmp_path / "child.py"
     script.write_text(CHILD)
+    wood_module(tmp_path)
     env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
     return subprocess.Popen(
         [sys.executable, str(script), str(tmp_path / "run.sqlite"), mode, str(at), str(pause)],
@@ -95,7 +120,7 @@ def stored_rows(path: Path) -> list[tuple[bytes, str, int]]:
 
 def resume_and_compare(path: Path, reference: dl.Solution, stored: int) -> None:
     """Resume; the result and the journal must be those of the uninterrupted run."""
-    objective = Wood()
+    objective = Wood(path.parent)
     sol = dl.resume(path, objective)
     assert sol.point.tobytes() == reference.point.tobytes()
     assert sol.value == reference.value

@@ -108,7 +108,8 @@ def test_defaults_of_optional_tables(tmp_path):
     text = '[[parameter]]\nname = "x"\nstart = 0.0\n[objective]\nfunction = "model:bowl"\n'
     problem = Problem.from_file(write(tmp_path, text))
     assert problem.parameters[0].lower == -math.inf and problem.parameters[0].upper == math.inf
-    assert problem.journal is None and problem.title == ""
+    assert problem.journal == tmp_path / "problem.journal.sqlite" and problem.journal_default
+    assert problem.title == ""
     assert problem.search.budget is None and problem.search.starts == 1
     assert problem.objective.kind == "value"
 

@@ -20,6 +20,7 @@ import html.parser
 import io
 import json
 import os
+import sqlite3
 import sys
 import textwrap
 from pathlib import Path
@@ -364,10 +365,30 @@ def test_outside_text_is_escaped_everywhere(hostile):
 
 
 def test_show_of_a_calibration_journal_in_a_browser(chromium, demo, tmp_path):
-    # the journal keeps values, not residual vectors: show reports the best stored point and says
-    # why there is no verdict, rather than failing
+    # the journal keeps each evaluation's residual vector: show replays the whole calibration,
+    # least-squares steps, check and uncertainty included, evaluating nothing
     path = tmp_path / "show.html"
-    assert command("show", str(demo / "journal.sqlite"), "--html", str(path)) == 1
+    assert command("show", str(demo / "journal.sqlite"), "--html", str(path)) == 0
+    facts, shot, errors, requests = look(chromium, path)
+    check_page(facts, shot, errors, requests, path, figures=4)
+    text = facts["text"]
+    assert "A verified minimum" in text and "cannot be replayed" not in text
+    saved = json.loads((demo / "solution.json").read_text())
+    assert f"{saved['value']:.10g}" in text  # the run's best value, from the journal
+    assert saved["verdict"] == "minimum"
+
+
+def test_show_of_a_calibration_journal_without_vectors_in_a_browser(chromium, demo, tmp_path):
+    # a journal written before residual vectors were kept: show reports the best stored point and
+    # says why there is no verdict, rather than failing
+    old = tmp_path / "old.sqlite"
+    with contextlib.closing(sqlite3.connect(demo / "journal.sqlite")) as source, \
+            contextlib.closing(sqlite3.connect(old)) as target:
+        source.backup(target)
+        target.execute("UPDATE evaluation SET residuals = NULL")
+        target.commit()
+    path = tmp_path / "show.html"
+    assert command("show", str(old), "--html", str(path)) == 1
     facts, shot, errors, requests = look(chromium, path)
     check_page(facts, shot, errors, requests, path, figures=4)
     text = facts["text"]

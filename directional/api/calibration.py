@@ -30,6 +30,7 @@ References
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import dataclasses
 import math
 import warnings
@@ -244,8 +245,10 @@ def calibrate(
         The covariance is still scaled by s² = S / (m - p), which is near 1 when they are right.
 
     The other arguments are those of `directional.minimize`; ``budget`` counts every evaluation
-    (search, Levenberg–Marquardt, check and Jacobian).  A calibration runs its evaluations in
-    process: ``executor`` must stay None (many starts on an executor: `directional.api.explore`).
+    (search, Levenberg–Marquardt, check and Jacobian).  ``executor`` evaluates the points of a
+    batch in parallel; the residual vectors must come back to this process, so it must share
+    its memory: a thread pool (for a program, each evaluation is its own process anyway;
+    `directional.run.ordered.InOrder` keeps the journal in the serial order).
 
     Raises
     ------
@@ -259,19 +262,26 @@ def calibrate(
         value_tolerance=value_tolerance, time_limit=time_limit, check=check, escapes=escapes,
         noise=noise,
     )
-    if executor is not None:
+    if executor is not None and isinstance(getattr(executor, "_inner", executor),
+                                           cf.ProcessPoolExecutor):
         raise ProblemError(
-            "calibrate evaluates in process: executor must be None (many starts on an executor: "
-            "directional.api.explore)"
+            "calibrate needs each residual vector back in this process: give a thread pool as "
+            "executor, not a process pool (many starts on processes: directional.api.explore)"
         )
     squares = SumOfSquares(residuals, options.sigma)
     space = options.space
-    with session(squares, options, journal, progress=progress) as (driver, book):
+    with session(squares, options, journal, executor=executor, progress=progress) as (
+        driver, book
+    ):
+        squares.vectors.update(book.stored_vectors())  # a resumed journal: nothing recomputed
+        if squares.size is None and squares.vectors:
+            squares.size = next(iter(squares.vectors.values())).size
+        book.vectors = squares.vectors.get  # the journal keeps each evaluation's vector
         settled, settings, noted, free, jacobian = driver.run(calibration(options, squares))
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
         found = solution(space, driver.log, outcome, settings.point_tolerance)
-        solution_ = settled_solution(found, settled, noted)
+        solution_ = settled_solution(found, settled, (*noted, *book.notes))
     x = space.to_user(outcome.point)
     notes = list(outcome.notes) + list(solution_.notes)
     result = None

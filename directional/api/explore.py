@@ -25,6 +25,7 @@ References
 from __future__ import annotations
 
 import concurrent.futures as cf
+import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -50,6 +51,7 @@ from directional.records import Status, Stop, Verdict
 from directional.run.driver import Driver, Evaluation, Objective, Observer
 from directional.run.executors import check_picklable
 from directional.run.identity import run_identity
+from directional.run.workers import process_pool
 from directional.solution import CAUTION, Solution, describe_break
 
 SAME_POINT = 1e-3  # scaled distance below which two end points are one minimum
@@ -367,7 +369,7 @@ def exploration(
     made = None
     if executor is None and workers is not None:
         check_picklable(objective)
-        executor = made = cf.ProcessPoolExecutor(max_workers=workers)
+        executor = made = process_pool(workers)
     elif isinstance(executor, cf.ProcessPoolExecutor):
         check_picklable(objective)
     try:
@@ -375,6 +377,7 @@ def exploration(
             objective, options, journal, executor=executor, workers=workers, observers=observers
         ) as (driver, kept):
             land = _explore(options, driver)
+            land = dataclasses.replace(land, notes=(*land.notes, *kept.notes))
             kept.finish(_overall(land.stops), "", replayed=driver.replayed)
     finally:
         if made is not None:

@@ -124,7 +124,7 @@ def minimize(
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
         found = solution(options.space, driver.log, outcome, settings.point_tolerance)
-        return settled_solution(found, settled, noted)
+        return settled_solution(found, settled, (*noted, *book.notes))
 
 
 def minimization(

@@ -8,15 +8,16 @@ nothing a journal stores can choose code other than these three functions).
 
 from __future__ import annotations
 
+import dataclasses
 import os
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from typing import Any
 
 from directional.api.calibration import calibrate
 from directional.api.explore import explore
 from directional.api.minimization import minimize
 from directional.errors import JournalError, ProblemError
-from directional.run.journal import read
+from directional.run.journal import Target, read
 
 # The run kinds that `resume` can continue.  Each entry point is called as
 # ``entry(objective, parameters, journal=path, budget=..., time_limit=..., **arguments)``.
@@ -42,11 +43,13 @@ def entry_point(kind: str, path: object = None) -> Callable[..., Any]:
 
 
 def resume(
-    path: str | os.PathLike[str],
+    path: str | os.PathLike[str] | Target,
     objective: object,
     *,
     budget: int | None = None,
     time_limit: float | None = None,
+    retry_failed: bool = False,
+    fingerprint: Mapping[str, Any] | None = None,
     **options: object,
 ) -> Any:
     """Continue the run kept in the journal at ``path``; return what that run returns.
@@ -62,14 +65,24 @@ def resume(
     Parameters
     ----------
     objective
-        The same objective as the first run (the journal cannot check that it is).
+        The same objective as the first run.  The journal keeps a fingerprint of the objective
+        (`identity.fingerprint`); when it differs, the first stored evaluation and the best are
+        made again, and the run goes on (with a note) only if they reproduce their values within
+        the noise; otherwise `JournalError` says what changed, and the journal is left untouched.
     budget
         Evaluations allowed in total, the journaled ones included (default: the last budget the
         journal was run with).  Give a larger one to go on after a run stopped on its budget.
     time_limit
         Seconds of wall time for this session.
+    retry_failed
+        Evaluate again the stored evaluations that failed or timed out, when the search asks for
+        their points (after a licence server came back, say); the journal keeps both records.
+    fingerprint
+        Used instead of the objective's own fingerprint (the command line passes the problem
+        file's, which knows the program's files and ``version``).
     options
-        Other keyword arguments of the entry point that do not change the search (``progress``).
+        Other keyword arguments of the entry point that do not change the search (``progress``,
+        ``workers`` for a many-start run).
 
     Raises
     ------
@@ -79,6 +92,8 @@ def resume(
     ProblemError
         When ``options`` tries to change an argument the journal fixes.
     """
+    given = path if isinstance(path, Target) else Target(path)
+    path = given.path
     header = read(path).header
     entry = entry_point(header.kind, path)
     arguments = dict(header.identity.get("arguments", {}))
@@ -88,12 +103,19 @@ def resume(
             f"{overlap[0]!r} is fixed by the journal ({arguments[overlap[0]]!r}) and cannot be changed "
             "on resume"
         )
+    target = dataclasses.replace(
+        given,
+        info=dict(header.info),
+        objective=given.objective if fingerprint is None else fingerprint,
+        retry=given.retry or bool(retry_failed),
+    )
     return entry(
         objective,
         header.parameters,
-        journal=path,
+        journal=target,
         budget=header.budget if budget is None else budget,
         time_limit=time_limit,
         **arguments,
         **options,
     )
+

@@ -47,7 +47,9 @@ def session(
     JournalError
         As `run.journal.journal_for`.
     """
-    with journal_for(journal, options.identity, budget=options.budget) as book:
+    with journal_for(
+        journal, options.identity, budget=options.budget, objective=objective
+    ) as book:
         hooks = book.hooks()
         stored = tuple(hooks.get("stored", ()))
         total = options.budget if bar_total == -1 else bar_total
@@ -65,6 +67,7 @@ def session(
                     workers=workers,
                     observers=(*hooks.get("observers", ()), *observers, *((bar,) if bar else ())),
                     stored=stored,
+                    retry=bool(hooks.get("retry", False)),
                 )
             )
             yield driver, book

@@ -1,9 +1,14 @@
 """The ``directional`` command: demo, run, resume, show, check, bench.
 
 Exit codes: 0 when the search ended at a verified minimum (verdict ``minimum``; for ``check``: the
-start point evaluated), 1 when it ended without one (stopped early, interrupted, a saddle, a flat
-direction, no check made, the objective failed), 2 for bad input (arguments, problem file,
-journal).  Messages go to standard error; the summary to standard output.
+start point evaluated), 1 when it ended without one (stopped early, interrupted by Ctrl-C, a saddle,
+a flat direction, no check made, the objective failed), 2 for bad input (arguments, problem file,
+journal), 128 + N when signal N stopped the run (143 for SIGTERM, 129 for SIGHUP: the run stops as
+for Ctrl-C, between evaluations, and ``resume`` continues it).  Messages go to standard error; the
+summary to standard output; a reader that goes away (``| head``) changes nothing.
+
+Heavy libraries (numpy, scipy, matplotlib) are imported where they are used, so that ``--help``
+and argument errors answer at once.
 """
 
 from __future__ import annotations
@@ -12,27 +17,31 @@ import argparse
 import contextlib
 import math
 import os
+import signal
 import sys
 import time
 import warnings
 from collections.abc import Iterator, Sequence
 from pathlib import Path
-from typing import Any, TextIO
-
-import numpy as np
+from typing import TYPE_CHECKING, Any, TextIO
 
 from directional.errors import JournalError, ObjectiveError, ProblemError
-from directional.interface.problemfile import Problem
-from directional.records import Stop, Verdict
-from directional.run.driver import call
-from directional.solution import CAUTION, Solution
+from directional.run.interrupts import Interrupts
+
+if TYPE_CHECKING:
+    import numpy as np
+
+    from directional.interface.problemfile import Problem
+    from directional.solution import Solution
 
 OK, UNVERIFIED, BAD_INPUT = 0, 1, 2
+SIGNALLED = 128  # exit code 128 + N when signal N stopped the run (the shells' convention)
 PLOT_SECONDS = 20.0  # by default, plots spend report-only evaluations worth about this long
 
 _CODES = """\
-exit codes: 0 a verified minimum, 1 the search ended without one (or was interrupted),
-            2 bad input (arguments, problem file, journal)"""
+exit codes: 0 a verified minimum, 1 the search ended without one (or Ctrl-C stopped it),
+            2 bad input (arguments, problem file, journal),
+            143 / 129 SIGTERM / SIGHUP stopped the run (resume continues it)"""
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -45,6 +54,16 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return BAD_INPUT
+    interrupts = Interrupts()  # SIGINT, SIGTERM, SIGHUP: one handler, joined by the driver's
+    with interrupts, _quiet_when_closed():
+        code = _handled(args)
+        if interrupts.signal is not None and interrupts.signal != signal.SIGINT:
+            code = SIGNALLED + int(interrupts.signal)
+    return code
+
+
+def _handled(args: argparse.Namespace) -> int:
+    """Run the command; errors become a message on standard error and an exit code."""
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", UserWarning)
@@ -61,9 +80,50 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("directional: interrupted", file=sys.stderr)
         return UNVERIFIED
-    except BrokenPipeError:  # the reader went away (| head): stop quietly
-        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
-        return UNVERIFIED
+
+
+@contextlib.contextmanager
+def _quiet_when_closed() -> Iterator[None]:
+    """Standard output whose reader went away (``| head``) swallows the rest, without an error.
+
+    Python ignores SIGPIPE, so a write to a closed pipe raises `BrokenPipeError`; from then on
+    standard output goes to the null device, and the exit code stays the run's own.
+    """
+    stream = sys.stdout
+    guarded = _Unbroken(stream)
+    sys.stdout = guarded  # type: ignore[assignment]
+    try:
+        yield
+        guarded.flush()
+    finally:
+        sys.stdout = stream
+
+
+class _Unbroken:
+    """A text stream that turns a closed pipe into silence (see `_quiet_when_closed`)."""
+
+    def __init__(self, stream: TextIO) -> None:
+        self._stream = stream
+
+    def write(self, text: str) -> int:
+        try:
+            return self._stream.write(text)
+        except BrokenPipeError:
+            self._silence()
+            return len(text)
+
+    def flush(self) -> None:
+        try:
+            self._stream.flush()
+        except BrokenPipeError:
+            self._silence()
+
+    def _silence(self) -> None:
+        with contextlib.suppress(OSError, ValueError):
+            os.dup2(os.open(os.devnull, os.O_WRONLY), self._stream.fileno())
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._stream, name)
 
 
 # ----------------------------------------------------------------------------- the parser
@@ -105,11 +165,14 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--budget", type=_positive, metavar="N", help="most evaluations (overrides the file)")
     run.add_argument("--starts", type=_positive, metavar="K",
                      help="searches from K starts (overrides the file)")
-    run.add_argument("--workers", type=_positive, metavar="W", help="processes for many starts")
+    run.add_argument("--workers", type=_positive, metavar="W",
+                     help="parallel evaluations: of many starts, or of one search's batches")
     run.add_argument("--dask", metavar="ADDRESS",
                      help="evaluate many starts on the Dask scheduler at ADDRESS (needs [dask])")
     where = run.add_mutually_exclusive_group()
-    where.add_argument("--journal", metavar="FILE", help="journal file (overrides the file's)")
+    where.add_argument("--journal", metavar="FILE",
+                       help="journal file (default: the problem file's [journal] path, else "
+                       "NAME.journal.sqlite beside NAME.toml)")
     where.add_argument("--no-journal", action="store_true", help="keep no journal")
     _outputs(run)
     run.set_defaults(handler=_run)
@@ -122,6 +185,9 @@ def _parser() -> argparse.ArgumentParser:
     resume.add_argument("--problem", metavar="FILE", help="the problem file, if it has moved")
     resume.add_argument("--budget", type=_positive, metavar="N",
                         help="most evaluations in all, the stored ones included")
+    resume.add_argument("--retry-failed", action="store_true",
+                        help="evaluate again the stored evaluations that failed or timed out, "
+                        "when the search asks for them (the journal keeps both records)")
     _outputs(resume)
     resume.set_defaults(handler=_resume)
 
@@ -132,6 +198,9 @@ def _parser() -> argparse.ArgumentParser:
     )
     show.add_argument("journal", metavar="JOURNAL.sqlite", help="the journal of the run")
     show.add_argument("--problem", metavar="FILE", help="the problem file, if it has moved")
+    show.add_argument("--evaluations", metavar="FILE.csv",
+                      help="write every evaluation to FILE.csv (parameters by name, value, status, "
+                      "reason, purpose, start and end time), for a spreadsheet or pandas")
     _outputs(show, progress=False)
     show.set_defaults(handler=_show)
 
@@ -165,6 +234,30 @@ def _outputs(sub: argparse.ArgumentParser, progress: bool = True) -> None:
         sub.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
+def _check_outputs(args: argparse.Namespace) -> None:
+    """Refuse output paths that cannot be written, before the run rather than after it.
+
+    Raises
+    ------
+    ProblemError
+        Naming the option: --plots naming a file, --json or --evaluations naming a folder, or
+        a path under a file.
+    """
+    for option, folder in (("plots", True), ("json", False), ("evaluations", False)):
+        value = getattr(args, option, None)
+        if value is None:
+            continue
+        path = Path(value)
+        if folder and path.exists() and not path.is_dir():
+            raise ProblemError(f"--{option} {value!r}: names a file, not a folder for the plots")
+        if not folder and path.is_dir():
+            raise ProblemError(f"--{option} {value!r}: names a folder, not a file")
+        parent = path if folder else path.parent
+        above = next((p for p in (parent, *parent.parents) if p.exists()), None)
+        if above is not None and not above.is_dir():
+            raise ProblemError(f"--{option} {value!r}: {str(above)!r} is a file, not a folder")
+
+
 def _positive(text: str) -> int:
     value = _count(text)
     if value < 1:
@@ -193,6 +286,8 @@ def _version() -> str:
 
 def load_problem(path: str | Path) -> Problem:
     """Read a problem file (a ProblemError names the file, line and key)."""
+    from directional.interface.problemfile import Problem
+
     return Problem.from_file(path)
 
 
@@ -241,6 +336,12 @@ def _run(args: argparse.Namespace) -> int:
         journal = None
     elif args.journal:
         journal = Path(args.journal).absolute()
+    _check_outputs(args)
+    kept = problem.journal if journal is True else journal
+    if kept is not None:
+        how = "beside the problem file (no [journal] table; --no-journal: none)" if (
+            journal is True and problem.journal_default) else ""
+        print(f"directional: journal {_shown(kept)} {how}".rstrip(), file=sys.stderr)
     with _dask_executor(args.dask, problem) as executor:
         result = solve(
             problem, journal=journal, budget=args.budget, quiet=args.quiet, executor=executor
@@ -278,7 +379,9 @@ def _resume(args: argparse.Namespace) -> int:
     from directional.interface.runs import problem_of_journal, resume
 
     problem = problem_of_journal(args.journal, args.problem)
-    result = resume(args.journal, problem, budget=args.budget, quiet=args.quiet)
+    _check_outputs(args)
+    result = resume(args.journal, problem, budget=args.budget, quiet=args.quiet,
+                    retry_failed=args.retry_failed)
     return finish(result, problem, json_path=args.json, plots=args.plots,
                   journal=Path(args.journal), extra=args.plot_evaluations, html=args.html)
 
@@ -286,6 +389,13 @@ def _resume(args: argparse.Namespace) -> int:
 def _show(args: argparse.Namespace) -> int:
     from directional.interface.runs import PROBLEM_KEY, replay
 
+    _check_outputs(args)
+    if args.evaluations is not None:
+        from directional.report.evaluations import write_csv
+        from directional.run.journal import read
+
+        written = write_csv(read(args.journal), args.evaluations)
+        print(f"directional: {_shown(written)}: every evaluation of the journal", file=sys.stderr)
     result, contents = replay(args.journal)
     problem = None
     noted = args.problem or contents.header.info.get(PROBLEM_KEY)
@@ -302,6 +412,10 @@ def _show(args: argparse.Namespace) -> int:
 
 
 def _check(args: argparse.Namespace) -> int:
+    import numpy as np
+
+    from directional.run.driver import call
+
     problem = load_problem(args.problem)
     objective = problem.make_objective()
     start = np.array([p.start for p in problem.parameters])
@@ -313,6 +427,11 @@ def _check(args: argparse.Namespace) -> int:
     print(f"  objective ({spec.kind}): {what}")
     if problem.journal is not None:
         print(f"  journal: {problem.journal}")
+    if problem.data is not None:
+        table = problem.table()
+        rows, series = table.observed.shape
+        print(f"  data: {table.path.name}, {rows} rows x {series} series "
+              f"({', '.join(table.names)}): the objective must give {table.size} predictions")
     tick = time.perf_counter()
     if spec.kind == "residuals":
         value, status, detail, count = _residuals_once(objective, start)
@@ -329,6 +448,8 @@ def _check(args: argparse.Namespace) -> int:
 
 
 def _residuals_once(objective, start: np.ndarray) -> tuple[float, str, str, int | None]:
+    import numpy as np
+
     try:
         r = np.asarray(objective(start.copy()), dtype=float).ravel()
     except Exception as error:  # the objective's failure is what check reports
@@ -357,6 +478,8 @@ def _bench(argv: list[str]) -> int:
 
 def exit_code(sol: Solution) -> int:
     """0 for a verified minimum, else 1."""
+    from directional.records import Verdict
+
     return OK if sol.verdict is Verdict.MINIMUM else UNVERIFIED
 
 
@@ -382,7 +505,9 @@ def finish(
     include the start map.
     """
     from directional.interface.runs import best
+    from directional.records import Stop
     from directional.report import summary as report
+    from directional.solution import CAUTION, Solution
 
     out = sys.stdout if out is None else out
     title = problem.title if problem is not None else ""
@@ -393,9 +518,22 @@ def finish(
         table = landscape.summary().removesuffix(CAUTION).rstrip()
         print(table + "\n\nThe best minimum:\n", file=out)
     sol = best(result)
-    print(report.summary_text(sol, title), file=out)
-    if sol.stop is Stop.INTERRUPTED and journal is not None:
-        print(f"\nTo continue: directional resume {journal}", file=out)
+    print(report.summary_text(sol, title, failures=landscape is None), file=out)
+    if landscape is not None:
+        print("\n".join(report.failure_lines(landscape.history, landscape.names)), file=out)
+    if journal is not None and not sol.reason.startswith("running,"):
+        if sol.stop is Stop.INTERRUPTED:
+            print(f"\nTo continue: directional resume {_quoted(journal)}", file=out)
+        elif (sol.stop is Stop.BUDGET and "time limit" not in sol.reason) or any(
+            "the budget of" in note for note in sol.notes
+        ):
+            if landscape is None:
+                print(f"\nTo go further, give a larger budget (it counts the {sol.evaluations} "
+                      f"evaluations made): directional resume {_quoted(journal)} --budget "
+                      f"{2 * sol.evaluations}", file=out)
+            else:
+                print(f"\nTo go further: directional resume {_quoted(journal)} --budget N, with N "
+                      "above the budget of each search", file=out)
     written: list[Path] = list(inputs)
     if journal is not None and show_files:
         written.append(Path(journal))
@@ -415,6 +553,12 @@ def finish(
         for path in written:
             print(f"  {_shown(path)}", file=out)
     return exit_code(sol)
+
+
+def _quoted(path: Path | str) -> str:
+    import shlex
+
+    return shlex.quote(str(path))
 
 
 def _shown(path: Path) -> str:
@@ -489,6 +633,7 @@ def _html(
     """The HTML report (`directional.report.html`), its figures made as for ``--plots``."""
     from directional.report.html import origin_of, write_html
     from directional.report.plots import affordable
+    from directional.solution import Solution
 
     if extra is None:
         extra = affordable(sol, PLOT_SECONDS)

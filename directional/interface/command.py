@@ -3,45 +3,38 @@
 The program is given as an argument list in which ``{name}`` stands for the value of parameter
 ``name``.  No shell is involved at any point: each element reaches the program as one argument,
 exactly as written, with the placeholders replaced by ``repr(float(value))`` (the shortest text
-that reads back as the same double, bit for bit).  A run that exits non-zero, prints no number,
-or runs out of time raises `EvaluationFailed`, which the driver records as a failed evaluation.
+that reads back as the same double, bit for bit).  Input files can be rendered from templates
+(`directional.interface.templates`) into a fresh folder per evaluation.  A run that exits
+non-zero, gives no valid answer (`directional.interface.reading`), or runs out of time raises
+`EvaluationFailed`, which the driver records as a failed evaluation.
 
-How a run is started, watched, read and stopped is in `directional.interface.process`.
+How a run is started, watched and stopped is in `directional.interface.process`.
 """
 
 from __future__ import annotations
 
-import json
 import math
 import os
-import re
 import shutil
 import signal
 import string
 import tempfile
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
 from directional.errors import ProblemError
+from directional.interface import reading
 from directional.interface.process import Outcome, run_program
+from directional.interface.templates import Template
 from directional.records import Status
 
 FAILED = Status.FAILED
 TIMED_OUT = Status.TIMED_OUT
 DETAIL_LIMIT = 2000  # characters of stderr kept in EvaluationFailed.detail
-
-# A number as programs print it: sign, digits, decimal point, exponent, or inf / nan.  It must not
-# continue a word or another number ("step42", "1.2.3", "12.5e") - the atomic group forbids
-# backtracking into a shorter match.  A sentence-ending period is allowed ("misfit is 3.5.").
-_NUMBER = re.compile(
-    r"(?<![\w.+-])"
-    r"(?>[-+]?(?:(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?|inf(?:inity)?|nan))"
-    r"(?!\w|\.\d)",
-    re.IGNORECASE,
-)
-
 
 class EvaluationFailed(Exception):
     """One run of the program gave no value.
@@ -83,16 +76,28 @@ class Command:
         Seconds a run may take; then the program's process group gets SIGTERM, ``grace``
         seconds later SIGKILL, and the evaluation is ``"timed-out"``.  None waits for ever.
     read : str
-        Where the value is:
+        Where the answer is (`directional.interface.reading` has the details):
 
-        * ``"stdout"``: the last number the program prints on standard output (so print the
-          value last);
-        * ``"file:NAME"``: the last number in file ``NAME``, relative to the folder the program
-          runs in; the file must be written by this run (a file left unchanged from before
-          counts as not written);
+        * ``"stdout"``: the last non-empty line of standard output, which must be exactly one
+          number (a vector: every non-empty line holds numbers only);
+        * ``"label:NAME"``: the number on the last line ``NAME = 1.23`` of standard output;
+        * ``"file:PATH"``: as ``"stdout"``, from the file ``PATH`` relative to the folder the
+          program runs in; the file must be written by this run (a file left unchanged from
+          before counts as not written);
         * ``"json:KEY"``: standard output is a JSON document (or its last line is one);
           ``KEY`` is a dotted path into it, ``"fit.misfit"``, where a whole-number part indexes
           a list, ``"residuals.0"``.  Keys containing dots cannot be reached.
+        * ``"csv:PATH:COLUMN"``: a vector, the named column(s) of a CSV file the run wrote.
+    vector : bool
+        The answer is a flat array of numbers (residuals, or predictions for a data table)
+        rather than one number.
+    templates : sequence of paths
+        Template files (`directional.interface.templates`) rendered at ``x`` into the folder of
+        each evaluation under their own file names; they may hold the placeholders of
+        parameters that the command line does not.  Needs ``per_evaluation_dir``.
+    files : sequence of paths
+        Files (or folders) copied into the folder of each evaluation: the script, a mesh, a
+        material table.  Needs ``per_evaluation_dir``.
     workdir : str, Path or None
         The folder the program runs in (created if missing); None runs it in the caller's
         current folder.
@@ -104,6 +109,8 @@ class Command:
         writes files.
     keep : bool
         Keep the folders of successful runs too (needs ``per_evaluation_dir``).
+        Templates and copied files are put in before the program starts; a folder that cannot be
+        made or filled fails the evaluation, and is kept.
     grace : float
         Seconds between SIGTERM and SIGKILL when a run is stopped.
     max_output : int
@@ -149,6 +156,9 @@ class Command:
         *,
         timeout: float | None = None,
         read: str = "stdout",
+        vector: bool = False,
+        templates: Sequence[str | os.PathLike[str]] = (),
+        files: Sequence[str | os.PathLike[str]] = (),
         workdir: str | os.PathLike[str] | None = None,
         per_evaluation_dir: bool = False,
         keep: bool = False,
@@ -160,9 +170,18 @@ class Command:
         self.argv = _check_argv(argv)
         self.env = _check_env(env)
         self._template = tuple(_parse(i, arg, self.names) for i, arg in enumerate(self.argv))
-        _check_all_used(self._template, self.names)
+        if not isinstance(vector, bool):
+            raise ProblemError(f"vector must be True or False, got {vector!r}")
+        self.vector = vector
+        self.templates = tuple(Template.read(path, self.names) for path in _paths("templates", templates))
+        self.files = tuple(Path(path).absolute() for path in _paths("files", files))
+        for path in self.files:
+            if not path.exists():
+                raise ProblemError(f"files: {str(path)!r} does not exist")
+        _check_names_in_folder(self.templates, self.files)
+        _check_all_used(self._template, self.names, self.templates)
         self._program = _find_program(self.argv[0], self.env)
-        self._source, self._key = _parse_read(read)
+        self._read = reading.parse(read, vector=vector)
         self.read = read
         self.timeout = _check_seconds("timeout", timeout, allow_none=True)
         self.grace = _check_seconds("grace", grace, allow_zero=True)
@@ -175,6 +194,9 @@ class Command:
                 raise ProblemError(f"{key} must be True or False, got {flag!r}")
         if keep and not per_evaluation_dir:
             raise ProblemError("keep=True needs per_evaluation_dir=True")
+        if (self.templates or self.files) and not per_evaluation_dir:
+            raise ProblemError("templates and files are put in a folder of each evaluation: "
+                               "they need per_evaluation_dir=True")
         self.per_evaluation_dir = per_evaluation_dir
         self.keep = keep
 
@@ -222,6 +244,12 @@ class Command:
         except OSError as error:
             raise EvaluationFailed(FAILED, f"cannot make the working folder: {error}") from None
         try:
+            self._fill(folder, np.asarray(x, dtype=float))
+        except OSError as error:
+            raise EvaluationFailed(
+                FAILED, f"cannot put the input files in place: {error}; folder: {folder}"
+            ) from None
+        try:
             return run_program(
                 args,
                 cwd=folder,
@@ -234,8 +262,14 @@ class Command:
             where = "" if folder is None else f"; folder: {folder}"
             raise EvaluationFailed(FAILED, f"could not start {args[0]!r}: {error}{where}") from None
 
-    def __call__(self, x: Sequence[float] | np.ndarray) -> float:
-        """Run the program once at ``x`` and return the value it reports.
+    def __call__(
+        self, x: Sequence[float] | np.ndarray, check: Callable[[Any], Any] | None = None
+    ) -> Any:
+        """Run the program once at ``x`` and return the value (or, ``vector``, the array) it reports.
+
+        ``check``, if given, is applied to the answer before the run counts as a success (e.g.
+        the length of a vector): what it returns is returned, and an `EvaluationFailed` it raises
+        fails the run like any other failure (the folder is kept and named).
 
         Raises
         ------
@@ -246,16 +280,34 @@ class Command:
             ``"failed"`` or ``"timed-out"``, ``detail`` says what happened.
         """
         before = None
-        if self._source == "file" and not self.per_evaluation_dir:
-            before = _stamp(self._base() / self._key)
+        if self._read.file is not None and not self.per_evaluation_dir:
+            before = _stamp(self._base() / self._read.file)
         outcome = self.run(x)
         value = self._value(outcome, before)
+        if check is not None:
+            try:
+                value = check(value)
+            except EvaluationFailed as error:
+                where = "" if outcome.directory is None else f"\nfolder: {outcome.directory}"
+                raise EvaluationFailed(error.status, error.detail + where) from None
         if self.per_evaluation_dir and not self.keep and outcome.directory is not None:
             shutil.rmtree(outcome.directory, ignore_errors=True)
         return value
 
     def _base(self) -> Path:
         return Path.cwd() if self.workdir is None else self.workdir
+
+    def _fill(self, folder: Path | None, x: np.ndarray) -> None:
+        """Render the templates and copy the files into the evaluation's folder."""
+        if folder is None:
+            return
+        for template in self.templates:
+            template.write(folder, self.names, x)
+        for path in self.files:
+            if path.is_dir():
+                shutil.copytree(path, folder / path.name, symlinks=True)
+            else:
+                shutil.copy2(path, folder / path.name)
 
     def _folder(self) -> Path | None:
         if self.workdir is not None:
@@ -264,18 +316,23 @@ class Command:
             return self.workdir
         return Path(tempfile.mkdtemp(prefix="eval-", dir=self.workdir))
 
-    def _value(self, outcome: Outcome, before: tuple[int, ...] | None) -> float:
+    def _value(self, outcome: Outcome, before: tuple[int, ...] | None) -> float | np.ndarray:
         """The value of a run, or EvaluationFailed saying why there is none."""
         if outcome.timed_out:
             raise EvaluationFailed(TIMED_OUT, _detail(outcome, self._stopped(outcome)))
         if outcome.returncode != 0:
             raise EvaluationFailed(FAILED, _detail(outcome, ""))
-        if self._source == "stdout":
-            value = _last_number(outcome.stdout, "standard output")
-        elif self._source == "file":
-            value = self._file_number(outcome, before)
+        spec = self._read
+        text, where = outcome.stdout, "standard output"
+        if spec.file is not None:
+            text, where = self._file_text(outcome, before), f"file {spec.file!r}"
+        value: float | np.ndarray | str
+        if isinstance(text, _Missing):
+            value = text.reason
+        elif self.vector:
+            value = reading.vector(spec, text, where)
         else:
-            value = _json_number(outcome.stdout, self._key)
+            value = reading.number(spec, text, where)
         if isinstance(value, str):
             raise EvaluationFailed(FAILED, _detail(outcome, value))
         return value
@@ -286,21 +343,50 @@ class Command:
                     f"SIGTERM, killed with SIGKILL")
         return f"no result within {self.timeout!r} s; stopped with SIGTERM"
 
-    def _file_number(self, outcome: Outcome, before: tuple[int, ...] | None) -> float | str:
-        path = (outcome.directory or Path.cwd()) / self._key
+    def _file_text(self, outcome: Outcome, before: tuple[int, ...] | None) -> str | _Missing:
+        """The end of the result file, or why it cannot be read."""
+        name = self._read.file
+        path = (outcome.directory or Path.cwd()) / name  # type: ignore[operator]
         stamp = _stamp(path)
         if stamp is None:
-            return f"the program wrote no file {self._key!r}"
+            return _Missing(f"the program wrote no file {name!r}")
         if stamp == before:
-            return f"the program did not write {self._key!r}: it is unchanged since before the run"
+            return _Missing(f"the program did not write {name!r}: it is unchanged since before the run")
         try:
             with open(path, "rb") as f:
                 size = f.seek(0, os.SEEK_END)
+                if self._read.source == "csv" and size > self.max_output:
+                    return _Missing(f"{name!r} is larger than {self.max_output} bytes")
                 f.seek(max(0, size - self.max_output))
-                text = f.read().decode("utf-8", errors="replace")
+                return f.read().decode("utf-8", errors="replace")
         except OSError as error:
-            return f"cannot read {self._key!r}: {error}"
-        return _last_number(text, f"file {self._key!r}")
+            return _Missing(f"cannot read {name!r}: {error}")
+
+
+@dataclass(frozen=True, slots=True)
+class _Missing:
+    """Why a result file gives no text."""
+
+    reason: str
+
+
+def _paths(key: str, paths: object) -> list[Path]:
+    if isinstance(paths, str | os.PathLike) or not isinstance(paths, Sequence):
+        raise ProblemError(f"{key} must be a list of file paths, got {paths!r}")
+    for path in paths:
+        if not isinstance(path, str | os.PathLike) or not os.fspath(path):
+            raise ProblemError(f"{key}: each entry must be a file path, got {path!r}")
+    return [Path(path) for path in paths]
+
+
+def _check_names_in_folder(templates: tuple[Template, ...], files: tuple[Path, ...]) -> None:
+    """Two inputs may not land on the same name in the evaluation's folder."""
+    seen: set[str] = set()
+    for name in [t.name for t in templates] + [p.name for p in files]:
+        if name in seen:
+            raise ProblemError(f"two templates or files would both be {name!r} in the folder of "
+                               "an evaluation")
+        seen.add(name)
 
 
 def _check_names(names: Sequence[str]) -> tuple[str, ...]:
@@ -373,12 +459,14 @@ def _parse(index: int, arg: str, names: tuple[str, ...]) -> tuple[tuple[str, str
     return tuple(pieces)
 
 
-def _check_all_used(template: tuple, names: tuple[str, ...]) -> None:
+def _check_all_used(template: tuple, names: tuple[str, ...], decks: tuple[Template, ...]) -> None:
     used = {name for pieces in template for _, name in pieces if name is not None}
+    used.update(*(deck.used for deck in decks))
     for name in names:
         if name not in used:
             raise ProblemError(
-                f"parameter {name!r} appears in no placeholder: the program would never see it"
+                f"parameter {name!r} appears in no placeholder of the command or a template: "
+                "the program would never see it"
             )
 
 
@@ -390,23 +478,6 @@ def _find_program(program: str, env: dict[str, str] | None) -> str:
     if os.sep in program or (os.altsep and os.altsep in program):
         return os.path.abspath(program)
     return program
-
-
-def _parse_read(read: str) -> tuple[str, str]:
-    """('stdout', ''), ('file', NAME) or ('json', KEY)."""
-    usage = "read must be 'stdout', 'file:NAME' or 'json:KEY'"
-    if not isinstance(read, str):
-        raise ProblemError(f"{usage}, got {read!r}")
-    if read == "stdout":
-        return "stdout", ""
-    source, colon, rest = read.partition(":")
-    if not colon or source not in ("file", "json"):
-        raise ProblemError(f"{usage}, got {read!r}")
-    if source == "file" and not rest.strip():
-        raise ProblemError(f"read {read!r}: the file name is missing")
-    if source == "json" and (not rest or any(part == "" for part in rest.split("."))):
-        raise ProblemError(f"read {read!r}: the key must be a dotted path like 'fit.misfit'")
-    return source, rest
 
 
 def _check_seconds(key: str, value, *, allow_none: bool = False, allow_zero: bool = False):
@@ -438,51 +509,6 @@ def _stamp(path: Path) -> tuple[int, ...] | None:
     except OSError:
         return None
     return (s.st_ino, s.st_size, s.st_mtime_ns, s.st_ctime_ns)
-
-
-def _last_number(text: str, where: str) -> float | str:
-    """The last number in ``text``, or a description of why there is none."""
-    last = None
-    for match in _NUMBER.finditer(text):
-        last = match
-    if last is None:
-        return f"no number in {where}; it ends with {text[-200:]!r}"
-    value = float(last.group())
-    if not math.isfinite(value):
-        return f"the last number in {where} is {last.group()!r}, not a finite value"
-    return value
-
-
-def _json_number(text: str, key: str) -> float | str:
-    """The number at dotted ``key`` of the JSON document on stdout, or why there is none."""
-    try:
-        document = json.loads(text)
-    except ValueError:
-        lines = text.strip().splitlines()
-        try:
-            document = json.loads(lines[-1]) if lines else None
-        except ValueError:
-            document = None
-        if document is None:
-            return f"standard output is not a JSON document; it ends with {text[-200:]!r}"
-    node, path = document, []
-    for part in key.split("."):
-        path.append(part)
-        if isinstance(node, dict) and part in node:
-            node = node[part]
-        elif isinstance(node, list) and part.isdigit() and int(part) < len(node):
-            node = node[int(part)]
-        else:
-            if isinstance(node, dict):
-                there = "keys: " + ", ".join(map(str, node))
-            else:
-                there = type(node).__name__
-            return f"JSON output has no {'.'.join(path)!r} ({there})"
-    if isinstance(node, bool) or not isinstance(node, int | float):
-        return f"JSON {key!r} is {node!r}, not a number"
-    if not math.isfinite(node):
-        return f"JSON {key!r} is {node!r}, not a finite value"
-    return float(node)
 
 
 def _detail(outcome: Outcome, problem: str) -> str:

@@ -22,9 +22,21 @@ The schema (every table but ``[[parameter]]`` and ``[objective]`` is optional)::
     function = "model:residuals"  # module beside this file (or importable) : callable(x)
     # command = ["python3", "sim.py", "--rate={mu_max}"]   # or a program, no shell
     # timeout = 600               # seconds a run may take (command only)
-    # read = "stdout"             # or "file:NAME" or "json:KEY" (command only)
+    # read = "stdout"             # or "label:NAME", "file:PATH", "json:KEY", "csv:PATH:COLUMN"
     # workdir = "runs"            # folder the program runs in, default this file's folder
-    kind = "residuals"            # or "value" (the default)
+    # version = "solver 4.2, tables 2024-03"   # what no hash can see (see below)
+    # templates = ["deck.in"]     # input files with {name} placeholders, rendered per evaluation
+    # files = ["sim.py"]          # files copied into the folder of each evaluation
+    # fresh_folder = true         # each run in a new folder under workdir (default with
+    #                             # templates or files; workdir then defaults to "evaluations")
+    # keep_folders = false        # keep the folders of successful runs too (failed: always kept)
+    kind = "residuals"            # or "value" (the default; "residuals" with a [data] table)
+
+    [data]                        # optional: measurements; the objective returns predictions
+    file = "readings.csv"         # CSV, header row; relative to this file
+    observed = ["T_mid"]          # column(s) of observed values (several series: several names)
+    sigma = 0.3                   # optional: one number, or one column name per series
+    variables = ["time"]          # optional: independent variable column(s), for the plots
 
     [search]
     budget = 400                  # evaluations
@@ -37,8 +49,13 @@ The schema (every table but ``[[parameter]]`` and ``[objective]`` is optional)::
     workers = 1                   # processes for many starts
     seed = 0                      # of the start design
 
-    [journal]
+    [journal]                     # default: NAME.journal.sqlite beside this file NAME.toml
     path = "runs/culture.sqlite"  # relative to this file
+
+The objective's *fingerprint* is stored in the journal (`Problem.fingerprint`): for a function,
+its module, name and source; for a program, the command, ``read``, ``workdir`` and a hash of every
+existing file the command names.  ``version`` adds what no hash can see (a compiled solver's data
+files, a licence server's model library): change it when the model changes.
 
     [report]
     fit = "model:fit"             # optional: model against data, for the calibration plots
@@ -46,6 +63,7 @@ The schema (every table but ``[[parameter]]`` and ``[objective]`` is optional)::
 
 from __future__ import annotations
 
+import dataclasses
 import importlib
 import importlib.util
 import math
@@ -66,9 +84,13 @@ from directional.parameters import Parameter
 
 KINDS = ("value", "residuals")
 
-_TOP = ("title", "parameter", "objective", "search", "journal", "report")
+_TOP = ("title", "parameter", "objective", "data", "search", "journal", "report")
 _PARAMETER = ("name", "start", "lower", "upper", "scale", "unit")
-_OBJECTIVE = ("function", "command", "kind", "timeout", "read", "workdir")
+_OBJECTIVE = ("function", "command", "kind", "timeout", "read", "workdir", "templates", "files",
+              "fresh_folder", "keep_folders", "version")
+_DATA = ("file", "observed", "sigma", "variables")
+FRESH_PARENT = "evaluations"  # default parent of the per-evaluation folders, beside the file
+JOURNAL_SUFFIX = ".journal.sqlite"  # the default journal: NAME.journal.sqlite beside NAME.toml
 _SEARCH = (
     "budget",
     "point_tolerance",
@@ -84,6 +106,7 @@ _JOURNAL = ("path",)
 _REPORT = ("fit",)
 _TABLES = {
     "objective": _OBJECTIVE,
+    "data": _DATA,
     "search": _SEARCH,
     "journal": _JOURNAL,
     "report": _REPORT,
@@ -161,6 +184,21 @@ class ObjectiveSpec:
     timeout: float | None = None
     read: str = "stdout"
     workdir: Path | None = None
+    version: str | None = None
+    templates: tuple[Path, ...] = ()
+    files: tuple[Path, ...] = ()
+    fresh_folder: bool = False
+    keep_folders: bool = False
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class DataSpec:
+    """The ``[data]`` table: the CSV file and its columns (see `directional.interface.datatable`)."""
+
+    file: Path
+    observed: tuple[str, ...]
+    sigma: tuple[str, ...] | float | None = None
+    variables: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -207,8 +245,10 @@ class Problem:
     search: SearchSpec = field(default_factory=SearchSpec)
     journal: Path | None = None
     fit: str | None = None
+    data: DataSpec | None = None
     source: Path | None = None
     lines: Mapping[str, int] = field(default_factory=dict, repr=False, compare=False)
+    journal_default: bool = False  # the journal is the default one, not named by [journal]
 
     @classmethod
     def from_file(cls, path: str | Path) -> Problem:
@@ -259,9 +299,12 @@ class Problem:
     def make_objective(self) -> Callable[[np.ndarray], Any]:
         """Build the objective: a callable of one float array, in the order of the parameters.
 
-        For ``kind = "residuals"`` it returns the residual vector.  A Python function is loaded
-        on its first call (so the callable pickles for worker processes); a program becomes a
-        `directional.interface.command.Command` that runs in ``workdir``.
+        For ``kind = "residuals"`` it returns the residual vector; with a ``[data]`` table the
+        function or program returns predictions, and the callable returns the weighted residuals
+        ``(predicted - observed) / sigma`` (`directional.interface.datatable.TableResiduals`).
+        A Python function is loaded on its first call (so the callable pickles for worker
+        processes); a program becomes a `directional.interface.command.Command` that runs in
+        ``workdir`` (or in a fresh folder under it for each evaluation).
 
         Raises
         ------
@@ -276,8 +319,79 @@ class Problem:
                 function.load()
             except ProblemError as error:
                 raise ProblemError(f"{self.where('objective.function')}: {error}") from None
-            return function
-        return self._command()
+            objective: Callable[[np.ndarray], Any] = function
+        else:
+            objective = self._command()
+        from directional.interface.datatable import SteadyLength, TableResiduals
+
+        if self.data is not None:
+            return TableResiduals(objective, self.table())
+        if spec.kind == "residuals" and spec.command is not None:
+            return SteadyLength(objective)
+        return objective
+
+    def table(self) -> Any:
+        """The ``[data]`` table read and checked (a `datatable.DataTable`), or None.
+
+        Raises
+        ------
+        ProblemError
+            When the file or a column is bad; the message names the key and its line.
+        """
+        if self.data is None:
+            return None
+        from directional.interface.datatable import read_table
+
+        data = self.data
+        try:
+            return read_table(data.file, data.observed, data.sigma, data.variables)
+        except ProblemError as error:
+            raise ProblemError(f"{self.where('data.file')}: {error}") from None
+
+    def fingerprint(self) -> dict[str, Any]:
+        """What identifies the objective, for the journal (`directional.run.identity`).
+
+        For a program, the contents of its ``templates`` and ``files`` are hashed too (under
+        ``inputs``, by their path relative to this file); with a ``[data]`` table, the data file's
+        contents (under ``data``), since the residuals depend on it.
+
+        Raises
+        ------
+        ProblemError
+            When a function cannot be loaded.
+        """
+        from directional.run.identity import (
+            content_sha256,
+            function_fingerprint,
+            program_fingerprint,
+        )
+
+        spec = self.objective
+        if spec.function is not None:
+            function = FunctionObjective(spec.function, self.folder)
+            try:
+                found = function_fingerprint(function.load())
+            except ProblemError as error:
+                raise ProblemError(f"{self.where('objective.function')}: {error}") from None
+            if spec.version is not None:
+                found["version"] = spec.version
+        else:
+            default = self.folder / FRESH_PARENT if spec.fresh_folder else self.folder
+            workdir = spec.workdir if spec.workdir is not None else default  # as `_command`
+            inputs = {self._shown(path): path for path in (*spec.templates, *spec.files)}
+            found = program_fingerprint(
+                list(spec.command or ()), spec.read, workdir, spec.version, inputs=inputs
+            )
+        if self.data is not None:
+            found["data"] = {self._shown(self.data.file): content_sha256(self.data.file)}
+        return found
+
+    def _shown(self, path: Path) -> str:
+        """``path`` relative to this file's folder when it is inside it, else as it is."""
+        try:
+            return Path(path).relative_to(self.folder.absolute()).as_posix()
+        except ValueError:
+            return str(path)
 
     def make_fit(self) -> Callable[[np.ndarray], Any] | None:
         """The ``[report] fit`` function (model against data, for plots), or None.
@@ -288,7 +402,9 @@ class Problem:
             When it cannot be found; the message names the key and its line.
         """
         if self.fit is None:
-            return None
+            if self.data is None:
+                return None
+            return self.make_objective().series  # type: ignore[attr-defined]
         function = FunctionObjective(self.fit, self.folder)
         try:
             function.load()
@@ -301,12 +417,18 @@ class Problem:
 
         spec = self.objective
         try:
+            default = self.folder / FRESH_PARENT if spec.fresh_folder else self.folder
             return Command(
                 list(spec.command or ()),
                 list(self.names),
                 timeout=spec.timeout,
                 read=spec.read,
-                workdir=spec.workdir if spec.workdir is not None else self.folder,
+                vector=spec.kind == "residuals",
+                templates=spec.templates,
+                files=spec.files,
+                per_evaluation_dir=spec.fresh_folder,
+                keep=spec.keep_folders,
+                workdir=spec.workdir if spec.workdir is not None else default,
             )
         except ProblemError as error:
             raise ProblemError(f"{self.where('objective.command')}: objective.command: {error}") from None
@@ -342,6 +464,12 @@ class FunctionObjective:
 
     def __call__(self, x: np.ndarray) -> Any:
         return self.load()(x)
+
+    def fingerprint(self) -> dict[str, Any]:
+        """The loaded function's fingerprint (`directional.run.identity.function_fingerprint`)."""
+        from directional.run.identity import function_fingerprint
+
+        return function_fingerprint(self.load())
 
     def load(self) -> Callable[..., Any]:
         """Import the module and return the function.
@@ -432,7 +560,8 @@ class _Reader:
         self._known(data, _TOP, (), "the top level")
         title = self._get(data, ("title",), str, "")
         parameters = self._parameters()
-        objective = self._objective(parameters)
+        data = self._data()
+        objective = self._objective(parameters, data is not None)
         search = self._search()
         if search.budget is not None and search.budget < len(parameters) + 1:
             raise self.fail(
@@ -446,15 +575,22 @@ class _Reader:
         fit = self._get(report, ("report", "fit"), str, None)
         if fit is not None and not _REFERENCE.match(fit):
             raise self.fail(("report", "fit"), f"report.fit must be 'module:function', got {fit!r}")
-        for key in ("title", "journal.path", "report.fit", *(f"objective.{k}" for k in _OBJECTIVE)):
+        keys = ("title", "journal.path", "report.fit", *(f"objective.{k}" for k in _OBJECTIVE),
+                *(f"data.{k}" for k in _DATA))
+        for key in keys:
             self.lines[key] = self.keys.line(*key.split("."))
+        default = path is None and self.source is not None
+        if default:
+            path = self.source.name.removesuffix(self.source.suffix) + JOURNAL_SUFFIX
         return Problem(
             title=title,
             parameters=parameters,
             objective=objective,
             search=search,
+            journal_default=default,
             journal=None if path is None else (self.folder / path).absolute(),
             fit=fit,
+            data=data,
             source=self.source,
             lines=MappingProxyType(dict(self.lines)),
         )
@@ -518,60 +654,135 @@ class _Reader:
                 raise self.fail((*where, key) if key else where, str(error)) from None
         return tuple(parameters)
 
-    def _objective(self, parameters: tuple[Parameter, ...]) -> ObjectiveSpec:
+    def _data(self) -> DataSpec | None:
+        if "data" not in self.data:
+            return None
+        table = self._table("data")
+        at = ("data",)
+        file = self._get(table, (*at, "file"), str, _REQUIRED)
+        observed = self._names(table, (*at, "observed"), _REQUIRED)
+        sigma = self._get(table, (*at, "sigma"), (float, str, list), None)
+        if isinstance(sigma, str | list):
+            sigma = self._names(table, (*at, "sigma"), None)
+        elif sigma is not None and not (0.0 < sigma < math.inf):
+            raise self.fail((*at, "sigma"), f"data.sigma must be a positive number, got {sigma!r}")
+        variables = self._names(table, (*at, "variables"), ())
+        path = (self.folder / file).absolute()
+        if not path.is_file():
+            raise self.fail((*at, "file"), f"data.file: no such file {str(path)!r}")
+        spec = DataSpec(file=path, observed=observed, sigma=sigma, variables=variables)
+        from directional.interface.datatable import read_table
+
+        try:
+            read_table(spec.file, spec.observed, spec.sigma, spec.variables)
+        except ProblemError as error:
+            raise self.fail((*at, "file"), str(error)) from None
+        return spec
+
+    def _names(self, table: Mapping[str, Any], path: tuple, default: Any) -> Any:
+        """A column name or a list of them, as a tuple."""
+        value = self._get(table, path, (str, list), default)
+        if value is default:
+            return default
+        names = (value,) if isinstance(value, str) else tuple(value)
+        if not names or not all(isinstance(n, str) and n for n in names):
+            raise self.fail(path, f"{'.'.join(path)} must be a column name or a list of them, "
+                            f"got {value!r}")
+        return names
+
+    def _objective(self, parameters: tuple[Parameter, ...], data: bool = False) -> ObjectiveSpec:
         if "objective" not in self.data:
             raise self.fail((), "missing [objective]: give function = \"module:function\" or command")
         table = self._table("objective")
         at = ("objective",)
         function = self._get(table, (*at, "function"), str, None)
         command = self._get(table, (*at, "command"), list, None)
-        kind = self._get(table, (*at, "kind"), str, "value")
+        kind = self._get(table, (*at, "kind"), str, "residuals" if data else "value")
         timeout = self._get(table, (*at, "timeout"), float, None)
         read = self._get(table, (*at, "read"), str, "stdout")
         workdir = self._get(table, (*at, "workdir"), str, None)
+        version = self._get(table, (*at, "version"), str, None)
         if (function is None) == (command is None):
             raise self.fail(at, "[objective] needs exactly one of 'function' and 'command'")
         if kind not in KINDS:
             raise self.fail((*at, "kind"), f"objective.kind must be 'value' or 'residuals', got {kind!r}")
+        if data and kind != "residuals":
+            raise self.fail((*at, "kind"), "a [data] table needs objective.kind = \"residuals\": "
+                            "the objective returns predictions, one per measurement")
         if function is not None:
             if not _REFERENCE.match(function):
                 raise self.fail(
                     (*at, "function"),
                     f"objective.function must be 'module:function', got {function!r}",
                 )
-            for key in ("timeout", "read", "workdir"):
+            for key in ("timeout", "read", "workdir", "templates", "files", "fresh_folder",
+                        "keep_folders"):
                 if key in table:
                     raise self.fail((*at, key), f"objective.{key} applies to a command only")
-            return ObjectiveSpec(function=function, kind=kind)
-        return self._command(table, command, kind, timeout, read, workdir, parameters)
+            return ObjectiveSpec(function=function, kind=kind, version=version)
+        spec = self._command(table, command, kind, timeout, read, workdir, parameters)
+        return dataclasses.replace(spec, version=version)
 
     def _command(self, table, command, kind, timeout, read, workdir, parameters) -> ObjectiveSpec:
         at = ("objective", "command")
         if not command or not all(isinstance(a, str) for a in command):
             raise self.fail(at, f"objective.command must be a non-empty list of strings, got {command!r}")
-        if kind == "residuals":
-            raise self.fail(
-                ("objective", "kind"),
-                "objective.kind = 'residuals' needs a Python function; a command returns one value",
-            )
+        decks = self._paths(table, "templates")
+        files = self._paths(table, "files")
+        fresh = self._get(table, ("objective", "fresh_folder"), bool, bool(decks or files))
+        keep = self._get(table, ("objective", "keep_folders"), bool, False)
+        if (decks or files) and not fresh:
+            raise self.fail(("objective", "fresh_folder"), "templates and files are put in a "
+                            "fresh folder for each evaluation: fresh_folder cannot be false")
+        if keep and not fresh:
+            raise self.fail(("objective", "keep_folders"), "keep_folders needs fresh_folder = true")
         if timeout is not None and not (timeout > 0):
             raise self.fail(
                 ("objective", "timeout"), f"objective.timeout must be > 0 seconds, got {timeout!r}"
             )
         names = [p.name for p in parameters]
-        _check_placeholders(command, names, lambda message: self.fail(at, message))
-        if not re.fullmatch(r"stdout|file:.+|json:[^.]+(\.[^.]+)*", read):
-            raise self.fail(
-                ("objective", "read"),
-                f"objective.read must be 'stdout', 'file:NAME' or 'json:KEY', got {read!r}",
-            )
+        used = _check_placeholders(command, names, lambda message: self.fail(at, message))
+        from directional.interface import reading
+        from directional.interface.templates import Template
+
+        for path in decks:
+            try:
+                used |= Template.read(path, names).used
+            except ProblemError as error:
+                raise self.fail(("objective", "templates"), str(error)) from None
+        for name in names:
+            if name not in used:
+                raise self.fail(at, f"parameter {name!r} appears in no placeholder of "
+                                "objective.command" + (" or a template" if decks else ""))
+        try:
+            reading.parse(read, vector=kind == "residuals")
+        except ProblemError as error:
+            raise self.fail(("objective", "read"), f"objective.{error}") from None
         return ObjectiveSpec(
             command=tuple(command),
             kind=kind,
             timeout=None if timeout is None or math.isinf(timeout) else timeout,
             read=read,
             workdir=None if workdir is None else (self.folder / workdir).absolute(),
+            templates=decks,
+            files=files,
+            fresh_folder=fresh,
+            keep_folders=keep,
         )
+
+    def _paths(self, table: Mapping[str, Any], key: str) -> tuple[Path, ...]:
+        """``objective.templates`` or ``objective.files``: existing paths beside this file."""
+        at = ("objective", key)
+        entries = self._get(table, at, list, [])
+        paths = []
+        for entry in entries:
+            if not isinstance(entry, str) or not entry:
+                raise self.fail(at, f"objective.{key} must be a list of file paths, got {entries!r}")
+            path = (self.folder / entry).absolute()
+            if not path.exists():
+                raise self.fail(at, f"objective.{key}: no such file {str(path)!r}")
+            paths.append(path)
+        return tuple(paths)
 
     def _search(self) -> SearchSpec:
         table = self._table("search")
@@ -641,8 +852,8 @@ def _blamed_key(message: str) -> str | None:
 
 def _check_placeholders(
     command: list[str], names: list[str], fail: Callable[[str], ProblemError]
-) -> None:
-    """Every ``{name}`` names a parameter, the program has none, every parameter is used."""
+) -> set[str]:
+    """Every ``{name}`` names a parameter and the program has none; the names used."""
     import string
 
     used: set[str] = set()
@@ -660,6 +871,4 @@ def _check_placeholders(
             if i == 0:
                 raise fail(f"objective.command[0] {arg!r}: the program cannot hold a placeholder")
             used.add(name)
-    for name in names:
-        if name not in used:
-            raise fail(f"parameter {name!r} appears in no placeholder of objective.command")
+    return used

@@ -39,6 +39,8 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
+from directional.run.interrupts import deferred
+
 _CHUNK = 1 << 16  # bytes per read
 _POLL = 0.01  # s between checks for the program's end when no pidfd announces it
 _LINGER = 0.5  # s the pipes may stay open after the program ended before the group is stopped
@@ -228,18 +230,20 @@ def run_program(
     """
     start = time.monotonic()
     deadline = math.inf if timeout is None else start + timeout
-    process = subprocess.Popen(
-        list(argv),
-        cwd=cwd,
-        env=None if env is None else dict(env),
-        stdin=subprocess.DEVNULL,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        start_new_session=True,
-    )
-    watch = _Watch(process, max_output)
+    process = watch = None
     terminated = killed = False
     try:
+        with deferred():  # a Ctrl-C or SIGTERM waits until the program is held (then raised)
+            process = subprocess.Popen(
+                list(argv),
+                cwd=cwd,
+                env=None if env is None else dict(env),
+                stdin=subprocess.DEVNULL,
+                stdout=subprocess.PIPE,
+                stderr=subprocess.PIPE,
+                start_new_session=True,
+            )
+            watch = _Watch(process, max_output)
         how = watch.wait(deadline)
         if how != "ended":
             terminated = True
@@ -251,10 +255,11 @@ def run_program(
             watch.step(drain_until)
         returncode = process.wait()
     finally:
-        if process.returncode is None:  # interrupted (KeyboardInterrupt...): leave nothing behind
+        if process is not None and process.returncode is None:  # interrupted: leave nothing
             _signal_group(process.pid, signal.SIGKILL)
             process.wait()
-        watch.close()
+        if watch is not None:
+            watch.close()
     return Outcome(
         returncode=returncode,
         stdout=watch.out.text(),

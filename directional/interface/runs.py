@@ -12,11 +12,11 @@ journal ends, which gives the solution as the run had it at that moment.
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import contextlib
 import dataclasses
 import io
 import os
-import sqlite3
 import tempfile
 from collections.abc import Callable
 from pathlib import Path
@@ -27,14 +27,17 @@ import numpy as np
 from directional.api.explore import explore
 from directional.api.resume import ENTRY_POINTS
 from directional.api.resume import resume as resumed
-from directional.errors import ObjectiveError, ProblemError
+from directional.errors import JournalError, ObjectiveError, ProblemError
 from directional.interface.problemfile import Problem
 from directional.records import Stop, Verdict
 from directional.run import journal as journals
+from directional.run.identity import canonical, describe_place, difference
+from directional.run.lockfile import holder
 from directional.run.progress import Progress
 from directional.solution import Solution
 
 PROBLEM_KEY = "problem"  # header note: the absolute path of the problem file
+WORKERS_KEY = "workers"  # header note: the processes of a many-start run, used again on resume
 
 
 def run_kind(problem: Problem) -> str:
@@ -82,6 +85,8 @@ def solve(
     """Run ``problem``; return its `Solution`, or the `Landscape` of a many-start run.
 
     ``executor`` (a many-start run only) evaluates the starts' points, e.g. on a Dask cluster.
+    One search with ``search.workers`` above 1 evaluates the points of each batch in parallel
+    (`batch_executor`); its journal is the same as a serial run's, in the same order.
 
     ``journal=True`` uses the problem's own journal path (if any), a path overrides it, None or
     False keeps none.  ``budget`` overrides the problem's.  The progress bar goes to standard
@@ -106,7 +111,12 @@ def solve(
     if spec.noise is not None:
         options["noise"] = spec.noise
     if path is not None:
-        options["journal"] = journals.Target(path, {PROBLEM_KEY: str(problem.source or "")})
+        options["journal"] = journals.Target(
+            path,
+            {PROBLEM_KEY: str(problem.source or ""), WORKERS_KEY: spec.workers},
+            objective=problem.fingerprint(),
+            refresh=problem.fingerprint,
+        )
     many = problem.search.starts > 1
     if many:
         options.update(starts=spec.starts, seed=spec.seed, budget=budget)
@@ -121,7 +131,51 @@ def solve(
         with Progress(budget=None, enabled=False if quiet else None) as bar:
             return exploration(objective, list(problem.parameters), observers=(bar,), **options)
     options["budget"] = budget
-    return run(objective, list(problem.parameters), progress=not quiet, **options)
+    executor = batch_executor(problem, spec.workers)
+    if executor is not None:
+        options["executor"] = executor
+    try:
+        return run(objective, list(problem.parameters), progress=not quiet, **options)
+    finally:
+        if executor is not None:
+            executor.shutdown(wait=True, cancel_futures=True)
+
+
+def batch_executor(problem: Problem, workers: int) -> Any:
+    """The executor that evaluates one search's batches on ``workers``, or None for one.
+
+    A program runs on threads of this process (each evaluation is a process of its own, so
+    they run in parallel; a residual vector comes back in memory); a Python function of kind
+    ``"value"`` on a process pool, one of kind ``"residuals"`` on threads (faster only where it
+    releases the GIL: numpy, a wrapped compiled model).  Results are delivered in submission
+    order (`directional.run.ordered.InOrder`), so the journal is that of a serial run.
+
+    Raises
+    ------
+    ProblemError
+        For a program that reads its answer from a file in one shared folder: parallel runs
+        would overwrite each other's file (use ``fresh_folder = true``).
+    """
+    if workers <= 1:
+        return None
+    from directional.interface.reading import parse
+    from directional.run.ordered import InOrder
+
+    spec = problem.objective
+    if spec.command is not None:
+        if not spec.fresh_folder and parse(spec.read, vector=spec.kind == "residuals").file:
+            raise ProblemError(
+                f"{problem.where('objective.read')}: with {workers} workers the runs would share "
+                f"one folder and overwrite each other's {spec.read!r}: set fresh_folder = true"
+            )
+        inner: cf.Executor = cf.ThreadPoolExecutor(workers, thread_name_prefix="directional")
+    elif spec.kind == "residuals":
+        inner = cf.ThreadPoolExecutor(workers, thread_name_prefix="directional")
+    else:
+        from directional.run.workers import process_pool
+
+        inner = process_pool(workers)  # the workers end with this process (`run.workers`)
+    return InOrder(inner, workers=workers)
 
 
 def problem_of_journal(path: str | os.PathLike[str], problem_file: str | Path | None = None) -> Problem:
@@ -152,27 +206,79 @@ def resume(
     *,
     budget: int | None = None,
     quiet: bool = False,
-) -> Solution:
+    retry_failed: bool = False,
+) -> Any:
     """Continue the run in the journal at ``path`` with ``problem``'s objective.
+
+    The problem must be the one the journal was written for (`check_problem`), and its objective
+    the same or one that reproduces the stored values (`journal.Journal.open`); a refused resume
+    leaves the journal as it was.  ``retry_failed`` evaluates the stored failures again.
 
     Raises
     ------
     JournalError
-        When the journal is not one, is damaged, in use, or the run asks for other points.
+        When the journal is not one, is damaged, in use, belongs to another problem, or the run
+        asks for other points.
     ProblemError, ObjectiveError
         As the library function that runs the problem.
     """
-    header = journals.read(path).header
+    contents = journals.read(path)
+    header = contents.header
+    check_problem(path, problem, header)
     objective = problem.make_objective()
+    options: dict[str, Any] = {"fingerprint": problem.fingerprint(), "retry_failed": retry_failed}
     if header.kind != "explore":
-        return resumed(path, objective, budget=budget, progress=not quiet)
+        return resumed(path, objective, budget=budget, progress=not quiet, **options)
+    workers = header.info.get(WORKERS_KEY, 1)
+    if isinstance(workers, int) and workers > 1:
+        return resumed(path, objective, budget=budget, workers=workers, **options)
     from directional.api.explore import exploration  # as `api.resume.resume` would, with a bar
 
     arguments = dict(header.identity.get("arguments", {}))
+    target = journals.Target(
+        path, dict(header.info), objective=problem.fingerprint(), retry=bool(retry_failed),
+        refresh=problem.fingerprint,
+    )
     with Progress(budget=None, enabled=False if quiet else None) as bar:
         return exploration(
-            objective, header.parameters, journal=path,
+            objective, header.parameters, journal=target,
             budget=header.budget if budget is None else budget, observers=(bar,), **arguments,
+        )
+
+
+_KINDS = {"minimize": "value", "explore": "value", "calibrate": "residuals"}
+
+
+def check_problem(path: str | os.PathLike[str], problem: Problem, header: journals.Header) -> None:
+    """Refuse a problem other than the one the journal at ``path`` was written for.
+
+    The parameters (names, starts, bounds, scales, units), the kind of objective and the search
+    settings the problem file sets must agree with the journal's; the number of starts may
+    differ (``run --starts`` overrides the file, the journal keeps what was run).
+
+    Raises
+    ------
+    JournalError
+        Naming the first difference, before anything is evaluated or written.
+    """
+    where = problem.source or "the problem"
+    mine = journals.run_identity("", problem.parameters)["parameters"]
+    found = difference(header.identity.get("parameters", []), mine, "parameters")
+    if found is None and _KINDS.get(header.kind, problem.objective.kind) != problem.objective.kind:
+        found = ("objective.kind", _KINDS[header.kind], problem.objective.kind)
+    spec = problem.search
+    arguments = header.identity.get("arguments", {})
+    for key, value in (("point_tolerance", spec.point_tolerance),
+                       ("value_tolerance", spec.value_tolerance), ("check", spec.check),
+                       ("noise", spec.noise), ("seed", spec.seed)):
+        if found is None and key in arguments and canonical(arguments[key]) != canonical(value):
+            found = (f"search.{key}", arguments[key], value)
+    if found is not None:
+        place, old, new = found
+        raise JournalError(
+            f"journal {str(path)!r} was not written for {str(where)!r}: "
+            f"{describe_place(place, header.identity)} is {old!r} in the journal but {new!r} in "
+            "the problem file; give the problem file the journal was written for (--problem FILE)"
         )
 
 
@@ -188,30 +294,48 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
         When the journal cannot be read or does not replay.
     """
     contents = journals.read(path)
-    stored = sum(1 for e in contents.evaluations if e.status != journals.INTERRUPTED)
+    stored = len(contents.stored)
     if stored == 0:
         raise ObjectiveError(f"journal {str(path)!r} holds no evaluation yet")
     with tempfile.TemporaryDirectory(prefix="directional-show-") as folder:
         copy = Path(folder) / "journal.sqlite"
-        _copy_database(Path(path), copy)
+        journals.snapshot(Path(path), copy)
+        target = journals.Target(copy, verify=False)
         with contextlib.redirect_stderr(io.StringIO()):
             if contents.header.kind == "explore":
                 arguments = dict(contents.header.identity.get("arguments", {}))
-                result = explore(_refuse, contents.header.parameters, journal=copy,
+                result = explore(_refuse, contents.header.parameters, journal=target,
                                  budget=contents.header.budget, total_budget=stored, **arguments)
             else:
+                # A calibration's search leaves part of its budget to Levenberg-Marquardt, so it
+                # replays under the budget it ran with, from the residual vectors its journal
+                # keeps; other runs replay up to their last stored evaluation.
+                calibration = contents.header.kind == "calibrate"
+                budget = contents.header.budget if calibration and contents.header.budget else stored
                 try:
-                    result = resumed(copy, _refuse, budget=stored)
-                except _Refused:
+                    result = resumed(target, _refuse, budget=max(budget, stored))
+                except _Refused:  # the run ended early, or its journal keeps no vectors
                     result = _as_stored(contents)
     if isinstance(result, Solution):
-        result = _ended(result, contents)
+        result = _ended(result, contents, holder(Path(path)), stored)
     return result, contents
 
 
-def _ended(sol: Solution, contents: journals.Contents) -> Solution:
-    """A replay stopped by its budget where the run itself did not: say where the journal ends."""
+def _ended(
+    sol: Solution, contents: journals.Contents, running: int | None = None, stored: int = 0
+) -> Solution:
+    """A replay stopped by its budget where the run itself did not: say where the journal ends.
+
+    ``running`` is the process id of a run still writing the journal (`lockfile.holder`).
+    """
     last = contents.sessions[-1] if contents.sessions else {}
+    if running is not None:
+        return dataclasses.replace(
+            sol,
+            stop=Stop.INTERRUPTED,
+            reason=f"running, {stored} evaluations so far (process {running}); this is where the "
+            "run stands now",
+        )
     if sol.stop is Stop.BUDGET and last.get("stop") != "budget":
         how = last.get("stop") or "still running, or killed"
         sol = dataclasses.replace(
@@ -262,9 +386,3 @@ def _as_stored(contents: journals.Contents) -> Solution:
     )
 
 
-def _copy_database(source: Path, target: Path) -> None:
-    uri = source.resolve().as_uri() + "?mode=ro"
-    with contextlib.closing(sqlite3.connect(uri, uri=True)) as src, contextlib.closing(
-        sqlite3.connect(target)
-    ) as dst:
-        src.backup(dst)

@@ -6,7 +6,9 @@
 - ``profiles.png``: the objective along each parameter through the minimum, with the parabola of
   the Hessian's diagonal drawn over it.
 - ``fit.png`` and ``residuals.png``: for a calibration, the model against the data and the
-  residuals at the minimum.
+  residuals at the minimum, model minus data (divided by sigma where known), the sign of the
+  residual vector the calibration minimizes.  With a problem file's ``[data]`` table the series
+  come from the table and one report-only run of the objective at the minimum.
 
 Maps and profiles need values the search never computed.  They are *report-only evaluations*:
 made here by calling the objective directly, at most ``extra`` of them, never journaled and never

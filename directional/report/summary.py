@@ -3,13 +3,19 @@
 The JSON keeps every number at full precision (Python's shortest repr of a double) and uses the
 parameter names as keys; an infinite bound or a value that is not finite is written as ``null``,
 since JSON has no infinity.  Plots are in `directional.report.plots`.
+
+Failed evaluations are grouped by their reason (the first line of the error text, with the
+status), most frequent first, each with its count and the first point that failed that way: the
+summary shows the table, the JSON lists it under ``failures``.  Every evaluation, one row each, is
+exported by `directional.report.evaluations`.
 """
 
 from __future__ import annotations
 
 import json
 import math
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -21,10 +27,73 @@ from directional.solution import CAUTION, Solution
 FORMAT = "directional-solution/1"
 
 
-def summary_text(sol: Solution, title: str = "") -> str:
-    """The summary table of ``sol`` (`Solution.summary`, with the uncertainty table of a
-    calibration), under ``title`` when there is one."""
+FAILURE_GROUPS = 10  # reasons shown in the summary; the JSON lists them all
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class FailureGroup:
+    """Failed evaluations that share a reason: how many, and the first point that failed so."""
+
+    status: str
+    reason: str
+    count: int
+    example: tuple[float, ...]
+
+
+def failure_groups(history: Iterable[Any]) -> list[FailureGroup]:
+    """The failed evaluations of ``history`` grouped by status and reason, most frequent first."""
+    counts: dict[tuple[str, str], int] = {}
+    examples: dict[tuple[str, str], tuple[float, ...]] = {}
+    for evaluation in history:
+        if evaluation.status == "ok":
+            continue
+        key = (evaluation.status, _reason(evaluation.detail) or evaluation.status)
+        counts[key] = counts.get(key, 0) + 1
+        examples.setdefault(key, tuple(float(v) for v in np.asarray(evaluation.point).ravel()))
+    order = sorted(counts, key=lambda key: -counts[key])  # stable: first seen first among equals
+    return [
+        FailureGroup(status=key[0], reason=key[1], count=counts[key], example=examples[key])
+        for key in order
+    ]
+
+
+def _reason(detail: str) -> str:
+    """The first non-empty line of an error text, at most 200 characters."""
+    line = next((line.strip() for line in str(detail).splitlines() if line.strip()), "")
+    return line if len(line) <= 200 else line[:197] + "..."
+
+
+def failure_lines(history: Iterable[Any], names: Sequence[str]) -> list[str]:
+    """The failure table: count, status and reason, and an example point by name."""
+    groups = failure_groups(history)
+    if not groups:
+        return []
+    total = sum(g.count for g in groups)
+    lines = ["", f"  failures ({total}), by reason:"]
+    for group in groups[:FAILURE_GROUPS]:
+        point = ", ".join(f"{n}={v:.6g}" for n, v in zip(names, group.example))
+        lines.append(f"  {group.count:>6}  {group.status}: {group.reason}")
+        lines.append(f"          e.g. at {point}")
+    if len(groups) > FAILURE_GROUPS:
+        rest = sum(g.count for g in groups[FAILURE_GROUPS:])
+        lines.append(f"  {rest:>6}  in {len(groups) - FAILURE_GROUPS} other groups (see the JSON)")
+    return lines
+
+
+def summary_text(sol: Solution, title: str = "", *, failures: bool = True) -> str:
+    """The summary table of ``sol``, under ``title`` when there is one.
+
+    `Solution.summary` (with the uncertainty table of a calibration); with ``failures``, the
+    failed evaluations grouped by reason (`failure_lines`).  A solution replayed
+    from the journal of a run still going says "running" (its reason says so).
+    """
     text = sol.summary()
+    if sol.reason.startswith("running,"):
+        text = text.replace("stopped: interrupted", "running: so far", 1)
+    if failures and sol.failures:  # the failure table goes above the caution, which ends it
+        table = "\n".join(["", *failure_lines(sol.history, sol.names)])
+        body = text.removesuffix(CAUTION)
+        text = body.rstrip() + table + (f"\n\n{CAUTION}" if body != text else "")
     if title:
         text = f"{title}\n{'=' * len(title)}\n{text}"
     return text
@@ -70,9 +139,23 @@ def solution_document(
         "uncertainty": _uncertainty(sol),
         "directions": _matrix(sol.directions),
         "notes": list(sol.notes),
+        "failures": failures_document(sol.history, names),
         "caution": CAUTION,
     }
     return document
+
+
+def failures_document(history: Iterable[Any], names: Sequence[str]) -> list[dict[str, Any]]:
+    """The failure groups, JSON-ready: status, reason, count and an example point by name."""
+    return [
+        {
+            "status": g.status,
+            "reason": g.reason,
+            "count": g.count,
+            "example": {n: _number(v) for n, v in zip(names, g.example)},
+        }
+        for g in failure_groups(history)
+    ]
 
 
 def write_json(
@@ -91,6 +174,8 @@ def write_json(
     path.parent.mkdir(parents=True, exist_ok=True)
     document = solution_document(sol, title=title, parameters=parameters)
     if landscape is not None:
+        document["failed"] = int(landscape.failures)
+        document["failures"] = failures_document(landscape.history, list(landscape.names))
         document["minima"] = [
             {"value": _number(m.value), "point": {n: _number(v) for n, v in zip(m.names, m.point)},
              "verdict": m.verdict.value, "starts": int(count)}

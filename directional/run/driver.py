@@ -50,15 +50,20 @@ for bit (as keys of their float64 bytes), and a search that asks for a point the
 hold while the journal still holds points of that search it has not asked for has diverged:
 `JournalError` (the journal was written for other settings or by another version).  Replay by
 point does not depend on the order in which the first run's evaluations completed, so a journal
-written on a process pool is resumed in process and the other way round.
+written on a process pool is resumed in process and the other way round.  With ``retry`` a
+stored evaluation that failed or timed out does not answer its point: the point is evaluated again
+when a search asks for it (the journal keeps both records, the latest counts), and since its new
+value may change the search's path, the searches waiting on it are no longer held to the journal.
 
-Ctrl-C.  When the run is in the main thread and SIGINT has Python's default handler, the driver
-installs its own (`interrupts.Interrupts`): a Ctrl-C while the objective runs in process, or while
+Ctrl-C (and SIGTERM, SIGHUP: `interrupts.Interrupts`, the one handler).  When the run is in the
+main thread and SIGINT has Python's default handler, the driver installs its own, or joins the one
+the command line holds: a Ctrl-C while the objective runs in process, or while
 the driver waits on the executor, raises `KeyboardInterrupt` there; one at any other moment is
 noted and the run halts before the next evaluation.  An evaluation cut by it (or one that failed
 in any way after it, e.g. an objective that turned the interrupt into its own error) is reported
 to the observers with status ``interrupted`` and no value, never logged, and made again on
-resume; evaluations in flight on an executor are abandoned.  Every search is then halted.
+resume; evaluations in flight on an executor are abandoned (the workers of a pool made by
+`workers.process_pool` are stopped, so a program they run ends at once).  Every search is then halted.
 
 A worker process that dies breaks a process pool: the pool is replaced (``replace``), and the
 evaluations that were in flight are run again one at a time; one that kills its worker while
@@ -83,6 +88,7 @@ import numpy as np
 from directional.errors import JournalError, ObjectiveError
 from directional.records import SPENT, Batch, Halt, Request, Spent, Status, Stop
 from directional.run.interrupts import Interrupts
+from directional.run.workers import process_pool, stop_workers
 
 Objective = Callable[[np.ndarray], object]
 Search = Generator[Request, Any, Any]
@@ -90,6 +96,7 @@ Observer = Callable[["Evaluation"], None]
 
 DIED = "worker process died"
 HALTS_IN_A_ROW = 10_000  # a generator halted this often with nothing evaluated has a bug
+RETRIED = (Status.FAILED, Status.TIMED_OUT)  # stored statuses that a resume with ``retry`` redoes
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -242,7 +249,8 @@ class Driver:
     ``executor`` (None: a process pool of the same size when ``executor`` is one, else the
     breakage is an error); pools made here are shut down by `close`, the caller's executor is
     left running.  ``observers`` are called with each new evaluation as it completes;
-    ``stored`` are the evaluations of a journal being resumed.
+    ``stored`` are the evaluations of a journal being resumed; with ``retry`` their failed and
+    timed-out points are evaluated again when asked for.
     """
 
     objective: Objective
@@ -255,12 +263,15 @@ class Driver:
     observers: Sequence[Observer] = ()
     stored: Iterable[Evaluation] = ()
     replace: Callable[[], cf.Executor] | None = None
+    retry: bool = False
     log: Log = field(default_factory=Log)
     replayed: int = 0
     interrupted: bool = False
     _interrupts: Interrupts = field(default_factory=Interrupts)
     _cache: dict[bytes, float] = field(default_factory=dict)
     _made: dict[bytes, Evaluation] = field(default_factory=dict)
+    _retry: set[bytes] = field(default_factory=set)  # stored failures to evaluate again
+    _last: dict[int, int] = field(default_factory=dict)  # search -> its last stored sequence
     _journal: dict[int, dict[bytes, int]] = field(default_factory=dict)  # search -> point -> seq
     _tasks: dict[int, _Task] = field(default_factory=dict)
     _pending: dict[bytes, _Pending] = field(default_factory=dict)
@@ -276,14 +287,28 @@ class Driver:
             self.workers = getattr(self.executor, "_max_workers", None)
         if self.replace is None and isinstance(self.executor, cf.ProcessPoolExecutor):
             size = self.workers or self.executor._max_workers
-            self.replace = lambda: cf.ProcessPoolExecutor(max_workers=size)
+            self.replace = lambda: process_pool(size)
         for evaluation in sorted(self.stored, key=lambda e: e.index):
             key = evaluation.point.tobytes()
+            earlier = self._made.get(key)
+            if earlier is not None and earlier.status in RETRIED and evaluation.value != earlier.value:
+                # a retry that succeeded: the failed search's later rows were an abandoned path
+                own = self._journal.get(earlier.search, {})
+                for old in [k for k, seq in own.items() if seq > earlier.sequence]:
+                    del own[old]
             self._journal.setdefault(evaluation.search, {})[key] = evaluation.sequence
+            last = self._last.get(evaluation.search, -1)
+            self._last[evaluation.search] = max(last, evaluation.sequence)
             self._cache[key] = evaluation.value
             self._made[key] = evaluation
             self.log.add(replace(evaluation, index=len(self.log.evaluations)))
             self.replayed += 1
+            if self.retry and evaluation.status in RETRIED:  # the latest record of a point counts
+                self._retry.add(key)
+            else:
+                self._retry.discard(key)
+        for key in self._retry:
+            del self._cache[key]
 
     @property
     def spent(self) -> int:
@@ -359,7 +384,7 @@ class Driver:
             task = self._tasks[ident] = _Task(ident=ident, search=search)
             own = self._journal.get(ident, {})
             task.journaled = set(own)
-            task.sequence = 1 + max(own.values(), default=-1)  # the journal's are 0, 1, ...
+            task.sequence = 1 + self._last.get(ident, -1)  # the journal's are 0, 1, ...
         elif not task.ended:
             raise ValueError(f"search {ident!r} is still running")
         else:
@@ -397,7 +422,10 @@ class Driver:
     def _ask(self, task: _Task, batch: Batch) -> None:
         """Answer what is known, queue the rest; raise `Halt` at a point past the budget."""
         keys = [x.tobytes() for x in batch.points]
-        new = [key not in self._cache and key not in self._pending for key in keys]
+        new = [
+            key not in self._cache and key not in self._pending and key not in self._retry
+            for key in keys
+        ]
         unasked = task.journaled - set(keys)
         if any(new) and unasked:
             order = self._journal[task.ident]
@@ -501,7 +529,7 @@ class Driver:
     def _run_limit(self) -> Halt | None:
         """Before a new evaluation starts: Ctrl-C, the total budget and the time limit."""
         if self.interrupted or self._interrupts.pending:
-            return Halt(Stop.INTERRUPTED, "interrupted by the user")
+            return Halt(Stop.INTERRUPTED, self._interrupts.reason)
         if self.total is not None and self.spent + len(self._flying) >= self.total:
             return Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
         if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
@@ -554,7 +582,7 @@ class Driver:
             with self._interrupts.raising():
                 value, status, detail = call(self.objective, pending.point)
         except KeyboardInterrupt:
-            value, status, detail = math.inf, Status.INTERRUPTED, "interrupted by the user"
+            value, status, detail = math.inf, Status.INTERRUPTED, self._interrupts.reason
         if status != Status.OK and self._interrupts.pending:  # failed because of the Ctrl-C
             value, status = math.inf, Status.INTERRUPTED
         self._finish(pending, value, status, detail, started, time.perf_counter() - tick)
@@ -598,6 +626,10 @@ class Driver:
             self._interrupt()
             return
         owner.sequence += 1
+        if pending.key in self._retry:  # a retried point: the searches may now take new paths
+            self._retry.discard(pending.key)
+            for ident, _, _ in pending.waiters:
+                self._tasks[ident].journaled.clear()
         self.log.add(evaluation)
         self._cache[pending.key] = value
         self._made[pending.key] = evaluation
@@ -619,8 +651,10 @@ class Driver:
         for future, key in list(self._flying.items()):
             future.cancel()
             self._pending.pop(key, None)
+        if self._flying:
+            stop_workers(self.executor)
         self._flying.clear()
-        halt = Halt(Stop.INTERRUPTED, "interrupted by the user")
+        halt = Halt(Stop.INTERRUPTED, self._interrupts.reason)
         for task in list(self._tasks.values()):
             if task.batch is not None:
                 self._take(task, self._halt(task, halt))

@@ -16,7 +16,9 @@ The file (stdlib `sqlite3`, write-ahead log) has three tables:
 - ``evaluation``: one row per evaluation: search id, sequence number within that search, the
   point (float64 little-endian bytes, exact), the value (``inf`` when failed), status (``ok``,
   ``failed``, ``timed-out``, ``interrupted``), error text, purpose, start and end time (Unix
-  seconds), and the session that made it;
+  seconds), the session that made it, and for a calibration the residual vector (float64 bytes;
+  NULL otherwise, and absent from journals written before it existed: the column is added when
+  such a journal is resumed), so that a resumed or shown calibration recomputes nothing;
 - ``session``: one row per run on the journal (the first and each resume): process id, package
   version, budget, how many evaluations were replayed and made, how it ended.
 
@@ -26,8 +28,18 @@ arguments of the entry point that change the search (tolerances, ``check``, seed
 search settings.  The budget and the time limit are *not* part of it: a user may resume with a
 larger budget to go further (the budget counts the journaled evaluations too).
 
-An evaluation interrupted by Ctrl-C is stored with status ``interrupted`` and no value; it is
-informative only and is evaluated again on resume.
+The *objective* is identified too, by a fingerprint kept beside the identity (header key
+``objective``; `identity.fingerprint`: a function's module, name and source hashes, a program's
+command, files and ``version``).  It is compared on every open of an existing journal, but a
+difference does not refuse the journal by itself: the first stored evaluation and the best are
+made again (`reproduced`), and the run goes on, with a note, only if their values come back within
+the noise; otherwise `JournalError` says what changed, before anything is written.  Files that a
+program rewrites during a run are found when the journal closes and are no longer compared.
+
+An evaluation interrupted by Ctrl-C (or SIGTERM, SIGHUP) is stored with status ``interrupted`` and
+no value; it is informative only and is evaluated again on resume.  A resume with ``retry`` makes
+the stored failed and timed-out evaluations again; the new row keeps the failure's search and
+sequence number, and `effective` puts it in the failure's place (both rows stay in the file).
 
 Durability. The journal runs in WAL mode with ``synchronous=NORMAL`` by default, and switches to
 ``synchronous=FULL`` for the commit of any evaluation that took at least `SYNC_AFTER` seconds
@@ -49,16 +61,18 @@ the same journal is refused with `JournalError`.
 from __future__ import annotations
 
 import contextlib
+import functools
 import json
 import math
 import os
-import signal
+import shlex
+import shutil
 import sqlite3
 import struct
 import sys
-import threading
+import tempfile
 import time
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, TextIO
@@ -66,10 +80,22 @@ from typing import Any, TextIO
 import numpy as np
 
 from directional.errors import JournalError, ProblemError
+from directional.method.noise import DETECTED, detected_level, difference_table
 from directional.parameters import Parameter
-from directional.records import Status
-from directional.run.driver import Evaluation
-from directional.run.identity import canonical, describe_place, difference, digest, run_identity
+from directional.records import Batch, Halt, Status
+from directional.run.driver import RETRIED, Driver, Evaluation
+from directional.run.identity import (
+    canonical,
+    comparable,
+    describe_change,
+    describe_place,
+    difference,
+    digest,
+    outputs_seen,
+    run_identity,
+)
+from directional.run.identity import fingerprint as objective_fingerprint
+from directional.run.interrupts import held
 from directional.run.lockfile import Lock
 from directional.version import VERSION
 
@@ -91,6 +117,7 @@ SYNC_MODES = ("adaptive", "normal", "full")
 PAGE_SIZE = 1024  # bytes: a commit writes whole pages to the log, and a row is ~150 bytes
 CHECKPOINT_PAGES = 10_000  # log pages between checkpoints (each costs fsyncs): 10 MB
 INTERRUPTED = Status.INTERRUPTED
+NOISE_POINTS = 9  # values per noise-estimate try (`method.noise.estimate`'s default)
 
 _SCHEMA = (
     "CREATE TABLE header (key TEXT PRIMARY KEY, value TEXT NOT NULL)",
@@ -105,7 +132,8 @@ _SCHEMA = (
         purpose TEXT NOT NULL,
         started REAL NOT NULL,
         ended REAL NOT NULL,
-        session INTEGER NOT NULL)""",
+        session INTEGER NOT NULL,
+        residuals BLOB)""",
     """CREATE TABLE session (
         session INTEGER PRIMARY KEY,
         opened REAL NOT NULL,
@@ -120,7 +148,7 @@ _SCHEMA = (
 )
 _INSERT = (
     "INSERT INTO evaluation (search, sequence, point, value, status, detail, purpose, started, "
-    "ended, session) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"
+    "ended, session, residuals) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"
 )
 
 
@@ -137,6 +165,7 @@ class Header:
     created: float
     budget: int | None
     info: dict[str, Any] = field(default_factory=dict)
+    objective: dict[str, Any] | None = None  # the fingerprint of the objective (identity.py)
 
     @property
     def kind(self) -> str:
@@ -155,6 +184,12 @@ class Contents:
     header: Header
     evaluations: tuple[Evaluation, ...]  # in the order they were written, interrupted included
     sessions: tuple[dict[str, Any], ...]
+    made_by: tuple[int, ...] = ()  # the session of each evaluation
+
+    @property
+    def stored(self) -> tuple[Evaluation, ...]:
+        """The evaluations a resume replays (`effective`): no interrupted one, retries in place."""
+        return effective(self.evaluations)
 
 
 class Journal:
@@ -174,8 +209,12 @@ class Journal:
         stored: tuple[Evaluation, ...],
         session: int,
         sync: str,
+        retry: bool = False,
+        notes: tuple[str, ...] = (),
     ) -> None:
         self.path = path
+        self.retry = retry  # stored failed evaluations are made again (`driver.Driver` ``retry``)
+        self.notes = notes  # for the solution: e.g. that the objective changed but reproduced
         self.header = header
         self.stored = stored
         self.resumed = session > 1  # the file held a journal of this run already
@@ -187,6 +226,10 @@ class Journal:
         self._full = sync == "full"
         self._stop: tuple[str, str] | None = None
         self._replayed: int | None = None
+        self._fingerprint: dict[str, Any] | None = None
+        self._refresh: Callable[[], Mapping[str, Any]] | None = None
+        # For a calibration: the residual vector of a point (its float64 bytes), or None.
+        self.vectors: Callable[[bytes], np.ndarray | None] | None = None
 
     # -- opening
 
@@ -199,11 +242,24 @@ class Journal:
         budget: int | None = None,
         info: Mapping[str, Any] | None = None,
         sync: str = "adaptive",
+        objective: Mapping[str, Any] | None = None,
+        reproduce: Callable[[Header, Sequence[Evaluation], Mapping[str, Any]], str] | None = None,
+        retry: bool = False,
+        refresh: Callable[[], Mapping[str, Any]] | None = None,
     ) -> Journal:
         """Open the journal at ``path`` for a run with ``identity``, creating it if need be.
 
         An existing journal must hold the same identity; its evaluations become `stored`.  A file
         that does not exist or is empty becomes a new journal (missing folders are made).
+
+        ``objective`` is the objective's fingerprint (`identity.fingerprint`; None: not checked).
+        When it differs from the one the journal holds, ``reproduce(header, stored, objective)``
+        decides:
+        it evaluates stored points again and returns a note, or raises `JournalError`.  Nothing
+        is written to the file before that decision, so a refused journal is left byte for byte
+        as it was.  ``retry`` makes the stored failed evaluations again (see `driver.Driver`).
+        ``refresh`` takes the fingerprint again when the journal closes: files named by a program
+        that changed during the run are its outputs, no longer compared (`identity.outputs_seen`).
 
         Raises
         ------
@@ -217,6 +273,8 @@ class Journal:
             raise ProblemError(f"sync must be one of {SYNC_MODES!r}, got {sync!r}")
         path = _journal_path(path)
         identity = json.loads(canonical(identity))
+        fingerprint = None if objective is None else json.loads(canonical(objective))
+        notes: tuple[str, ...] = ()
         if path.exists() and not path.is_file():
             raise JournalError(f"journal {str(path)!r} is not a file")
         try:
@@ -232,33 +290,42 @@ class Journal:
                 if _is_empty(connection):
                     connection.execute(f"PRAGMA page_size = {PAGE_SIZE}")
                     _use_wal(connection, path)
-                    header = _create(connection, identity, budget, info or {})
+                    header = _create(connection, identity, budget, info or {}, fingerprint)
                     stored: tuple[Evaluation, ...] = ()
                 else:
                     header = _read_header(connection, path)
                     _compare(path, header, identity)
+                    if fingerprint is not None:
+                        fingerprint = comparable(header.objective, fingerprint)
+                    stored = effective(_read_evaluations(connection, path, header), path)
+                    changed = fingerprint is not None and header.objective != fingerprint
+                    if changed and stored and reproduce is not None:
+                        notes = (_reproduce(path, reproduce, header, stored, fingerprint),)
                     _use_wal(connection, path)
-                    stored = tuple(
-                        e for e in _read_evaluations(connection, path, header) if e.status != INTERRUPTED
-                    )
-                    _check_places(path, stored)
+                    _add_vector_column(connection)  # after the checks: a refusal writes nothing
+                    if changed:
+                        _set_header(connection, {"objective": canonical(fingerprint)})
                     if budget is not None:
                         _set_header(connection, {"budget": str(int(budget))})
                 session = _begin_session(connection, budget)
                 connection.execute(f"PRAGMA synchronous={'FULL' if sync == 'full' else 'NORMAL'}")
         except BaseException:
-            with _HeldInterrupts():
+            with held():
                 if connection is not None:
                     connection.close()
                 lock.release()
             raise
-        return cls(path, connection, lock, header, stored, session, sync)
+        opened = cls(path, connection, lock, header, stored, session, sync, retry, notes)
+        if fingerprint is not None and refresh is not None:
+            opened._fingerprint, opened._refresh = fingerprint, refresh
+        return opened
 
     # -- the driver's side
 
     def hooks(self) -> dict[str, Any]:
-        """Keyword arguments for `driver.Driver`: ``observers`` (append) and ``stored``."""
-        return {"observers": (self.append,), "stored": self.stored}
+        """Keyword arguments for `driver.Driver`: ``observers`` (append), ``stored`` and
+        ``retry`` (stored failures made again, when asked for)."""
+        return {"observers": (self.append,), "stored": self.stored, "retry": self.retry}
 
     def by_search(self) -> dict[int, list[Evaluation]]:
         """The stored evaluations of each search, in sequence order."""
@@ -278,6 +345,7 @@ class Journal:
         if self._sync == "adaptive":
             self._adapt(evaluation.seconds >= SYNC_AFTER)
         point = np.ascontiguousarray(evaluation.point, dtype="<f8").tobytes()
+        vector = None if self.vectors is None else self.vectors(evaluation.point.tobytes())
         row = (
             evaluation.search,
             evaluation.sequence,
@@ -289,6 +357,7 @@ class Journal:
             evaluation.started,
             evaluation.started + evaluation.seconds,
             self._session,
+            None if vector is None else np.ascontiguousarray(vector, dtype="<f8").tobytes(),
         )
         try:
             self._connection.execute(_INSERT, row)
@@ -299,6 +368,17 @@ class Journal:
                 "on resume"
             ) from None
         self.written += 1
+
+    def stored_vectors(self) -> dict[bytes, np.ndarray]:
+        """The residual vectors stored with earlier evaluations, by point (float64 bytes)."""
+        rows = self._connection.execute(
+            "SELECT point, residuals FROM evaluation WHERE residuals IS NOT NULL"
+        ).fetchall()
+        return {
+            np.frombuffer(point, dtype="<f8").astype(float).tobytes():
+                np.frombuffer(vector, dtype="<f8").astype(float)
+            for point, vector in rows
+        }
 
     @property
     def synchronous(self) -> str:
@@ -334,7 +414,7 @@ class Journal:
         if error is not None:
             stop = stop or ("interrupted" if isinstance(error, KeyboardInterrupt) else "error")
             reason = reason or f"{type(error).__name__}: {error}"[:2000]
-        with _HeldInterrupts():  # a second Ctrl-C must not leave the file open, the lock held
+        with held():  # a second Ctrl-C must not leave the file open, the lock held
             try:  # closing checkpoints the log into the file, with an fsync of both: all durable
                 self._connection.execute(
                     "UPDATE session SET closed = ?, replayed = ?, evaluated = ?, stop = ?, "
@@ -343,10 +423,23 @@ class Journal:
                 )
             except sqlite3.Error:
                 pass  # the evaluations are what matters; a failed note must not hide the real error
+            try:
+                self._note_outputs()
+            except Exception:  # noqa: BLE001 (a file that cannot be hashed now: leave it compared)
+                pass
             finally:
                 self._connection.close()
                 self._lock.release()
                 self._lock = None  # type: ignore[assignment]
+
+    def _note_outputs(self) -> None:
+        """Files the program named that changed during the run are outputs (`refresh`)."""
+        if self._fingerprint is None or self._refresh is None or "files" not in self._fingerprint:
+            return
+        after = json.loads(canonical(self._refresh()))
+        seen = outputs_seen(self._fingerprint, after)
+        if seen != self._fingerprint:
+            _set_header(self._connection, {"objective": canonical(seen)})
 
     def __enter__(self) -> Journal:
         return self
@@ -359,6 +452,12 @@ class _NoJournal:
     """Stands in for `Journal` when a run keeps none."""
 
     stored: tuple[Evaluation, ...] = ()
+    notes: tuple[str, ...] = ()
+    retry = False
+    vectors: Callable[[bytes], np.ndarray | None] | None = None
+
+    def stored_vectors(self) -> dict[bytes, np.ndarray]:
+        return {}
 
     def hooks(self) -> dict[str, Any]:
         return {}
@@ -378,10 +477,19 @@ class _NoJournal:
 
 @dataclass(frozen=True, slots=True)
 class Target:
-    """A journal path with notes for its header (e.g. the problem file a CLI run came from)."""
+    """A journal path with notes for its header (e.g. the problem file a CLI run came from).
+
+    ``objective`` replaces the fingerprint taken from the objective itself (a problem file knows
+    its program, its files and its ``version``); ``verify`` False skips the comparison (``show``
+    replays a journal with a stand-in objective); ``retry`` makes stored failures again.
+    """
 
     path: str | os.PathLike[str]
     info: Mapping[str, Any] = field(default_factory=dict)
+    objective: Mapping[str, Any] | None = None
+    verify: bool = True
+    retry: bool = False
+    refresh: Callable[[], Mapping[str, Any]] | None = None
 
 
 def journal_for(
@@ -390,11 +498,16 @@ def journal_for(
     *,
     budget: int | None = None,
     stderr: TextIO | None = None,
+    objective: object = None,
 ) -> Journal | _NoJournal:
     """Open the journal a public entry point was given (None: a stand-in that keeps nothing).
 
     ``journal`` is a path, a `Target`, or None.  When the journal exists and matches, it is
     resumed rather than overwritten, and a line on ``stderr`` (default `sys.stderr`) says so.
+    ``objective`` is the callable whose values the journal keeps: its fingerprint is stored, and
+    on resume compared with the stored one; when they differ the first stored evaluation and
+    the best are made again through a `driver.Driver`, and the run goes on only if their values
+    come back within the noise (`reproduced`).
 
     Raises
     ------
@@ -405,18 +518,30 @@ def journal_for(
     """
     if journal is None:
         return _NoJournal()
-    info: Mapping[str, Any] = {}
-    if isinstance(journal, Target):
-        journal, info = journal.path, journal.info
+    target = journal if isinstance(journal, Target) else Target(journal)  # type: ignore[arg-type]
+    journal = target.path
     if not isinstance(journal, str | os.PathLike) or not os.fspath(journal):
         raise ProblemError(f"journal must be a file path or None, got {journal!r}")
-    opened = Journal.open(journal, identity, budget=budget, info=info)
+    fingerprint = None
+    if target.verify and (target.objective is not None or objective is not None):
+        fingerprint = target.objective if target.objective is not None else objective_fingerprint(
+            objective
+        )
+    refresh = target.refresh
+    if refresh is None and target.objective is None and objective is not None:
+        refresh = functools.partial(objective_fingerprint, objective)
+    opened = Journal.open(
+        journal, identity, budget=budget, info=target.info, objective=fingerprint,
+        reproduce=None if objective is None else functools.partial(reproduced, objective),
+        retry=target.retry, refresh=refresh,
+    )
     if opened.resumed:
         last = opened.last_stop()
         print(
             f"directional: resuming journal {str(opened.path)!r}: {len(opened.stored)} "
             "evaluations stored are replayed, not repeated; the last run "
-            + (f"ended: {last}" if last else "did not end cleanly (killed?)"),
+            + (f"ended: {last}" if last else "did not end cleanly (killed?)")
+            + ("; stored failures are evaluated again" if opened.retry else ""),
             file=stderr if stderr is not None else sys.stderr,
         )
     return opened
@@ -436,22 +561,84 @@ def read(path: str | os.PathLike[str]) -> Contents:
     path = _journal_path(path)
     if not path.is_file() or path.stat().st_size == 0:
         raise JournalError(f"journal {str(path)!r} does not exist or is empty")
-    connection = _connect(path, read_only=True)
     try:
-        with _translated(path):
-            header = _read_header(connection, path)
-            evaluations = tuple(_read_evaluations(connection, path, header))
+        return _read(path, path)
+    except JournalError:
+        if _writable(path):
+            raise
+    # SQLite reads a journal in write-ahead mode only where it may write its index beside it: read
+    # a copy of a journal on a read-only disk or folder.
+    with tempfile.TemporaryDirectory(prefix="directional-read-") as folder:
+        copy = Path(folder) / path.name
+        _copy_files(path, copy)
+        return _read(copy, path)
+
+
+def snapshot(source: str | os.PathLike[str], target: str | os.PathLike[str]) -> None:
+    """Copy the journal at ``source`` to ``target``, consistent even while a run writes it.
+
+    SQLite's backup, read-only; for a journal that cannot be opened that way (a read-only folder),
+    a copy of the file and its write-ahead log.
+
+    Raises
+    ------
+    JournalError
+        When the file cannot be read.
+    """
+    source, target = _journal_path(source), _journal_path(target)
+    try:
+        uri = source.resolve().as_uri() + "?mode=ro"
+        with contextlib.closing(sqlite3.connect(uri, uri=True)) as src, contextlib.closing(
+            sqlite3.connect(target)
+        ) as dst:
+            src.backup(dst)
+        return
+    except sqlite3.Error as error:
+        if _writable(source):
+            raise JournalError(f"cannot read journal {str(source)!r}: {error}") from None
+    for suffix in ("-wal", "-shm"):
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(str(target) + suffix)
+    _copy_files(source, target)
+
+
+def _writable(path: Path) -> bool:
+    effective = os.access in os.supports_effective_ids
+    return all(os.access(p, os.W_OK, effective_ids=effective) for p in (path, path.parent))
+
+
+def _copy_files(source: Path, target: Path) -> None:
+    """Copy the journal's file and its write-ahead log (SQLite replays the log on opening)."""
+    try:
+        shutil.copyfile(source, target)
+        wal = Path(str(source) + "-wal")
+        if wal.is_file():
+            shutil.copyfile(wal, str(target) + "-wal")
+    except OSError as error:
+        raise JournalError(f"cannot read journal {str(source)!r}: {error}") from None
+
+
+def _read(path: Path, shown: Path) -> Contents:
+    connection = _connect(path, read_only=path == shown)
+    try:
+        with _translated(shown):
+            header = _read_header(connection, shown)
+            evaluations = tuple(_read_evaluations(connection, shown, header))
             columns = ("session", "opened", "closed", "pid", "version", "budget", "replayed",
                        "evaluated", "stop", "reason")
             rows = connection.execute(
                 f"SELECT {', '.join(columns)} FROM session ORDER BY session"
             ).fetchall()
+            made_by = tuple(
+                int(row[0]) for row in connection.execute("SELECT session FROM evaluation ORDER BY row")
+            )
     finally:
         connection.close()
     return Contents(
         header=header,
         evaluations=evaluations,
         sessions=tuple(dict(zip(columns, row)) for row in rows),
+        made_by=made_by,
     )
 
 
@@ -484,35 +671,6 @@ def _use_wal(connection: sqlite3.Connection, path: Path) -> None:
             f"journal {str(path)!r} cannot use a write-ahead log (mode {mode!r}); "
             "put it on a local disk"
         )
-
-
-class _HeldInterrupts:
-    """Hold a Ctrl-C back while the journal closes; raise it as `KeyboardInterrupt` afterwards.
-
-    Only in the main thread with Python's default SIGINT handler (elsewhere a Ctrl-C is not
-    raised here anyway, or belongs to a handler that is not ours to replace).  A plain class, so
-    that the moment before the hold starts, when a Ctrl-C still interrupts, is as short as can be.
-    """
-
-    __slots__ = ("caught", "previous")
-
-    def __enter__(self) -> None:
-        self.caught: list[int] = []
-        self.previous: object = None
-        if (
-            signal.getsignal(signal.SIGINT) is signal.default_int_handler
-            and threading.current_thread() is threading.main_thread()
-        ):
-            self.previous = signal.signal(signal.SIGINT, self._note)
-
-    def _note(self, signum: int, frame: object) -> None:
-        self.caught.append(signum)
-
-    def __exit__(self, kind: object, error: object, trace: object) -> None:
-        if self.previous is not None:
-            signal.signal(signal.SIGINT, self.previous)  # type: ignore[arg-type]
-        if self.caught and error is None:
-            raise KeyboardInterrupt
 
 
 # SQLite's primary result codes for a file that cannot be written (https://sqlite.org/rescode.html)
@@ -553,6 +711,7 @@ def _create(
     identity: Mapping[str, Any],
     budget: int | None,
     info: Mapping[str, Any],
+    fingerprint: dict[str, Any] | None,
 ) -> Header:
     header = Header(
         identity=dict(identity),
@@ -561,6 +720,7 @@ def _create(
         created=time.time(),
         budget=None if budget is None else int(budget),
         info=json.loads(canonical(dict(info))),
+        objective=fingerprint,
     )
     connection.execute("BEGIN IMMEDIATE")
     try:
@@ -577,6 +737,7 @@ def _create(
                 "identity_sha256": header.digest,
                 "budget": "" if budget is None else str(int(budget)),
                 "info": canonical(header.info),
+                **({"objective": canonical(fingerprint)} if fingerprint is not None else {}),
             },
         )
         connection.execute("COMMIT")
@@ -584,6 +745,13 @@ def _create(
         connection.execute("ROLLBACK")
         raise
     return header
+
+
+def _add_vector_column(connection: sqlite3.Connection) -> None:
+    """Give a journal written before residual vectors were kept their (nullable) column."""
+    columns = {row[1] for row in connection.execute("PRAGMA table_info(evaluation)")}
+    if "residuals" not in columns:
+        connection.execute("ALTER TABLE evaluation ADD COLUMN residuals BLOB")
 
 
 def _is_empty(connection: sqlite3.Connection) -> bool:
@@ -622,6 +790,7 @@ def _read_header(connection: sqlite3.Connection, path: Path) -> Header:
         budget = int(items["budget"]) if items.get("budget") else None
         created = float(items.get("created", "nan"))
         stored_digest = items["identity_sha256"]
+        objective = json.loads(items["objective"]) if items.get("objective") else None
         if not isinstance(identity, dict) or not isinstance(identity.get("parameters"), list):
             raise ValueError("the identity is not a JSON object with parameters")
         parameters = [Parameter(**row) for row in identity["parameters"]]
@@ -640,6 +809,7 @@ def _read_header(connection: sqlite3.Connection, path: Path) -> Header:
         created=created,
         budget=budget,
         info=info if isinstance(info, dict) else {},
+        objective=objective if isinstance(objective, dict) else None,
     )
 
 
@@ -655,7 +825,8 @@ def _compare(path: Path, header: Header, identity: Mapping[str, Any]) -> None:
         )
     raise JournalError(
         f"journal {str(path)!r} belongs to another problem: {describe_place(where, header.identity)} "
-        f"is {old!r} in the journal but {new!r} now; use another journal file, or the same "
+        f"is {old!r} in the journal but {new!r} now; use another journal file (or move this one "
+        f"aside: mv {shlex.quote(str(path))} {shlex.quote(str(path) + '.old')}), or the same "
         "settings to resume"
     )
 
@@ -713,18 +884,129 @@ def _read_evaluations(
         )
 
 
-def _check_places(path: Path, stored: Sequence[Evaluation]) -> None:
-    """Each search's stored sequence numbers must be 0, 1, 2, ... without a gap."""
-    expected: dict[int, int] = {}
-    for evaluation in sorted(stored, key=lambda e: (e.search, e.sequence)):
-        want = expected.get(evaluation.search, 0)
-        if evaluation.sequence != want:
-            problem = "twice" if evaluation.sequence < want else "missing"
+def effective(evaluations: Iterable[Evaluation], path: object = "") -> tuple[Evaluation, ...]:
+    """The evaluations a resume replays: interrupted ones left out, retries in place.
+
+    Each search's sequence numbers must run 0, 1, 2, ... without a gap.  A later row with the
+    number of a stored failure is its retry (``resume --retry-failed``): it takes the failure's
+    place and, when its value differs, ends that search's older rows after it (the search took
+    another path from there).  Any other repeat or gap is damage: `JournalError`.
+    """
+    searches: dict[int, list[Evaluation]] = {}
+    for evaluation in evaluations:
+        if evaluation.status == INTERRUPTED:
+            continue
+        rows = searches.setdefault(evaluation.search, [])
+        k = evaluation.sequence
+        if k < len(rows) and rows[k].status in RETRIED:
+            if evaluation.value != rows[k].value:
+                del rows[k + 1 :]
+            rows[k] = evaluation
+            continue
+        if k != len(rows):
+            problem = "twice" if k < len(rows) else "missing"
             raise JournalError(
                 f"journal {str(path)!r} is damaged: search {evaluation.search}, evaluation "
-                f"number {min(want, evaluation.sequence)} is {problem}"
+                f"number {min(k, len(rows))} is {problem}"
             )
-        expected[evaluation.search] = want + 1
+        rows.append(evaluation)
+    kept = {id(e) for rows in searches.values() for e in rows}
+    return tuple(e for e in evaluations_in_order(searches) if id(e) in kept)
+
+
+def evaluations_in_order(searches: Mapping[int, list[Evaluation]]) -> list[Evaluation]:
+    """The evaluations of all searches in the order they were written."""
+    return sorted((e for rows in searches.values() for e in rows), key=lambda e: e.index)
+
+
+def reproduced(
+    objective: Any, header: Header, stored: Sequence[Evaluation], fingerprint: Mapping[str, Any]
+) -> str:
+    """Evaluate the first stored point that succeeded and the best one again; a note, or
+    `JournalError`.
+
+    They reproduce when each new value is within ``6 * noise`` of the stored one (the noise the
+    run was given, or the level its noise estimate found in the journal; the difference of two
+    noisy values has a standard deviation of sqrt(2) times the noise, common practice, no
+    source), and never closer than ``1e-9 * max(1, |f|)`` (rounding); two failures agree.
+    """
+    good = [e for e in stored if e.status == "ok"]  # a stored failure may be cured since
+    first = min(good or stored, key=lambda e: e.index)
+    chosen = [first] + ([min(good, key=lambda e: e.value)] if good else [])
+    if len(chosen) == 2 and chosen[1].point.tobytes() == first.point.tobytes():
+        chosen = chosen[:1]
+    change = describe_change(header.objective, fingerprint)
+    level = _noise_of(header, stored)
+    values = _evaluate_again(objective, [e.point for e in chosen])
+    for evaluation, value in zip(chosen, values.tolist()):
+        old = evaluation.value
+        tolerance = max(6.0 * level, 1e-9 * max(1.0, abs(old) if math.isfinite(old) else 0.0))
+        agree = (not math.isfinite(old) and not math.isfinite(value)) or abs(value - old) <= tolerance
+        if not agree:
+            raise JournalError(
+                f"was written for another objective: {change}; evaluated again, the point "
+                f"{evaluation.point.tolist()!r} gives {value!r} where the journal holds {old!r} "
+                f"(tolerance {tolerance:.3g})"
+            )
+    return (
+        f"the objective changed since the journal was written ({change}); {len(chosen)} stored "
+        f"point{'s' if len(chosen) > 1 else ''} (the first and the best) evaluated again "
+        "reproduced their values within the noise, so the stored evaluations are used"
+    )
+
+
+def _evaluate_again(objective: Any, points: Sequence[np.ndarray]) -> np.ndarray:
+    """The values of ``points`` through a `Driver` (failures are +inf), nothing journaled."""
+
+    def ask() -> Iterator[Batch]:
+        try:
+            values = yield Batch(points=np.array(points), purpose="verify")
+        except Halt:
+            return None
+        return values
+
+    values = Driver(objective=objective, budget=len(points), stall_after=len(points) + 1).run(
+        ask()  # type: ignore[arg-type]
+    )
+    if values is None:  # interrupted
+        raise KeyboardInterrupt
+    return np.asarray(values, dtype=float)
+
+
+def _noise_of(header: Header, stored: Sequence[Evaluation]) -> float:
+    """The noise level of the run: given, or found again from its stored noise estimate."""
+    noise = header.identity.get("arguments", {}).get("noise")
+    if isinstance(noise, int | float) and not isinstance(noise, bool):
+        return float(noise)
+    if noise != "estimate":
+        return 0.0
+    values = np.array([e.value for e in stored if e.purpose == "noise"])
+    level = 0.0
+    for start in range(0, len(values) - NOISE_POINTS + 1, NOISE_POINTS):  # one table per try
+        chunk = values[start : start + NOISE_POINTS]
+        if np.all(np.isfinite(chunk)):
+            levels, changes, status = difference_table(chunk)
+            if status == DETECTED:
+                level = detected_level(levels, changes)[0]
+    return level
+
+
+def _reproduce(
+    path: Path,
+    reproduce: Callable[[Header, Sequence[Evaluation], Mapping[str, Any]], str],
+    header: Header,
+    stored: Sequence[Evaluation],
+    fingerprint: Mapping[str, Any],
+) -> str:
+    """`reproduced`, its refusal naming the journal and how to start afresh."""
+    try:
+        return reproduce(header, stored, fingerprint)
+    except JournalError as error:
+        raise JournalError(
+            f"journal {str(path)!r} {error}. The journal is left as it was. To start afresh, "
+            f"move it aside (mv {shlex.quote(str(path))} {shlex.quote(str(path) + '.old')}) and "
+            "run again; to continue it, restore the objective it was written for"
+        ) from None
 
 
 def _begin_session(connection: sqlite3.Connection, budget: int | None) -> int:

@@ -1,10 +1,11 @@
 """A lock file that keeps a second run off a journal: ``flock`` on ``<journal>.lock``.
 
 ``fcntl.flock`` is released by the operating system when its process dies, however it dies, so a
-killed run leaves no stale lock; the file holds the owner's process id, for the message.  Worker
-processes forked by the owner inherit the lock and hold it until they exit, so when the owner has
-died the lock is waited for a few seconds before a second run is refused.  POSIX; where ``fcntl``
-is missing, nothing is locked.
+killed run leaves no stale lock; the file holds the owner's process id, for the message and for
+`holder` (is a run writing this journal now?).  Worker processes forked by the owner inherit the
+lock and hold it until they exit; the pools of `directional.run.workers` die with their parent,
+and a lock whose owner has died is waited for a few seconds (`ORPHAN_GRACE`) before a second run
+is refused.  POSIX; where ``fcntl`` is missing, nothing is locked.
 """
 
 from __future__ import annotations
@@ -36,6 +37,22 @@ def _ended(owner: str) -> bool:
     except OSError:
         return False
     return False
+
+
+def holder(journal: Path) -> int | None:
+    """The process id of the live run that holds ``journal``'s lock, or None.
+
+    Read from the lock file without locking (a report must not keep a run off its journal): the
+    file exists while a run holds the lock, or after one was killed (then its process is gone).
+    """
+    path = journal.with_name(journal.name + ".lock")
+    try:
+        owner = path.read_text(encoding="ascii", errors="replace").strip()
+    except OSError:
+        return None
+    if not owner.isdigit() or int(owner) == os.getpid() or _ended(owner):
+        return None
+    return int(owner)
 
 
 class Lock:

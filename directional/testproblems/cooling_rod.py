@@ -17,7 +17,7 @@ alone: at the default grid the temperatures agree with the Fourier-series soluti
 Jaeger 1959, ch. 3, times the lateral-loss factor ``exp(-4 h t / (D rho c))``) to about
 0.1 K, below the sensor noise.  One run takes a few milliseconds after the numpy import.
 
-The program prints a few lines of progress and, as its last line, the misfit: the sum of
+The program prints a few lines of progress and, as its last line, ``misfit VALUE``: the sum of
 squared differences [K2] between simulated and "measured" temperatures.  The measurements in
 ``MEASURED`` are INVENTED for the example: produced once by this model at ``TRUE`` (k = 170,
 h = 12) with invented sensor noise (sigma = 0.3 K) and rounded to 0.1 degC.  They come from no
@@ -27,7 +27,7 @@ Usage (as a script path, or as ``python -m directional.testproblems.cooling_rod`
 
     python cooling_rod.py --conductivity 170 --coefficient 12
     python cooling_rod.py --conductivity 170 --coefficient 12 --json      # JSON on stdout
-    python cooling_rod.py --conductivity 170 --coefficient 12 --out m.txt  # misfit also to a file
+    python cooling_rod.py --conductivity 170 --coefficient 12 --out m.txt  # misfit alone to a file
 
 Misbehaviours, for testing a driver of external programs: ``--hang`` (sleep forever),
 ``--ignore-term`` (ignore SIGTERM, then sleep forever), ``--fail-above X`` (exit 3 with a message
@@ -211,7 +211,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     value = float(r @ r)
     if args.out is not None:
         with open(args.out, "w") as f:
-            f.write(f"misfit = {value!r}\n")
+            f.write(f"{value!r}\n")
     if args.json:
         fit = {"misfit": value, "rms": float(np.sqrt(value / r.size)), "points": int(r.size)}
         print(json.dumps({"misfit": value, "fit": fit, "residuals": r.tolist()}, indent=2))
