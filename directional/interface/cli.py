@@ -525,12 +525,12 @@ def finish(
         if sol.stop is Stop.INTERRUPTED:
             print(f"\nTo continue: directional resume {_quoted(journal)}", file=out)
         elif (sol.stop is Stop.BUDGET and "time limit" not in sol.reason) or any(
-            "the budget of" in note for note in sol.notes
+            "the budget of" in note or "the budget left" in note for note in sol.notes
         ):
             if landscape is None:
                 print(f"\nTo go further, give a larger budget (it counts the {sol.evaluations} "
                       f"evaluations made): directional resume {_quoted(journal)} --budget "
-                      f"{2 * sol.evaluations}", file=out)
+                      f"{_larger_budget(sol)}", file=out)
             else:
                 print(f"\nTo go further: directional resume {_quoted(journal)} --budget N, with N "
                       "above the budget of each search", file=out)
@@ -654,3 +654,17 @@ def _html(
 
 if __name__ == "__main__":
     sys.exit(main())
+
+
+def _larger_budget(sol: Any) -> int:
+    """A budget that lets a resumed run go further: twice what was spent, and at least enough for
+    a curvature check that the budget left could not pay for (its cost is named in the note)."""
+    import re
+
+    larger = 2 * sol.evaluations
+    for note in sol.notes:
+        cost = re.search(r"curvature check \((\d+) evaluations\)", note)
+        if cost:
+            larger = max(larger, sol.evaluations + int(cost.group(1)))
+    return larger
+
