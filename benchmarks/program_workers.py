@@ -36,7 +36,7 @@ from directional.interface.problemfile import Problem
 from directional.interface.runs import solve
 from directional.run import journal as journals
 
-# INVENTED measurements (the same as tests/test_program_calibration.py): y = 5 exp(-0.5 t).
+# INVENTED measurements (the same as tests/interface/test_program_calibration.py): y = 5 exp(-0.5 t).
 T = [0.0, 0.5, 1.0, 1.5, 2.0, 3.0, 4.0, 5.0]
 Y = [5.03, 3.92, 3.01, 2.41, 1.80, 1.12, 0.66, 0.42]
 BATCHES = ("jacobian", "hessian")

@@ -335,7 +335,7 @@ def test_demo_writes_every_promised_file(tmp_path):
 
 # ----------------------------------------------------------------------------- examples
 
-EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
+EXAMPLES = Path(__file__).resolve().parents[2] / "examples"
 
 
 def with_this_interpreter(name: str, into: Path) -> Path:

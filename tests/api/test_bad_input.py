@@ -282,7 +282,7 @@ def test_calibrate_and_explore_are_immune_to_an_objective_that_mutates_its_point
 
 def test_an_evaluation_longer_than_the_time_limit_is_kept_and_the_run_stops_after_it():
     # A Python objective cannot be cut off safely: the long evaluation completes, is kept, and no
-    # new one starts (a program is cut off by Command's timeout: tests/test_command.py).
+    # new one starts (a program is cut off by Command's timeout: tests/interface/test_command.py).
     calls = []
 
     def slow_second(x):

@@ -33,7 +33,7 @@ from directional.interface import cli
 from directional.report import summary as report
 from directional.run import journal as jr
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 BOUNDS = [(-3.0, 3.0), (-3.0, 3.0)]
 OUTAGE = {"on": False}  # a licence server that is down while "on"
 
@@ -71,7 +71,7 @@ MODEL = """\
 import os, time
 from pathlib import Path
 
-HERE = Path(__file__).resolve().parent
+HERE = Path(__file__).resolve().parents[1]
 
 
 def bowl(x):

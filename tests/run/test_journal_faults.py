@@ -1,7 +1,7 @@
 """Hardening, the journal: damaged files, a second process, a full disk, a power cut, and data that
 must never run.
 
-Items already checked in tests/test_journal.py (another problem, not a database, a foreign
+Items already checked in tests/run/test_journal.py (another problem, not a database, a foreign
 database, a damaged page, damaged rows, an edited header) are listed in tests/README.md, not
 repeated.  Processes are made with ``fork`` (fast: the package is imported already).  The
 objective is Rosenbrock's function (Moré, Garbow & Hillstrom 1981, problem 1: minimum 0 at

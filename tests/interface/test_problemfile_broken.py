@@ -2,8 +2,8 @@
 
 Run through the command line's own entry point, in this process (`directional.interface.cli.main`), as
 ``directional check`` / ``directional run`` would; the subprocess path of the console script is
-covered by tests/test_cli.py.  Items already checked in tests/test_problemfile.py are listed in
-tests/README.md, not repeated.  The objective is an analytic bowl (minimum at its centre).
+covered by tests/interface/test_cli.py.  Items already checked in tests/interface/test_problemfile.py are
+listed in tests/README.md, not repeated.  The objective is an analytic bowl (minimum at its centre).
 """
 
 from __future__ import annotations
@@ -185,7 +185,7 @@ def test_the_library_reads_the_same_file_with_the_same_errors(folder):
 
 
 def test_the_readme_says_plainly_that_problem_files_run_code():
-    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
     assert "run only problem files you\ntrust, like scripts" in readme or (
         "run only problem files you trust, like scripts" in " ".join(readme.split())
     )

@@ -4,7 +4,7 @@ A failure mask is a random part of the space where the objective fails (raises, 
 +inf).  Whatever the problem: no evaluation leaves the bounds; the library raises nothing but
 `ObjectiveError`, and that only when the start point fails; the best value never rises as the
 budget grows; a journal replays to the same state.  The smooth part is a shifted, rotated quartic
-bowl (analytic: convex, one minimum), the same family as tests/test_core_properties.py.
+bowl (analytic: convex, one minimum), the same family as tests/method/test_search.py.
 """
 
 from __future__ import annotations

@@ -6,7 +6,7 @@ process (fast: the package is imported already).  The objective is Wood's functi
 & Hillstrom 1981, problem 14: minimum 0 at (1, 1, 1, 1), standard start (-3, -1, -3, -1)); the
 default run includes the Hessian check, so kills also land in the check.  The explore objective
 is Himmelblau's function (Himmelblau 1972: four minima of value 0).  Faults of external programs
-(SIGTERM ignored, a flood of output, shell words) are in tests/test_command.py.
+(SIGTERM ignored, a flood of output, shell words) are in tests/interface/test_command.py.
 """
 
 from __future__ import annotations
@@ -151,7 +151,7 @@ def test_ctrl_c_twice_ends_the_run_promptly_and_loses_nothing(tmp_path, referenc
     # Resuming opens the journal (so no lock is held) and gives the uninterrupted run.  Whether
     # the session row says "interrupted" depends on where the second Ctrl-C landed: in the few
     # instructions before the journal starts closing it still interrupts (the closing itself is
-    # shielded: tests/test_hardening_journal.py).
+    # shielded: tests/run/test_journal_faults.py).
     assert recover(path, reference) < reference.evaluations
     capsys.readouterr()
 

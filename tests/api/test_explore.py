@@ -505,7 +505,7 @@ def test_killed_exploration_resumes_to_the_same_landscape(tmp_path, sequential):
     script = tmp_path / "run.py"
     script.write_text(textwrap.dedent(SCRIPT))
     path = tmp_path / "explore.sqlite"
-    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[1])}
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[2])}
     errors = tmp_path / "stderr.txt"
     with open(errors, "wb") as stderr:
         process = subprocess.Popen(

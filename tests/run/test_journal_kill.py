@@ -28,7 +28,7 @@ import directional as dl
 from directional.run import journal as jr
 
 START = [-3.0, -1.0, -3.0, -1.0]
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 
 CHILD = '''
 import json, os, signal, sys, time
