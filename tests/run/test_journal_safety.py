@@ -71,7 +71,7 @@ MODEL = """\
 import os, time
 from pathlib import Path
 
-HERE = Path(__file__).resolve().parents[1]
+HERE = Path(__file__).resolve().parent
 
 
 def bowl(x):
