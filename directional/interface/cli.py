@@ -477,10 +477,19 @@ def _bench(argv: list[str]) -> int:
 
 
 def exit_code(sol: Solution) -> int:
-    """0 for a verified minimum, else 1."""
+    """0 for a verified minimum, else 1.
+
+    A point where the objective is not smooth but every break is a corner (both one-sided slopes
+    rise away from it) and the smooth directions curve upward is a minimum too: verdict
+    ``nonsmooth`` with only corners exits 0.
+    """
     from directional.records import Verdict
 
-    return OK if sol.verdict is Verdict.MINIMUM else UNVERIFIED
+    if sol.verdict is Verdict.MINIMUM:
+        return OK
+    breaks = getattr(sol.curvature, "breaks", ()) if sol.curvature is not None else ()
+    corners = bool(breaks) and all(b.kind == "corner" for b in breaks)
+    return OK if sol.verdict is Verdict.NONSMOOTH and corners else UNVERIFIED
 
 
 def finish(

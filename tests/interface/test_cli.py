@@ -229,6 +229,26 @@ def test_run_that_cannot_verify_exits_1(tmp_path, bowl):
     assert "budget" in done.stdout
 
 
+def test_a_corner_minimum_exits_0_and_a_jump_edge_exits_1(tmp_path, bowl):
+    # |a - 0.3| + (log b - log 3)^2: a corner minimum at a = 0.3 (analytic), a verified minimum;
+    # a jump of +0.5 right of a = 0.4 on the bowl (a - 0.5)^2: the search stops on the low edge of
+    # the jump, a = 0.4 (analytic), which is not a verified minimum
+    (tmp_path / "model.py").write_text(
+        MODEL + "\n\ndef corner(x):\n    return abs(x[0] - 0.3) + (math.log(x[1]) - math.log(3.0)) ** 2\n"
+        "\n\ndef edge(x):\n    return (x[0] - 0.5) ** 2 + (math.log(x[1]) - math.log(3.0)) ** 2"
+        " + 0.5 * (x[0] > 0.4)\n",
+        encoding="utf-8",
+    )
+    bowl.write_text(BOWL.replace("model:bowl", "model:corner"), encoding="utf-8")
+    done = directional("run", str(bowl), "--no-journal", cwd=tmp_path)
+    assert done.returncode == 0, done.stdout + done.stderr
+    assert "verdict: nonsmooth" in done.stdout and "corner" in done.stdout
+    bowl.write_text(BOWL.replace("model:bowl", "model:edge"), encoding="utf-8")
+    done = directional("run", str(bowl), "--no-journal", cwd=tmp_path)
+    assert done.returncode == 1, done.stdout + done.stderr
+    assert "verdict: nonsmooth" in done.stdout and "edge" in done.stdout
+
+
 def test_run_of_a_broken_objective_exits_1(tmp_path, bowl):
     bowl.write_text(BOWL.replace("model:bowl", "model:broken"), encoding="utf-8")
     done = directional("run", str(bowl), "--no-journal", cwd=tmp_path)
