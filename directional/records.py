@@ -68,6 +68,7 @@ class Verdict(enum.Enum):
     MAXIMUM = "maximum"
     FLAT = "flat"
     NONSMOOTH = "nonsmooth"
+    NOISY = "noisy"  # the noise, not the objective, decided the check: no curvature verdict
     UNCHECKED = "unchecked"
 
 

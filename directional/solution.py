@@ -172,6 +172,7 @@ def _verdict_hint(verdict: Verdict) -> str:
         Verdict.MAXIMUM: " (negative curvature in every direction)",
         Verdict.FLAT: " (some parameter combination is not determined)",
         Verdict.NONSMOOTH: " (the objective has a kink or a jump at the point: see below)",
+        Verdict.NOISY: " (the noise hides the curvature at every step the bounds allow: see below)",
         Verdict.UNCHECKED: " (no curvature check was made)",
     }[verdict]
 
