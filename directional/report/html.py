@@ -190,6 +190,8 @@ _VERDICT = {
                       "direction from this point."),
     Verdict.FLAT: ("⚠", "A minimum that is not fully determined", "some combination of the "
                    "parameters hardly changes the objective (a flat direction)."),
+    Verdict.NONSMOOTH: ("⚠", "Not smooth at this point", "the objective has a kink or a jump "
+                        "here, so its curvature is judged only along the smooth directions."),
     Verdict.NOISY: ("⚠", "Curvature hidden by noise", "the objective's noise is larger than the "
                     "change the curvature makes at every step the bounds allow."),
     Verdict.UNCHECKED: ("⚠", "Not verified", "no curvature check was made at this point."),

@@ -395,3 +395,13 @@ def test_show_of_a_calibration_journal_without_vectors_in_a_browser(chromium, de
     assert "Not verified" in text and "cannot be replayed without evaluating" in text
     best = json.loads((demo / "solution.json").read_text())["value"]
     assert f"{best:.10g}" in text  # the run's best value, from the journal
+
+
+def test_every_verdict_has_a_heading_in_the_report():
+    # A verdict missing from the table used to raise KeyError for a nonsmooth run's report.
+    from directional.records import Verdict
+    from directional.report import html as report
+    from directional.solution import _verdict_hint
+
+    assert set(report._VERDICT) == set(Verdict)
+    assert all(_verdict_hint(v).startswith(" (") for v in Verdict)
