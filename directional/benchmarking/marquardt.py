@@ -105,13 +105,17 @@ def levenberg_marquardt(
     ftol: float = ROOT_EPS,
     xtol: float = ROOT_EPS,
     gtol: float = 0.0,
+    precision: float = EPS,
 ) -> Fit:
     """Minimize ``||residuals(x)||^2`` by Levenberg–Marquardt with Moré's (1978) trust region.
 
     Every call of ``residuals`` counts against ``budget``, those of the forward-difference
     Jacobians included.  The defaults of ``ftol`` and ``xtol`` (the square root of the machine
     epsilon) are common practice, no source; ``gtol = 0`` leaves the orthogonality test to an
-    exactly zero gradient.
+    exactly zero gradient.  ``precision`` is the relative accuracy of the residuals (the
+    machine epsilon for a formula; an ODE solver's relative tolerance for a simulation): the
+    forward-difference steps are ``sqrt(precision)`` relative (Dennis & Schnabel 1983, section
+    5.4), so that rounding or solver error does not swamp the differences.
 
     >>> fit = levenberg_marquardt(lambda b: np.array([b[0] - 1.0, 10.0 * (b[1] - b[0] ** 2)]),
     ...                           [-1.2, 1.0], budget=500)
@@ -126,8 +130,9 @@ def levenberg_marquardt(
     x = np.array(x0, dtype=float).reshape(-1)
     counted = _Counted(residuals, int(budget))
     state = {"x": x, "f": None, "J": None, "iterations": 0}
+    relative = math.sqrt(max(float(precision), EPS))
     try:
-        reason = _iterate(counted, state, ftol, xtol, gtol)
+        reason = _iterate(counted, state, ftol, xtol, gtol, relative)
     except _Spent:
         reason = "budget"
     if state["f"] is None:
@@ -144,7 +149,9 @@ def levenberg_marquardt(
     )
 
 
-def _iterate(counted: _Counted, state: dict, ftol: float, xtol: float, gtol: float) -> str:
+def _iterate(
+    counted: _Counted, state: dict, ftol: float, xtol: float, gtol: float, relative: float
+) -> str:
     """The outer iteration of Moré (1978): a Jacobian, then trial steps until one is taken."""
     x = state["x"]
     f = counted(x)
@@ -158,7 +165,7 @@ def _iterate(counted: _Counted, state: dict, ftol: float, xtol: float, gtol: flo
         fnorm = float(np.linalg.norm(f))
         if fnorm == 0.0:
             return "zero residual"
-        J = forward_jacobian(counted, x, f)
+        J = forward_jacobian(counted, x, f, relative)
         if J is None:
             return "failed evaluation in the Jacobian"
         state["J"] = J
@@ -217,12 +224,15 @@ def _update(
     return radius, lam
 
 
-def forward_jacobian(counted: Callable, x: np.ndarray, f: np.ndarray) -> np.ndarray | None:
-    """Forward differences, column ``j`` from ``x + h_j e_j`` with ``h_j = sqrt(eps) |x_j|``
-    (``sqrt(eps)`` where ``x_j = 0``; Dennis & Schnabel 1983, section 5.4): ``p`` evaluations."""
+def forward_jacobian(
+    counted: Callable, x: np.ndarray, f: np.ndarray, relative: float = ROOT_EPS
+) -> np.ndarray | None:
+    """Forward differences, column ``j`` from ``x + h_j e_j`` with ``h_j = relative |x_j|``
+    (``relative`` where ``x_j = 0``; Dennis & Schnabel 1983, section 5.4, with ``relative`` the
+    square root of the residuals' relative accuracy): ``p`` evaluations; None if one failed."""
     J = np.empty((f.size, x.size))
     for j in range(x.size):
-        h = ROOT_EPS * (abs(x[j]) if x[j] != 0.0 else 1.0)
+        h = relative * (abs(x[j]) if x[j] != 0.0 else 1.0)
         shifted = x.copy()
         shifted[j] += h
         h = shifted[j] - x[j]  # the step the floating-point numbers actually took
