@@ -18,6 +18,8 @@ relative reduction (actual and predicted both below ``ftol``), relative step (ra
 ``xtol ||D x||``), orthogonality (every Jacobian column at an angle to ``f`` whose cosine is below
 ``gtol``), a zero residual, or the budget.
 
+The section, equation and algorithm numbers of Moré (1978) above are cited from memory.
+
 References
 ----------
 .. [1] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
