@@ -1,4 +1,4 @@
-"""``python -m benchmarks.noisy [--smoke] [--out FILE]``: the benchmarks under noise.
+"""``python -m benchmarks.noisy [--smoke] [--streams K] [--out FILE]``: the benchmarks under noise.
 
 Runs `directional` and the baselines on the MGH set under relative noise 1e-3 (data profiles at
 τ = 1e-1 and 1e-3, judged on true values) and on smooth functions of our own plus Gaussian noise
@@ -44,6 +44,8 @@ def main(argv: list[str] | None = None) -> int:
                         "above --out when it lies in a results/ folder, else none)")
     parser.add_argument("--smoke", action="store_true",
                         help="three problems, two functions, two seeds: checks it runs")
+    parser.add_argument("--streams", type=int, default=1,
+                        help="noise streams per MGH pair (default 1: each pair once)")
     parser.add_argument("--record-before", action="store_true",
                         help=f"store the smooth numbers of RESULTS.md in {BEFORE.name} and stop")
     args = parser.parse_args(argv)
@@ -59,7 +61,8 @@ def main(argv: list[str] | None = None) -> int:
                                                                                    100.0), 100)
     chosen, dropped = problems.pairs(numbers, factors)
     say(f"noisy MGH: {len(chosen)} pairs, budget {units} (n + 1)")
-    mgh = study.run_noisy_mgh(chosen, dropped, study.profile_solvers(), units, progress=say)
+    mgh = study.run_noisy_mgh(chosen, dropped, study.profile_solvers(), units,
+                              streams=args.streams, progress=say)
     functions = noisy.smooth_functions()[:2] if args.smoke else noisy.smooth_functions()
     seeds = study.SEEDS[:2] if args.smoke else study.SEEDS
     say(f"smooth plus Gaussian: {len(functions)} functions, {len(seeds)} seeds")

@@ -118,6 +118,7 @@ class NoisyStudy:
     names: list[str]
     runs: list[list[Outcome]]
     units: int
+    streams: int = 1  # noise streams per pair: each pair appears this many times in ``pairs``
 
     def lowest(self) -> np.ndarray:
         """``f_L`` per pair: the least true value any solver evaluated, or the start's."""
@@ -142,9 +143,9 @@ class NoisyStudy:
         return out
 
 
-def pair_seed(pair: Pair) -> list[int]:
+def pair_seed(pair: Pair, stream: int = 0) -> list[int]:
     """The random stream of a pair: the same for every solver on it (common random numbers)."""
-    return [SEED, pair.problem.number, int(round(pair.factor))]
+    return [SEED, pair.problem.number, int(round(pair.factor)), stream]
 
 
 def run_noisy_mgh(
@@ -153,26 +154,32 @@ def run_noisy_mgh(
     solvers: dict[str, Callable],
     units: int,
     level: float = LEVEL,
+    streams: int = 1,
     progress: Callable[[str], None] = lambda text: None,
 ) -> NoisyStudy:
-    """Every solver on every pair under relative noise, ``units (n + 1)`` evaluations each.
+    """Every solver on every pair under relative noise, ``units (n + 1)`` evaluations each, once
+    per noise stream (``streams`` > 1 repeats each pair with other random numbers).
 
     A pair on which no solver evaluated a point truly below the start is left out, as in the
     smooth study (the test would count it solved by everyone at once).
     """
     kept, runs, dropped = [], [], list(dropped)
-    for k, pair in enumerate(pairs):
-        budget = units * (pair.n + 1)
-        row = [run_one(solve, noisy.RelativeNoise(pair.problem, level=level, seed=pair_seed(pair)),
-                       pair.start, budget) for solve in solvers.values()]
-        progress(f"  noisy pair {k + 1}/{len(pairs)}: {pair.label}")
-        if not any(np.any(o.true_values < pair.f0) for o in row):
-            dropped.append(f"{pair.label.strip()}: no solver evaluated a point truly below the "
-                           "start")
-            continue
-        kept.append(pair)
-        runs.append(row)
-    return NoisyStudy(pairs=kept, dropped=dropped, names=list(solvers), runs=runs, units=units)
+    for stream in range(streams):
+        for k, pair in enumerate(pairs):
+            budget = units * (pair.n + 1)
+            row = [run_one(solve, noisy.RelativeNoise(pair.problem, level=level,
+                                                      seed=pair_seed(pair, stream)),
+                           pair.start, budget) for solve in solvers.values()]
+            progress(f"  noisy pair {k + 1}/{len(pairs)}, stream {stream + 1}: {pair.label}")
+            if not any(np.any(o.true_values < pair.f0) for o in row):
+                dropped.append(f"{pair.label.strip()}" + (f" (stream {stream + 1})" if streams > 1
+                                                          else "")
+                               + ": no solver evaluated a point truly below the start")
+                continue
+            kept.append(pair)
+            runs.append(row)
+    return NoisyStudy(pairs=kept, dropped=dropped, names=list(solvers), runs=runs, units=units,
+                      streams=streams)
 
 
 def behind(profile: np.ndarray, budgets: Sequence[float], ours: int) -> dict[int, list[float]]:

@@ -79,6 +79,9 @@ def smooth_target(before: dict | None, now: dict | None) -> Target:
     if before is None or now is None or not now["data"]:
         missing = "the snapshot" if before is None else "the full run's RESULTS.md"
         return name, f"not measured: {missing} not found", False, "—"
+    if (before["run"], before["commit"]) == (now["run"], now["commit"]):
+        return (name, "not measured: RESULTS.md still holds the run the snapshot was taken from "
+                "(rerun `python -m benchmarks` first)", False, f"{before['run']}")
     worse, compared = [], 0
     for tau, row in before["data"].items():
         for budget, was in row.items():
@@ -127,7 +130,13 @@ def noisy_target(study: NoisyStudy) -> Target:
                 + ("; ".join(words) if words else "never behind a baseline"))
     return (f"noisy MGH (relative noise {LEVEL:g}), τ = {HEADLINE:.0e}: not behind any baseline "
             f"at any budget 0 to {DATA_BUDGETS[-1]} (n + 1)", measured, not lagging,
-            f"{len(study.pairs)} pairs")
+            _instances(study))
+
+
+def _instances(study: NoisyStudy) -> str:
+    if study.streams == 1:
+        return f"{len(study.pairs)} pairs"
+    return f"{len(study.pairs)} (pair, noise stream) runs, {study.streams} streams"
 
 
 def gaussian_targets(rows: Sequence[GaussianRow]) -> list[Target]:
@@ -138,12 +147,14 @@ def gaussian_targets(rows: Sequence[GaussianRow]) -> list[Target]:
             continue
         seeds = len(row.gaps)
         flat = sum(1 for v in row.verdicts if v == "flat")
+        other = sum(1 for v in row.verdicts if v not in ("flat", "minimum"))
         need = seeds - 1
         out.append((f"{row.function.name} (n = {row.function.n}, σ = {row.function.sigma:g}): "
                     f"gap ≤ 10 σ on ≥ {need} of {seeds} seeds, never flat",
                     f"{row.within()} of {seeds} within 10 σ (median {_g(np.median(row.gaps))} σ)"
-                    f", flat on {flat}", row.within() >= need and flat == 0,
-                    f"{seeds} seeds, default settings"))
+                    f"; flat on {flat}" + (f", neither flat nor minimum on {other}" if other
+                                           else ""),
+                    row.within() >= need and flat == 0, f"{seeds} seeds, default settings"))
     return out
 
 
@@ -178,8 +189,9 @@ def _mgh_section(study: NoisyStudy, figure: str | None) -> list[str]:
     lines = [
         f"#### Noisy MGH: relative noise {LEVEL:g}",
         "",
-        f"The {len(study.pairs)} pairs of the smooth profiles (same problems, starts and budget, "
-        f"{study.units} (n + 1) evaluations), each value returned as f(x)(1 + {LEVEL:g} ε) with ε "
+        f"The pairs of the smooth profiles (same problems, starts and budget, "
+        f"{study.units} (n + 1) evaluations; {_instances(study)}), each value returned as "
+        f"f(x)(1 + {LEVEL:g} ε) with ε "
         "uniform on [−1, 1] and drawn anew at every evaluation. Moré & Wild (2009, section 5; "
         "from memory) perturb the MGH functions by the same relative level 1e-3 through a "
         "deterministic oscillating function of x in [−1, 1]; the stochastic version here is the "
@@ -219,8 +231,31 @@ def _mgh_section(study: NoisyStudy, figure: str | None) -> list[str]:
               "budget).", "",
               *table(["τ", "solver", "returned point passes"], rows), "",
               *table(["solver", "median evaluations spent, n + 1"],
-                     [[name, spent[s]] for s, name in enumerate(study.names)])]
+                     [[name, spent[s]] for s, name in enumerate(study.names)]), ""]
+    lines += ["<details><summary>Where the point `directional` returned misses τ = "
+              f"{HEADLINE:.0e} and a baseline's passes</summary>", "", *_missed(study), "",
+              "</details>"]
     return lines
+
+
+def _missed(study: NoisyStudy) -> list[str]:
+    ok = study.returned_solved(HEADLINE)
+    lowest = study.lowest()
+    ours = study.names.index("directional")
+    rows = []
+    for p, (pair, row) in enumerate(zip(study.pairs, study.runs)):
+        others = [s for s in range(len(study.names)) if s != ours and ok[p, s]]
+        if ok[p, ours] or not others:
+            continue
+        best = min(others, key=lambda s: row[s].returned_value)
+        rows.append([pair.label.strip(), f"{pair.f0:.4g}", f"{lowest[p]:.6g}",
+                     f"{row[ours].returned_value:.6g}",
+                     whole(row[ours].true_values.size / (pair.n + 1)),
+                     f"{study.names[best]}: {row[best].returned_value:.6g}"])
+    if not rows:
+        return ["None."]
+    return table(["pair", "f(x0)", "f_L (true)", "directional returned (true value)",
+                  "its evaluations, n + 1", "best baseline returned (true value)"], rows)
 
 
 def _gaussian_section(rows: Sequence[GaussianRow]) -> list[str]:

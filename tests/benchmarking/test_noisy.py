@@ -195,6 +195,8 @@ def test_smooth_target_names_what_got_worse():
     assert not met and "96 → 95" in measured and "2.02 → 2.10" in measured
     assert "17" not in measured  # a gain is not listed
     assert not noisywriteup.smooth_target(None, same)[2]
+    unchanged = noisywriteup.smooth_target(before, dict(before))  # the full run not rerun yet
+    assert not unchanged[2] and unchanged[1].startswith("not measured")
 
 
 def test_include_replaces_inserts_and_appends_in_name_order():
@@ -219,3 +221,21 @@ def test_smoke_run_writes_the_page_the_figure_and_the_block(tmp_path):
     assert "not measured" in page  # this RESULTS.md has no smooth numbers to compare
     assert (tmp_path / script.FIGURE).stat().st_size > 10_000
     assert results.read_text(encoding="utf-8").endswith(page)
+
+
+def test_the_noisy_study_repeats_exactly_and_streams_differ():
+    chosen, dropped = problems.pairs((1,), (1.0,))
+    solvers = noisystudy.profile_solvers()
+
+    def run():
+        return noisystudy.run_noisy_mgh(chosen, dropped, solvers, units=100, streams=2)
+
+    first, again = run(), run()
+    assert len(first.pairs) == 2 and first.streams == 2
+    for a, b in zip(first.runs, again.runs):
+        for x, y in zip(a, b):
+            assert np.array_equal(x.true_values, y.true_values)  # seeds fixed: deterministic
+    hooke_jeeves = first.names.index("Hooke-Jeeves")
+    assert not np.array_equal(first.runs[0][hooke_jeeves].true_values,
+                              first.runs[1][hooke_jeeves].true_values)  # another noise stream
+    assert all(o.true_values.size <= 300 for row in first.runs for o in row)  # 100 (n + 1)
