@@ -16,6 +16,7 @@ import pytest
 from scipy import stats
 
 from benchmarks import noisy as script
+from directional.benchmarking import main as bench_main
 from directional.benchmarking import noisy, noisystudy, noisywriteup, problems, profiles
 
 N = 20000
@@ -239,3 +240,17 @@ def test_the_noisy_study_repeats_exactly_and_streams_differ():
     assert not np.array_equal(first.runs[0][hooke_jeeves].true_values,
                               first.runs[1][hooke_jeeves].true_values)  # another noise stream
     assert all(o.true_values.size <= 300 for row in first.runs for o in row)  # 100 (n + 1)
+
+
+def test_include_lays_out_the_block_as_the_full_run_does(tmp_path):
+    # The full run includes results/*.md verbatim; bringing the block up to date in place must
+    # give the very text the next full run would write.
+    folder = tmp_path / "results"
+    folder.mkdir()
+    for name, body in (("check.md", "c\n"), ("noise.md", "### Noise\n\nn\n"), ("x.md", "x\n")):
+        (folder / name).write_text(body, encoding="utf-8")
+    assert bench_main(["--smoke", "--out", str(tmp_path)]) == 0
+    written = (tmp_path / "RESULTS.md").read_text(encoding="utf-8")
+    assert noisywriteup.include(written, "noise.md", "### Noise\n\nn\n") == written
+    changed = noisywriteup.include(written, "noise.md", "### Noise\n\nm\n")
+    assert changed == written.replace("### Noise\n\nn\n", "### Noise\n\nm\n")
