@@ -5,11 +5,12 @@ own seeded generator, so a run is deterministic given the seed and the order of 
 each keeps the noise-free value of every point it was asked for (to judge a solver by what it
 really reached, not by what the noise showed it).
 
-- `RelativeNoise`: ``f(x) (1 + level ε)``, ε uniform on [-1, 1].  The relative noise of level
-  1e-3 follows the noisy problems of Moré & Wild (2009), section 5, from memory: there the
-  perturbation is a deterministic oscillating function of x with values in [-1, 1] and
-  ``ε_f = 1e-3``; here, as issue 18 asks, it is stochastic, drawn anew at each evaluation, and
-  uniform on the same range (our choice).  At a zero minimum the noise vanishes with f.
+- `RelativeNoise`: ``f(x) (1 + level ε)``, ε uniform on [-1, 1].  The relative level 1e-3 is
+  that of the noisy problems of Moré & Wild (2009) (from memory, section and details not checked
+  against the paper: there the factor is a deterministic oscillating function of x with values
+  in [-1, 1], ``f(x) (1 + ε_f φ(x))`` with ``ε_f = 1e-3``).  Here, as issue 18 asks, ε is
+  stochastic, drawn anew at each evaluation, uniform on the same range (our choice).  At a zero
+  minimum the noise vanishes with f.
 - `GaussianNoise`: ``f(x) + σ ε``, ε standard normal: additive noise of known size.
 
 The smooth functions of the Gaussian table (`smooth_functions`) are our own, each with a known

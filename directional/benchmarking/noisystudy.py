@@ -38,7 +38,7 @@ from directional.benchmarking import baselines, noisy, profiles
 from directional.benchmarking.problems import Pair
 
 SEED = 2009  # the root of every random stream of the study
-LEVEL = 1e-3  # relative noise of the MGH profiles (Moré & Wild 2009, section 5, from memory)
+LEVEL = 1e-3  # relative noise of the MGH profiles (the level of Moré & Wild 2009, from memory)
 NOISY_TAUS = (1e-1, 1e-3)
 HEADLINE = 1e-3  # the accuracy of the target
 SEEDS = (0, 1, 2, 3, 4)  # of the Gaussian table
