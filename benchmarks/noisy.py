@@ -116,7 +116,12 @@ def _commit() -> str:
                               text=True, timeout=5, cwd=HERE)
     except (OSError, subprocess.SubprocessError):
         return ""
-    return done.stdout.strip() if done.returncode == 0 else ""
+    if done.returncode != 0:
+        return ""
+    edited = subprocess.run(  # the code only: the results this script writes do not count
+        ["git", "status", "--porcelain", "--untracked-files=no", "--", ":/directional",
+         ":/benchmarks/*.py"], capture_output=True, text=True, timeout=5, cwd=HERE)
+    return done.stdout.strip() + (" with local edits" if edited.stdout.strip() else "")
 
 
 def _printer():
