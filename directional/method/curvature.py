@@ -406,6 +406,8 @@ def check_point(
     reach = np.minimum(u0 - space.lower_u, space.upper_u - u0)[free]
     diagonal = np.full(int(free.sum()), np.nan) if free_scaled is None else np.diag(free_scaled)[free]
     seen: list[tuple[np.ndarray, np.ndarray]] = []  # every stencil point and value, for smoothness
+    cost = check_cost(check, int(free.sum()))
+    held = ""  # why the steps could not grow further (budget)
     for attempt in range(RESIZES + 1):
         steps = step_sizes(diagonal, f0, noise, reach, check)
         try:
@@ -427,15 +429,17 @@ def check_point(
         used = np.where(np.isfinite(diagonal) & (diagonal > 0.0), diagonal, np.inf)
         if noise is None or attempt == RESIZES or not np.any(found < 0.25 * used):
             break
+        if room - cost * (attempt + 1) < cost:
+            held = "the budget left cannot pay for a stencil with larger steps"
+            break
         diagonal = np.where(found < 0.25 * used, found, diagonal)
     largest = np.minimum(NOISY_LARGEST, reach)
-    held = ""  # why the steps could not grow further (budget)
-    paid = check_cost(check, int(free.sum())) * (attempt + 1)
-    for _ in range(GROWTHS if noise is not None and check == Check.QUICK else 0):
+    paid = cost * (attempt + 1)
+    for _ in range(GROWTHS if noise is not None and check == Check.QUICK and not held else 0):
         grow = _to_grow(measured, float(noise), largest)
         if not grow.any():
             break
-        if room - paid < check_cost(check, int(free.sum())):
+        if room - paid < cost:
             held = "the budget left cannot pay for a stencil with larger steps"
             break
         steps = np.where(grow, np.minimum(GROWTH * measured.steps, largest), measured.steps)
@@ -444,7 +448,7 @@ def check_point(
         except Halt as halt:
             held = f"the stencil with larger steps was stopped: {halt.reason}"
             break
-        paid += check_cost(check, int(free.sum()))
+        paid += cost
         if grown.problem:
             held = f"the stencil with larger steps failed: {grown.problem}"
             break
