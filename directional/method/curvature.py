@@ -32,6 +32,10 @@ point it returns is checked.
    (unless the smooth rest is a saddle or flat), the break is named (`records.Break`), and the
    curvature is judged on the directions orthogonal to it only.  A direction along a kinked
    valley that still goes down is escaped along, like one of negative curvature.
+   With a noise level (stated, estimated or noticed by the search) the steps grow where the noise
+   hides an eigenvalue, each bar holds the eigenvalue's own noise (`hessian.eigenvalue_noise`),
+   and FLAT needs the largest steps allowed; where the noise alone decided, the verdict is NOISY
+   with the level in the note (`_hidden`).
 4. Escape.  On SADDLE or MAXIMUM the eigenvector of most negative curvature is line-searched both
    ways, the direction-set search restarts from the better point, and the new point is checked:
    at most ``escapes`` times.  When the line search gains less than the search's own value
@@ -66,8 +70,10 @@ from directional.method.hessian import (
     Measured,
     eigenvalue_noise,
     extrapolated_hessian,
+    fourth_noise,
     noise_margin,
     quick_hessian,
+    stencil_noise,
     step_sizes,
     truncation,
 )
@@ -381,8 +387,8 @@ def check_point(
         )
         if first.curvature is None or first.curvature.source == "free" or not undecided(first):
             return first
-        if noise is not None:  # extrapolating from h/4 steps amplifies the noise 16-fold
-            return first
+        if noise is not None or math.isfinite(first.curvature.noise):
+            return first  # extrapolating from h/4 steps amplifies the noise 16-fold
         if room - check_cost(Check.QUICK, k) < check_cost(Check.EXTRAPOLATED, k):
             note = ("an eigenvalue of the one-stencil check lies near its error bar; the budget "
                     "left cannot pay for the extrapolated check that would settle it")
@@ -433,6 +439,20 @@ def check_point(
             held = "the budget left cannot pay for a stencil with larger steps"
             break
         diagonal = np.where(found < 0.25 * used, found, diagonal)
+    if noise is None and check == Check.QUICK and measured.lines is not None:
+        noticed = yield from _noticed(space, u0, free, measured, reach, room - cost)
+        if math.isfinite(noticed):
+            checked = yield from check_point(
+                space, u0, f0, free_scaled, check=check, noise=noticed, active=active,
+                room=room - 2 * cost,
+            )
+            note = (f"noise noticed by the check: standard deviation about {noticed:.2g}, from the "
+                    "fourth differences of its stencil at two scales (Moré & Wild 2011); the "
+                    "steps and error bars allow for it (give noise= to state it)")
+            return dataclasses.replace(
+                checked, note="; ".join(n for n in (note, checked.note) if n)
+            )
+        seen = seen[:1]  # a stencil at larger steps said it is no noise: judge the first alone
     largest = np.minimum(NOISY_LARGEST, reach)
     paid = cost * (attempt + 1)
     for _ in range(GROWTHS if noise is not None and check == Check.QUICK and not held else 0):
@@ -459,6 +479,33 @@ def check_point(
         seen = seen[-1:]
     return (yield from _judged(space, u0, f0, free, measured, noise, check, free_rec, seen,
                                largest=largest, held=held))
+
+
+def _noticed(
+    space: Space, u0: np.ndarray, free: np.ndarray, measured: Measured, reach: np.ndarray,
+    room: float,
+) -> Generator[Batch, np.ndarray, float]:
+    """The noise level a stencil evaluated with no level stated shows, or nan.
+
+    Where `hessian.stencil_noise` finds the axis lines noisy, a second stencil at 16 times the
+    steps tells noise from a kink or a jump along every axis: the fourth differences of noise
+    keep their size, those of a kink grow with the step (16-fold) and those of a smooth function
+    far faster.  The level stands when the second stencil's (`hessian.fourth_noise`) is within
+    a factor 4 of the first's.  No second stencil (nan) when the room to the bounds or the budget
+    ``room`` does not allow one, or when it is stopped.
+    """
+    level = stencil_noise(measured.lines)
+    wide = 16.0 * measured.steps
+    k = len(measured.steps)
+    if not math.isfinite(level) or np.any(wide > reach) or room < check_cost(Check.QUICK, k):
+        return math.nan
+    try:
+        wider = yield from quick_hessian(space, u0, free, wide)
+    except Halt:
+        return math.nan
+    if wider.problem or wider.lines is None or not fourth_noise(wider.lines) <= 4.0 * level:
+        return math.nan
+    return level
 
 
 def _to_grow(measured: Measured, noise: float, largest: np.ndarray) -> np.ndarray:

@@ -153,6 +153,7 @@ class Measured:
     steps: np.ndarray
     problem: str = ""  # why the measurement is unusable ("" when it is fine)
     spread: np.ndarray | None = None  # quick stencil: D(h) - D(h/2) along each axis
+    lines: np.ndarray | None = None  # quick stencil: f at -h, -h/2, 0, h/2, h along each axis
 
 
 def _embed(space: Space, u0: np.ndarray, free: np.ndarray, v: np.ndarray) -> np.ndarray:
@@ -238,6 +239,8 @@ def quick_hessian(
     f0 = values[0]
     half = 1 + 2 * k + 4 * len(pairs)
     spread = np.zeros(k)
+    lines = np.array([[values[2 + 2 * i], values[half + 1 + 2 * i], f0, values[half + 2 * i],
+                       values[1 + 2 * i]] for i in range(k)])
     for i in range(k):
         hessian[i, i] = (values[1 + 2 * i] - 2.0 * f0 + values[2 + 2 * i]) / steps[i] ** 2
         near = (values[half + 2 * i] - 2.0 * f0 + values[half + 1 + 2 * i]) / (0.5 * steps[i]) ** 2
@@ -246,4 +249,55 @@ def quick_hessian(
         pp, pm, mp, mm = values[1 + 2 * k + 4 * n : 5 + 2 * k + 4 * n]
         hessian[i, j] = hessian[j, i] = (pp - pm - mp + mm) / (4.0 * steps[i] * steps[j])
     measured = _checked_measure(hessian, np.zeros((k, k)), steps, known)
-    return dataclasses.replace(measured, spread=spread)
+    return dataclasses.replace(measured, spread=spread, lines=lines)
+
+
+NOTICE = 100.0  # the stencil looks noisy above this many rounding levels (our choice)
+AGREEMENT = 4.0  # sigma_2, sigma_3, sigma_4 within this factor (as in Moré & Wild 2011)
+
+
+def stencil_noise(lines: np.ndarray) -> float:
+    """The noise level the quick stencil's axis lines show, or nan where they look smooth.
+
+    Each line holds five equally spaced values (`quick_hessian`'s ``lines``).  As in the
+    difference tables of Moré & Wild (2011), ``sigma_k = sqrt(gamma_k mean((Δ^k f)²))`` with
+    ``gamma_k = (k!)² / (2k)!`` estimates the noise once the smooth part of the k-th differences
+    has died out; here the orders 2, 3 and 4 of every line are pooled.  The lines look noisy when
+    ``sigma_2``, ``sigma_3`` and ``sigma_4`` agree within a factor 4 (for a smooth function they
+    fall steeply with the order at steps this small), ``sigma_4`` exceeds ``NOTICE`` times the
+    rounding of the values (``4 eps max |f|``), and every line on its own shows at least a tenth
+    of the level (a kink or a jump along some axes shows only on those), and the odd parts of
+    the lines, linear for a kink at the point, show it too.  A kink beside the point along every
+    axis may still pass; the caller tells it from noise at larger steps.  The level returned is the
+    root mean square of the three orders.
+
+    >>> rng = np.random.default_rng(0)
+    >>> 0.3 < stencil_noise(1.0 + 1e-3 * rng.standard_normal((3, 5))) / 1e-3 < 3.0
+    True
+    >>> math.isnan(stencil_noise(np.array([[1.0, 1.0 + 1e-9, 1.0 + 4e-9, 1.0 + 9e-9, 1.0 + 16e-9]])))
+    True
+    """
+    lines = np.asarray(lines, dtype=float)
+    if lines.size == 0 or not np.all(np.isfinite(lines)):
+        return math.nan
+    rounding = 4.0 * EPSILON * float(np.max(np.abs(lines)))
+    gamma = {2: 4.0 / 24.0, 3: 36.0 / 720.0, 4: 576.0 / 40320.0}
+    sigma = {k: math.sqrt(gamma[k] * float(np.mean(np.diff(lines, n=k, axis=1) ** 2))) for k in gamma}
+    if sigma[4] <= NOTICE * rounding or max(sigma.values()) > AGREEMENT * min(sigma.values()):
+        return math.nan
+    each = np.sqrt(np.mean(np.concatenate(
+        [gamma[k] * np.diff(lines, n=k, axis=1) ** 2 for k in gamma], axis=1), axis=1))
+    if np.any(each < 0.1 * sigma[4]):
+        return math.nan
+    # the odd part o(t) = (f(t) - f(-t)) / 2 is linear in t for a kink or a corner at the point
+    # (and nearly so for a smooth function): o(h) - 2 o(h/2) vanishes there, while for noise it
+    # has standard deviation sqrt(1/2 + 4/2) sigma
+    odd = (lines[:, 4] - lines[:, 0]) / 2.0 - (lines[:, 3] - lines[:, 1])
+    if math.sqrt(float(np.mean(odd**2)) / 2.5) < 0.1 * sigma[4]:
+        return math.nan
+    return math.sqrt(sum(v * v for v in sigma.values()) / 3.0)  # the three orders pooled
+
+
+def fourth_noise(lines: np.ndarray) -> float:
+    """``sigma_4`` of the axis lines alone: the noise level their fourth differences show."""
+    return math.sqrt(float(np.mean(np.diff(np.asarray(lines, dtype=float), n=4, axis=1) ** 2)) / 70.0)

@@ -198,3 +198,57 @@ def test_a_noisy_verdict_is_reported_with_the_level_and_exits_1():
 
     assert solution_document(sol)["curvature"]["noise"] == 1e-3
     assert exit_code(sol) == 1
+
+
+# --------------------------------------------------------------------------- noise not stated
+
+
+def test_the_stencil_lines_tell_noise_from_smooth_values_and_kinks():
+    # five values h/2 apart along each axis (-h, -h/2, 0, h/2, h), h = 1e-4
+    t = np.array([-1.0, -0.5, 0.0, 0.5, 1.0]) * 1e-4
+    rng = np.random.default_rng(2)
+    smooth = np.array([1.0 + 2.0 * t + 3.0 * t**2, 0.5 - t + t**2])  # a quadratic (analytic)
+    noisy = smooth + 1e-3 * rng.standard_normal(smooth.shape)
+    corner = np.array([np.abs(t) + t**2, 2.0 * np.abs(t) + 0.5 * t])  # |x| kinks at the point
+    one_axis = np.array([noisy[0], smooth[1]])  # a break along one axis only
+    assert 1e-3 / 3 < hessian.stencil_noise(noisy) < 3e-3
+    assert math.isnan(hessian.stencil_noise(smooth))
+    assert math.isnan(hessian.stencil_noise(corner))
+    assert math.isnan(hessian.stencil_noise(one_axis))
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+@pytest.mark.parametrize("seed", SEEDS)
+def test_at_the_true_minimum_unstated_noise_is_noticed_and_gives_minimum(name, seed):
+    make, sigma = CASES[name]
+    f, _, minimum = make(sigma, seed)
+    checked = check_at(f, minimum, None)
+    assert checked.verdict is Verdict.MINIMUM, checked.note
+    # the level read off the stencil: a handful of fourth differences, so within a factor 4
+    assert sigma / 4 < checked.curvature.noise < 4 * sigma
+    assert checked.note.startswith("noise noticed by the check")
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_with_default_settings_the_check_never_reads_flat(name):
+    make, sigma = CASES[name]
+    verdicts = []
+    for seed in SEEDS:
+        f, start, _ = make(sigma, seed)
+        sol = dl.minimize(f, start)
+        verdicts.append(sol.verdict)
+        assert sol.verdict in (Verdict.MINIMUM, Verdict.NOISY), (seed, sol.verdict, sol.notes)
+    assert verdicts.count(Verdict.MINIMUM) >= 4
+
+
+def test_a_kink_at_the_point_in_every_axis_is_not_taken_for_noise():
+    # |x0 + x1| + |x0 - x1| at 0: a corner along both axes (analytic); no noise is noticed and
+    # the check costs one stencil (2 k² + 2 k + 1 = 13 points for k = 2) and its probes
+    space = build_space([0.0, 0.0], [(-1, 1), (-1, 1)])
+    f = lambda x: abs(x[0] + x[1]) + abs(x[0] - x[1])  # noqa: E731
+    gen = curvature.check_point(space, space.to_scaled(np.zeros(2)), 0.0, None,
+                                check=Check.QUICK, noise=None, active=np.zeros(2, bool))
+    batch = next(gen)
+    assert batch.purpose == "hessian"
+    batch = gen.send(np.array([f(p) for p in batch.points]))
+    assert batch.purpose != "hessian"
