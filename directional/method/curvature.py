@@ -491,13 +491,14 @@ def _noticed(
     steps tells noise from a kink or a jump along every axis: the fourth differences of noise
     keep their size, those of a kink grow with the step (16-fold) and those of a smooth function
     far faster.  The level stands when the second stencil's (`hessian.fourth_noise`) is within
-    a factor 4 of the first's.  No second stencil (nan) when the room to the bounds or the budget
-    ``room`` does not allow one, or when it is stopped.
+    a factor 4 of the first's.  No second stencil (nan) when the room to the bounds does not
+    allow one, when the budget ``room`` cannot pay for it and a check at the noise's steps after
+    it, or when it is stopped.
     """
     level = stencil_noise(measured.lines)
     wide = 16.0 * measured.steps
     k = len(measured.steps)
-    if not math.isfinite(level) or np.any(wide > reach) or room < check_cost(Check.QUICK, k):
+    if not math.isfinite(level) or np.any(wide > reach) or room < 2 * check_cost(Check.QUICK, k):
         return math.nan
     try:
         wider = yield from quick_hessian(space, u0, free, wide)
@@ -692,7 +693,7 @@ def _hidden(
     involved = np.any(weights >= 0.1 * np.max(weights, axis=0), axis=1)
     steps = measured.steps
     reached = largest is not None and bool(np.all(steps[involved] >= largest[involved] * (1 - 1e-9)))
-    where = ", ".join(f"{n} {h:.2g}" for n, h, keep in zip(names, scale * steps, involved) if keep)
+    where = ", ".join(f"{n} ±{h:.2g}" for n, h, keep in zip(names, scale * steps, involved) if keep)
     if hidden.all():
         return Verdict.NOISY, (
             f"the noise (standard deviation {noise:.2g}) hides the curvature in every direction at "
