@@ -12,6 +12,8 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import directional as dl
 from directional.interface.cli import exit_code
@@ -91,6 +93,34 @@ def test_the_eigenvalue_noise_matches_a_monte_carlo_of_the_stencil(vector):
         samples.append(float(v @ m.hessian @ v))
     expected = hessian.eigenvalue_noise(v[:, None], steps, 1e-2)[0]
     assert np.std(samples) == pytest.approx(expected, rel=0.05)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    k=st.integers(1, 8), seed=st.integers(0, 2**32 - 1), h=st.floats(1e-6, 1.0),
+    sigma=st.floats(1e-12, 1.0),
+)
+def test_the_eigenvalue_noise_of_equal_steps_lies_between_its_bounds(k, seed, h, sigma):
+    # With equal steps and a unit v, the variance in `eigenvalue_noise` is
+    # σ²/h⁴ (4.5 + 1.5 Σ v_i⁴), and 1/k <= Σ v_i⁴ <= 1 (analytic, from its derivation): one axis
+    # gives the three-point stencil's sqrt(6), an even spread over k axes sqrt(4.5 + 1.5 / k)
+    v = np.random.default_rng(seed).standard_normal(k)
+    v /= np.linalg.norm(v)
+    noise = hessian.eigenvalue_noise(v[:, None], np.full(k, h), sigma)[0] * h * h / sigma
+    assert math.sqrt(4.5 + 1.5 / k) * (1 - 1e-9) <= noise <= math.sqrt(6.0) * (1 + 1e-9)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    gradient=st.floats(-1e3, 1e3), curvature=st.floats(-1e3, 1e3), value=st.floats(-1e6, 1e6),
+    h=st.floats(1e-8, 1e-3),
+)
+def test_a_quadratic_line_never_looks_noisy(gradient, curvature, value, h):
+    # f = value + g t + c t² / 2 along two axes: no noise, so no level (analytic: its third and
+    # fourth differences vanish but for rounding, far below its second)
+    t = np.array([-1.0, -0.5, 0.0, 0.5, 1.0]) * h
+    line = value + gradient * t + 0.5 * curvature * t**2
+    assert math.isnan(hessian.stencil_noise(np.array([line, line[::-1]])))
 
 
 def test_along_one_axis_the_eigenvalue_noise_is_the_three_point_stencils():
