@@ -278,9 +278,11 @@ def stencil_noise(lines: np.ndarray) -> float:
     True
     """
     lines = np.asarray(lines, dtype=float)
-    if lines.size == 0 or not np.all(np.isfinite(lines)):
+    if lines.size == 0 or not np.all(np.isfinite(lines)) or not np.any(lines):
         return math.nan
-    rounding = 4.0 * EPSILON * float(np.max(np.abs(lines)))
+    size = float(np.max(np.abs(lines)))
+    lines = lines / size  # values near 1e300 would overflow when squared
+    rounding = 4.0 * EPSILON
     gamma = {2: 4.0 / 24.0, 3: 36.0 / 720.0, 4: 576.0 / 40320.0}
     sigma = {k: math.sqrt(gamma[k] * float(np.mean(np.diff(lines, n=k, axis=1) ** 2))) for k in gamma}
     if sigma[4] <= NOTICE * rounding or max(sigma.values()) > AGREEMENT * min(sigma.values()):
@@ -295,9 +297,13 @@ def stencil_noise(lines: np.ndarray) -> float:
     odd = (lines[:, 4] - lines[:, 0]) / 2.0 - (lines[:, 3] - lines[:, 1])
     if math.sqrt(float(np.mean(odd**2)) / 2.5) < 0.1 * sigma[4]:
         return math.nan
-    return math.sqrt(sum(v * v for v in sigma.values()) / 3.0)  # the three orders pooled
+    return size * math.sqrt(sum(v * v for v in sigma.values()) / 3.0)  # the orders pooled
 
 
 def fourth_noise(lines: np.ndarray) -> float:
     """``sigma_4`` of the axis lines alone: the noise level their fourth differences show."""
-    return math.sqrt(float(np.mean(np.diff(np.asarray(lines, dtype=float), n=4, axis=1) ** 2)) / 70.0)
+    fourth = np.diff(np.asarray(lines, dtype=float), n=4, axis=1)
+    size = float(np.max(np.abs(fourth))) if fourth.size else 0.0
+    if size == 0.0 or not math.isfinite(size):
+        return size
+    return size * math.sqrt(float(np.mean((fourth / size) ** 2)) / 70.0)
