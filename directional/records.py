@@ -149,7 +149,8 @@ class Curvature:
     of the smallest eigenvalue of the Hessian scaled to unit row maxima, the one the verdict
     turns on (dimensionless, see `directional.method.curvature`); ``undetermined`` names the parameter
     combinations along those eigenvectors; ``evaluations`` is what the check cost; ``free`` holds
-    the free estimate the check started from.
+    the free estimate the check started from; ``noise`` the noise level (standard deviation)
+    the check's steps and error bars allowed for (nan when none was stated).
     """
 
     hessian: np.ndarray
@@ -164,6 +165,7 @@ class Curvature:
     evaluations: int = 0
     free: Curvature | None = None
     breaks: tuple[Break, ...] = ()
+    noise: float = math.nan  # the noise level the check's error bars include (nan: none stated)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

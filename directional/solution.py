@@ -106,6 +106,10 @@ def _curvature_lines(curvature: Curvature | None) -> list[str]:
     free = curvature.free
     if free is not None and free is not curvature:
         lines.append(f"  free estimate (no extra evaluation): condition number {free.condition:.3g}")
+    noise = getattr(curvature, "noise", math.nan)
+    if math.isfinite(noise):
+        lines.append(f"  noise: standard deviation {noise:.3g} (the check's steps and error bars "
+                     "allow for it)")
     for combination in curvature.undetermined:
         lines.append(f"  not determined: {combination}")
     lines.extend(f"  not smooth: {describe_break(b)}" for b in curvature.breaks)
@@ -172,7 +176,7 @@ def _verdict_hint(verdict: Verdict) -> str:
         Verdict.MAXIMUM: " (negative curvature in every direction)",
         Verdict.FLAT: " (some parameter combination is not determined)",
         Verdict.NONSMOOTH: " (the objective has a kink or a jump at the point: see below)",
-        Verdict.NOISY: " (the noise hides the curvature at every step the bounds allow: see below)",
+        Verdict.NOISY: " (the noise hides the curvature, not a verified minimum: see below)",
         Verdict.UNCHECKED: " (no curvature check was made)",
     }[verdict]
 

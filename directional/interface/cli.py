@@ -2,10 +2,11 @@
 
 Exit codes: 0 when the search ended at a verified minimum (verdict ``minimum``; for ``check``: the
 start point evaluated), 1 when it ended without one (stopped early, interrupted by Ctrl-C, a saddle,
-a flat direction, no check made, the objective failed), 2 for bad input (arguments, problem file,
-journal), 128 + N when signal N stopped the run (143 for SIGTERM, 129 for SIGHUP: the run stops as
-for Ctrl-C, between evaluations, and ``resume`` continues it).  Messages go to standard error; the
-summary to standard output; a reader that goes away (``| head``) changes nothing.
+a flat direction, noise hiding the curvature, no check made, the objective failed), 2 for bad
+input (arguments, problem file, journal), 128 + N when signal N stopped the run (143 for SIGTERM,
+129 for SIGHUP: the run stops as for Ctrl-C, between evaluations, and ``resume`` continues it).
+Messages go to standard error; the summary to standard output; a reader that goes away
+(``| head``) changes nothing.
 
 Heavy libraries (numpy, scipy, matplotlib) are imported where they are used, so that ``--help``
 and argument errors answer at once.
@@ -481,7 +482,8 @@ def exit_code(sol: Solution) -> int:
 
     A point where the objective is not smooth but every break is a corner (both one-sided slopes
     rise away from it) and the smooth directions curve upward is a minimum too: verdict
-    ``nonsmooth`` with only corners exits 0.
+    ``nonsmooth`` with only corners exits 0.  A ``noisy`` verdict (the noise hides the
+    curvature) is not a verified minimum: 1.
     """
     from directional.records import Verdict
 

@@ -32,6 +32,10 @@ point it returns is checked.
    (unless the smooth rest is a saddle or flat), the break is named (`records.Break`), and the
    curvature is judged on the directions orthogonal to it only.  A direction along a kinked
    valley that still goes down is escaped along, like one of negative curvature.
+   With a noise level (stated, estimated or noticed by the search) the steps grow where the noise
+   hides an eigenvalue, each bar holds the eigenvalue's own noise (`hessian.eigenvalue_noise`),
+   and FLAT needs the largest steps allowed; where the noise alone decided, the verdict is NOISY
+   with the level in the note (`_hidden`).
 4. Escape.  On SADDLE or MAXIMUM the eigenvector of most negative curvature is line-searched both
    ways, the direction-set search restarts from the better point, and the new point is checked:
    at most ``escapes`` times.  When the line search gains less than the search's own value
@@ -60,13 +64,18 @@ from directional.errors import ProblemError
 from directional.method.directions import DirectionSet, hessian_estimate
 from directional.method.hessian import (
     EPSILON,
+    NOISY_LARGEST,
     RATIO,
     STEPS,
     Measured,
+    eigenvalue_noise,
     extrapolated_hessian,
+    fourth_noise,
     noise_margin,
     quick_hessian,
+    stencil_noise,
     step_sizes,
+    truncation,
 )
 from directional.method.linesearch import line_search
 from directional.method.search import FIRST_STEP, Settings, powell
@@ -88,6 +97,8 @@ from directional.records import (
 from directional.solution import Solution
 
 RESIZES = 2  # with a noise level: times the stencil may be resized from measured curvatures
+GROWTHS = 3  # with a noise level: times the steps along hidden curvatures may grow
+GROWTH = 4.0  # each growth: the noise's share of a curvature falls 16-fold
 FREE_FLAT = EPSILON**0.5  # free estimate: smaller eigenvalues (relative) count as zero
 
 Checking = Generator[Batch, np.ndarray, "Checked"]
@@ -260,6 +271,7 @@ def record(
     undetermined: tuple[str, ...] = (),
     evaluations: int = 0,
     free: Curvature | None = None,
+    noise: float = math.nan,
 ) -> Curvature:
     """A `Curvature` record in search coordinates from a Hessian in scaled coordinates."""
     inverse = 1.0 / np.outer(scale, scale)
@@ -279,6 +291,7 @@ def record(
         undetermined=undetermined,
         evaluations=evaluations,
         free=free,
+        noise=noise,
     )
 
 
@@ -359,6 +372,13 @@ def check_point(
 
     ``room`` is what is left of the budget: a check it cannot pay for is not begun (UNCHECKED,
     with the reason), and ESCALATING escalates only when the room allows.
+
+    With a noise level given, ESCALATING stays with the one stencil (QUICK): Richardson
+    extrapolation from steps ``h, h/2, h/4`` multiplies the noise's share by up to 16.  Instead,
+    where an eigenvalue is hidden by the noise, the steps of the parameters taking part grow
+    (``GROWTH``, at most ``GROWTHS`` times, while the budget allows) up to `NOISY_LARGEST` or the
+    room to the bounds, unless the stencil's half steps show truncation along that axis
+    (`hessian.truncation`): curvature the noise hides at one step may show at a larger one.
     """
     if check == Check.ESCALATING:
         k = int((~active).sum())
@@ -367,6 +387,8 @@ def check_point(
         )
         if first.curvature is None or first.curvature.source == "free" or not undecided(first):
             return first
+        if noise is not None or math.isfinite(first.curvature.noise):
+            return first  # extrapolating from h/4 steps amplifies the noise 16-fold
         if room - check_cost(Check.QUICK, k) < check_cost(Check.EXTRAPOLATED, k):
             note = ("an eigenvalue of the one-stencil check lies near its error bar; the budget "
                     "left cannot pay for the extrapolated check that would settle it")
@@ -390,6 +412,8 @@ def check_point(
     reach = np.minimum(u0 - space.lower_u, space.upper_u - u0)[free]
     diagonal = np.full(int(free.sum()), np.nan) if free_scaled is None else np.diag(free_scaled)[free]
     seen: list[tuple[np.ndarray, np.ndarray]] = []  # every stencil point and value, for smoothness
+    cost = check_cost(check, int(free.sum()))
+    held = ""  # why the steps could not grow further (budget)
     for attempt in range(RESIZES + 1):
         steps = step_sizes(diagonal, f0, noise, reach, check)
         try:
@@ -411,8 +435,131 @@ def check_point(
         used = np.where(np.isfinite(diagonal) & (diagonal > 0.0), diagonal, np.inf)
         if noise is None or attempt == RESIZES or not np.any(found < 0.25 * used):
             break
+        if room - cost * (attempt + 1) < cost:
+            held = "the budget left cannot pay for a stencil with larger steps"
+            break
         diagonal = np.where(found < 0.25 * used, found, diagonal)
-    return (yield from _judged(space, u0, f0, free, measured, noise, check, free_rec, seen))
+    if noise is None and check == Check.QUICK and measured.lines is not None:
+        noticed = yield from _noticed(space, u0, free, measured, reach, room - cost)
+        if math.isfinite(noticed):
+            checked = yield from check_point(
+                space, u0, f0, free_scaled, check=check, noise=noticed, active=active,
+                room=room - 2 * cost,
+            )
+            note = (f"noise noticed by the check: standard deviation about {noticed:.2g}, from the "
+                    "fourth differences of its stencil at two scales (Moré & Wild 2011); the "
+                    "steps and error bars allow for it (give noise= to state it)")
+            return dataclasses.replace(
+                checked, note="; ".join(n for n in (note, checked.note) if n)
+            )
+        seen = seen[:1]  # a stencil at larger steps said it is no noise: judge the first alone
+    largest = np.minimum(NOISY_LARGEST, reach)
+    paid = cost * (attempt + 1)
+    for _ in range(GROWTHS if noise is not None and check == Check.QUICK and not held else 0):
+        grow = _to_grow(measured, float(noise), largest)
+        if not grow.any():
+            break
+        if room - paid < cost:
+            held = "the budget left cannot pay for a stencil with larger steps"
+            break
+        steps = np.where(grow, np.minimum(GROWTH * measured.steps, largest), measured.steps)
+        try:
+            grown = yield from _seen(quick_hessian(space, u0, free, steps), seen)
+        except Halt as halt:
+            held = f"the stencil with larger steps was stopped: {halt.reason}"
+            break
+        paid += cost
+        if grown.problem:
+            held = f"the stencil with larger steps failed: {grown.problem}"
+            break
+        measured = grown
+    if noise is not None and check == Check.QUICK:
+        # the smoothness test reads the last stencil only: at the smaller steps of the earlier
+        # ones the noise is larger than any break it could find there
+        seen = seen[-1:]
+    return (yield from _judged(space, u0, f0, free, measured, noise, check, free_rec, seen,
+                               largest=largest, held=held))
+
+
+def _noticed(
+    space: Space, u0: np.ndarray, free: np.ndarray, measured: Measured, reach: np.ndarray,
+    room: float,
+) -> Generator[Batch, np.ndarray, float]:
+    """The noise level a stencil evaluated with no level stated shows, or nan.
+
+    Where `hessian.stencil_noise` finds the axis lines noisy, a second stencil at 16 times the
+    steps tells noise from a kink or a jump along every axis: the fourth differences of noise
+    keep their size, those of a kink grow with the step (16-fold) and those of a smooth function
+    far faster.  The level stands when the second stencil's (`hessian.fourth_noise`) is within
+    a factor 4 of the first's.  No second stencil (nan) when the room to the bounds does not
+    allow one, when the budget ``room`` cannot pay for it and a check at the noise's steps after
+    it, or when it is stopped.
+    """
+    level = stencil_noise(measured.lines)
+    wide = 16.0 * measured.steps
+    k = len(measured.steps)
+    if not math.isfinite(level) or np.any(wide > reach) or room < 2 * check_cost(Check.QUICK, k):
+        return math.nan
+    try:
+        wider = yield from quick_hessian(space, u0, free, wide)
+    except Halt:
+        return math.nan
+    if wider.problem or wider.lines is None or not fourth_noise(wider.lines) <= 4.0 * level:
+        return math.nan
+    return level
+
+
+def _to_grow(measured: Measured, noise: float, largest: np.ndarray) -> np.ndarray:
+    """Axes whose steps should grow: those taking part (a tenth of the largest weight or more) in
+    an eigenvector whose eigenvalue the noise hides, not yet at ``largest``, and showing no
+    truncation.  None grow when some eigenvalue is clearly negative (the verdict is made)."""
+    eigenvalues, margins, directions = _spectrum(measured, noise, noisy=True)
+    hidden = np.abs(eigenvalues) <= margins
+    if np.any(eigenvalues < -margins) or not hidden.any():
+        return np.zeros(len(eigenvalues), dtype=bool)
+    weights = np.abs(directions[:, hidden])
+    involved = np.any(weights >= 0.1 * np.max(weights, axis=0), axis=1)
+    clean = truncation(measured.spread, measured.steps, noise) == 0.0
+    return involved & clean & (measured.steps < largest * (1.0 - 1e-12))
+
+
+def _spectrum(
+    measured: Measured, level: float, *, noisy: bool,
+    basis: np.ndarray | None = None, known: dict[int, tuple[float, float]] | None = None,
+    check: Check = Check.QUICK,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Eigenvalues of the equilibrated Hessian (on ``basis``, default all axes), their error bars,
+    and their eigenvectors in scaled coordinates.
+
+    Without a stated noise level (or with breaks, or numdifftools' Hessian) each bar is
+    `eigenvalue_margins` of the error estimate plus three standard deviations of the noise in
+    every entry (`hessian.noise_margin`).  With a stated level and the quick stencil
+    (``noisy``), the noise's share is instead three standard deviations of the eigenvalue's own
+    noise (`hessian.eigenvalue_noise`, which knows that the entries share the centre value and
+    that an eigenvector spreads over several entries), and the truncation the stencil's half
+    steps show is added on the diagonal (`hessian.truncation`).
+    """
+    k = len(measured.steps)
+    smallest = measured.steps if check == Check.QUICK else measured.steps / RATIO ** (STEPS - 1)
+    error = measured.error + noise_margin(smallest, level)
+    basis = np.eye(k) if basis is None else basis
+    known = known or {}
+    hessian = basis.T @ measured.hessian @ basis
+    reduced = np.abs(basis).T @ error @ np.abs(basis)
+    for column, (curvature, bar) in known.items():
+        hessian[column, column], reduced[column, column] = curvature, bar
+    d = equilibration(np.maximum(np.abs(hessian), reduced))
+    eigenvalues, eigenvectors = np.linalg.eigh(hessian / np.outer(d, d))
+    noisy = noisy and measured.spread is not None and basis.shape == (k, k) and not known
+    if noisy:
+        others = measured.error + np.diag(truncation(measured.spread, measured.steps, level))
+        margins = eigenvalue_margins(eigenvectors, basis.T @ others @ basis / np.outer(d, d))
+        margins = margins + 3.0 * eigenvalue_noise(basis @ eigenvectors, measured.steps * d, level)
+    else:
+        margins = eigenvalue_margins(eigenvectors, reduced / np.outer(d, d))
+    if len(eigenvalues):
+        margins = margins + 64.0 * EPSILON * float(np.max(np.abs(eigenvalues)))
+    return eigenvalues, margins, basis @ (eigenvectors / d[:, None])
 
 
 def _seen(
@@ -439,6 +586,9 @@ def _judged(
     check: Check,
     free_rec: Curvature | None,
     seen: list[tuple[np.ndarray, np.ndarray]],
+    *,
+    largest: np.ndarray | None = None,
+    held: str = "",
 ) -> Checking:
     """Smoothness first (`smoothness.examine`, a few more points), then the verdict on the smooth
     part, and an escape along a kinked valley's floor where it still goes down."""
@@ -454,9 +604,11 @@ def _judged(
             note=f"the smoothness check could not finish: {halt.reason}",
         )
     checked = _verdict(space, free, measured, f0, noise, check, free_rec, found.breaks,
-                       (found.basis, found.known))
+                       (found.basis, found.known), largest=largest, held=held)
     if found.note:
-        checked = dataclasses.replace(checked, note=found.note)
+        checked = dataclasses.replace(
+            checked, note="; ".join(n for n in (checked.note, found.note) if n)
+        )
     if checked.escape is None and found.downhill is not None:
         escape = np.zeros(space.size)
         escape[free] = found.downhill
@@ -474,6 +626,9 @@ def _verdict(
     free_rec: Curvature | None,
     breaks: list[tuple[np.ndarray, Finding]] | None = None,
     smooth_part: tuple[np.ndarray, dict[int, tuple[float, float]]] | None = None,
+    *,
+    largest: np.ndarray | None = None,
+    held: str = "",
 ) -> Checked:
     level = 4.0 * EPSILON * abs(f0) if noise is None else float(noise)
     smallest = measured.steps if check == Check.QUICK else measured.steps / RATIO ** (STEPS - 1)
@@ -481,25 +636,24 @@ def _verdict(
     breaks = breaks or []
     # the curvature is judged on the smooth part only: the directions orthogonal to the breaks
     basis, known = smooth_part or (np.eye(int(free.sum())), {})
-    hessian = basis.T @ measured.hessian @ basis
-    reduced = np.abs(basis).T @ error @ np.abs(basis)
-    for column, (curvature, bar) in known.items():
-        hessian[column, column], reduced[column, column] = curvature, bar
-    d = equilibration(np.maximum(np.abs(hessian), reduced))
-    eigenvalues, eigenvectors = np.linalg.eigh(hessian / np.outer(d, d))
-    margins = eigenvalue_margins(eigenvectors, reduced / np.outer(d, d))
-    if len(eigenvalues):
-        margins += 64.0 * EPSILON * float(np.max(np.abs(eigenvalues)))
+    eigenvalues, margins, directions = _spectrum(
+        measured, level, noisy=noise is not None and check == Check.QUICK, basis=basis,
+        known=known, check=check,
+    )
     verdict = _with_breaks(classify(eigenvalues, margins), breaks)
     margin = float(margins[0]) if len(margins) else math.nan  # the smallest eigenvalue's
-    directions = basis @ (eigenvectors / d[:, None])  # back to the scaled coordinates
     scale = space.scale[free]
     names = labels(space, free)
     zero = np.abs(eigenvalues) <= margins
     undetermined = tuple(combination(scale * directions[:, i], names) for i in np.flatnonzero(zero))
+    note = ""
+    if noise is not None and verdict is Verdict.FLAT:
+        verdict, note = _hidden(measured, directions, eigenvalues, margins, level, scale, names,
+                                largest, held)
     curvature = record(
         measured.hessian, error, scale, str(check), names=names, margin=margin,
         undetermined=undetermined, free=free_rec,
+        noise=math.nan if noise is None else float(noise),
     )
     if breaks:
         curvature = dataclasses.replace(
@@ -510,8 +664,53 @@ def _verdict(
         escape = np.zeros(space.size)
         most = directions[:, int(np.argmin(eigenvalues))]
         escape[free] = most / np.linalg.norm(most)
-    return Checked(verdict=verdict, curvature=curvature, escape=escape,
+    return Checked(verdict=verdict, curvature=curvature, escape=escape, note=note,
                    eigenvalues=(eigenvalues, margins))
+
+
+def _hidden(
+    measured: Measured,
+    directions: np.ndarray,
+    eigenvalues: np.ndarray,
+    margins: np.ndarray,
+    noise: float,
+    scale: np.ndarray,
+    names: tuple[str, ...],
+    largest: np.ndarray | None,
+    held: str,
+) -> tuple[Verdict, str]:
+    """FLAT or NOISY, with a note, for a verdict of FLAT under a stated noise level.
+
+    FLAT only where the curvature stays below what the noise can resolve at the largest steps
+    allowed (`NOISY_LARGEST` or the room to the bounds) along every parameter of a hidden
+    combination: the value changes by less than the noise across the whole range, so the
+    combination is not determined.  NOISY where no eigenvalue at all stands clear of the noise,
+    or where the steps could not reach the largest (truncation along an axis, or the budget):
+    the noise, not the objective, decided.
+    """
+    hidden = np.abs(eigenvalues) <= margins
+    weights = np.abs(directions[:, hidden])
+    involved = np.any(weights >= 0.1 * np.max(weights, axis=0), axis=1)
+    steps = measured.steps
+    reached = largest is not None and bool(np.all(steps[involved] >= largest[involved] * (1 - 1e-9)))
+    where = ", ".join(f"{n} ±{h:.2g}" for n, h, keep in zip(names, scale * steps, involved) if keep)
+    if hidden.all():
+        return Verdict.NOISY, (
+            f"the noise (standard deviation {noise:.2g}) hides the curvature in every direction at "
+            f"the steps taken ({where}): the check cannot tell a minimum from a saddle or a flat "
+            "point" + (f"; {held}" if held else "")
+        )
+    if reached:
+        return Verdict.FLAT, (
+            f"below the noise (standard deviation {noise:.2g}) even at the largest steps allowed "
+            f"({where}): the value hardly changes along the combinations not determined"
+        )
+    why = held or "the stencil's half steps show truncation error at larger steps"
+    return Verdict.NOISY, (
+        f"the noise (standard deviation {noise:.2g}) hides the curvature along "
+        + "; ".join(combination(scale * directions[:, i], names) for i in np.flatnonzero(hidden))
+        + f" at the steps taken ({where}), and the steps could not grow further: {why}"
+    )
 
 
 def _with_breaks(smooth: Verdict, breaks: list[tuple[np.ndarray, Finding]]) -> Verdict:

@@ -208,6 +208,8 @@ def _curvature(sol: Solution, by_name: dict[str, Parameter]) -> dict[str, Any] |
         "eigenvalues": [_number(v) for v in np.asarray(c.eigenvalues).ravel()],
         "eigenvectors": _matrix(c.eigenvectors),
         "condition": _number(c.condition),
+        "noise": _number(getattr(c, "noise", math.nan)),
+        "undetermined": list(getattr(c, "undetermined", ())),
         "breaks": [
             {"along": b.along, "kind": b.kind, "parameters": list(b.parameters),
              "slopes": [_number(v) for v in b.slopes], "change": _number(b.change)}

@@ -350,7 +350,7 @@ def test_log_scaled_parameters_are_reported_in_log_coordinates():
 def test_steps_never_go_below_what_the_noise_allows(c, noise, value, method):
     h = hessian.step_sizes(np.array([c]), value, noise, np.array([np.inf]), method)[0]
     smallest = h if method == "quick" else h / hessian.RATIO ** (hessian.STEPS - 1)
-    capped = h >= hessian.LARGEST_STEP * (1 - 1e-12)
+    capped = h >= hessian.NOISY_LARGEST * (1 - 1e-12)  # with a stated noise: the problem's size
     # 3 sigma of the noise in a second difference, sqrt(6) noise / h², is at most 1 % of c: the
     # difference f(x + h) - 2 f(x) + f(x - h) of values with independent noise of standard
     # deviation sigma has variance (1 + 4 + 1) sigma² (common practice, no source)
