@@ -4,7 +4,10 @@ The search yields a `Batch` of points to evaluate and receives their values (a f
 evaluation arrives as ``+inf``).  When the driver must end a search early (budget spent, time up,
 Ctrl-C) it throws `Halt` into the generator, which returns its `Outcome` with that stop reason.
 A generator that needs to know what it has cost yields `SPENT` instead of a batch and is sent
-back the number of distinct points its search has asked the driver for so far.
+back what its search has cost so far (runs of the objective: points times replicates).  One
+that needs the scatter of the replicates of the points it was last sent (each point run several
+times, `run.driver.Driver` ``replicates``) yields `SPREAD` and is sent back their sample
+standard deviations.
 """
 
 from __future__ import annotations
@@ -90,6 +93,20 @@ class Spent(enum.Enum):
 SPENT = Spent.SPENT
 
 
+class Spread(enum.Enum):
+    """The question "how much did the replicates of the points I was last sent scatter?".
+
+    The sentinel `SPREAD`; the driver answers with one sample standard deviation per point of
+    the search's last batch, from that point's replicates that succeeded (``nan`` where fewer
+    than two did, and always when each point is run once).
+    """
+
+    SPREAD = "spread"
+
+
+SPREAD = Spread.SPREAD
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Batch:
     """Points the search wants evaluated, one per row, in the user's coordinates.
@@ -113,7 +130,7 @@ class Batch:
         object.__setattr__(self, "points", points)
 
 
-Request = Batch | Spent  # what a generator of a run yields: points to evaluate, or the question
+Request = Batch | Spent | Spread  # what a generator of a run yields: points, or a question
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
