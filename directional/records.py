@@ -5,9 +5,9 @@ evaluation arrives as ``+inf``).  When the driver must end a search early (budge
 Ctrl-C) it throws `Halt` into the generator, which returns its `Outcome` with that stop reason.
 A generator that needs to know what it has cost yields `SPENT` instead of a batch and is sent
 back what its search has cost so far (runs of the objective: points times replicates).  One
-that needs the scatter of the replicates of the points it was last sent (each point run several
-times, `run.driver.Driver` ``replicates``) yields `SPREAD` and is sent back their sample
-standard deviations.
+that needs the scatter of the replicates (each point run several times, `run.driver.Driver`
+``replicates``) yields `SPREAD` and is sent back the pooled sample standard deviation of one run
+over the points its search has been sent so far.
 """
 
 from __future__ import annotations
@@ -94,11 +94,11 @@ SPENT = Spent.SPENT
 
 
 class Spread(enum.Enum):
-    """The question "how much did the replicates of the points I was last sent scatter?".
+    """The question "how much do the replicates of one point scatter?" (the sentinel `SPREAD`).
 
-    The sentinel `SPREAD`; the driver answers with one sample standard deviation per point of
-    the search's last batch, from that point's replicates that succeeded (``nan`` where fewer
-    than two did, and always when each point is run once).
+    The driver answers with the pooled sample standard deviation of one run
+    (`method.replicates.pooled`) over the points the search has asked for and been sent, a float;
+    ``nan`` when no point has two replicates that succeeded (always with one run per point).
     """
 
     SPREAD = "spread"

@@ -21,7 +21,7 @@ from directional.method.noise import (
     estimate,
     floored,
 )
-from directional.method.replicates import planned_level
+from directional.method.replicates import planned_level, pooled_level
 from directional.method.search import Settings, powell
 from directional.method.space import build_space
 from directional.records import Batch, Halt, Purpose, Request, Status
@@ -151,6 +151,7 @@ def minimization(
     level, noted = yield from planned_level(space, options.noise, options.replicates)
     settings = floored(options.settings, level)
     outcome = yield from powell(space, settings)
+    level = yield from pooled_level(options.noise, options.replicates, level)
     settled = yield from settle(
         space, settings, outcome, check=options.check, escapes=options.escapes, noise=level,
         budget=options.budget,

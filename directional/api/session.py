@@ -155,11 +155,7 @@ def with_replicates(sol: Solution, evaluations: Sequence[Evaluation], replicates
     """
     if replicates < 2:
         return sol
-    groups: dict[bytes, list[float]] = {}
-    for evaluation in evaluations:
-        groups.setdefault(evaluation.point.tobytes(), []).append(
-            evaluation.value if evaluation.status == Status.OK else math.inf
-        )
+    groups = runs_by_point(evaluations)
     spread = pooled(groups.values(), replicates)
     short = sum(1 for values in groups.values() if 0 < sum(map(math.isfinite, values)) < len(values))
     notes = sol.notes
@@ -169,3 +165,13 @@ def with_replicates(sol: Solution, evaluations: Sequence[Evaluation], replicates
             "point is the mean of its replicates that succeeded",
         )
     return dataclasses.replace(sol, spread=spread, notes=notes)
+
+
+def runs_by_point(evaluations: Sequence[Evaluation]) -> dict[bytes, list[float]]:
+    """The values of the evaluations grouped by point (bit for bit); failures as ``inf``."""
+    groups: dict[bytes, list[float]] = {}
+    for evaluation in evaluations:
+        groups.setdefault(evaluation.point.tobytes(), []).append(
+            evaluation.value if evaluation.status == Status.OK else math.inf
+        )
+    return groups

@@ -107,7 +107,7 @@ def combined(values: Sequence[float]) -> float:
     return math.fsum(good) / len(good)
 
 
-def combined_vector(vectors: Sequence[np.ndarray]) -> np.ndarray | None:
+def combined_vector(vectors: Sequence[np.ndarray | None]) -> np.ndarray | None:
     """The mean of the residual vectors that are finite, entry by entry (None when none is).
 
     Each entry is a correctly rounded sum divided by the count, so the order does not matter.
@@ -117,18 +117,6 @@ def combined_vector(vectors: Sequence[np.ndarray]) -> np.ndarray | None:
         return None
     stack = np.stack(good)
     return np.array([math.fsum(column) for column in stack.T]) / len(good)
-
-
-def sample_spread(values: Sequence[float]) -> float:
-    """The sample standard deviation (divisor n - 1) of the finite values; nan for fewer than 2.
-
-    >>> round(sample_spread([1.0, 2.0, 3.0]), 12)
-    1.0
-    """
-    good = np.sort(np.array([v for v in values if math.isfinite(v)], dtype=float))
-    if good.size < 2:
-        return math.nan
-    return float(np.std(good, ddof=1))
 
 
 def pooled(groups: Iterable[Sequence[float]], replicates: int) -> Spread | None:
@@ -173,10 +161,9 @@ def planned_level(
         return (yield from noise_level(space, noise))
     try:
         yield Batch(points=space.to_user(np.zeros(space.size))[None, :], purpose=Purpose.START)
-        spread = yield SPREAD
     except Halt:
         return None, ("no noise level from the replicates: the run ended at the start",)
-    run = float(np.asarray(spread, dtype=float)[0])
+    run = float((yield SPREAD))  # type: ignore[arg-type]
     if not math.isfinite(run):
         return None, (
             "no noise level from the replicates at the start (fewer than two succeeded); "
@@ -187,3 +174,19 @@ def planned_level(
         f"noise level {level:.3g} for the mean of {replicates} replicates, from their sample "
         f"standard deviation {run:.3g} at the start; it floors the tolerances and the Hessian steps",
     )
+
+
+def pooled_level(
+    noise: float | str | None, replicates: int, level: float | None
+) -> Generator[Request, object, float | None]:
+    """The noise level for the check, from every point the search has been sent so far.
+
+    A generator for the driver, to run after the search: with replicates and no ``noise`` given
+    as a number, the pooled spread of one run over all the search's points (`pooled`) divided by
+    sqrt(k), far better determined than the start's alone; otherwise ``level`` as it was.
+    Nothing is evaluated.
+    """
+    if replicates < 2 or not (noise is None or noise == "estimate"):
+        return level
+    run = float((yield SPREAD))  # type: ignore[arg-type]
+    return run / math.sqrt(replicates) if math.isfinite(run) else level

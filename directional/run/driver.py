@@ -80,7 +80,7 @@ the search has spent fewer than ``limit`` runs and all k runs fit in ``budget`` 
 answered in runs).  Replay groups the stored rows of a point: k of them answer it; a point
 interrupted part way (fewer rows) gets only its missing runs made, so nothing is repeated.  With
 ``retry`` the failed runs of a point are made again.  A search may ask `records.SPREAD`: it is
-sent the sample standard deviation of the replicates of each point of its last batch.
+sent the pooled sample standard deviation of one run over the points it has been sent.
 """
 
 from __future__ import annotations
@@ -98,7 +98,7 @@ from typing import Any
 import numpy as np
 
 from directional.errors import JournalError, ObjectiveError
-from directional.method.replicates import combined, sample_spread
+from directional.method.replicates import combined, pooled
 from directional.records import SPENT, SPREAD, Batch, Halt, Request, Spent, Spread, Status, Stop
 from directional.run.interrupts import Interrupts
 from directional.run.workers import process_pool, stop_workers
@@ -242,7 +242,6 @@ class _Task:
     halts_in_a_row: int = 0
     ended: bool = False
     result: Any = None
-    last: Batch | None = None  # the batch last sent back, for `SPREAD`
 
 
 @dataclass(slots=True, kw_only=True)
@@ -315,7 +314,7 @@ class Driver:
     _queue: collections.deque[bytes] = field(default_factory=collections.deque)
     _flying: dict[cf.Future, bytes] = field(default_factory=dict)
     _groups: dict[bytes, _Group] = field(default_factory=dict)  # replicated points not yet in
-    _spread: dict[bytes, float] = field(default_factory=dict)  # their replicates' scatter
+    _replicated: dict[bytes, list[float]] = field(default_factory=dict)  # the runs of each point
     _owned: list[cf.Executor] = field(default_factory=list)
     _clock_start: float = field(default_factory=time.monotonic)
 
@@ -482,11 +481,12 @@ class Driver:
             batch = self._advance(task)
 
     def _question(self, task: _Task, question: Spent | Spread) -> object:
-        """The answer to `SPENT` (runs spent) or `SPREAD` (the last batch's replicate scatter)."""
+        """The answer to `SPENT` (runs spent) or `SPREAD` (the replicates' pooled scatter)."""
         if question is SPENT:
             return len(task.seen) * self.replicates
-        points = () if task.last is None else task.last.points
-        return np.array([self._spread.get(x.tobytes(), math.nan) for x in points])
+        runs = (self._replicated[key] for key in task.seen if key in self._replicated)
+        spread = pooled(runs, self.replicates)
+        return math.nan if spread is None else spread.run
 
     def _ask(self, task: _Task, batch: Batch) -> None:
         """Answer what is known, queue the rest; raise `Halt` at a point past the budget."""
@@ -557,7 +557,7 @@ class Driver:
         value = float(combine(group.point, values))
         del self._groups[group.key]
         self._cache[group.key] = value
-        self._spread[group.key] = sample_spread(values)
+        self._replicated[group.key] = values
         made = self._made.get(group.key)
         if made is not None and math.isfinite(value):
             self.log.rank(replace(made, value=value, status=Status.OK, detail=""))
@@ -605,7 +605,7 @@ class Driver:
             return None  # waiting on a row
         if task.halt is not None:
             return self._halt(task, task.halt)
-        task.batch, task.halts_in_a_row, task.last = None, 0, batch
+        task.batch, task.halts_in_a_row = None, 0
         try:
             return task.search.send(task.values.copy())
         except StopIteration as done:

@@ -228,8 +228,8 @@ class Journal:
         self._replayed: int | None = None
         self._fingerprint: dict[str, Any] | None = None
         self._refresh: Callable[[], Mapping[str, Any]] | None = None
-        # For a calibration: the residual vector of a point (its float64 bytes), or None.
-        self.vectors: Callable[[bytes], np.ndarray | None] | None = None
+        # For a calibration: the residual vector of an evaluation, or None.
+        self.vectors: Callable[[Evaluation], np.ndarray | None] | None = None
 
     # -- opening
 
@@ -345,7 +345,7 @@ class Journal:
         if self._sync == "adaptive":
             self._adapt(evaluation.seconds >= SYNC_AFTER)
         point = np.ascontiguousarray(evaluation.point, dtype="<f8").tobytes()
-        vector = None if self.vectors is None else self.vectors(evaluation.point.tobytes())
+        vector = None if self.vectors is None else self.vectors(evaluation)
         row = (
             evaluation.search,
             evaluation.sequence,
@@ -379,6 +379,21 @@ class Journal:
                 np.frombuffer(vector, dtype="<f8").astype(float)
             for point, vector in rows
         }
+
+    def stored_runs(self) -> dict[bytes, list[tuple[float, np.ndarray]]]:
+        """Each stored residual vector with its evaluation's value, by point, in row order.
+
+        With replicates a point has several rows, each with its own vector.
+        """
+        rows = self._connection.execute(
+            "SELECT point, value, residuals FROM evaluation WHERE residuals IS NOT NULL ORDER BY row"
+        ).fetchall()
+        runs: dict[bytes, list[tuple[float, np.ndarray]]] = {}
+        for point, value, vector in rows:
+            runs.setdefault(np.frombuffer(point, dtype="<f8").astype(float).tobytes(), []).append(
+                (_read_value(value), np.frombuffer(vector, dtype="<f8").astype(float))
+            )
+        return runs
 
     @property
     def synchronous(self) -> str:
@@ -454,9 +469,12 @@ class _NoJournal:
     stored: tuple[Evaluation, ...] = ()
     notes: tuple[str, ...] = ()
     retry = False
-    vectors: Callable[[bytes], np.ndarray | None] | None = None
+    vectors: Callable[[Evaluation], np.ndarray | None] | None = None
 
     def stored_vectors(self) -> dict[bytes, np.ndarray]:
+        return {}
+
+    def stored_runs(self) -> dict[bytes, list[tuple[float, np.ndarray]]]:
         return {}
 
     def hooks(self) -> dict[str, Any]:
