@@ -86,7 +86,7 @@ def solution(space: Space, log: Log, outcome: Outcome, point_tolerance: float) -
     Raises
     ------
     KeyboardInterrupt
-        When Ctrl-C came before anything was computed.
+        When Ctrl-C came before anything was computed (before any point had all its replicates).
     ObjectiveError
         When nothing was evaluated, the start failed, or every evaluation failed.
     """
@@ -101,6 +101,10 @@ def solution(space: Space, log: Log, outcome: Outcome, point_tolerance: float) -
             f"{first.detail or first.status}"
         )
     best = log.best
+    if best is None and outcome.stop is Stop.INTERRUPTED and any(
+        e.status == Status.OK for e in log.evaluations
+    ):  # replicates: some runs made, no point's runs all in
+        raise KeyboardInterrupt(outcome.reason)
     if best is None:
         raise ObjectiveError(
             f"every evaluation failed ({len(log.evaluations)}); last error: "

@@ -647,11 +647,15 @@ class Driver:
             if task.batch is not None:
                 self._take(task, self._halt(task, halt))
 
-    def _run_limit(self) -> Halt | None:
-        """Before a new evaluation starts: Ctrl-C, the total budget and the time limit."""
+    def _run_limit(self, pending: _Pending | None = None) -> Halt | None:
+        """Before a new evaluation starts: Ctrl-C, the total budget and the time limit.
+
+        The first run of a replicated point needs room for all its runs in the total budget.
+        """
         if self.interrupted or self._interrupts.pending:
             return Halt(Stop.INTERRUPTED, self._interrupts.reason)
-        if self.total is not None and self.spent + len(self._flying) >= self.total:
+        need = 1 if pending is None or pending.group is None else self.replicates - pending.replicate
+        if self.total is not None and self.spent + len(self._flying) + need > self.total:
             return Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
         if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
             return Halt(Stop.BUDGET, f"the time limit of {self.time_limit:g} s has passed")
@@ -671,7 +675,7 @@ class Driver:
             self._queue.remove(key)
         self._queue.extendleft(reversed(suspects))
         while self._queue and self._room():
-            halt = self._run_limit()
+            halt = self._run_limit(self._pending[self._queue[0]])
             if halt is not None:
                 self._halt_queued(halt)
                 continue

@@ -81,6 +81,7 @@ import numpy as np
 
 from directional.errors import JournalError, ProblemError
 from directional.method.noise import DETECTED, detected_level, difference_table
+from directional.method.replicates import pooled
 from directional.parameters import Parameter
 from directional.records import Batch, Halt, Status
 from directional.run.driver import RETRIED, Driver, Evaluation
@@ -992,7 +993,16 @@ def _evaluate_again(objective: Any, points: Sequence[np.ndarray]) -> np.ndarray:
 
 
 def _noise_of(header: Header, stored: Sequence[Evaluation]) -> float:
-    """The noise level of the run: given, or found again from its stored noise estimate."""
+    """The noise level of one run: given, or found again from its stored noise estimate or, for a
+    run with replicates, from their pooled spread (one evaluated point is one run)."""
+    replicates = header.identity.get("arguments", {}).get("replicates", 1)
+    if isinstance(replicates, int) and replicates > 1:
+        groups: dict[bytes, list[float]] = {}
+        for e in stored:
+            groups.setdefault(e.point.tobytes(), []).append(e.value if e.status == "ok" else math.inf)
+        spread = pooled(groups.values(), replicates)
+        if spread is not None:
+            return spread.run
     noise = header.identity.get("arguments", {}).get("noise")
     if isinstance(noise, int | float) and not isinstance(noise, bool):
         return float(noise)
