@@ -110,6 +110,8 @@ def solve(
     }
     if spec.noise is not None:
         options["noise"] = spec.noise
+    if spec.replicates != 1:
+        options["replicates"] = spec.replicates
     if path is not None:
         options["journal"] = journals.Target(
             path,
@@ -270,7 +272,8 @@ def check_problem(path: str | os.PathLike[str], problem: Problem, header: journa
     arguments = header.identity.get("arguments", {})
     for key, value in (("point_tolerance", spec.point_tolerance),
                        ("value_tolerance", spec.value_tolerance), ("check", spec.check),
-                       ("noise", spec.noise), ("seed", spec.seed)):
+                       ("noise", spec.noise), ("seed", spec.seed),
+                       ("replicates", spec.replicates)):
         if found is None and key in arguments and canonical(arguments[key]) != canonical(value):
             found = (f"search.{key}", arguments[key], value)
     if found is not None:
