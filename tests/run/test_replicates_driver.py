@@ -332,3 +332,16 @@ def test_ctrl_c_among_the_starts_runs_raises_and_resumes_with_the_missing_runs(t
     again = dl.resume(path, objective)
     assert objective.calls == reference.evaluations - 2
     assert again.point.tobytes() == reference.point.tobytes()
+
+
+def test_the_noise_of_the_replicates_is_in_the_json_and_the_html_report(tmp_path):
+    from directional.report.html import write_html
+    from directional.report.summary import solution_document
+
+    sol = dl.minimize(Noisy(0.01), START, replicates=3, check=False)
+    document = solution_document(sol)["replicates"]
+    assert document["runs_per_point"] == 3 and document["noise_of_one_run"] == sol.spread.run
+    assert document["degrees_of_freedom"] == sol.spread.degrees_of_freedom
+    page = write_html(sol, tmp_path / "report.html").read_text(encoding="utf-8")
+    assert "noise from the 3 replicates of each point" in page
+    assert "replicates" not in solution_document(dl.minimize(bowl, START, check=False))
