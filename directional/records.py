@@ -114,7 +114,8 @@ class Batch:
     ``purpose`` says what the points are for (`Purpose`), for the journal and for people reading
     it; it never changes what the driver does.  ``limit`` (None: the budget) lowers the budget
     for the points of this batch: the driver halts the search (BUDGET) rather than evaluate a
-    point new to it once the search has asked for ``limit`` points, so that a stage of a run can
+    point new to it once the search has asked for ``limit`` points (runs of the objective when
+    each point is run several times: `run.driver.Driver` ``replicates``), so that a stage of a run can
     keep evaluations for the stages after it without anyone editing the budget.
     """
 
