@@ -139,8 +139,10 @@ class Log:
     def add(self, evaluation: Evaluation, *, ranked: bool = True) -> None:
         """Log ``evaluation``; ``ranked`` False leaves it out of the best (one replicate)."""
         self.evaluations.append(evaluation)
-        if ranked:
-            self.rank(evaluation)
+        if ranked and evaluation.status == Status.OK and (  # as `rank`, without a call
+            self.best is None or evaluation.value < self.best.value
+        ):
+            self.best = evaluation
 
     def rank(self, evaluation: Evaluation) -> None:
         """Make ``evaluation`` the best if it succeeded lower (a point's mean, with replicates)."""
