@@ -58,7 +58,10 @@ def session(
         hooks = book.hooks()
         stored = tuple(hooks.get("stored", ()))
         total = options.budget if bar_total == -1 else bar_total
-        bar = Progress(budget=total, enabled=None, done=len(stored)) if progress else None
+        bar = (
+            Progress(budget=total, enabled=None, done=len(stored), replicates=options.replicates)
+            if progress else None
+        )
         with contextlib.ExitStack() as stack:
             if bar is not None:
                 stack.callback(bar.close)

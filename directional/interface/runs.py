@@ -130,7 +130,8 @@ def solve(
             return run(objective, list(problem.parameters), **options)
         from directional.api.explore import exploration
 
-        with Progress(budget=None, enabled=False if quiet else None) as bar:
+        with Progress(budget=None, enabled=False if quiet else None,
+                      replicates=spec.replicates) as bar:
             return exploration(objective, list(problem.parameters), observers=(bar,), **options)
     options["budget"] = budget
     executor = batch_executor(problem, spec.workers)
@@ -241,7 +242,8 @@ def resume(
         path, dict(header.info), objective=problem.fingerprint(), retry=bool(retry_failed),
         refresh=problem.fingerprint,
     )
-    with Progress(budget=None, enabled=False if quiet else None) as bar:
+    replicates = arguments.get("replicates", 1)
+    with Progress(budget=None, enabled=False if quiet else None, replicates=replicates) as bar:
         return exploration(
             objective, header.parameters, journal=target,
             budget=header.budget if budget is None else budget, observers=(bar,), **arguments,

@@ -345,3 +345,16 @@ def test_the_noise_of_the_replicates_is_in_the_json_and_the_html_report(tmp_path
     page = write_html(sol, tmp_path / "report.html").read_text(encoding="utf-8")
     assert "noise from the 3 replicates of each point" in page
     assert "replicates" not in solution_document(dl.minimize(bowl, START, check=False))
+
+
+def test_the_progress_bar_shows_the_best_mean_not_the_lowest_run():
+    from directional.run.driver import Evaluation
+    from directional.run.progress import Progress
+
+    bar = Progress(budget=6, enabled=False, replicates=3)
+    for i, (x, value) in enumerate([(0.0, 0.0), (0.0, 10.0), (1.0, 3.0), (0.0, 10.0),
+                                    (1.0, 3.0), (1.0, 3.0)]):
+        bar(Evaluation(index=i, point=np.array([x]), value=value, status="ok"))
+        if i == 3:
+            assert bar.best == pytest.approx(20.0 / 3.0)  # point 0's mean, not its run at 0
+    assert bar.count == 6 and bar.best == 3.0
