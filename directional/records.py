@@ -4,7 +4,10 @@ The search yields a `Batch` of points to evaluate and receives their values (a f
 evaluation arrives as ``+inf``).  When the driver must end a search early (budget spent, time up,
 Ctrl-C) it throws `Halt` into the generator, which returns its `Outcome` with that stop reason.
 A generator that needs to know what it has cost yields `SPENT` instead of a batch and is sent
-back the number of distinct points its search has asked the driver for so far.
+back what its search has cost so far (runs of the objective: points times replicates).  One
+that needs the scatter of the replicates (each point run several times, `run.driver.Driver`
+``replicates``) yields `SPREAD` and is sent back the pooled sample standard deviation of one run
+over the points its search has been sent so far.
 """
 
 from __future__ import annotations
@@ -90,6 +93,20 @@ class Spent(enum.Enum):
 SPENT = Spent.SPENT
 
 
+class Spread(enum.Enum):
+    """The question "how much do the replicates of one point scatter?" (the sentinel `SPREAD`).
+
+    The driver answers with the pooled sample standard deviation of one run
+    (`method.replicates.pooled`) over the points the search has asked for and been sent, a float;
+    ``nan`` when no point has two replicates that succeeded (always with one run per point).
+    """
+
+    SPREAD = "spread"
+
+
+SPREAD = Spread.SPREAD
+
+
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Batch:
     """Points the search wants evaluated, one per row, in the user's coordinates.
@@ -97,7 +114,8 @@ class Batch:
     ``purpose`` says what the points are for (`Purpose`), for the journal and for people reading
     it; it never changes what the driver does.  ``limit`` (None: the budget) lowers the budget
     for the points of this batch: the driver halts the search (BUDGET) rather than evaluate a
-    point new to it once the search has asked for ``limit`` points, so that a stage of a run can
+    point new to it once the search has asked for ``limit`` points (runs of the objective when
+    each point is run several times: `run.driver.Driver` ``replicates``), so that a stage of a run can
     keep evaluations for the stages after it without anyone editing the budget.
     """
 
@@ -113,7 +131,7 @@ class Batch:
         object.__setattr__(self, "points", points)
 
 
-Request = Batch | Spent  # what a generator of a run yields: points to evaluate, or the question
+Request = Batch | Spent | Spread  # what a generator of a run yields: points, or a question
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

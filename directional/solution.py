@@ -25,7 +25,9 @@ class Solution:
 
     ``point`` is in the user's coordinates; ``directions`` holds the final direction set, one unit
     row per direction, expressed in search coordinates (each parameter, or its logarithm when it is
-    log-scaled); ``history`` is every evaluation in order, failed ones included.
+    log-scaled); ``history`` is every evaluation in order, failed ones included.  ``spread``
+    (`method.replicates.Spread`, when each point was run several times) is the noise of one run
+    and of the mean, read off the scatter of the replicates.
     """
 
     point: np.ndarray
@@ -45,6 +47,7 @@ class Solution:
     reason: str = ""
     notes: tuple[str, ...] = ()
     history: tuple[Evaluation, ...] = field(default=(), repr=False)
+    spread: Any = None
 
     @property
     def named(self) -> dict[str, float]:
@@ -90,6 +93,8 @@ def summary_lines(sol: Solution) -> list[str]:
             f"{_bound(sol.upper[i]):>11}  {sol.units[i]}{flag}"
         )
     lines.extend(_uncertainty_lines(sol))
+    if sol.spread is not None:
+        lines.append(f"  {sol.spread.describe()}")
     for note in sol.notes:
         lines.append(f"  note: {note}")
     return lines

@@ -42,7 +42,7 @@ import numpy as np
 from scipy import stats
 
 from directional.api.options import Options, calibrate_options
-from directional.api.session import session, solution
+from directional.api.session import session, solution, with_replicates
 from directional.errors import ProblemError
 from directional.method.curvature import Settled, combination, labels, settle, settled_solution
 from directional.method.leastsquares import (
@@ -52,7 +52,8 @@ from directional.method.leastsquares import (
     extrapolated_jacobian,
     levenberg_marquardt,
 )
-from directional.method.noise import floored, noise_level
+from directional.method.noise import floored
+from directional.method.replicates import planned_level, pooled_level
 from directional.method.search import Settings, powell
 from directional.method.space import Space
 from directional.records import SPENT, Batch, Halt, Outcome, Purpose, Request, Stop
@@ -218,6 +219,7 @@ def calibrate(
     check: bool | str = True,
     escapes: int = 3,
     noise: float | str | None = None,
+    replicates: int = 1,
     executor: object = None,
     progress: bool = False,
 ) -> Solution:
@@ -243,6 +245,11 @@ def calibrate(
     sigma
         None, or m positive standard deviations of the data: the residuals are divided by them.
         The covariance is still scaled by s² = S / (m - p), which is near 1 when they are right.
+    replicates
+        Run each point this many times (a stochastic model); the search sees the sum of squares
+        of the mean residual vector of the runs that succeeded, and the journal keeps each run's
+        vector (`directional.method.leastsquares`).  Otherwise as for `directional.minimize`; the
+        noise level from the replicates is that of one run's sum of squares divided by sqrt(k).
 
     The other arguments are those of `directional.minimize`; ``budget`` counts every evaluation
     (search, Levenberg–Marquardt, check and Jacobian).  ``executor`` evaluates the points of a
@@ -253,14 +260,15 @@ def calibrate(
     Raises
     ------
     ProblemError
-        For a bad start, bounds, names, budget, tolerance, sigma, check, escapes or noise.
+        For a bad start, bounds, names, budget, tolerance, sigma, check, escapes, noise or
+        replicates.
     ObjectiveError
         When the start fails, or the residuals are not a flat array of numbers of a fixed length.
     """
     options = calibrate_options(
         residuals, start, bounds, names, budget, sigma=sigma, point_tolerance=point_tolerance,
         value_tolerance=value_tolerance, time_limit=time_limit, check=check, escapes=escapes,
-        noise=noise,
+        noise=noise, replicates=replicates,
     )
     if executor is not None and isinstance(getattr(executor, "_inner", executor),
                                            cf.ProcessPoolExecutor):
@@ -268,20 +276,26 @@ def calibrate(
             "calibrate needs each residual vector back in this process: give a thread pool as "
             "executor, not a process pool (many starts on processes: directional.api.explore)"
         )
-    squares = SumOfSquares(residuals, options.sigma)
+    squares = SumOfSquares(residuals, options.sigma, options.replicates)
     space = options.space
-    with session(squares, options, journal, executor=executor, progress=progress) as (
-        driver, book
-    ):
-        squares.vectors.update(book.stored_vectors())  # a resumed journal: nothing recomputed
+    combine = squares.combine if options.replicates > 1 else None
+    with session(
+        squares, options, journal, executor=executor, progress=progress, combine=combine
+    ) as (driver, book):
+        if options.replicates > 1:  # a resumed journal: nothing recomputed
+            squares.runs.update(book.stored_runs())
+            if squares.size is None and squares.runs:
+                squares.size = next(iter(squares.runs.values()))[0][1].size
+        squares.vectors.update(book.stored_vectors() if options.replicates == 1 else {})
         if squares.size is None and squares.vectors:
             squares.size = next(iter(squares.vectors.values())).size
-        book.vectors = squares.vectors.get  # the journal keeps each evaluation's vector
+        book.vectors = squares.journaled  # the journal keeps each evaluation's vector
         settled, settings, noted, free, jacobian = driver.run(calibration(options, squares))
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
         found = solution(space, driver.log, outcome, settings.point_tolerance)
         solution_ = settled_solution(found, settled, (*noted, *book.notes))
+        solution_ = with_replicates(solution_, driver.log.evaluations, options.replicates)
     x = space.to_user(outcome.point)
     notes = list(outcome.notes) + list(solution_.notes)
     result = None
@@ -310,12 +324,13 @@ def calibration(
     Jacobian (None when it could not be had).
     """
     space = options.space
-    level, noted = yield from noise_level(space, options.noise)
+    level, noted = yield from planned_level(space, options.noise, options.replicates)
     settings = floored(options.settings, level)
     outcome = yield from _search(
         space, settings, squares, None, budget=options.budget,
         reserve=_reserve(space.size, options.budget), second_opinion=True,
     )
+    level = yield from pooled_level(options.noise, options.replicates, level)
     settled = yield from settle(
         space, settings, outcome, check=options.check, escapes=options.escapes, noise=level,
         restart=lambda u: _search(space, settings, squares, u, budget=options.budget, reserve=0),

@@ -37,13 +37,21 @@ from scipy.stats import qmc
 from directional.api.options import (
     Options,
     budget_option,
+    replicate_identity,
     search_settings,
     time_limit_option,
 )
-from directional.api.session import active, search_directions, session
+from directional.api.session import (
+    active,
+    runs_by_point,
+    search_directions,
+    session,
+    with_replicates,
+)
 from directional.errors import ObjectiveError, ProblemError
 from directional.method.curvature import Settled, check_kind, escape_count, settle, settled_solution
-from directional.method.noise import floored, noise_level, noise_option
+from directional.method.noise import floored, noise_option
+from directional.method.replicates import planned_level, pooled, pooled_level, replicate_count
 from directional.method.search import Settings, powell
 from directional.method.space import Space, build_space, space_from_parameters
 from directional.parameters import Parameter
@@ -273,6 +281,7 @@ def explore(
     noise: float | str | None = None,
     same_point: float = SAME_POINT,
     same_value: float = SAME_VALUE,
+    replicates: int = 1,
 ) -> Landscape:
     """Return the distinct minima that searches from ``starts`` start points reach.
 
@@ -323,6 +332,11 @@ def explore(
         or at the start).
     same_point, same_value
         When two end points are one minimum (module docstring).
+    replicates
+        As for `minimize`: each point run this many times, the searches given the mean; the
+        runs of one point go to the executor at once.  The budgets count runs; the noise level
+        is read off the replicates at the centre of the bounds (or the start) unless ``noise`` is
+        a number, and each minimum's ``spread`` is that of its searches' points.
 
     Raises
     ------
@@ -339,6 +353,7 @@ def explore(
         total_budget=total_budget, point_tolerance=point_tolerance,
         value_tolerance=value_tolerance, time_limit=time_limit, journal=journal, check=check,
         escapes=escapes, noise=noise, same_point=same_point, same_value=same_value,
+        replicates=replicates,
     )
 
 
@@ -406,6 +421,7 @@ def explore_options(
     executor: object = None,
     workers: int | None = None,
     journal: object = None,
+    replicates: int = 1,
 ) -> Options:
     """The options of `explore`, validated before any evaluation, with the design of starts.
 
@@ -417,8 +433,12 @@ def explore_options(
     space, given = _space(bounds, start, names)
     include = given if include_start is None else bool(include_start)
     settings = search_settings(point_tolerance, value_tolerance)
-    allowed = budget_option(budget, space.size)
-    total = None if total_budget is None else budget_option(total_budget, space.size, "total_budget")
+    k = replicate_count(replicates)
+    allowed = budget_option(budget, space.size, replicates=k)
+    total = (
+        None if total_budget is None
+        else budget_option(total_budget, space.size, "total_budget", replicates=k)
+    )
     kind, escapes, noise = check_kind(check), escape_count(escapes), noise_option(noise)
     time_limit = _options(executor, workers, time_limit, same_point, same_value)
     if journal is not None and (isinstance(seed, bool) or not isinstance(seed, int | np.integer)):
@@ -438,11 +458,13 @@ def explore_options(
         noise=noise,
         same_point=float(same_point),
         same_value=float(same_value),
+        **replicate_identity(k),
     )
     return Options(
         kind="explore", space=space, settings=settings, budget=allowed, time_limit=time_limit,
         check=kind, escapes=escapes, noise=noise, identity=identity, starts=scaled_starts,
         total_budget=total, same_point=float(same_point), same_value=float(same_value),
+        replicates=k,
     )
 
 
@@ -464,13 +486,14 @@ def _explore(options: Options, driver: Driver) -> Landscape:
     scaled_starts = options.starts
     assert scaled_starts is not None
     k = len(scaled_starts)
-    level, noted = driver.run(noise_level(space, options.noise), search=k)
+    level, noted = driver.run(planned_level(space, options.noise, options.replicates), search=k)
     settings = floored(options.settings, level)
     outcomes = driver.run_all(
         {j: powell(space, settings, start=u) for j, u in enumerate(scaled_starts)}
     )
     ends = np.array([outcomes[j].point for j in range(k)])
     values = np.array([outcomes[j].value for j in range(k)])
+    level = _pooled_level(options, driver, k, level)
     spread = 0.0 if level is None else float(level)
     leaders, label = cluster(ends, values, options.same_point, options.same_value, spread)
     interrupted = any(o.stop is Stop.INTERRUPTED for o in outcomes.values())
@@ -510,7 +533,11 @@ def _explore(options: Options, driver: Driver) -> Landscape:
     for g, j in enumerate(groups):
         members = {i for i in range(k) if reached[i] == g}
         history = tuple(e for e in evaluations if e.search in members)
-        minima.append(_minimum(space, settings, settled[leaders[label[j]]], history))
+        found = _minimum(space, settings, settled[leaders[label[j]]], history)
+        minima.append(with_replicates(found, history, options.replicates))
+    found = pooled(runs_by_point(evaluations).values(), options.replicates)
+    if options.replicates > 1 and found is not None:
+        noted = (*noted, found.describe())
     return Landscape(
         minima=tuple(minima),
         counts=tuple(reached.count(g) for g in range(len(groups))),
@@ -527,6 +554,20 @@ def _explore(options: Options, driver: Driver) -> Landscape:
         notes=noted,
         history=tuple(evaluations),
     )
+
+
+def _pooled_level(options: Options, driver: Driver, k: int, level: float | None) -> float | None:
+    """With replicates: the median over the searches of their pooled levels (`pooled_level`).
+
+    Better determined than the one point's the searches planned with; it decides which ends
+    are one minimum and steps the checks.  Asked of the driver (each search's own points), so a
+    resumed run finds the same.
+    """
+    if options.replicates < 2:
+        return level
+    asked = {j: pooled_level(options.noise, options.replicates, None) for j in range(k)}
+    levels = [v for v in driver.run_all(asked).values() if v is not None]
+    return float(np.median(levels)) if levels else level
 
 
 def _minimum(

@@ -10,7 +10,7 @@ from typing import Any
 import numpy as np
 
 from directional.api.options import Options, minimize_options
-from directional.api.session import session, solution
+from directional.api.session import session, solution, with_replicates
 from directional.errors import ObjectiveError, ProblemError
 from directional.method.curvature import Settled, settle, settled_solution
 from directional.method.linesearch import LineResult, line_search
@@ -20,8 +20,8 @@ from directional.method.noise import (
     check_options,
     estimate,
     floored,
-    noise_level,
 )
+from directional.method.replicates import planned_level, pooled_level
 from directional.method.search import Settings, powell
 from directional.method.space import build_space
 from directional.records import Batch, Halt, Purpose, Request, Status
@@ -43,6 +43,7 @@ def minimize(
     check: bool | str = True,
     escapes: int = 3,
     noise: float | str | None = None,
+    replicates: int = 1,
     executor: object = None,
     progress: bool = False,
 ) -> Solution:
@@ -66,7 +67,7 @@ def minimize(
     bounds
         One ``(lower, upper)`` pair per parameter, None or inf for no bound.
     budget
-        The most evaluations to spend (default 1000 (n + 1)).
+        The most evaluations to spend (default 1000 (n + 1)); each replicate is one.
     point_tolerance, value_tolerance
         Stop when, on two consecutive cycles, no scaled coordinate moved more than
         ``point_tolerance`` and the value fell by less than ``value_tolerance * max(1, |f|)``.
@@ -89,7 +90,16 @@ def minimize(
     noise
         The objective's noise level (standard deviation, in its units), or "estimate" to measure
         it at the start (`directional.method.noise`, Moré & Wild 2011).  It floors the value tolerance and
-        the Hessian's steps.  Default None: rounding errors only.
+        the Hessian's steps.  Default None: rounding errors only (with ``replicates``, the level
+        read off the replicates at the start).
+    replicates
+        Run each point this many times and give the search their mean (default 1), for an
+        objective known to be stochastic (`directional.method.replicates`).  Every run is an
+        evaluation of its own: counted against ``budget`` (default then k times as large),
+        journaled with its value, sent to ``executor`` as a separate task.  A point's value is
+        the mean of its runs that succeeded; it fails only when all of them do.  With 2 or more,
+        the sample standard deviation of the start's runs divided by sqrt(k) is the noise level
+        when ``noise`` is not a number, and ``sol.spread`` reports the pooled one of all points.
     executor
         A `concurrent.futures.Executor` (a process pool, or a Dask cluster's
         ``client.get_executor()``) on which the points of a batch (both bracketing probes, the
@@ -103,8 +113,8 @@ def minimize(
     Raises
     ------
     ProblemError
-        For a bad start, bounds, names, budget, tolerance, check, escapes or noise, before any
-        evaluation.
+        For a bad start, bounds, names, budget, tolerance, check, escapes, noise or replicates,
+        before any evaluation.
     ObjectiveError
         When the start point fails, or the objective returns something that is not a number.
     JournalError
@@ -113,7 +123,7 @@ def minimize(
     options = minimize_options(
         objective, start, bounds, names, budget, point_tolerance=point_tolerance,
         value_tolerance=value_tolerance, time_limit=time_limit, check=check, escapes=escapes,
-        noise=noise,
+        noise=noise, replicates=replicates,
     )
     if executor is not None and not isinstance(executor, cf.Executor):
         raise ProblemError(f"executor must be a concurrent.futures.Executor, got {executor!r}")
@@ -124,7 +134,8 @@ def minimize(
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
         found = solution(options.space, driver.log, outcome, settings.point_tolerance)
-        return settled_solution(found, settled, (*noted, *book.notes))
+        found = settled_solution(found, settled, (*noted, *book.notes))
+        return with_replicates(found, driver.log.evaluations, options.replicates)
 
 
 def minimization(
@@ -137,9 +148,10 @@ def minimization(
     value tolerance floored by the noise) and the notes for the user.
     """
     space = options.space
-    level, noted = yield from noise_level(space, options.noise)
+    level, noted = yield from planned_level(space, options.noise, options.replicates)
     settings = floored(options.settings, level)
     outcome = yield from powell(space, settings)
+    level = yield from pooled_level(options.noise, options.replicates, level)
     settled = yield from settle(
         space, settings, outcome, check=options.check, escapes=options.escapes, noise=level,
         budget=options.budget,

@@ -18,6 +18,7 @@ import numpy as np
 from directional.errors import ProblemError
 from directional.method.curvature import check_kind, escape_count
 from directional.method.noise import noise_option
+from directional.method.replicates import replicate_count
 from directional.method.search import Settings
 from directional.method.space import Space, build_space
 from directional.records import Check
@@ -32,7 +33,8 @@ class Options:
     evaluations of each search (its check included), ``total_budget`` those of a many-start
     run; ``check`` is None when no paid check is made.  ``sigma`` (calibrate) divides the
     residuals; ``starts`` (explore) are the start points in scaled coordinates, and
-    ``same_point``, ``same_value`` decide when two end points are one minimum.
+    ``same_point``, ``same_value`` decide when two end points are one minimum.  ``replicates``
+    is how many times each point is run (the search sees their mean); the budgets count runs.
     """
 
     kind: str
@@ -49,6 +51,7 @@ class Options:
     total_budget: int | None = None
     same_point: float = 0.0
     same_value: float = 0.0
+    replicates: int = 1
 
 
 def default_budget(n: int) -> int:
@@ -69,6 +72,7 @@ def minimize_options(
     check: bool | str = True,
     escapes: int = 3,
     noise: float | str | None = None,
+    replicates: int = 1,
 ) -> Options:
     """The options of `directional.minimize`, validated before any evaluation.
 
@@ -80,7 +84,7 @@ def minimize_options(
     return _single(
         "minimize", "objective", objective, start, bounds, names, budget,
         point_tolerance=point_tolerance, value_tolerance=value_tolerance, time_limit=time_limit,
-        check=check, escapes=escapes, noise=noise,
+        check=check, escapes=escapes, noise=noise, replicates=replicates,
     )
 
 
@@ -98,6 +102,7 @@ def calibrate_options(
     check: bool | str = True,
     escapes: int = 3,
     noise: float | str | None = None,
+    replicates: int = 1,
 ) -> Options:
     """The options of `directional.calibrate`, validated before any evaluation.
 
@@ -109,7 +114,7 @@ def calibrate_options(
     return _single(
         "calibrate", "residuals", residuals, start, bounds, names, budget,
         point_tolerance=point_tolerance, value_tolerance=value_tolerance, time_limit=time_limit,
-        check=check, escapes=escapes, noise=noise, sigma=sigma,
+        check=check, escapes=escapes, noise=noise, sigma=sigma, replicates=replicates,
     )
 
 
@@ -127,12 +132,13 @@ def _single(
         raise ProblemError(f"{role} must be callable, got {function!r}")
     space = build_space(start, bounds, names)
     settings = search_settings(arguments["point_tolerance"], arguments["value_tolerance"])
-    allowed = budget_option(budget, space.size)
+    replicates = replicate_count(arguments["replicates"])
+    allowed = budget_option(budget, space.size, replicates=replicates)
     time_limit = time_limit_option(arguments["time_limit"])
     check = check_kind(arguments["check"])
     escapes = escape_count(arguments["escapes"])
     noise = noise_option(arguments["noise"])
-    extra: dict[str, Any] = {}
+    extra: dict[str, Any] = replicate_identity(replicates)
     sigma = None
     if "sigma" in arguments:  # calibrate's
         sigma = sigma_option(arguments["sigma"])
@@ -145,6 +151,7 @@ def _single(
     return Options(
         kind=kind, space=space, settings=settings, budget=allowed, time_limit=time_limit,
         check=check, escapes=escapes, noise=noise, identity=identity, sigma=sigma,
+        replicates=replicates,
     )
 
 
@@ -170,21 +177,32 @@ def search_settings(point_tolerance: object, value_tolerance: object) -> Setting
     )
 
 
-def budget_option(budget: object, n: int, key: str = "budget") -> int:
-    """The budget of evaluations (default 1000 (n + 1)); at least n + 1.
+def budget_option(budget: object, n: int, key: str = "budget", *, replicates: int = 1) -> int:
+    """The budget of evaluations (runs of the objective); at least n + 1 points' worth.
+
+    The default is 1000 (n + 1) points, each run ``replicates`` times: 1000 (n + 1) k runs.
 
     Raises
     ------
     ProblemError
-        For anything but a whole number of at least n + 1.
+        For anything but a whole number of at least (n + 1) k.
     """
     if budget is None:
-        return default_budget(n)
+        return default_budget(n) * replicates
     if isinstance(budget, bool) or not isinstance(budget, int | np.integer):
         raise ProblemError(f"{key} must be a whole number of evaluations, got {budget!r}")
-    if budget < n + 1:
-        raise ProblemError(f"{key} must allow at least n + 1 = {n + 1} evaluations, got {budget!r}")
+    least = (n + 1) * replicates
+    if budget < least:
+        each = "" if replicates == 1 else f" points each run {replicates} times, {least}"
+        raise ProblemError(
+            f"{key} must allow at least n + 1 = {n + 1}{each} evaluations, got {budget!r}"
+        )
     return int(budget)
+
+
+def replicate_identity(replicates: int) -> dict[str, Any]:
+    """The identity's entry for the replicates: none for one run per point (older journals)."""
+    return {} if replicates == 1 else {"replicates": replicates}
 
 
 def time_limit_option(time_limit: object) -> float | None:

@@ -9,13 +9,16 @@ note how the run ended, close everything whatever happened.
 from __future__ import annotations
 
 import contextlib
-from collections.abc import Iterator, Sequence
+import dataclasses
+import math
+from collections.abc import Callable, Iterator, Sequence
 from typing import Any
 
 import numpy as np
 
 from directional.api.options import Options
 from directional.errors import ObjectiveError
+from directional.method.replicates import pooled
 from directional.method.space import Space
 from directional.records import Outcome, Status, Stop, Verdict
 from directional.run.driver import Driver, Evaluation, Log, Objective, Observer
@@ -35,12 +38,14 @@ def session(
     progress: bool = False,
     bar_total: int | None = -1,
     observers: Sequence[Observer] = (),
+    combine: Callable[[np.ndarray, list[float]], float] | None = None,
 ) -> Iterator[tuple[Driver, Any]]:
     """The driver of a run and its open journal (or a stand-in that keeps nothing).
 
     ``progress`` shows a bar on standard error when it is a terminal, of ``bar_total``
     evaluations (default the budget; None: no total); ``observers`` are told of each evaluation
-    too.  The caller's ``executor`` is left running.
+    too; ``combine`` makes a point's value from its replicates (`run.driver.Driver`).  The
+    caller's ``executor`` is left running.
 
     Raises
     ------
@@ -53,7 +58,10 @@ def session(
         hooks = book.hooks()
         stored = tuple(hooks.get("stored", ()))
         total = options.budget if bar_total == -1 else bar_total
-        bar = Progress(budget=total, enabled=None, done=len(stored)) if progress else None
+        bar = (
+            Progress(budget=total, enabled=None, done=len(stored), replicates=options.replicates)
+            if progress else None
+        )
         with contextlib.ExitStack() as stack:
             if bar is not None:
                 stack.callback(bar.close)
@@ -68,6 +76,8 @@ def session(
                     observers=(*hooks.get("observers", ()), *observers, *((bar,) if bar else ())),
                     stored=stored,
                     retry=bool(hooks.get("retry", False)),
+                    replicates=options.replicates,
+                    combine=combine,
                 )
             )
             yield driver, book
@@ -79,7 +89,7 @@ def solution(space: Space, log: Log, outcome: Outcome, point_tolerance: float) -
     Raises
     ------
     KeyboardInterrupt
-        When Ctrl-C came before anything was computed.
+        When Ctrl-C came before anything was computed (before any point had all its replicates).
     ObjectiveError
         When nothing was evaluated, the start failed, or every evaluation failed.
     """
@@ -94,6 +104,10 @@ def solution(space: Space, log: Log, outcome: Outcome, point_tolerance: float) -
             f"{first.detail or first.status}"
         )
     best = log.best
+    if best is None and outcome.stop is Stop.INTERRUPTED and any(
+        e.status == Status.OK for e in log.evaluations
+    ):  # replicates: some runs made, no point's runs all in
+        raise KeyboardInterrupt(outcome.reason)
     if best is None:
         raise ObjectiveError(
             f"every evaluation failed ({len(log.evaluations)}); last error: "
@@ -137,3 +151,34 @@ def search_directions(space: Space, directions: np.ndarray) -> np.ndarray:
     """Unit directions from scaled to search coordinates, one per row."""
     rows = directions * space.scale
     return rows / np.linalg.norm(rows, axis=1, keepdims=True)
+
+
+def with_replicates(sol: Solution, evaluations: Sequence[Evaluation], replicates: int) -> Solution:
+    """``sol`` with the noise read off its replicates (`Solution.spread`) and a note on failures.
+
+    Every point was run ``replicates`` times; the runs are grouped by point (bit for bit).  The
+    note counts the points whose mean lacks some runs (they failed): their value is the mean of
+    the others (`method.replicates.combined`).
+    """
+    if replicates < 2:
+        return sol
+    groups = runs_by_point(evaluations)
+    spread = pooled(groups.values(), replicates)
+    short = sum(1 for values in groups.values() if 0 < sum(map(math.isfinite, values)) < len(values))
+    notes = sol.notes
+    if short:
+        notes += (
+            f"{short} point{'s' if short > 1 else ''} had failed replicates: the value of such a "
+            "point is the mean of its replicates that succeeded",
+        )
+    return dataclasses.replace(sol, spread=spread, notes=notes)
+
+
+def runs_by_point(evaluations: Sequence[Evaluation]) -> dict[bytes, list[float]]:
+    """The values of the evaluations grouped by point (bit for bit); failures as ``inf``."""
+    groups: dict[bytes, list[float]] = {}
+    for evaluation in evaluations:
+        groups.setdefault(evaluation.point.tobytes(), []).append(
+            evaluation.value if evaluation.status == Status.OK else math.inf
+        )
+    return groups

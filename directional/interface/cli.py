@@ -168,6 +168,8 @@ def _parser() -> argparse.ArgumentParser:
                      help="searches from K starts (overrides the file)")
     run.add_argument("--workers", type=_positive, metavar="W",
                      help="parallel evaluations: of many starts, or of one search's batches")
+    run.add_argument("--replicates", type=_positive, metavar="K",
+                     help="run each point K times, the search sees the mean (overrides the file)")
     run.add_argument("--dask", metavar="ADDRESS",
                      help="evaluate many starts on the Dask scheduler at ADDRESS (needs [dask])")
     where = run.add_mutually_exclusive_group()
@@ -325,11 +327,12 @@ def _run(args: argparse.Namespace) -> int:
 
     problem = load_problem(args.problem)
     search = problem.search
-    if args.starts is not None or args.workers is not None:
+    if args.starts is not None or args.workers is not None or args.replicates is not None:
         search = dataclasses.replace(
             search,
             starts=search.starts if args.starts is None else args.starts,
             workers=search.workers if args.workers is None else args.workers,
+            replicates=search.replicates if args.replicates is None else args.replicates,
         )
         problem = dataclasses.replace(problem, search=search)
     journal: Path | bool | None = True

@@ -48,6 +48,7 @@ The schema (every table but ``[[parameter]]`` and ``[objective]`` is optional)::
     starts = 1                    # more than 1: many starts (dl.explore)
     workers = 1                   # processes for many starts
     seed = 0                      # of the start design
+    replicates = 1                # runs of each point (a stochastic model): the search sees the mean
 
     [journal]                     # default: NAME.journal.sqlite beside this file NAME.toml
     path = "runs/culture.sqlite"  # relative to this file
@@ -101,6 +102,7 @@ _SEARCH = (
     "starts",
     "workers",
     "seed",
+    "replicates",
 )
 _JOURNAL = ("path",)
 _REPORT = ("fit",)
@@ -214,6 +216,7 @@ class SearchSpec:
     starts: int = 1
     workers: int = 1
     seed: int = 0
+    replicates: int = 1
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -563,11 +566,16 @@ class _Reader:
         data = self._data()
         objective = self._objective(parameters, data is not None)
         search = self._search()
-        if search.budget is not None and search.budget < len(parameters) + 1:
+        least = (len(parameters) + 1) * search.replicates
+        if search.budget is not None and search.budget < least:
+            each = (
+                "" if search.replicates == 1
+                else f" points each run {search.replicates} times, {least}"
+            )
             raise self.fail(
                 ("search", "budget"),
-                f"search.budget must allow at least n + 1 = {len(parameters) + 1} evaluations, "
-                f"got {search.budget!r}",
+                f"search.budget must allow at least n + 1 = {len(parameters) + 1}{each} "
+                f"evaluations, got {search.budget!r}",
             )
         journal = self._table("journal")
         path = self._get(journal, ("journal", "path"), str, None)
@@ -794,7 +802,9 @@ class _Reader:
         }
         time_limit = self._get(table, (*at, "time_limit"), float, None)
         check = self._get(table, (*at, "check"), (bool, str), True)
-        counts = {key: self._get(table, (*at, key), int, 1) for key in ("starts", "workers")}
+        counts = {
+            key: self._get(table, (*at, key), int, 1) for key in ("starts", "workers", "replicates")
+        }
         seed = self._get(table, (*at, "seed"), int, 0)
         if budget is not None and budget < 1:
             raise self.fail(

@@ -110,6 +110,8 @@ def solve(
     }
     if spec.noise is not None:
         options["noise"] = spec.noise
+    if spec.replicates != 1:
+        options["replicates"] = spec.replicates
     if path is not None:
         options["journal"] = journals.Target(
             path,
@@ -128,7 +130,8 @@ def solve(
             return run(objective, list(problem.parameters), **options)
         from directional.api.explore import exploration
 
-        with Progress(budget=None, enabled=False if quiet else None) as bar:
+        with Progress(budget=None, enabled=False if quiet else None,
+                      replicates=spec.replicates) as bar:
             return exploration(objective, list(problem.parameters), observers=(bar,), **options)
     options["budget"] = budget
     executor = batch_executor(problem, spec.workers)
@@ -239,7 +242,8 @@ def resume(
         path, dict(header.info), objective=problem.fingerprint(), retry=bool(retry_failed),
         refresh=problem.fingerprint,
     )
-    with Progress(budget=None, enabled=False if quiet else None) as bar:
+    replicates = arguments.get("replicates", 1)
+    with Progress(budget=None, enabled=False if quiet else None, replicates=replicates) as bar:
         return exploration(
             objective, header.parameters, journal=target,
             budget=header.budget if budget is None else budget, observers=(bar,), **arguments,
@@ -270,7 +274,8 @@ def check_problem(path: str | os.PathLike[str], problem: Problem, header: journa
     arguments = header.identity.get("arguments", {})
     for key, value in (("point_tolerance", spec.point_tolerance),
                        ("value_tolerance", spec.value_tolerance), ("check", spec.check),
-                       ("noise", spec.noise), ("seed", spec.seed)):
+                       ("noise", spec.noise), ("seed", spec.seed),
+                       ("replicates", spec.replicates)):
         if found is None and key in arguments and canonical(arguments[key]) != canonical(value):
             found = (f"search.{key}", arguments[key], value)
     if found is not None:

@@ -7,6 +7,12 @@ here yield batches (purposes "jacobian", "gauss-newton") and read the vectors ba
 driver answered without calling the objective (a journal being replayed) is computed again, once,
 and counted in ``SumOfSquares.recomputed``.
 
+With replicates (each point run k times, `directional.method.replicates`) every run keeps its own
+vector, matched to its evaluation by its sum of squares (bit for bit), and the value the search
+sees is the sum of squares of the mean vector of the runs that succeeded (`SumOfSquares.combine`):
+least squares on the averaged residuals.  That mean vector is what the Jacobians and the
+Levenberg–Marquardt steps read.
+
 References
 ----------
 .. [1] K. Levenberg, "A method for the solution of certain non-linear problems in least squares",
@@ -19,13 +25,14 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Generator
+from collections.abc import Callable, Generator, Sequence
 from dataclasses import dataclass
 
 import numpy as np
 
 from directional.errors import ObjectiveError
 from directional.method import differences
+from directional.method.replicates import combined_vector
 from directional.method.space import Space
 from directional.records import Batch, Halt, Purpose, Stop
 
@@ -61,6 +68,8 @@ class SumOfSquares:
     """The objective the driver sees: ``S(x)``, with each residual vector kept by point.
 
     ``sigma`` (None or one positive standard deviation per residual) divides the residuals.
+    ``replicates`` above 1 keeps the vector of every run of a point in ``runs`` (with its sum of
+    squares); ``vectors`` then holds each point's mean vector once `combine` has made it.
 
     Raises (when called)
     --------------------
@@ -69,18 +78,44 @@ class SumOfSquares:
         or do not match ``sigma``.
     """
 
-    def __init__(self, residuals: Residuals, sigma: np.ndarray | None) -> None:
+    def __init__(self, residuals: Residuals, sigma: np.ndarray | None, replicates: int = 1) -> None:
         self.residuals = residuals
         self.sigma = sigma
+        self.replicates = replicates
         self.vectors: dict[bytes, np.ndarray] = {}
+        self.runs: dict[bytes, list[tuple[float, np.ndarray]]] = {}
         self.size: int | None = None
         self.recomputed = 0
 
     def __call__(self, x: np.ndarray) -> float:
         key = x.tobytes()
         r = self._vector(self.residuals(x))
-        self.vectors[key] = r
-        return float(r @ r) if np.all(np.isfinite(r)) else math.nan
+        value = float(r @ r) if np.all(np.isfinite(r)) else math.nan
+        if self.replicates > 1:
+            self.runs.setdefault(key, []).append((value, r))  # one list append: thread-safe
+        else:
+            self.vectors[key] = r
+        return value
+
+    def journaled(self, evaluation: object) -> np.ndarray | None:
+        """The residual vector of one evaluation (a `run.driver.Evaluation`), for the journal."""
+        key = evaluation.point.tobytes()  # type: ignore[attr-defined]
+        if self.replicates == 1:
+            return self.vectors.get(key)
+        return _matching(self.runs.get(key, ()), [evaluation.value])[0]  # type: ignore[attr-defined]
+
+    def combine(self, point: np.ndarray, values: list[float]) -> float:
+        """The value of a replicated point: the sum of squares of its runs' mean vector.
+
+        ``values`` are the driver's values of the runs (failures ``inf``); each is matched to
+        the vector of the run that gave it.  ``inf`` when no run succeeded.
+        """
+        key = point.tobytes()
+        mean = combined_vector(_matching(self.runs.get(key, ()), values))
+        if mean is None:
+            return math.inf
+        self.vectors[key] = mean
+        return float(mean @ mean)
 
     def _vector(self, result: object) -> np.ndarray:
         try:
@@ -111,7 +146,7 @@ class SumOfSquares:
     def vector(self, x: np.ndarray) -> np.ndarray | None:
         """The residual vector at user point ``x`` (None when its evaluation failed)."""
         key = x.tobytes()
-        if key not in self.vectors:
+        if key not in self.vectors and key not in self.runs:
             self.recomputed += 1
             try:
                 self(x.copy())
@@ -119,8 +154,29 @@ class SumOfSquares:
                 raise
             except Exception:  # the objective's own failure, as the driver would see it
                 return None
+        if key not in self.vectors and key in self.runs:  # replicates the driver did not combine
+            mean = combined_vector([r for _, r in self.runs[key]])
+            if mean is not None:
+                self.vectors[key] = mean
         r = self.vectors.get(key)
         return r if r is not None and np.all(np.isfinite(r)) else None
+
+
+def _matching(
+    runs: Sequence[tuple[float, np.ndarray]], values: Sequence[float]
+) -> list[np.ndarray | None]:
+    """For each value, the vector of a run with that sum of squares (each run used once)."""
+    left = list(runs)
+    found: list[np.ndarray | None] = []
+    for value in values:
+        for i, (made, r) in enumerate(left):
+            if made == value or not (math.isfinite(made) or math.isfinite(value)):
+                found.append(r)
+                del left[i]
+                break
+        else:
+            found.append(None)  # the run raised: it has no vector
+    return found
 
 
 # ----------------------------------------------------------------------------- Levenberg–Marquardt

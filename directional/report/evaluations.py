@@ -4,7 +4,9 @@ One row per evaluation, in the order they were written (interrupted ones and the
 ``resume --retry-failed`` made again included, so nothing is hidden): the search and its sequence
 number, the session that made it, one column per parameter (by name), the value (empty when the
 evaluation failed), the status, the reason it failed, the purpose, and the start and end time
-(UTC, ISO 8601) with the seconds it took.
+(UTC, ISO 8601) with the seconds it took.  A run made with replicates (each point run k times)
+has a ``replicate`` column after ``session``: 0, 1, ... for the runs of one point in the order
+they were written (an interrupted run has the number of the run made again in its place).
 
 >>> import pandas                                                  # doctest: +SKIP
 >>> table = pandas.read_csv("evaluations.csv", parse_dates=["started", "ended"])  # doctest: +SKIP
@@ -15,6 +17,7 @@ from __future__ import annotations
 import csv
 import datetime
 import math
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -31,15 +34,19 @@ def write_csv(contents: Any, path: str | Path) -> Path:
     path.parent.mkdir(parents=True, exist_ok=True)
     names = [p.name for p in contents.header.parameters]
     sessions = contents.made_by or (0,) * len(contents.evaluations)
+    replicated = contents.header.identity.get("arguments", {}).get("replicates", 1) != 1
+    numbers = replicate_numbers(contents.evaluations) if replicated else None
     with path.open("w", encoding="utf-8", newline="") as stream:
         writer = csv.writer(stream)
-        writer.writerow([*COLUMNS_BEFORE, *names, *COLUMNS_AFTER])
-        for evaluation, session in zip(contents.evaluations, sessions):
+        writer.writerow([*COLUMNS_BEFORE, *(["replicate"] if numbers else []), *names,
+                         *COLUMNS_AFTER])
+        for i, (evaluation, session) in enumerate(zip(contents.evaluations, sessions)):
             value = evaluation.value
             writer.writerow([
                 evaluation.search,
                 evaluation.sequence,
                 session,
+                *([numbers[i]] if numbers else []),
                 *(repr(float(v)) for v in evaluation.point),
                 repr(value) if math.isfinite(value) else "",
                 evaluation.status,
@@ -50,6 +57,27 @@ def write_csv(contents: Any, path: str | Path) -> Path:
                 repr(evaluation.seconds),
             ])
     return path
+
+
+def replicate_numbers(evaluations: Sequence[Any]) -> list[int]:
+    """Each evaluation's place among the runs of its point, in the order written (0, 1, ...).
+
+    An interrupted run takes the number of the run that is made again in its place.
+
+    >>> import numpy as np
+    >>> from types import SimpleNamespace as E
+    >>> rows = [E(point=np.array([p]), status=s) for p, s in [(0., "ok"), (1., "ok"), (0., "ok")]]
+    >>> replicate_numbers(rows)
+    [0, 0, 1]
+    """
+    made: dict[bytes, int] = {}
+    numbers = []
+    for evaluation in evaluations:
+        key = evaluation.point.tobytes()
+        numbers.append(made.get(key, 0))
+        if evaluation.status != "interrupted":
+            made[key] = made.get(key, 0) + 1
+    return numbers
 
 
 def _when(seconds: float) -> str:

@@ -309,6 +309,8 @@ def _correlation(sol: Solution) -> _Html | None:
 
 def _notes(sol: Solution, landscape: Any) -> _Html | None:
     notes = list(sol.notes) + ([] if landscape is None else list(landscape.notes))
+    if sol.spread is not None and landscape is None:  # a landscape's notes carry the run's
+        notes.insert(0, sol.spread.describe())
     if not notes:
         return None
     return _element("section", _element("h2", "Notes and warnings"),

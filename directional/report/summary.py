@@ -142,6 +142,13 @@ def solution_document(
         "failures": failures_document(sol.history, names),
         "caution": CAUTION,
     }
+    if sol.spread is not None:  # each point run several times: the noise their scatter shows
+        spread = sol.spread
+        document["replicates"] = {
+            "runs_per_point": spread.replicates, "noise_of_one_run": _number(spread.run),
+            "noise_of_the_mean": _number(spread.mean), "points": spread.points,
+            "degrees_of_freedom": spread.degrees_of_freedom,
+        }
     return document
 
 

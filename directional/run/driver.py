@@ -69,6 +69,18 @@ A worker process that dies breaks a process pool: the pool is replaced (``replac
 evaluations that were in flight are run again one at a time; one that kills its worker while
 running alone is recorded failed (detail `DIED`).  Any other error of the executor (a Dask
 worker lost for good) makes that evaluation failed; the run goes on.
+
+Replicates (``replicates = k`` of 2 or more, for a stochastic objective): each point a search asks
+for is run k times, each run a separate evaluation through the executor (a pool runs them at
+once), logged and reported with its own value and its own sequence number; when the k runs are
+in, the search receives their mean (``combine``, by default `method.replicates.combined`: the mean
+of the runs that succeeded, ``+inf`` when none did).  The cache, the replay and the limits above
+are by point as before, but the budget counts runs: a point new to a search is asked only while
+the search has spent fewer than ``limit`` runs and all k runs fit in ``budget`` (`SPENT` is
+answered in runs).  Replay groups the stored rows of a point: k of them answer it; a point
+interrupted part way (fewer rows) gets only its missing runs made, so nothing is repeated.  With
+``retry`` the failed runs of a point are made again.  A search may ask `records.SPREAD`: it is
+sent the pooled sample standard deviation of one run over the points it has been sent.
 """
 
 from __future__ import annotations
@@ -86,7 +98,8 @@ from typing import Any
 import numpy as np
 
 from directional.errors import JournalError, ObjectiveError
-from directional.records import SPENT, Batch, Halt, Request, Spent, Status, Stop
+from directional.method.replicates import combined, pooled
+from directional.records import SPENT, SPREAD, Batch, Halt, Request, Spent, Spread, Status, Stop
 from directional.run.interrupts import Interrupts
 from directional.run.workers import process_pool, stop_workers
 
@@ -123,8 +136,16 @@ class Log:
     best: Evaluation | None = None
     cache_hits: int = 0
 
-    def add(self, evaluation: Evaluation) -> None:
+    def add(self, evaluation: Evaluation, *, ranked: bool = True) -> None:
+        """Log ``evaluation``; ``ranked`` False leaves it out of the best (one replicate)."""
         self.evaluations.append(evaluation)
+        if ranked and evaluation.status == Status.OK and (  # as `rank`, without a call
+            self.best is None or evaluation.value < self.best.value
+        ):
+            self.best = evaluation
+
+    def rank(self, evaluation: Evaluation) -> None:
+        """Make ``evaluation`` the best if it succeeded lower (a point's mean, with replicates)."""
         if evaluation.status == Status.OK and (
             self.best is None or evaluation.value < self.best.value
         ):
@@ -235,6 +256,19 @@ class _Pending:
     search: int
     waiters: list[tuple[int, int, int]] = field(default_factory=list)  # (task, serial, row)
     suspect: bool = False  # was in flight when a worker died: runs alone
+    group: bytes | None = None  # one run of a replicated point: that point's key (waiters there)
+    replicate: int = 0
+
+
+@dataclass(slots=True, kw_only=True)
+class _Group:
+    """A point run ``replicates`` times: the runs ended so far and the searches waiting."""
+
+    key: bytes
+    point: np.ndarray
+    runs: dict[int, float] = field(default_factory=dict)  # replicate number -> value
+    waiters: list[tuple[int, int, int]] = field(default_factory=list)  # (task, serial, row)
+    retried: bool = False  # makes stored failures again: its searches leave the journal
 
 
 @dataclass(slots=True, kw_only=True)
@@ -250,7 +284,9 @@ class Driver:
     breakage is an error); pools made here are shut down by `close`, the caller's executor is
     left running.  ``observers`` are called with each new evaluation as it completes;
     ``stored`` are the evaluations of a journal being resumed; with ``retry`` their failed and
-    timed-out points are evaluated again when asked for.
+    timed-out points are evaluated again when asked for.  ``replicates`` runs each point that
+    many times and ``combine(point, values)`` (default: `method.replicates.combined`) makes the
+    value the search receives from the values of its runs, in replicate order.
     """
 
     objective: Objective
@@ -264,6 +300,8 @@ class Driver:
     stored: Iterable[Evaluation] = ()
     replace: Callable[[], cf.Executor] | None = None
     retry: bool = False
+    replicates: int = 1
+    combine: Callable[[np.ndarray, list[float]], float] | None = None
     log: Log = field(default_factory=Log)
     replayed: int = 0
     interrupted: bool = False
@@ -277,6 +315,8 @@ class Driver:
     _pending: dict[bytes, _Pending] = field(default_factory=dict)
     _queue: collections.deque[bytes] = field(default_factory=collections.deque)
     _flying: dict[cf.Future, bytes] = field(default_factory=dict)
+    _groups: dict[bytes, _Group] = field(default_factory=dict)  # replicated points not yet in
+    _replicated: dict[bytes, list[float]] = field(default_factory=dict)  # the runs of each point
     _owned: list[cf.Executor] = field(default_factory=list)
     _clock_start: float = field(default_factory=time.monotonic)
 
@@ -290,6 +330,9 @@ class Driver:
             self.replace = lambda: process_pool(size)
         for evaluation in sorted(self.stored, key=lambda e: e.index):
             key = evaluation.point.tobytes()
+            if self.replicates > 1:
+                self._replay_run(key, evaluation)
+                continue
             earlier = self._made.get(key)
             if earlier is not None and earlier.status in RETRIED and evaluation.value != earlier.value:
                 # a retry that succeeded: the failed search's later rows were an abandoned path
@@ -309,6 +352,26 @@ class Driver:
                 self._retry.discard(key)
         for key in self._retry:
             del self._cache[key]
+
+    def _replay_run(self, key: bytes, evaluation: Evaluation) -> None:
+        """A stored run of a replicated point: into its group (a later row replaces a failure)."""
+        self._journal.setdefault(evaluation.search, {})[key] = evaluation.sequence
+        self._last[evaluation.search] = max(self._last.get(evaluation.search, -1), evaluation.sequence)
+        self._made[key] = evaluation
+        self.log.add(replace(evaluation, index=len(self.log.evaluations)), ranked=False)
+        self.replayed += 1
+        group = self._groups.get(key)
+        if group is None:
+            group = self._groups[key] = _Group(key=key, point=evaluation.point.copy())
+        if self.retry and evaluation.status in RETRIED:
+            group.retried = True  # not a run: made again when the point is asked for
+            return
+        if len(group.runs) < self.replicates:
+            group.runs[len(group.runs)] = evaluation.value
+            return
+        failed = [r for r, value in group.runs.items() if not math.isfinite(value)]
+        if failed:  # a row written by a retry of that failure
+            group.runs[failed[0]] = evaluation.value
 
     @property
     def spent(self) -> int:
@@ -402,9 +465,9 @@ class Driver:
     def _take(self, task: _Task, batch: Batch | Spent | None) -> None:
         """Make ``batch`` the one ``task`` waits on, until the search waits or ends."""
         while batch is not None:
-            if batch is SPENT:  # a question, not a batch: answered at once
+            if batch is SPENT or batch is SPREAD:  # a question, not a batch: answered at once
                 try:
-                    batch = task.search.send(len(task.seen))
+                    batch = task.search.send(self._question(task, batch))
                 except StopIteration as done:
                     task.ended, task.result = True, done.value
                     return
@@ -419,11 +482,25 @@ class Driver:
                 task.halt = halt
             batch = self._advance(task)
 
+    def _question(self, task: _Task, question: Spent | Spread) -> object:
+        """The answer to `SPENT` (runs spent) or `SPREAD` (the replicates' pooled scatter)."""
+        if question is SPENT:
+            return len(task.seen) * self.replicates
+        runs = (self._replicated[key] for key in task.seen if key in self._replicated)
+        spread = pooled(runs, self.replicates)
+        return math.nan if spread is None else spread.run
+
     def _ask(self, task: _Task, batch: Batch) -> None:
         """Answer what is known, queue the rest; raise `Halt` at a point past the budget."""
         keys = [x.tobytes() for x in batch.points]
+        if self._groups:  # stored replicated points whose runs are all in: their means
+            for key in keys:
+                group = self._groups.get(key)
+                if group is not None and len(group.runs) >= self.replicates:
+                    self._close(group)
         new = [
             key not in self._cache and key not in self._pending and key not in self._retry
+            and key not in self._groups
             for key in keys
         ]
         unasked = task.journaled - set(keys)
@@ -437,9 +514,10 @@ class Driver:
                 "was written for other settings or by another version of directional"
             )
         limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
+        k = self.replicates
         for row, (x, key) in enumerate(zip(batch.points, keys)):
             fresh = key not in task.seen
-            if fresh and len(task.seen) >= limit:
+            if fresh and (len(task.seen) * k >= limit or (len(task.seen) + 1) * k > self.budget):
                 raise Halt(Stop.BUDGET, f"the budget of {limit} evaluations is spent")
             task.fresh.append(fresh)
             task.journaled.discard(key)
@@ -450,11 +528,52 @@ class Driver:
                 self._answer(task, row, self._cache[key])
             elif key in self._pending:
                 self._pending[key].waiters.append((task.ident, task.serial, row))
+            elif k > 1:
+                self._replicate(key, x, batch.purpose, task, row)
             else:
                 pending = _Pending(key=key, point=x.copy(), purpose=batch.purpose, search=task.ident)
                 pending.waiters.append((task.ident, task.serial, row))
                 self._pending[key] = pending
                 self._queue.append(key)
+
+    def _replicate(self, key: bytes, x: np.ndarray, purpose: str, task: _Task, row: int) -> None:
+        """Wait on the mean of point ``x``'s runs; queue those neither made nor on their way."""
+        group = self._groups.get(key)
+        if group is None:
+            group = self._groups[key] = _Group(key=key, point=x.copy())
+        group.waiters.append((task.ident, task.serial, row))
+        for r in range(self.replicates):
+            run = key + r.to_bytes(4, "little")  # a key no point has: points are 8 n bytes
+            if r in group.runs or run in self._pending:
+                continue
+            self._pending[run] = _Pending(
+                key=run, point=group.point, purpose=purpose, search=task.ident, group=key,
+                replicate=r,
+            )
+            self._queue.append(run)
+
+    def _close(self, group: _Group) -> None:
+        """All runs of a replicated point are in: cache their mean, answer who waits on it."""
+        values = [group.runs[r] for r in sorted(group.runs)]
+        combine = self.combine or (lambda _, runs: combined(runs))
+        value = float(combine(group.point, values))
+        del self._groups[group.key]
+        self._cache[group.key] = value
+        self._replicated[group.key] = values
+        made = self._made.get(group.key)
+        if made is not None and math.isfinite(value):
+            self.log.rank(replace(made, value=value, status=Status.OK, detail=""))
+        for ident, serial, row in group.waiters:
+            task = self._tasks[ident]
+            if group.retried:
+                task.journaled.clear()  # the mean may differ from the stored one's
+            if task.batch is None or task.serial != serial:
+                continue  # that search was halted meanwhile
+            self._answer(task, row, value)
+            self._take(task, self._advance(task))
+
+    def _waiters(self, pending: _Pending) -> list[tuple[int, int, int]]:
+        return pending.waiters if pending.group is None else self._groups[pending.group].waiters
 
     def _answer(self, task: _Task, row: int, value: float) -> None:
         task.values[row] = value
@@ -513,24 +632,32 @@ class Driver:
         """Forget ``task``'s waits; points queued for nobody else are not evaluated."""
         for key in list(self._queue):
             pending = self._pending[key]
-            pending.waiters = [w for w in pending.waiters if w[0] != task.ident]
-            if not pending.waiters:
+            if pending.group is not None:
+                group = self._groups[pending.group]
+                group.waiters = [w for w in group.waiters if w[0] != task.ident]
+            else:
+                pending.waiters = [w for w in pending.waiters if w[0] != task.ident]
+            if not self._waiters(pending):
                 self._queue.remove(key)
                 del self._pending[key]
 
     def _halt_queued(self, halt: Halt) -> None:
         """A limit of the whole run: halt every search waiting on a point not yet started."""
-        waiting = {ident for key in self._queue for ident, _, _ in self._pending[key].waiters}
+        waiting = {ident for key in self._queue for ident, _, _ in self._waiters(self._pending[key])}
         for ident in sorted(waiting):
             task = self._tasks[ident]
             if task.batch is not None:
                 self._take(task, self._halt(task, halt))
 
-    def _run_limit(self) -> Halt | None:
-        """Before a new evaluation starts: Ctrl-C, the total budget and the time limit."""
+    def _run_limit(self, pending: _Pending | None = None) -> Halt | None:
+        """Before a new evaluation starts: Ctrl-C, the total budget and the time limit.
+
+        The first run of a replicated point needs room for all its runs in the total budget.
+        """
         if self.interrupted or self._interrupts.pending:
             return Halt(Stop.INTERRUPTED, self._interrupts.reason)
-        if self.total is not None and self.spent + len(self._flying) >= self.total:
+        need = 1 if pending is None or pending.group is None else self.replicates - pending.replicate
+        if self.total is not None and self.spent + len(self._flying) + need > self.total:
             return Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
         if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
             return Halt(Stop.BUDGET, f"the time limit of {self.time_limit:g} s has passed")
@@ -550,7 +677,7 @@ class Driver:
             self._queue.remove(key)
         self._queue.extendleft(reversed(suspects))
         while self._queue and self._room():
-            halt = self._run_limit()
+            halt = self._run_limit(self._pending[self._queue[0]])
             if halt is not None:
                 self._halt_queued(halt)
                 continue
@@ -626,6 +753,15 @@ class Driver:
             self._interrupt()
             return
         owner.sequence += 1
+        if pending.group is not None:  # one run of a replicated point
+            self.log.add(evaluation, ranked=False)
+            self._made[pending.group] = evaluation
+            self._notify(evaluation)
+            group = self._groups[pending.group]
+            group.runs[pending.replicate] = value
+            if len(group.runs) >= self.replicates:
+                self._close(group)
+            return
         if pending.key in self._retry:  # a retried point: the searches may now take new paths
             self._retry.discard(pending.key)
             for ident, _, _ in pending.waiters:

@@ -81,6 +81,7 @@ import numpy as np
 
 from directional.errors import JournalError, ProblemError
 from directional.method.noise import DETECTED, detected_level, difference_table
+from directional.method.replicates import pooled
 from directional.parameters import Parameter
 from directional.records import Batch, Halt, Status
 from directional.run.driver import RETRIED, Driver, Evaluation
@@ -228,8 +229,8 @@ class Journal:
         self._replayed: int | None = None
         self._fingerprint: dict[str, Any] | None = None
         self._refresh: Callable[[], Mapping[str, Any]] | None = None
-        # For a calibration: the residual vector of a point (its float64 bytes), or None.
-        self.vectors: Callable[[bytes], np.ndarray | None] | None = None
+        # For a calibration: the residual vector of an evaluation, or None.
+        self.vectors: Callable[[Evaluation], np.ndarray | None] | None = None
 
     # -- opening
 
@@ -345,7 +346,7 @@ class Journal:
         if self._sync == "adaptive":
             self._adapt(evaluation.seconds >= SYNC_AFTER)
         point = np.ascontiguousarray(evaluation.point, dtype="<f8").tobytes()
-        vector = None if self.vectors is None else self.vectors(evaluation.point.tobytes())
+        vector = None if self.vectors is None else self.vectors(evaluation)
         row = (
             evaluation.search,
             evaluation.sequence,
@@ -379,6 +380,21 @@ class Journal:
                 np.frombuffer(vector, dtype="<f8").astype(float)
             for point, vector in rows
         }
+
+    def stored_runs(self) -> dict[bytes, list[tuple[float, np.ndarray]]]:
+        """Each stored residual vector with its evaluation's value, by point, in row order.
+
+        With replicates a point has several rows, each with its own vector.
+        """
+        rows = self._connection.execute(
+            "SELECT point, value, residuals FROM evaluation WHERE residuals IS NOT NULL ORDER BY row"
+        ).fetchall()
+        runs: dict[bytes, list[tuple[float, np.ndarray]]] = {}
+        for point, value, vector in rows:
+            runs.setdefault(np.frombuffer(point, dtype="<f8").astype(float).tobytes(), []).append(
+                (_read_value(value), np.frombuffer(vector, dtype="<f8").astype(float))
+            )
+        return runs
 
     @property
     def synchronous(self) -> str:
@@ -454,9 +470,12 @@ class _NoJournal:
     stored: tuple[Evaluation, ...] = ()
     notes: tuple[str, ...] = ()
     retry = False
-    vectors: Callable[[bytes], np.ndarray | None] | None = None
+    vectors: Callable[[Evaluation], np.ndarray | None] | None = None
 
     def stored_vectors(self) -> dict[bytes, np.ndarray]:
+        return {}
+
+    def stored_runs(self) -> dict[bytes, list[tuple[float, np.ndarray]]]:
         return {}
 
     def hooks(self) -> dict[str, Any]:
@@ -974,7 +993,16 @@ def _evaluate_again(objective: Any, points: Sequence[np.ndarray]) -> np.ndarray:
 
 
 def _noise_of(header: Header, stored: Sequence[Evaluation]) -> float:
-    """The noise level of the run: given, or found again from its stored noise estimate."""
+    """The noise level of one run: given, or found again from its stored noise estimate or, for a
+    run with replicates, from their pooled spread (one evaluated point is one run)."""
+    replicates = header.identity.get("arguments", {}).get("replicates", 1)
+    if isinstance(replicates, int) and replicates > 1:
+        groups: dict[bytes, list[float]] = {}
+        for e in stored:
+            groups.setdefault(e.point.tobytes(), []).append(e.value if e.status == "ok" else math.inf)
+        spread = pooled(groups.values(), replicates)
+        if spread is not None:
+            return spread.run
     noise = header.identity.get("arguments", {}).get("noise")
     if isinstance(noise, int | float) and not isinstance(noise, bool):
         return float(noise)

@@ -7,7 +7,9 @@ when standard error is not a terminal, or when asked (``--quiet``), so logs and 
 The driver calls the bar with each new `driver.Evaluation` as it completes, as it calls the
 journal; the bar never wraps the objective, so the objective sent to a process pool or a Dask
 cluster is the caller's own (a bar holds its terminal stream, which does not pickle), and the
-bar counts exactly the evaluations the driver counts (cache hits are not evaluations).
+bar counts exactly the evaluations the driver counts (cache hits are not evaluations).  With
+replicates (each point run k times) it counts every run, and its best is the best mean of a point
+whose k runs it has seen, not the lowest single run (which the noise biases low).
 """
 
 from __future__ import annotations
@@ -18,6 +20,7 @@ from typing import IO
 
 from tqdm import tqdm
 
+from directional.method.replicates import combined
 from directional.records import Status
 from directional.run.driver import Evaluation
 
@@ -35,6 +38,8 @@ class Progress:
         Where the bar goes (default standard error).
     done
         Evaluations already spent before this bar started (a resumed run).
+    replicates
+        Runs of each point: the best is then the best mean of a point's runs.
     """
 
     def __init__(
@@ -44,8 +49,11 @@ class Progress:
         enabled: bool | None = None,
         stream: IO[str] | None = None,
         done: int = 0,
+        replicates: int = 1,
     ) -> None:
         self.stream = sys.stderr if stream is None else stream
+        self.replicates = replicates
+        self._runs: dict[bytes, list[float]] = {}  # the runs of points not yet all seen
         if enabled is None:
             enabled = bool(getattr(self.stream, "isatty", lambda: False)())
         self.enabled = enabled
@@ -69,8 +77,18 @@ class Progress:
 
     def __call__(self, evaluation: Evaluation) -> None:
         """Count one evaluation the driver made (one cut by Ctrl-C is not counted)."""
-        if evaluation.status != Status.INTERRUPTED:
+        if evaluation.status == Status.INTERRUPTED:
+            return
+        if self.replicates == 1:
             self.note(evaluation.value, evaluation.seconds)
+            return
+        key = evaluation.point.tobytes()
+        runs = self._runs.setdefault(key, [])
+        runs.append(evaluation.value if evaluation.status == Status.OK else math.inf)
+        value = math.inf  # counted, not a value of the point until all its runs are in
+        if len(runs) >= self.replicates:
+            value = combined(self._runs.pop(key))
+        self.note(value, evaluation.seconds)
 
     def note(self, value: float, seconds: float) -> None:
         """Count one evaluation of ``value`` that took ``seconds``."""
