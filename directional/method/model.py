@@ -41,6 +41,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.linalg
 
 POISED = 1e12  # condition number of the scaled design matrix beyond which the fit is not trusted
 LARGEST = 50  # above this many variables the model is switched off (its cost outgrows its use)
@@ -139,10 +140,13 @@ def fit(
             return None
         # the part of the data the linear terms cannot explain fixes the change of the Hessian
         rest = products / weight - basis @ (basis.T @ (products / weight))
-        change, _, rank, quadratic = np.linalg.lstsq(
-            rest, target - basis @ (basis.T @ target), rcond=1.0 / POISED
+        # a complete orthogonal factorization (LAPACK gelsy) gives the same minimum-norm
+        # solution as an SVD at a quarter of its cost (Golub & Van Loan 2013, sec. 5.5)
+        change, _, rank, _ = scipy.linalg.lstsq(
+            rest, target - basis @ (basis.T @ target), cond=1.0 / POISED,
+            check_finite=False, lapack_driver="gelsy",
         )
-    except np.linalg.LinAlgError:
+    except (np.linalg.LinAlgError, ValueError):
         return None
     h_coefficients = scaled_prior + change / weight
     residual = (values - offset) / span - products @ h_coefficients

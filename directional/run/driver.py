@@ -197,6 +197,8 @@ def describe(error: BaseException) -> str:
 
 def _status(text: str) -> str:
     """A `Status` where the text is one (an external program's error may carry its own)."""
+    if isinstance(text, Status):
+        return text
     try:
         return Status(text)
     except ValueError:
@@ -422,11 +424,12 @@ class Driver:
     def _ask(self, task: _Task, batch: Batch) -> None:
         """Answer what is known, queue the rest; raise `Halt` at a point past the budget."""
         keys = [x.tobytes() for x in batch.points]
+        # a replayed search must ask for its journal's points: compared only while it holds some
+        unasked = task.journaled - set(keys) if task.journaled else task.journaled
         new = [
             key not in self._cache and key not in self._pending and key not in self._retry
             for key in keys
-        ]
-        unasked = task.journaled - set(keys)
+        ] if unasked else []
         if any(new) and unasked:
             order = self._journal[task.ident]
             first = min(unasked, key=order.__getitem__)  # where a deterministic search diverged
