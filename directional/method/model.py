@@ -37,6 +37,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -122,12 +123,9 @@ def fit(
     if not (radius > 0.0 and span > 0.0):
         return None
     d = u / radius
-    rows, cols = np.triu_indices(n)
+    rows, cols, diagonal, weight = _layout(n)
     products = d[:, rows] * d[:, cols]
-    diagonal = rows == cols
     products[:, diagonal] *= 0.5
-    # the Frobenius norm counts an off-diagonal coefficient twice: weight its column by 1/sqrt(2)
-    weight = np.where(diagonal, 1.0, math.sqrt(2.0))
     linear = np.hstack([np.ones((len(d), 1)), d])
     scaled_prior = np.zeros(len(rows))
     if prior is not None:
@@ -166,6 +164,19 @@ def fit(
         radius=radius,
         misfit=misfit if determined else math.inf,
     )
+
+
+@functools.cache
+def _layout(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Rows and columns of the Hessian's upper triangle, which of them lie on the diagonal, and
+    the column weights of the fit: the Frobenius norm counts an off-diagonal coefficient twice,
+    so its column is weighted by 1/sqrt(2).  Cached: the same for every fit in ``n`` variables."""
+    rows, cols = np.triu_indices(n)
+    diagonal = rows == cols
+    weight = np.where(diagonal, 1.0, math.sqrt(2.0))
+    for array in (rows, cols, diagonal, weight):
+        array.flags.writeable = False
+    return rows, cols, diagonal, weight
 
 
 def trust_step(model: Quadratic, radius: float) -> np.ndarray:

@@ -334,6 +334,8 @@ def _model_step(
     """
     assert best.sample is not None
     n = space.size
+    if best.sample.size < coefficients(n) and trust.hessian is None and not GUESSES:
+        return directions, False, False  # the fit could not be determined: it would not be used
     model = fit(best.sample, best.u, int(FITTED * coefficients(n)), trust.hessian)
     # a model the samples do not determine is stepped on only after a model predicted well
     if model is None or not (math.isfinite(model.misfit) or trust.hessian is not None or GUESSES):
