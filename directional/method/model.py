@@ -138,12 +138,15 @@ def fit(
             return None
         # the part of the data the linear terms cannot explain fixes the change of the Hessian
         rest = products / weight - basis @ (basis.T @ (products / weight))
-        # a complete orthogonal factorization (LAPACK gelsy) gives the same minimum-norm
-        # solution as an SVD at a quarter of its cost (Golub & Van Loan 2013, sec. 5.5)
-        change, _, rank, _ = scipy.linalg.lstsq(
-            rest, target - basis @ (basis.T @ target), cond=1.0 / POISED,
-            check_finite=False, lapack_driver="gelsy",
-        )
+        if len(d) == n + 1:  # the linear part interpolates: nothing is left (rest is rounding)
+            change, rank = np.zeros(len(rows)), 0
+        else:
+            # a complete orthogonal factorization (LAPACK gelsy) gives the same minimum-norm
+            # solution as an SVD at a quarter of its cost (Golub & Van Loan 2013, sec. 5.5)
+            change, _, rank, _ = scipy.linalg.lstsq(
+                rest, target - basis @ (basis.T @ target), cond=1.0 / POISED,
+                check_finite=False, lapack_driver="gelsy",
+            )
     except (np.linalg.LinAlgError, ValueError):
         return None
     h_coefficients = scaled_prior + change / weight

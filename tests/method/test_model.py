@@ -43,6 +43,23 @@ def test_a_sample_on_one_line_is_not_poised():
     assert coefficients(2) == 6
 
 
+@pytest.mark.parametrize("n", [2, 3, 6])
+def test_a_linear_interpolation_leaves_the_prior_hessian_unchanged(n):
+    # n + 1 points in general position are interpolated by the linear part for any Hessian, so
+    # the least-change model keeps the prior exactly (Powell 2004, the least Frobenius norm
+    # update; analytic)
+    rng = np.random.default_rng(n)
+    prior = rng.standard_normal((n, n))
+    prior = prior + prior.T
+    sample = Sample(n, 3 * coefficients(n))
+    for x in rng.standard_normal((n + 1, n)):
+        sample.add(x, float(np.sum(np.cos(x))))
+    model = fit(sample, np.zeros(n), 2 * coefficients(n), prior)
+    assert model is not None
+    assert model.hessian == pytest.approx(prior, abs=1e-9 * np.max(np.abs(prior)))
+    assert model.misfit == np.inf  # not determined
+
+
 def test_the_sample_keeps_the_newest_points_and_skips_failures():
     sample = Sample(1, 3)
     for k in range(5):
