@@ -412,7 +412,8 @@ class Driver:
                     return
                 continue
             task.batch, task.serial = batch, task.serial + 1
-            task.values = np.full(len(batch.points), math.inf)
+            task.values = np.empty(len(batch.points))
+            task.values.fill(math.inf)
             task.answered = np.zeros(len(batch.points), dtype=bool)
             task.fresh, task.taken, task.halt = [], 0, None
             try:
@@ -440,23 +441,26 @@ class Driver:
                 "was written for other settings or by another version of directional"
             )
         limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
-        for row, (x, key) in enumerate(zip(batch.points, keys)):
-            fresh = key not in task.seen
-            if fresh and len(task.seen) >= limit:
+        seen, cache, queued = task.seen, self._cache, self._pending
+        for row, key in enumerate(keys):
+            fresh = key not in seen
+            if fresh and len(seen) >= limit:
                 raise Halt(Stop.BUDGET, f"the budget of {limit} evaluations is spent")
             task.fresh.append(fresh)
-            task.journaled.discard(key)
-            task.seen.add(key)
-            if key in self._cache:
+            if task.journaled:
+                task.journaled.discard(key)
+            seen.add(key)
+            if key in cache:
                 if not fresh:
                     self.log.cache_hits += 1
-                self._answer(task, row, self._cache[key])
-            elif key in self._pending:
-                self._pending[key].waiters.append((task.ident, task.serial, row))
+                self._answer(task, row, cache[key])
+            elif key in queued:
+                queued[key].waiters.append((task.ident, task.serial, row))
             else:
-                pending = _Pending(key=key, point=x.copy(), purpose=batch.purpose, search=task.ident)
-                pending.waiters.append((task.ident, task.serial, row))
-                self._pending[key] = pending
+                queued[key] = _Pending(
+                    key=key, point=batch.points[row].copy(), purpose=batch.purpose,
+                    search=task.ident, waiters=[(task.ident, task.serial, row)],
+                )
                 self._queue.append(key)
 
     def _answer(self, task: _Task, row: int, value: float) -> None:
@@ -542,6 +546,8 @@ class Driver:
     # ------------------------------------------------------------------ evaluating the points
 
     def _room(self) -> bool:
+        if not self._flying:
+            return self.workers is None or self.workers > 0
         if any(self._pending[k].suspect for k in self._flying.values()):
             return False
         return self.workers is None or len(self._flying) < self.workers
