@@ -25,9 +25,10 @@ search then clips it to the bounds; it never evaluates outside them.
 
 Cost.  A fit on ``p`` points costs ``O(p N²)`` with ``N`` the number of coefficients, so the search
 fits once per cycle and after each successful model step, on at most ``points`` samples (a
-multiple of ``N``), and not at all above ``LARGEST`` variables: measured on the benchmark's
-machine, the model adds about 70 µs per evaluation at n = 10 and 0.7 ms at n = 30, and a fit at
-n = 50 takes about a second, which only an expensive objective repays (benchmarks/RESULTS.md).
+multiple of ``N``), not while too few samples could determine it, and not at all above
+``LARGEST`` variables: measured on the benchmark's machine, the model adds about 25 µs of
+processor time per evaluation at n = 10 and 0.3 ms at n = 30, and a fit at n = 50 takes about a
+second, which only an expensive objective repays (benchmarks/RESULTS.md).
 
 References
 ----------
