@@ -19,6 +19,7 @@ STYLES = {  # one look per solver, kept across figures
     "search alone": dict(color="tab:olive", linestyle=":"),
     "no model steps": dict(color="tab:pink", linestyle="--"),
     "search alone, no model": dict(color="tab:cyan", linestyle="-."),
+    "driver alone": dict(color="tab:gray", linestyle=":"),
 }
 
 

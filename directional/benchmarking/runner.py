@@ -289,8 +289,10 @@ def _scaling_section(quadratics, overhead, line, orders, order, order_pairs) -> 
         "until the evaluations are spent; a run stops on its own or when the evaluations left "
         "are spent, so at small n many short runs carry their start-up cost. To show where the "
         "time goes, the same search is also timed inside a bare driver (cache, records, "
-        "budget; no solution built) and driven by a plain loop with no driver at all. "
-        "Nelder–Mead (the pure-Python baseline) is shown for scale.",
+        "budget; no solution built) and driven by a plain loop with no driver at all; 'driver "
+        "alone' is the driver running a generator that asks for random points one at a time "
+        "(the driver's own cost, plus making each batch). Nelder–Mead (the pure-Python "
+        "baseline) is shown for scale.",
         "",
         *writeup.overhead_table(overhead),
         "",

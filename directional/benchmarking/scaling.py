@@ -30,7 +30,7 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Generator, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -41,6 +41,7 @@ from directional.benchmarking.solvers import Recorder
 from directional.method.linesearch import line_search
 from directional.method.search import Settings, powell
 from directional.method.space import build_space
+from directional.records import Batch, Purpose
 from directional.run.driver import Driver
 from directional.testproblems import mgh
 
@@ -135,8 +136,9 @@ def overhead(sizes: Sequence[int], evaluations: int, nelder_mead: bool = True) -
     """Optimizer time per evaluation, over runs repeated until ``evaluations`` are spent.
 
     Besides `directional.minimize` the same search is timed inside a bare `Driver` and driven by
-    a plain loop with no driver at all, which shows where the time goes: the search generator,
-    the driver (cache, records, budget) or `minimize` (checks, building the solution).
+    a plain loop with no driver at all, and the driver alone drives a generator that asks for
+    random points one at a time, which shows where the time goes: the search generator, the
+    driver (cache, records, budget) or `minimize` (checks, building the solution).
 
     Each run minimizes a random convex quadratic (condition 1e3, a fresh seed each time, the
     objective costs one matrix-vector product) from 0 with the evaluations still to spend, and
@@ -146,7 +148,8 @@ def overhead(sizes: Sequence[int], evaluations: int, nelder_mead: bool = True) -
     out = []
     for n in sizes:
         runs = [("directional", _run_ours), ("driver + search", _run_driver),
-                ("search alone", _run_search), ("search alone, no model", _run_search_plain)]
+                ("search alone", _run_search), ("search alone, no model", _run_search_plain),
+                ("driver alone", _run_driver_alone)]
         if nelder_mead:
             runs.append(("Nelder-Mead", _run_nelder_mead))
         for name, run in runs:
@@ -176,6 +179,16 @@ def _run_ours(f: Callable, start: np.ndarray, budget: int) -> None:
 
 def _run_driver(f: Callable, start: np.ndarray, budget: int) -> None:
     Driver(objective=f, budget=budget).run(powell(build_space(start), Settings()))
+
+
+def _run_driver_alone(f: Callable, start: np.ndarray, budget: int) -> None:
+    points = np.random.default_rng(budget).standard_normal((budget, start.size))
+
+    def asks() -> Generator[Batch, np.ndarray, None]:
+        for x in points:
+            yield Batch(points=x[None, :], purpose=Purpose.LINE)
+
+    Driver(objective=f, budget=budget).run(asks())
 
 
 def _run_search_plain(f: Callable, start: np.ndarray, budget: int) -> None:

@@ -8,7 +8,10 @@ its line searches alone gather enough of them to determine a quadratic in ``n`` 
     m(u + s) = c + gᵀs + ½ sᵀHs
 
 by least squares to the ``points`` samples nearest to the centre ``u`` (regression with more points
-than coefficients; Conn, Scheinberg & Vicente 2009, ch. 4).  Until the samples fix every
+than coefficients; Conn, Scheinberg & Vicente 2009, ch. 4), each weighted by its nearness to the
+centre (locally weighted regression, Cleveland 1979): the samples the line searches left far
+away still fix the coefficients, but the model is accurate where its step lands, which gives the
+search a Newton-like finish instead of a further calm cycle.  Until the samples fix every
 coefficient, the Hessian left free is the one nearest the last model's (least change, Powell 2004),
 so that a model is useful after ``n + 1`` samples already.  The displacements are divided by the
 sample's radius before the fit, so the design matrix's condition number measures the geometry of
@@ -22,9 +25,10 @@ search then clips it to the bounds; it never evaluates outside them.
 
 Cost.  A fit on ``p`` points costs ``O(p N²)`` with ``N`` the number of coefficients, so the search
 fits once per cycle and after each successful model step, on at most ``points`` samples (a
-multiple of ``N``), and not at all above ``LARGEST`` variables: measured on the benchmark's
-machine, the model adds about 70 µs per evaluation at n = 10 and 0.7 ms at n = 30, and a fit at
-n = 50 takes about a second, which only an expensive objective repays (benchmarks/RESULTS.md).
+multiple of ``N``), not while too few samples could determine it, and not at all above
+``LARGEST`` variables: measured on the benchmark's machine, the model adds about 25 µs of
+processor time per evaluation at n = 10 and 0.3 ms at n = 30, and a fit at n = 50 takes about a
+second, which only an expensive objective repays (benchmarks/RESULTS.md).
 
 References
 ----------
@@ -33,15 +37,22 @@ References
 .. [2] M. J. D. Powell, "Least Frobenius norm updating of quadratic models that satisfy
    interpolation conditions", *Mathematical Programming* 100 (2004) 183-215.
 .. [3] A. R. Conn, N. I. M. Gould and Ph. L. Toint, *Trust-Region Methods*, SIAM, 2000, ch. 7.
+.. [4] W. S. Cleveland, "Robust locally weighted regression and smoothing scatterplots",
+   *Journal of the American Statistical Association* 74 (1979) 829-836.
+.. [5] G. H. Golub and C. F. Van Loan, *Matrix Computations*, 4th ed., Johns Hopkins University
+   Press, 2013, sec. 5.5 (rank-deficient least squares).
 """
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.linalg
 
+LOCAL = 0.01  # sets the reach of the fit's weights (see `_nearness`)
 POISED = 1e12  # condition number of the scaled design matrix beyond which the fit is not trusted
 LARGEST = 50  # above this many variables the model is switched off (its cost outgrows its use)
 
@@ -88,7 +99,7 @@ class Quadratic:
     gradient: np.ndarray
     hessian: np.ndarray
     radius: float
-    misfit: float  # largest residual of the fit (objective units); inf when not determined
+    misfit: float  # largest weighted residual (objective units); inf when not determined
 
     def predict(self, s: np.ndarray) -> float:
         return float(self.value + self.gradient @ s + 0.5 * s @ self.hessian @ s)
@@ -121,17 +132,18 @@ def fit(
     if not (radius > 0.0 and span > 0.0):
         return None
     d = u / radius
-    rows, cols = np.triu_indices(n)
+    rows, cols, diagonal, weight = _layout(n)
+    # each sample's equation is weighted by its nearness (see `_nearness`)
+    near = _nearness(distance)[:, None]
     products = d[:, rows] * d[:, cols]
-    diagonal = rows == cols
     products[:, diagonal] *= 0.5
-    # the Frobenius norm counts an off-diagonal coefficient twice: weight its column by 1/sqrt(2)
-    weight = np.where(diagonal, 1.0, math.sqrt(2.0))
-    linear = np.hstack([np.ones((len(d), 1)), d])
+    products *= near
+    linear = np.hstack([np.ones((len(d), 1)), d]) * near
     scaled_prior = np.zeros(len(rows))
     if prior is not None:
         scaled_prior = prior[rows, cols] * radius**2 / span
-    target = (values - offset) / span - products @ scaled_prior
+    scaled = (values - offset) / span * near[:, 0]
+    target = scaled - products @ scaled_prior
     try:
         basis, triangle = np.linalg.qr(linear)
         singular = np.linalg.svd(triangle, compute_uv=False)
@@ -139,13 +151,19 @@ def fit(
             return None
         # the part of the data the linear terms cannot explain fixes the change of the Hessian
         rest = products / weight - basis @ (basis.T @ (products / weight))
-        change, _, rank, quadratic = np.linalg.lstsq(
-            rest, target - basis @ (basis.T @ target), rcond=1.0 / POISED
-        )
-    except np.linalg.LinAlgError:
+        if len(d) == n + 1:  # the linear part interpolates: nothing is left (rest is rounding)
+            change, rank = np.zeros(len(rows)), 0
+        else:
+            # a complete orthogonal factorization (LAPACK gelsy) gives the same minimum-norm
+            # solution as an SVD at a quarter of its cost (Golub & Van Loan 2013, sec. 5.5)
+            change, _, rank, _ = scipy.linalg.lstsq(
+                rest, target - basis @ (basis.T @ target), cond=1.0 / POISED,
+                check_finite=False, lapack_driver="gelsy",
+            )
+    except (np.linalg.LinAlgError, ValueError):
         return None
     h_coefficients = scaled_prior + change / weight
-    residual = (values - offset) / span - products @ h_coefficients
+    residual = scaled - products @ h_coefficients
     line = np.linalg.solve(triangle, basis.T @ residual)  # the linear part, by the same QR
     determined = rank == len(rows) and len(d) >= coefficients(n)
     misfit = span * float(np.max(np.abs(linear @ line - residual)))
@@ -162,6 +180,37 @@ def fit(
         radius=radius,
         misfit=misfit if determined else math.inf,
     )
+
+
+def _nearness(distance: np.ndarray) -> np.ndarray:
+    """Weights of the samples in the fit, from their squared distances to the centre.
+
+    Locally weighted least squares (Cleveland 1979): ``(1 + d² / (LOCAL · median d²))⁻²``, 1 at
+    the centre and about ``LOCAL²`` at the median distance, so that the model is accurate where
+    its step lands even when the far samples see the objective's higher-order terms.  The weight
+    falls as ``d⁻⁴``, faster than a far sample's quadratic terms grow (``d²``): a weight falling
+    only as ``d⁻²`` left the far samples as much say in the Hessian as the near ones.  The weights
+    change neither which coefficients the sample determines nor a quadratic's fit.  Measured on
+    the MGH benchmark (n ≤ 11): ``LOCAL`` = 0.01 lowered the tail and the evaluations spent;
+    0.1 and 1 helped less (benchmarks/results/model-steps.md).
+    """
+    reach = LOCAL * float(np.median(distance))
+    if not reach > 0.0:
+        return np.ones_like(distance)
+    return (1.0 + distance / reach) ** -2.0
+
+
+@functools.cache
+def _layout(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Rows and columns of the Hessian's upper triangle, which of them lie on the diagonal, and
+    the column weights of the fit: the Frobenius norm counts an off-diagonal coefficient twice,
+    so its column is weighted by 1/sqrt(2).  Cached: the same for every fit in ``n`` variables."""
+    rows, cols = np.triu_indices(n)
+    diagonal = rows == cols
+    weight = np.where(diagonal, 1.0, math.sqrt(2.0))
+    for array in (rows, cols, diagonal, weight):
+        array.flags.writeable = False
+    return rows, cols, diagonal, weight
 
 
 def trust_step(model: Quadratic, radius: float) -> np.ndarray:

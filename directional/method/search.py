@@ -6,7 +6,10 @@ scaled coordinates of `space.Space`, starting from the principal axes.
 
 - A cycle line-searches each direction of the set in turn from the current point (`linesearch`),
   reusing the curvature each direction showed last time, so that on a quadratic a line search
-  costs two evaluations.
+  costs two evaluations.  A direction with no curvature measured yet starts its bracket with the
+  move of the line search before it, when that is longer than its own step (at most ``SEEDED``
+  times longer: a longer jump sent a NIST calibration into another basin): the first cycle then
+  learns the problem's scale once instead of once per axis.
 - At the end of a cycle the point extrapolated as far again along the cycle's overall step is
   evaluated.  If Powell's (1964) test accepts, the overall step becomes a new direction: it is
   line-searched (the three points on it are already known) and replaces the direction of largest
@@ -82,6 +85,7 @@ MODEL_STEPS = 8  # at most this many model steps in a row, while each is a succe
 SETTLE_MISFIT = 1e-3  # a model may end the search when it misfits its sample by less (relative)
 GUESSES = False  # True: step on undetermined models too (measured: more evaluations wasted on MGH)
 FITTED = 2.0  # the model is fitted to this many times as many points as it has coefficients
+SEEDED = 10.0  # a first step borrowed from the last move is at most this many times its own
 FARTHEST = 1e10  # no line search goes farther, in scaled units: a descent to infinity stops there
 
 
@@ -210,10 +214,15 @@ def _cycle(
     """One cycle: a line search along each direction, then Powell's replacement test."""
     u0, f0 = best.u.copy(), best.value
     largest, largest_drop = 0, 0.0
+    last = 0.0  # the move of the cycle's last line search
     for i, d in enumerate(directions.vectors):
         before = best.value
         known_curvature = directions.curvatures[i] if settings.reuse_curvature else math.nan
-        result = yield from _line(space, settings, best, d, directions.steps[i], known_curvature)
+        step = directions.steps[i]
+        if math.isnan(directions.curvatures[i]):  # nothing measured here: the last move is
+            step = max(step, min(last, SEEDED * step))  # a better guess of the scale
+        result = yield from _line(space, settings, best, d, step, known_curvature)
+        last = abs(result.point)
         directions = directions.measured(i, result.curvature, _next_step(result, settings))
         if before - best.value > largest_drop:
             largest, largest_drop = i, before - best.value
@@ -334,6 +343,8 @@ def _model_step(
     """
     assert best.sample is not None
     n = space.size
+    if best.sample.size < coefficients(n) and trust.hessian is None and not GUESSES:
+        return directions, False, False  # the fit could not be determined: it would not be used
     model = fit(best.sample, best.u, int(FITTED * coefficients(n)), trust.hessian)
     # a model the samples do not determine is stepped on only after a model predicted well
     if model is None or not (math.isfinite(model.misfit) or trust.hessian is not None or GUESSES):

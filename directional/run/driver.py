@@ -218,6 +218,8 @@ def describe(error: BaseException) -> str:
 
 def _status(text: str) -> str:
     """A `Status` where the text is one (an external program's error may carry its own)."""
+    if isinstance(text, Status):
+        return text
     try:
         return Status(text)
     except ValueError:
@@ -473,7 +475,8 @@ class Driver:
                     return
                 continue
             task.batch, task.serial = batch, task.serial + 1
-            task.values = np.full(len(batch.points), math.inf)
+            task.values = np.empty(len(batch.points))
+            task.values.fill(math.inf)
             task.answered = np.zeros(len(batch.points), dtype=bool)
             task.fresh, task.taken, task.halt = [], 0, None
             try:
@@ -498,12 +501,13 @@ class Driver:
                 group = self._groups.get(key)
                 if group is not None and len(group.runs) >= self.replicates:
                     self._close(group)
+        # a replayed search must ask for its journal's points: compared only while it holds some
+        unasked = task.journaled - set(keys) if task.journaled else task.journaled
         new = [
             key not in self._cache and key not in self._pending and key not in self._retry
             and key not in self._groups
             for key in keys
-        ]
-        unasked = task.journaled - set(keys)
+        ] if unasked else []
         if any(new) and unasked:
             order = self._journal[task.ident]
             first = min(unasked, key=order.__getitem__)  # where a deterministic search diverged
@@ -515,25 +519,28 @@ class Driver:
             )
         limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
         k = self.replicates
+        seen, cache, queued = task.seen, self._cache, self._pending
         for row, (x, key) in enumerate(zip(batch.points, keys)):
-            fresh = key not in task.seen
-            if fresh and (len(task.seen) * k >= limit or (len(task.seen) + 1) * k > self.budget):
+            fresh = key not in seen
+            if fresh and (len(seen) * k >= limit or (len(seen) + 1) * k > self.budget):
                 raise Halt(Stop.BUDGET, f"the budget of {limit} evaluations is spent")
             task.fresh.append(fresh)
-            task.journaled.discard(key)
-            task.seen.add(key)
-            if key in self._cache:
+            if task.journaled:
+                task.journaled.discard(key)
+            seen.add(key)
+            if key in cache:
                 if not fresh:
                     self.log.cache_hits += 1
-                self._answer(task, row, self._cache[key])
-            elif key in self._pending:
-                self._pending[key].waiters.append((task.ident, task.serial, row))
+                self._answer(task, row, cache[key])
+            elif key in queued:
+                queued[key].waiters.append((task.ident, task.serial, row))
             elif k > 1:
                 self._replicate(key, x, batch.purpose, task, row)
             else:
-                pending = _Pending(key=key, point=x.copy(), purpose=batch.purpose, search=task.ident)
-                pending.waiters.append((task.ident, task.serial, row))
-                self._pending[key] = pending
+                queued[key] = _Pending(
+                    key=key, point=x.copy(), purpose=batch.purpose,
+                    search=task.ident, waiters=[(task.ident, task.serial, row)],
+                )
                 self._queue.append(key)
 
     def _replicate(self, key: bytes, x: np.ndarray, purpose: str, task: _Task, row: int) -> None:
@@ -666,6 +673,8 @@ class Driver:
     # ------------------------------------------------------------------ evaluating the points
 
     def _room(self) -> bool:
+        if not self._flying:
+            return self.workers is None or self.workers > 0
         if any(self._pending[k].suspect for k in self._flying.values()):
             return False
         return self.workers is None or len(self._flying) < self.workers

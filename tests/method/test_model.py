@@ -43,6 +43,40 @@ def test_a_sample_on_one_line_is_not_poised():
     assert coefficients(2) == 6
 
 
+@pytest.mark.parametrize("n", [2, 3, 6])
+def test_a_linear_interpolation_leaves_the_prior_hessian_unchanged(n):
+    # n + 1 points in general position are interpolated by the linear part for any Hessian, so
+    # the least-change model keeps the prior exactly (Powell 2004, the least Frobenius norm
+    # update; analytic)
+    rng = np.random.default_rng(n)
+    prior = rng.standard_normal((n, n))
+    prior = prior + prior.T
+    sample = Sample(n, 3 * coefficients(n))
+    for x in rng.standard_normal((n + 1, n)):
+        sample.add(x, float(np.sum(np.cos(x))))
+    model = fit(sample, np.zeros(n), 2 * coefficients(n), prior)
+    assert model is not None
+    assert model.hessian == pytest.approx(prior, abs=1e-9 * np.max(np.abs(prior)))
+    assert model.misfit == np.inf  # not determined
+
+
+def test_near_samples_decide_the_model_where_far_ones_see_higher_terms():
+    # f = Σ cos x_i has gradient -sin c and Hessian diag(-cos c) at c (analytic).  A cluster of
+    # samples about 0.03 from c fixes them to about 0.03 |f'''|; far samples (distance ~2) see
+    # the quartic terms, and an unweighted fit of both misses the gradient by 0.5 and the
+    # curvature by 0.6; the locally weighted fit (Cleveland 1979) keeps the cluster's accuracy.
+    rng = np.random.default_rng(7)
+    n, centre = 3, np.array([0.3, -0.2, 0.5])
+    sample = Sample(n, 100)
+    for x in [*(centre + 0.03 * rng.standard_normal((20, n))), *(2.0 * rng.standard_normal((20, n)))]:
+        sample.add(x, float(np.sum(np.cos(x))))
+    sample.add(centre, float(np.sum(np.cos(centre))))
+    model = fit(sample, centre, 41)
+    assert model is not None
+    assert model.gradient == pytest.approx(-np.sin(centre), abs=5e-4)
+    assert model.hessian == pytest.approx(np.diag(-np.cos(centre)), abs=3e-2)
+
+
 def test_the_sample_keeps_the_newest_points_and_skips_failures():
     sample = Sample(1, 3)
     for k in range(5):

@@ -138,3 +138,18 @@ def test_a_failed_evaluation_reaches_the_search_as_infinity():
     _, outcome = trace(f, space)
     assert math.isfinite(outcome.value)
     assert space.to_user(outcome.point)[0] <= 0.5
+
+
+def test_the_first_cycle_learns_the_problems_scale_once():
+    # Σ (x_i - 10)⁴ from 0: the same one-variable problem on every axis (analytic minimizer 10,
+    # a hundred first steps away).  The first axis must find that scale from the first step;
+    # every later axis starts from the move the one before it made, so (the problems being
+    # identical) each later line search costs fewer evaluations than the first.
+    n = 6
+    space = build_space(np.zeros(n))
+    batches, _ = trace(lambda x: float(np.sum((x - 10.0) ** 4)), space)
+    points = np.vstack(batches)
+    begins = [int(np.argmax(points[:, i] != 0.0)) for i in range(n)]  # first probe of axis i
+    costs = np.diff(begins)
+    assert costs[0] > 0
+    assert np.all(costs[1:] < costs[0]), costs.tolist()
