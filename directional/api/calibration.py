@@ -360,13 +360,16 @@ def _fit_settled(
     undetermined = () if fit.undetermined is None else tuple(
         combination(scale * d, names) for d in fit.undetermined.T
     )
+    note = fit.note
+    if fit.verdict is Verdict.NOISY:  # hidden by the noise, not shown to be undetermined
+        note, undetermined = f"{note}; hidden: " + "; ".join(undetermined), ()
     curvature = record(
         fit.gauss_newton, fit.error, scale, GAUSS_NEWTON, names=names, margin=fit.margin,
         undetermined=undetermined, evaluations=spent,
         free=free_record(space, free_estimate(space, outcome)),
     )
     return Settled(outcome=outcome, verdict=fit.verdict, curvature=curvature,
-                   notes=(fit.note,) if fit.note else (), escapes=0,
+                   notes=(note,) if note else (), escapes=0,
                    point=space.to_user(outcome.point))
 
 
@@ -418,7 +421,11 @@ def calibrate(
         stepped around like any other failure.
 
     The other arguments are those of `directional.minimize`; ``budget`` counts every evaluation
-    (search, Levenberg–Marquardt, check and Jacobian).  ``executor`` evaluates the points of a
+    (search, Levenberg–Marquardt, check and Jacobian).  The verdict comes from JᵀJ of one
+    central-difference Jacobian, which also gives the standard errors (`checked`); ``check``
+    (True, "quick" or "extrapolated") chooses the numerical Hessian used instead where the
+    residuals' curvature is not small against JᵀJ, and False leaves the verdict UNCHECKED (the
+    Jacobian is still measured for the uncertainty).  ``executor`` evaluates the points of a
     batch in parallel; the residual vectors must come back to this process, so it must share
     its memory: a thread pool (for a program, each evaluation is its own process anyway;
     `directional.run.ordered.InOrder` keeps the journal in the serial order).

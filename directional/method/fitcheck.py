@@ -24,7 +24,7 @@ check measures the Jacobian, not the Hessian:
    scaled matrix gets the first-order error bar ``d = |u|ᵀ |E| |w|`` of its singular vectors
    (Stewart & Sun 1990, ch. IV), and the eigenvalue ``s²`` of the scaled JᵀJ the bar ``2 s d + d²``.
    MINIMUM: every eigenvalue clear of its bar.  Otherwise the step is changed and the stencil
-   measured again (at most ``ATTEMPTS`` stencils): ten times larger first, and on in the direction
+   measured again (at most ``ATTEMPTS`` stencils): ``GROWTH`` times larger first, and on in the direction
    that shrinks the bars.  A true derivative does not depend on the step, a difference of noise
    falls as it grows: when the noise still hides a direction at the largest step the bounds allow
    (a tenth of the problem's size at most), the verdict is NOISY, with the noise level.  A
@@ -79,8 +79,8 @@ EPSILON = float(np.finfo(float).eps)
 SMALLEST_STEP = EPSILON ** (1.0 / 3.0)  # central differences: truncation h² against rounding eps/h
 LARGEST_STEP = 0.1  # no step beyond a tenth of the problem's size (scaled coordinates)
 TINIEST_STEP = 1e-9  # a step shrunk below this is lost in the rounding of the point itself
-ATTEMPTS = 3  # stencils at most, when the first leaves a combination in doubt
-GROWTH = 10.0  # factor between the steps of successive stencils
+ATTEMPTS = 4  # stencils at most, when the first leaves a combination in doubt
+GROWTH = 30.0  # factor between the steps of successive stencils: eps^(1/3) to 0.1 in three
 LARGE = 0.25  # |q| beyond this: the residuals' curvature is not negligible against JᵀJ
 # A residual is model minus data: its rounding is eps times the model's value, which the
 # stencil does not see where model and data cancel.  With the model varying by about its own
@@ -361,7 +361,7 @@ def check_fit(
                 bound_steps=bound_steps if attempt == 0 else None,
             )
             if stencil is None:
-                return _best(space, u0, r0, free, tried, bound, noise, level, math.nan,
+                return _best(space, u0, free, tried, bound, noise, level, math.nan,
                              stopped="an evaluation of the check's Jacobian failed")
             bound = columns if attempt == 0 else bound
             judged = judge(stencil)
@@ -376,16 +376,43 @@ def check_fit(
                 break
             steps = new
         stencil, judged = min(tried, key=lambda pair: pair[1].doubt)
-        across = 0.0
-        if judged.decided:  # where the verdict would be MINIMUM: is A small along the softest?
-            across = yield from softest(space, squares, u0, r0, free, stencil, judged, level)
-            if across is None:
-                return _best(space, u0, r0, free, tried, bound, noise, level, math.nan,
-                             stopped="an evaluation of the check's probe failed")
+        ratio = yield from _ratio(space, squares, u0, r0, free, stencil, judged, level)
+        wider = np.clip(stencil.steps * GROWTH, TINIEST_STEP, room)
+        if ratio > LARGE and len(tried) < ATTEMPTS and not np.allclose(wider, stencil.steps):
+            # real curvature does not depend on the step, noise's share of it falls as 1/h²
+            stencil, _ = yield from central_stencil(space, squares, u0, free, wider,
+                                                    residual_level=level)
+            if stencil is not None:
+                judged = judge(stencil)
+                tried.append((stencil, judged))
+                ratio = min(ratio, (yield from _ratio(space, squares, u0, r0, free, stencil,
+                                                      judged, level)))
     except Halt as halt:
-        return _best(space, u0, r0, free, tried, bound, noise, level, math.nan,
+        return _best(space, u0, free, tried, bound, noise, level, math.nan,
                      stopped=f"the check could not finish: {halt.reason}")
-    return _best(space, u0, r0, free, tried, bound, noise, level, across)
+    if math.isnan(ratio):
+        return _best(space, u0, free, tried, bound, noise, level, math.nan,
+                     stopped="an evaluation of the check's probe failed")
+    return _best(space, u0, free, tried, bound, noise, level, ratio)
+
+
+def _ratio(
+    space: Space,
+    squares: SumOfSquares,
+    u0: np.ndarray,
+    r0: np.ndarray,
+    free: np.ndarray,
+    stencil: Stencil,
+    judged: Judged,
+    level: float,
+) -> Generator[Batch, np.ndarray, float]:
+    """The largest ``|q|`` of a stencil: along the axes, and (where the verdict would be MINIMUM)
+    along the softest direction, one more point; nan when that point failed."""
+    ratio = float(np.max(residual_curvature(stencil, r0, level)))
+    if judged.decided:
+        across = yield from softest(space, squares, u0, r0, free, stencil, judged, level)
+        ratio = math.nan if across is None else max(ratio, across)
+    return ratio
 
 
 def _unsteady(tried: list[tuple[Stencil, Judged]]) -> bool:
@@ -411,13 +438,12 @@ def _unsteady(tried: list[tuple[Stencil, Judged]]) -> bool:
 def _best(
     space: Space,
     u0: np.ndarray,
-    r0: np.ndarray,
     free: np.ndarray,
     tried: list[tuple[Stencil, Judged]],
     bound: np.ndarray | None,
     noise: float | None,
     level: float,
-    across: float,
+    ratio: float,
     *,
     stopped: str = "",
 ) -> FitCheck:
@@ -430,8 +456,6 @@ def _best(
     a, e = stencil.columns, stencil.error
     gauss_newton = 2.0 * a.T @ a
     error = 2.0 * (np.abs(a).T @ e + e.T @ np.abs(a))
-    ratios = np.append(residual_curvature(stencil, r0, level), 0.0 if math.isnan(across) else across)
-    ratio = float(np.max(ratios))
     verdict = Verdict.MINIMUM
     note = stopped
     doubtful = judged.eigenvalues <= judged.margins
@@ -442,7 +466,8 @@ def _best(
         verdict = Verdict.NOISY if noise_hides else Verdict.FLAT
         if noise_hides:
             widest = max(tried, key=lambda pair: float(pair[0].steps.max()))[0]
-            seen = float(np.median(np.abs(widest.curvature) * widest.steps**2)) / math.sqrt(6.0)
+            least = min(tried, key=lambda pair: float(pair[0].steps.max()))[0]  # least truncation
+            seen = float(np.sqrt(np.mean((least.curvature * least.steps**2) ** 2) / 6.0))
             what = (f"about {seen:.2g} per residual, from the stencil's second differences"
                     if noise is None else f"noise level {noise:.3g} in S, about {level:.2g} per "
                     "residual")

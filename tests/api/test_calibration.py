@@ -297,3 +297,17 @@ def test_a_parameter_the_data_cannot_separate_from_one_on_a_bound_gets_no_interv
         ("a", "c"), ("b", "c")
     ]
     assert "central-difference Jacobian" in document["jacobian"]
+
+
+def test_a_saddle_of_a_large_residual_fit_is_escaped():
+    # r = (a, b, 2 (a b - 1)) from (0, 0): there JᵀJ = I is positive definite, but
+    # sum r_i ∇²r_i = -4 [[0, 1], [1, 0]] makes S a saddle; the check sees the residuals'
+    # curvature, hands the point to the Hessian check, which escapes along (1, 1).  On a = b = t,
+    # S = 2 t² + 4 (t² - 1)² is least at t² = 3/4, S = 7/4 (analytic).
+    sol = dl.calibrate(lambda p: np.array([p[0], p[1], 2.0 * (p[0] * p[1] - 1.0)]), [0.0, 0.0],
+                       bounds=[(-3.0, 3.0), (-3.0, 3.0)], names=["a", "b"])
+    assert sol.verdict is Verdict.MINIMUM
+    assert np.abs(sol.point) == pytest.approx([math.sqrt(0.75)] * 2, rel=1e-6)
+    assert sol.value == pytest.approx(1.75, rel=1e-9)
+    assert any("curvature is not small against JᵀJ" in n for n in sol.notes)
+    assert any(n.startswith("escape 1: saddle") for n in sol.notes)

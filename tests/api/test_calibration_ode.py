@@ -25,18 +25,15 @@ TIMES = np.linspace(1.0, 16.0, 16)  # hours (invented)
 START = (0.1, 10.0)  # biomass and substrate, g/L (invented)
 TRUE = (0.5, 2.0, 0.45)  # mu_max 1/h, Ks g/L, Y g/g (invented)
 
-
 def rates(t, z, mu, ks, y):
     x, s = z[0], z[1]
     g = mu * s / (ks + s) * x
     return [g, -g / y]
 
-
 def simulate(p, rtol):
     solution = solve_ivp(rates, (0.0, TIMES[-1]), START, t_eval=TIMES, args=tuple(p),
                          rtol=rtol, atol=rtol * 1e-3, method="LSODA")
     return np.concatenate([solution.y[0], solution.y[1]])
-
 
 def sensitivities(p):
     """d(biomass, substrate)/d(mu, Ks, Y) at TIMES, from the variational equations."""
@@ -58,7 +55,6 @@ def sensitivities(p):
     sens = solution.y[2:].reshape(2, 3, -1)  # (state, parameter, time)
     return np.vstack([sens[0].T, sens[1].T])
 
-
 DATA = simulate(TRUE, 1e-10) + np.random.default_rng(7).normal(0.0, 0.05, 2 * TIMES.size)
 PARAMETERS = [
     dl.Parameter("mu_max", 0.3, 0.01, 3.0, scale="log", unit="1/h"),
@@ -66,12 +62,11 @@ PARAMETERS = [
     dl.Parameter("Y", 0.3, 0.05, 1.0, unit="g/g"),
 ]
 
-
-@pytest.mark.parametrize("rtol", [1e-6, 1e-8])
-def test_an_ode_calibration_is_a_minimum_never_flat(rtol):
+@pytest.mark.parametrize(("rtol", "noise"), [(1e-6, None), (1e-8, None), (1e-6, "estimate")])
+def test_an_ode_calibration_is_a_minimum_never_flat(rtol, noise):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # mu_max and Ks are correlated (r = 0.99): warned
-        sol = dl.calibrate(lambda p: simulate(p, rtol) - DATA, PARAMETERS)
+        sol = dl.calibrate(lambda p: simulate(p, rtol) - DATA, PARAMETERS, noise=noise)
     assert sol.verdict in (Verdict.MINIMUM, Verdict.NOISY)
     assert sol.verdict is not Verdict.FLAT and not sol.curvature.undetermined
     # the check and the uncertainty share one central-difference Jacobian: 2p + 1 evaluations
