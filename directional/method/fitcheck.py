@@ -34,8 +34,8 @@ check measures the Jacobian, not the Hessian:
 4. Large residuals.  The stencil measures the residuals' curvature along each axis,
    ``c_k = (r+ - 2 r0 + r-) / h²``, so the term A along ``e_k`` relative to JᵀJ,
    ``q_k = r0·c_k / |a_k|²``, costs nothing; one more point ``u0 + h v`` along the softest
-   direction ``v`` of JᵀJ (its eigenvector of the smallest eigenvalue; the sum of those within a
-   factor 2 of it, where several are nearly equal) gives
+   direction ``v`` of JᵀJ (its eigenvector of the smallest eigenvalue; where several lie within a
+   factor 2 of it, the diagonal's projection on their span) gives
    ``vᵀ A v = 2 r0·(r(u0 + h v) - r0 - h J v) / h²`` against ``|J v|²`` with the J just measured: to
    first order the smallest eigenvalue of JᵀJ + A is that of JᵀJ moved by exactly this amount.
    Gauss–Newton is a good model of the Hessian where every ``|q|`` is well below 1 (Dennis &
@@ -279,21 +279,17 @@ def softest(
     r0: np.ndarray,
     free: np.ndarray,
     stencil: Stencil,
-    judged: Judged,
     residual_level: float,
 ) -> Generator[Batch, np.ndarray, float | None]:
     """``|q|`` along the softest direction of JᵀJ, less its noise, from one more point.
 
-    ``v`` (unit, scaled coordinates) is the eigenvector of the smallest eigenvalue of the
-    column-scaled JᵀJ, or where others lie within a factor 2 of it (a softest plane, not one
-    direction) the sum of their unit eigenvectors; the point ``u0 + t v`` with ``t`` the stencil's
-    largest step (the other way where a bound is closer).  ``r(u0 + t v) - r0 - t J v = t² vᵀ∇²r v / 2``, so
+    ``v`` (unit, scaled coordinates) is the softest direction of the column-scaled JᵀJ
+    (`_soft_direction`); the point ``u0 + t v`` with ``t`` the stencil's largest step (the other
+    way where a bound is closer).  ``r(u0 + t v) - r0 - t J v = t² vᵀ∇²r v / 2``, so
     ``vᵀ A v = 2 r0·(that) / t²``; the error of ``J v`` times ``t`` and the rounding bound how far
     that can be off.  None when the point failed.
     """
-    soft = judged.eigenvalues <= 2.0 * judged.eigenvalues[0]  # near-equal ones: their span
-    v = np.sum(judged.directions[:, soft], axis=1)
-    v = v / np.linalg.norm(v)
+    v = _soft_direction(stencil.columns)
     d = _embedded(v, free)
     lo, hi = space.segment(u0, d)
     t = float(np.max(stencil.steps))
@@ -311,6 +307,27 @@ def softest(
     excess = max(2.0 * (abs(float(r0 @ left)) - float(np.abs(r0) @ spread)), 0.0) / t**2
     a2 = float(jv @ jv)
     return excess / a2 if a2 > 0.0 else (math.inf if excess > 0.0 else 0.0)
+
+
+def _soft_direction(columns: np.ndarray) -> np.ndarray:
+    """The softest direction of JᵀJ, unit in scaled coordinates, for the probe of test 4.
+
+    In the coordinates where J's columns have unit length: the eigenvector of the smallest
+    eigenvalue of JᵀJ; where others lie within a factor 2 of it (a soft plane, not one direction)
+    the projection of the diagonal ``(1, ..., 1)`` on their span, so that the probe also crosses
+    the axes there (a sum of the eigenvectors could fall back on an axis the stencil measured).
+    """
+    norms = np.sqrt(np.sum(columns**2, axis=0))
+    norms = np.where(norms > 0.0, norms, 1.0)
+    _, singular, vt = np.linalg.svd(columns / norms, full_matrices=False)
+    order = np.argsort(singular)
+    span = vt.T[:, order[singular[order] ** 2 <= 2.0 * singular[order[0]] ** 2]]
+    diagonal = np.ones(len(norms)) / math.sqrt(len(norms))
+    w = span @ (span.T @ diagonal)
+    if np.linalg.norm(w) < 0.1:  # the diagonal is nearly orthogonal to the soft span
+        w = span[:, 0]
+    v = w / norms
+    return v / np.linalg.norm(v)
 
 
 def _room(space: Space, u0: np.ndarray, free: np.ndarray) -> np.ndarray:
@@ -334,12 +351,18 @@ def check_fit(
     free: np.ndarray,
     *,
     noise: float | None = None,
+    steps: np.ndarray | None = None,
 ) -> Generator[Batch, np.ndarray, FitCheck]:
     """Check the least-squares point ``u0`` (scaled) by JᵀJ: a generator for the driver.
 
     ``free`` marks the parameters not on a bound; ``noise`` the noise level of ``S`` (None:
-    rounding only).  See the module docstring for the steps, the verdict and the cost.
+    rounding only).  ``steps`` (one per free parameter, scaled coordinates) are the steps of a
+    Jacobian the search already made at ``u0`` along the axes: the stencil takes them, so that
+    its points that search evaluated come from the driver's cache (a forward-difference Jacobian
+    leaves p + 1 new evaluations, a central one 1); None: ``eps^(1/3)``, or larger as the noise
+    asks.  See the module docstring for the verdict and the cost.
     """
+    hint = steps
     k = int(free.sum())
     r0 = squares.vector(space.to_user(u0))
     if r0 is None:
@@ -349,7 +372,10 @@ def check_fit(
     room = _room(space, u0, free)
     level = residual_noise(noise, value)
     relative = max(EPSILON, level / max(math.sqrt(max(value, 0.0)), 1e-300) if level else EPSILON)
-    steps = np.minimum(max(SMALLEST_STEP, relative ** (1.0 / 3.0)), room)
+    if hint is None:
+        steps = np.minimum(max(SMALLEST_STEP, relative ** (1.0 / 3.0)), room)
+    else:
+        steps = np.minimum(np.abs(np.asarray(hint, dtype=float)), room)
     bound_steps = _bound_steps(space, u0, free) if k < free.size else None
     tried: list[tuple[Stencil, Judged]] = []
     bound = None
@@ -410,7 +436,7 @@ def _ratio(
     along the softest direction, one more point; nan when that point failed."""
     ratio = float(np.max(residual_curvature(stencil, r0, level)))
     if judged.decided:
-        across = yield from softest(space, squares, u0, r0, free, stencil, judged, level)
+        across = yield from softest(space, squares, u0, r0, free, stencil, level)
         ratio = math.nan if across is None else max(ratio, across)
     return ratio
 

@@ -184,3 +184,28 @@ def test_the_eigenvalues_are_those_of_the_column_scaled_jtj(seed):
     scaled = j / np.linalg.norm(j, axis=0)
     assert judged.eigenvalues == pytest.approx(np.linalg.eigvalsh(scaled.T @ scaled), rel=1e-9)
     assert np.all(judged.margins > 0.0)  # the rounding floor, even with no error given
+
+
+def test_the_points_of_the_searchs_own_jacobian_are_not_paid_again():
+    # the search's forward differences at step h (points u0 + h e_k) are known: the check with
+    # steps=h needs only the backward points and the probe, p + 1 evaluations (counted by a
+    # cache of the evaluated points, as the driver keeps one)
+    space = build_space([1.0, 1.0])
+    squares = SumOfSquares(lambda p: A @ p - B, None)
+    u0 = space.to_scaled(np.linalg.lstsq(A, B, rcond=None)[0])
+    value = squares(space.to_user(u0))
+    h = 1e-5
+    known = {space.to_user(u0 + h * e).tobytes() for e in np.eye(2)}
+    for x in known:
+        squares(np.frombuffer(x))
+    new = []
+
+    def cached(x):
+        if x.tobytes() not in known:
+            new.append(x)
+        return squares(x)
+
+    found, _ = drive(check_fit(space, squares, u0, value, np.ones(2, bool), steps=np.full(2, h)),
+                     cached)
+    assert found.verdict is Verdict.MINIMUM and len(new) == 2 + 1
+    assert found.jacobian == pytest.approx(A * space.scale, rel=1e-7)
