@@ -24,8 +24,8 @@ check measures the Jacobian, not the Hessian:
    scaled matrix gets the first-order error bar ``d = |u|ᵀ |E| |w|`` of its singular vectors
    (Stewart & Sun 1990, ch. IV), and the eigenvalue ``s²`` of the scaled JᵀJ the bar ``2 s d + d²``.
    MINIMUM: every eigenvalue clear of its bar.  Otherwise the step is changed and the stencil
-   measured again (at most ``ATTEMPTS`` stencils): ``GROWTH`` times larger first, and on in the direction
-   that shrinks the bars.  A true derivative does not depend on the step, a difference of noise
+   measured again (at most ``ATTEMPTS`` stencils): ``GROWTH`` times larger first, and on in the
+   direction that shrinks the bars.  A true derivative does not depend on the step, a difference of noise
    falls as it grows: when the noise still hides a direction at the largest step the bounds allow
    (a tenth of the problem's size at most), the verdict is NOISY, with the noise level.  A
    direction below its error bar that is not noise (the bar grows with the step: the residuals'
@@ -40,15 +40,17 @@ check measures the Jacobian, not the Hessian:
    first order the smallest eigenvalue of JᵀJ + A is that of JᵀJ moved by exactly this amount.
    Gauss–Newton is a good model of the Hessian where every ``|q|`` is well below 1 (Dennis &
    Schnabel 1983, sec. 10.2: the local rate of Gauss–Newton is governed by the size of
-   ``(JᵀJ)⁻¹ A``); above ``LARGE`` (beyond its noise) the result says so (``large``), and the
-   caller checks the point with the full numerical Hessian instead.
+   ``(JᵀJ)⁻¹ A``); above ``LARGE`` (beyond its noise) the stencil and the probe are measured
+   again at steps ``GROWTH`` times larger (a real curvature stays, the noise's share of a second
+   difference falls as 1/h²) and the smaller ``|q|`` is kept; still above, the result says so
+   (``large``), and the caller checks the point with the full numerical Hessian instead.
 
 How saddles are still caught.  JᵀJ is never indefinite, so it alone cannot see a saddle or a
 maximum of S: the negative curvature of a saddle lives in A, which must then outweigh JᵀJ in some
 direction (``q <= -1`` along it).  Test 4 measures A along every axis and along the direction where
 JᵀJ is weakest, the one whose eigenvalue a negative A turns first, and hands such a point to the
 full Hessian check (and its escape).  A = [[0, a], [a, 0]] with JᵀJ = I has a zero diagonal and
-the eigenvalues ±a: the axes miss it, the probe along an eigenvector of JᵀJ sees ``±a``.  What
+the eigenvalues ±a: the axes miss it, the probe along the diagonal of that soft plane sees -a.  What
 stays unseen is a negative curvature of A along a stiff direction of JᵀJ that does not reach the
 softest one or the axes, a point the search's line searches would also have had to pass.
 
