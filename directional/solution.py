@@ -79,7 +79,7 @@ def summary_lines(sol: Solution) -> list[str]:
     if sol.reason:
         lines.append(f"  reason: {sol.reason}")
     lines.append(f"  best value: {sol.value:.10g}")
-    lines.append(f"  verdict: {sol.verdict.value}" + _verdict_hint(sol.verdict))
+    lines.append(f"  verdict: {sol.verdict.value}" + _verdict_hint(sol.verdict, sol.curvature))
     if sol.active:
         lines.append(f"  on a bound: {', '.join(sol.active)} (left out of the curvature check)")
     lines.extend(_curvature_lines(sol.curvature))
@@ -159,6 +159,11 @@ def _uncertainty_lines(sol: Solution) -> list[str]:
         if name in getattr(u, "rough", ()):
             lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {'—':>11}  {'not smooth':>27}")
             continue
+        partners = [b for j, b, _ in getattr(u, "confounded", ()) if j == name]
+        if partners:
+            text = "not separable from " + ", ".join(partners)
+            lines.append(f"  {name:<{width}}  {sol.point[i]:>14.8g}  {'—':>11}  {text:>27}")
+            continue
         lines.append(
             f"  {name:<{width}}  {sol.point[i]:>14.8g}  {u.standard_errors[i]:>11.5g}  "
             f"{'[' + f'{low:.6g}, {high:.6g}' + ']':>27}"
@@ -167,6 +172,11 @@ def _uncertainty_lines(sol: Solution) -> list[str]:
         f"  residual variance s² = {u.residual_variance:.6g} ({u.observations} residuals, "
         f"{u.degrees_of_freedom} degrees of freedom)"
     )
+    if getattr(u, "jacobian", ""):
+        lines.append(f"  standard errors from {u.jacobian}")
+    fixed = [f"{name} fixed at its {_side(sol, name)} bound" for name in getattr(u, "fixed", ())]
+    if fixed and len(fixed) < len(sol.names):
+        lines.append(f"  the errors and intervals hold with {', '.join(fixed)}")
     strongest = u.strongest(3) if hasattr(u, "strongest") else []
     if strongest:
         pairs = ", ".join(f"{a}-{b} {r:+.4f}" for a, b, r in strongest)
@@ -174,7 +184,23 @@ def _uncertainty_lines(sol: Solution) -> list[str]:
     return lines
 
 
-def _verdict_hint(verdict: Verdict) -> str:
+def _side(sol: Solution, name: str) -> str:
+    i = sol.names.index(name)
+    return "lower" if abs(sol.point[i] - sol.lower[i]) <= abs(sol.upper[i] - sol.point[i]) else "upper"
+
+
+def _verdict_hint(verdict: Verdict, curvature: Curvature | None = None) -> str:
+    if curvature is not None and curvature.source == "gauss-newton":  # a calibration's check
+        gauss_newton = {
+            Verdict.MINIMUM: " (JᵀJ is positive definite within its error bars and the residuals' "
+            "curvature is small against it)",
+            Verdict.FLAT: " (JᵀJ is singular within its error bars: some parameter combination is "
+            "not determined by the data)",
+            Verdict.NOISY: " (the noise hides a direction of JᵀJ at every step the bounds allow: "
+            "see below)",
+        }
+        if verdict in gauss_newton:
+            return gauss_newton[verdict]
     return {
         Verdict.MINIMUM: " (the Hessian is positive definite within its error bars)",
         Verdict.SADDLE: " (negative curvature in some direction: not a minimum)",

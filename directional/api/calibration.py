@@ -5,15 +5,19 @@ data, divided by the data's standard deviations when they are given).  The direc
 (`directional.method.search`) minimizes ``S`` without derivatives; since the residual vector is known, the
 search is finished with Levenberg–Marquardt steps on a central-difference Jacobian (Levenberg
 1944, Marquardt 1963), which reach the bottom of the flat curved valleys where a search on ``S``
-alone crawls.  The point is then checked like any other (`directional.method.curvature`), and at the
-minimum a Jacobian by numdifftools gives the linearized uncertainty (Bates & Watts 1988, sec. 2.3):
+alone crawls.  The point is then checked by the Gauss–Newton matrix JᵀJ of one central-difference
+Jacobian of the residuals (`directional.method.fitcheck`; the full numerical Hessian of
+`directional.method.curvature` only where the residuals' curvature is not small against JᵀJ),
+and the same Jacobian gives the linearized uncertainty (Bates & Watts 1988, sec. 2.3):
 
     covariance = s² (JᵀJ)⁻¹,   s² = S / (m - p),
 
 standard errors from its diagonal, the correlation matrix, and 95 % intervals
 ``estimate ± t(0.975, m - p) * standard error`` (Student's t, `scipy.stats.t`).  Parameters on a
-bound are left out (their errors are nan) and ``p`` counts the free ones.  A warning names
-parameters correlated beyond ``|r| > 0.95`` and combinations the data do not determine.
+bound are left out (their errors are nan; the others' intervals hold with them fixed there) and
+``p`` counts the free ones; a free parameter the data cannot separate from one on a bound
+(`separation`) gets no interval.  A warning names parameters correlated beyond ``|r| > 0.95``,
+combinations the data do not determine, and parameters not separable from one on a bound.
 
 Every evaluation goes through the driver (counted, cached, journaled): see
 `directional.method.leastsquares` for how the residual vectors travel beside the sums of squares.
@@ -44,23 +48,34 @@ from scipy import stats
 from directional.api.options import Options, calibrate_options
 from directional.api.session import session, solution, with_replicates
 from directional.errors import ProblemError
-from directional.method.curvature import Settled, combination, labels, settle, settled_solution
+from directional.method.curvature import (
+    Restart,
+    Settled,
+    combination,
+    free_estimate,
+    free_record,
+    labels,
+    record,
+    settle,
+    settled_solution,
+)
+from directional.method.fitcheck import GAUSS_NEWTON, FitCheck, check_fit
 from directional.method.leastsquares import (
     Polished,
     Residuals,
     SumOfSquares,
-    extrapolated_jacobian,
     levenberg_marquardt,
 )
 from directional.method.noise import floored
 from directional.method.replicates import planned_level, pooled_level
 from directional.method.search import Settings, powell
 from directional.method.space import Space
-from directional.records import SPENT, Batch, Halt, Outcome, Purpose, Request, Stop
+from directional.records import SPENT, Batch, Check, Halt, Outcome, Purpose, Request, Stop, Verdict
 from directional.solution import Solution
 
 EPSILON = float(np.finfo(float).eps)
 STRONG = 0.95  # correlations beyond this are named in a warning
+CONFOUNDED = 10.0  # freeing a bound parameter would multiply a standard error by this: not separable
 UNDETERMINED = 1e-8  # relative singular value of the column-scaled Jacobian taken as zero
 LEVEL = 0.95  # coverage of the intervals
 
@@ -74,7 +89,12 @@ class Uncertainty:
     ``residual_variance`` is ``s² = S / (m - p)`` with ``p`` the free parameters.
     ``undetermined`` names the parameter combinations the data do not determine; ``rough`` the
     parameters where the curvature check found the misfit not smooth (a kink or a jump): a
-    linearization says nothing there, so their errors and intervals are nan.
+    linearization says nothing there, so their errors and intervals are nan.  ``fixed`` names the
+    parameters on a bound: the errors and intervals of the others hold with them fixed there.
+    ``confounded`` lists ``(name, bound name, growth)`` for a free parameter the data cannot
+    separate from one on a bound: freed, the bound one would multiply its standard error by
+    ``growth`` (at least `CONFOUNDED`, inf when their columns are dependent); its error and
+    interval are nan rather than a tight number that holds only with the other one fixed.
     """
 
     names: tuple[str, ...]
@@ -89,6 +109,9 @@ class Uncertainty:
     level: float = LEVEL
     undetermined: tuple[str, ...] = ()
     rough: tuple[str, ...] = ()  # not smooth there (curvature check): no error, no interval
+    jacobian: str = ""  # which Jacobian the standard errors come from
+    fixed: tuple[str, ...] = ()  # on a bound: the other intervals hold with these fixed there
+    confounded: tuple[tuple[str, str, float], ...] = ()  # (free, on a bound, error growth)
 
     def strongest(self, count: int = 3) -> list[tuple[str, str, float]]:
         """The ``count`` largest correlations in absolute value, as (name, name, r)."""
@@ -158,6 +181,72 @@ def uncertainty(
     )
 
 
+def separation(
+    space: Space, x: np.ndarray, jacobian_u: np.ndarray, bound_u: np.ndarray | None,
+    free: np.ndarray,
+) -> tuple[tuple[str, str, float], ...]:
+    """Free parameters the data cannot separate from one on a bound, with the error growth.
+
+    For each parameter ``b`` on a bound (its one-sided column in ``bound_u``, scaled coordinates)
+    and each free ``j``: the factor by which freeing ``b`` would multiply the standard error of
+    ``j``, ``sqrt([(J₊ᵀJ₊)⁻¹]_jj / [(JᵀJ)⁻¹]_jj)`` with ``J₊`` the free columns and ``b``'s (the
+    variance inflation of a regressor by one more, e.g. Draper & Smith 1998, "Applied Regression
+    Analysis", sec. 16.4, from memory).  It is large when ``j``'s column lies nearly in the span
+    of ``b``'s and the others': then the data tell ``j`` from ``b`` only through the bound.
+    Returned where it reaches `CONFOUNDED` (inf where ``J₊`` is singular).
+    """
+    if bound_u is None or free.all() or not free.any():
+        return ()
+    derivative = np.where(space.log, space.scale * x, space.scale)
+    columns = np.flatnonzero(free)
+    base = jacobian_u[:, columns] / derivative[columns]
+    inner = _inverse_diagonal(base)
+    found = []
+    for b in np.flatnonzero(~free):
+        if not np.any(bound_u[:, b]):
+            continue
+        widened = np.column_stack([base, bound_u[:, b] / derivative[b]])
+        outer = _inverse_diagonal(widened)[:-1]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            growth = np.sqrt(outer / inner)
+        for j, g in zip(columns, growth):
+            if not g < CONFOUNDED:
+                found.append((space.names[j], space.names[b], float(g)))
+    return tuple(found)
+
+
+def _inverse_diagonal(jacobian: np.ndarray) -> np.ndarray:
+    """The diagonal of (JᵀJ)⁻¹ from the SVD of the column-scaled J (inf where J is singular)."""
+    norms = np.sqrt(np.sum(jacobian**2, axis=0))
+    norms = np.where(norms > 0.0, norms, 1.0)
+    _, singular, vt = np.linalg.svd(jacobian / norms, full_matrices=False)
+    if singular.size == 0 or singular[-1] <= UNDETERMINED * singular[0]:
+        return np.full(jacobian.shape[1], np.inf)
+    return np.sum((vt.T / singular) ** 2, axis=1) / norms**2
+
+
+def _confounded(result: Uncertainty, found: tuple[tuple[str, str, float], ...]) -> Uncertainty:
+    """No standard error or interval for a parameter not separable from one on a bound."""
+    if not found:
+        return result
+    names = {j for j, _, _ in found}
+    keep = np.array([name not in names for name in result.names])
+    return dataclasses.replace(
+        result, confounded=found, standard_errors=np.where(keep, result.standard_errors, np.nan),
+        intervals=np.where(keep[:, None], result.intervals, np.nan),
+        correlation=np.where(np.outer(keep, keep), result.correlation, np.nan),
+    )
+
+
+def _source(fit: FitCheck, free: int) -> str:
+    """Which Jacobian the standard errors come from, for the summary."""
+    steps = fit.steps if fit.steps is not None and fit.steps.size else np.zeros(1)
+    size = f"{steps.min():.2g}" if steps.min() == steps.max() else f"{steps.min():.2g} to {steps.max():.2g}"
+    again = f", the best of {fit.stencils} stencils" if fit.stencils > 1 else ""
+    return (f"the check's central-difference Jacobian ({2 * free} points, steps {size} of the "
+            f"problem's size{again})")
+
+
 def _rough(result: Uncertainty, curvature: object) -> Uncertainty:
     """No standard error or interval for a parameter where the misfit is not smooth."""
     rough = {name for b in getattr(curvature, "breaks", ()) for name in b.parameters}
@@ -180,6 +269,13 @@ def _warnings(result: Uncertainty) -> list[str]:
             "no linearized interval for " + ", ".join(result.rough) + ": the misfit is not "
             "smooth there (a kink or a jump, see the curvature check), so s²(JᵀJ)⁻¹ does not apply"
         )
+    for name, bound, growth in result.confounded:
+        how = "their columns are dependent" if math.isinf(growth) else (
+            f"freed, {bound} would multiply its standard error by {growth:.3g}")
+        messages.append(
+            f"the data cannot separate {name} from {bound}, which is on a bound ({how}): no "
+            f"interval for {name}, since one would hold only with {bound} fixed there"
+        )
     if result.undetermined:
         messages.append(
             "the data do not determine " + "; ".join(result.undetermined)
@@ -199,6 +295,83 @@ def _warnings(result: Uncertainty) -> list[str]:
             "of freedom: no uncertainty can be given"
         )
     return messages
+
+
+# ----------------------------------------------------------------------------- the check
+
+
+def checked(
+    space: Space,
+    settings: Settings,
+    outcome: Outcome,
+    squares: SumOfSquares,
+    *,
+    check: Check | None,
+    escapes: int,
+    noise: float | None,
+    budget: int,
+    restart: Restart,
+) -> Generator[Request, Any, tuple[Settled, np.ndarray, FitCheck | None]]:
+    """The verdict of a fit and the Jacobian for its uncertainty, from one stencil where it can.
+
+    The check by JᵀJ (`directional.method.fitcheck`): one central-difference Jacobian at the
+    point, at most 2 k + 1 evaluations for k free parameters (and one per parameter on a bound;
+    points the Levenberg–Marquardt finish already evaluated come from the driver's cache), gives
+    the verdict and the standard errors.  Where the residuals' curvature is not negligible against
+    JᵀJ (large residuals), or the check could not finish, the full numerical Hessian decides
+    (`directional.method.curvature.settle`, with its escapes from saddles), and a point it moves
+    to is measured again for the uncertainty.  With ``check`` None, or a search that did not
+    converge, the verdict is UNCHECKED but the Jacobian is still measured.  Returns what was
+    settled, the mask of free parameters and the check (None when the stencil could not be had).
+    """
+    def free_at(u: np.ndarray) -> np.ndarray:
+        return ~space.on_bound(space.to_user(u), 10.0 * settings.point_tolerance)
+
+    if check is None or outcome.stop is not Stop.CONVERGED:
+        settled = yield from settle(space, settings, outcome, check=check, escapes=escapes,
+                                    noise=noise, budget=budget)  # no evaluation: says why
+        free = free_at(outcome.point)
+        fit = yield from check_fit(space, squares, outcome.point, outcome.value, free, noise=noise)
+        return settled, free, fit
+    before = yield SPENT
+    free = free_at(outcome.point)
+    fit = yield from check_fit(space, squares, outcome.point, outcome.value, free, noise=noise)
+    if fit.verdict is not Verdict.UNCHECKED and not fit.large:
+        spent = (yield SPENT) - before
+        return _fit_settled(space, outcome, fit, free, spent), free, fit
+    settled = yield from settle(space, settings, outcome, check=check, escapes=escapes,
+                                noise=noise, restart=restart, budget=budget)
+    why = (f"the residuals' curvature is not small against JᵀJ (|q| up to {fit.ratio:.2g}): the "
+           "full Hessian decides" if fit.verdict is not Verdict.UNCHECKED else fit.note)
+    if why:
+        settled = dataclasses.replace(settled, notes=(why, *settled.notes))
+    if not np.array_equal(settled.outcome.point, outcome.point):
+        free = free_at(settled.outcome.point)
+        fit = yield from check_fit(space, squares, settled.outcome.point, settled.outcome.value,
+                                   free, noise=noise)
+    return settled, free, (fit if fit.jacobian is not None else None)
+
+
+def _fit_settled(
+    space: Space, outcome: Outcome, fit: FitCheck, free: np.ndarray, spent: int
+) -> Settled:
+    """The check by JᵀJ as a `Settled`: the Gauss–Newton matrix 2 JᵀJ as the curvature record."""
+    names = labels(space, free)
+    scale = space.scale[free]
+    undetermined = () if fit.undetermined is None else tuple(
+        combination(scale * d, names) for d in fit.undetermined.T
+    )
+    note = fit.note
+    if fit.verdict is Verdict.NOISY:  # hidden by the noise, not shown to be undetermined
+        note, undetermined = f"{note}; hidden: " + "; ".join(undetermined), ()
+    curvature = record(
+        fit.gauss_newton, fit.error, scale, GAUSS_NEWTON, names=names, margin=fit.margin,
+        undetermined=undetermined, evaluations=spent,
+        free=free_record(space, free_estimate(space, outcome)),
+    )
+    return Settled(outcome=outcome, verdict=fit.verdict, curvature=curvature,
+                   notes=(note,) if note else (), escapes=0,
+                   point=space.to_user(outcome.point))
 
 
 # ----------------------------------------------------------------------------- calibrate
@@ -243,8 +416,11 @@ def calibrate(
     residuals
         Called with one float array of the parameters; returns a flat array of m numbers.
     sigma
-        None, or m positive standard deviations of the data: the residuals are divided by them.
-        The covariance is still scaled by s² = S / (m - p), which is near 1 when they are right.
+        None, one positive standard deviation for every residual, or m of them (one per
+        residual): the residuals are divided by them.  The covariance is still scaled by
+        s² = S / (m - p), which is near 1 when they are right.  A residual vector whose length is
+        not the run's (sigma's, or else the start's) is a failed evaluation with that reason,
+        stepped around like any other failure.
     replicates
         Run each point this many times (a stochastic model); the search sees the sum of squares
         of the mean residual vector of the runs that succeeded, and the journal keeps each run's
@@ -252,7 +428,11 @@ def calibrate(
         noise level from the replicates is that of one run's sum of squares divided by sqrt(k).
 
     The other arguments are those of `directional.minimize`; ``budget`` counts every evaluation
-    (search, Levenberg–Marquardt, check and Jacobian).  ``executor`` evaluates the points of a
+    (search, Levenberg–Marquardt, check and Jacobian).  The verdict comes from JᵀJ of one
+    central-difference Jacobian, which also gives the standard errors (`checked`); ``check``
+    (True, "quick" or "extrapolated") chooses the numerical Hessian used instead where the
+    residuals' curvature is not small against JᵀJ, and False leaves the verdict UNCHECKED (the
+    Jacobian is still measured for the uncertainty).  ``executor`` evaluates the points of a
     batch in parallel; the residual vectors must come back to this process, so it must share
     its memory: a thread pool (for a program, each evaluation is its own process anyway;
     `directional.run.ordered.InOrder` keeps the journal in the serial order).
@@ -263,7 +443,7 @@ def calibrate(
         For a bad start, bounds, names, budget, tolerance, sigma, check, escapes, noise or
         replicates.
     ObjectiveError
-        When the start fails, or the residuals are not a flat array of numbers of a fixed length.
+        When the start fails, or the residuals are not a flat array of numbers.
     """
     options = calibrate_options(
         residuals, start, bounds, names, budget, sigma=sigma, point_tolerance=point_tolerance,
@@ -290,7 +470,7 @@ def calibrate(
         if squares.size is None and squares.vectors:
             squares.size = next(iter(squares.vectors.values())).size
         book.vectors = squares.journaled  # the journal keeps each evaluation's vector
-        settled, settings, noted, free, jacobian = driver.run(calibration(options, squares))
+        settled, settings, noted, free, fit = driver.run(calibration(options, squares))
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
         found = solution(space, driver.log, outcome, settings.point_tolerance)
@@ -299,10 +479,16 @@ def calibrate(
     x = space.to_user(outcome.point)
     notes = list(outcome.notes) + list(solution_.notes)
     result = None
-    if jacobian is None:
+    if fit is None or fit.jacobian is None:
         notes.append("no uncertainty: an evaluation for the Jacobian failed or was not allowed")
     else:
-        result = _rough(uncertainty(space, x, jacobian, outcome.value, free), settled.curvature)
+        result = uncertainty(space, x, fit.jacobian, outcome.value, free)
+        fixed = tuple(name for name, keep in zip(space.names, free) if not keep)
+        result = dataclasses.replace(result, jacobian=_source(fit, int(free.sum())), fixed=fixed)
+        result = _rough(result, settled.curvature)
+        result = _confounded(
+            result, separation(space, x, fit.jacobian, fit.bound_columns, free)
+        )
         for message in _warnings(result):
             warnings.warn(message, stacklevel=2)
             notes.append(message)
@@ -331,15 +517,12 @@ def calibration(
         reserve=_reserve(space.size, options.budget), second_opinion=True,
     )
     level = yield from pooled_level(options.noise, options.replicates, level)
-    settled = yield from settle(
-        space, settings, outcome, check=options.check, escapes=options.escapes, noise=level,
+    settled, free, fit = yield from checked(
+        space, settings, outcome, squares, check=options.check, escapes=options.escapes,
+        noise=level, budget=options.budget,
         restart=lambda u: _search(space, settings, squares, u, budget=options.budget, reserve=0),
-        budget=options.budget,
     )
-    point = settled.outcome.point
-    free = ~space.on_bound(space.to_user(point), 10.0 * settings.point_tolerance)
-    jacobian = yield from extrapolated_jacobian(space, squares, point, free)
-    return settled, settings, noted, free, jacobian
+    return settled, settings, noted, free, fit
 
 
 def _reserve(n: int, budget: int) -> int:

@@ -224,19 +224,33 @@ def time_limit_option(time_limit: object) -> float | None:
 def sigma_option(sigma: object) -> np.ndarray | None:
     """The standard deviations that divide the residuals, or None.
 
+    One number (a 0-d array: every residual has that standard deviation) or one per residual
+    (a flat array).
+
+    >>> sigma_option(0.05), sigma_option([1, 2])
+    (array(0.05), array([1., 2.]))
+
     Raises
     ------
     ProblemError
-        Unless they are positive finite numbers in a flat sequence.
+        Unless it is one positive finite number or a flat sequence of them.
     """
     if sigma is None:
         return None
+    if isinstance(sigma, bool | str | bytes):
+        raise ProblemError(f"sigma must be a positive number or one per residual, got {sigma!r}")
     try:
-        deviations = np.array(sigma, dtype=float).reshape(-1)
+        deviations = np.array(sigma, dtype=float)
     except (TypeError, ValueError):
-        raise ProblemError(f"sigma must be positive numbers, one per residual, got {sigma!r}") from None
-    bad = np.flatnonzero(~(np.isfinite(deviations) & (deviations > 0.0)))
-    if bad.size or np.ndim(sigma) > 1 or deviations.size == 0:
-        where = f" (entry {bad[0]}: {deviations[bad[0]]!r})" if bad.size else ""
-        raise ProblemError(f"sigma must be positive finite numbers, one per residual{where}")
+        raise ProblemError(
+            f"sigma must be a positive number or one per residual, got {sigma!r}"
+        ) from None
+    flat = deviations.reshape(-1)
+    bad = np.flatnonzero(~(np.isfinite(flat) & (flat > 0.0)))
+    if bad.size or deviations.ndim > 1 or flat.size == 0:
+        where = f" (entry {bad[0]}: {flat[bad[0]]!r})" if bad.size and deviations.ndim else (
+            f", got {flat[0]!r}" if bad.size else "")
+        raise ProblemError(
+            f"sigma must be a positive finite number or one per residual{where}"
+        )
     return deviations

@@ -31,6 +31,8 @@ The schema (every table but ``[[parameter]]`` and ``[objective]`` is optional)::
     #                             # templates or files; workdir then defaults to "evaluations")
     # keep_folders = false        # keep the folders of successful runs too (failed: always kept)
     kind = "residuals"            # or "value" (the default; "residuals" with a [data] table)
+    # sigma = 0.05                # kind "residuals" without [data]: the residuals' standard
+    #                             # deviation, one number or a list of one per residual
 
     [data]                        # optional: measurements; the objective returns predictions
     file = "readings.csv"         # CSV, header row; relative to this file
@@ -88,7 +90,7 @@ KINDS = ("value", "residuals")
 _TOP = ("title", "parameter", "objective", "data", "search", "journal", "report")
 _PARAMETER = ("name", "start", "lower", "upper", "scale", "unit")
 _OBJECTIVE = ("function", "command", "kind", "timeout", "read", "workdir", "templates", "files",
-              "fresh_folder", "keep_folders", "version")
+              "fresh_folder", "keep_folders", "version", "sigma")
 _DATA = ("file", "observed", "sigma", "variables")
 FRESH_PARENT = "evaluations"  # default parent of the per-evaluation folders, beside the file
 JOURNAL_SUFFIX = ".journal.sqlite"  # the default journal: NAME.journal.sqlite beside NAME.toml
@@ -191,6 +193,7 @@ class ObjectiveSpec:
     files: tuple[Path, ...] = ()
     fresh_folder: bool = False
     keep_folders: bool = False
+    sigma: float | tuple[float, ...] | None = None  # divides the residuals (kind "residuals")
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -717,6 +720,7 @@ class _Reader:
         if data and kind != "residuals":
             raise self.fail((*at, "kind"), "a [data] table needs objective.kind = \"residuals\": "
                             "the objective returns predictions, one per measurement")
+        sigma = self._sigma(table, kind, data)
         if function is not None:
             if not _REFERENCE.match(function):
                 raise self.fail(
@@ -727,9 +731,26 @@ class _Reader:
                         "keep_folders"):
                 if key in table:
                     raise self.fail((*at, key), f"objective.{key} applies to a command only")
-            return ObjectiveSpec(function=function, kind=kind, version=version)
+            return ObjectiveSpec(function=function, kind=kind, version=version, sigma=sigma)
         spec = self._command(table, command, kind, timeout, read, workdir, parameters)
-        return dataclasses.replace(spec, version=version)
+        return dataclasses.replace(spec, version=version, sigma=sigma)
+
+    def _sigma(self, table: Mapping[str, Any], kind: str, data: bool) -> float | tuple[float, ...] | None:
+        """``objective.sigma``: one positive number or a list of them, for kind "residuals"."""
+        path = ("objective", "sigma")
+        if "sigma" not in table:
+            return None
+        if kind != "residuals" or data:
+            raise self.fail(path, "objective.sigma applies to kind = \"residuals\" without a [data] "
+                            "table (a [data] table has its own data.sigma)")
+        value = self._get(table, path, (float, list), None)
+        from directional.api.options import sigma_option
+
+        try:
+            sigma = sigma_option(value)
+        except ProblemError as error:
+            raise self.fail(path, f"objective.{error}") from None
+        return None if sigma is None else (float(sigma) if sigma.ndim == 0 else tuple(sigma.tolist()))
 
     def _command(self, table, command, kind, timeout, read, workdir, parameters) -> ObjectiveSpec:
         at = ("objective", "command")

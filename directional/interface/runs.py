@@ -7,7 +7,14 @@ JOURNAL`` can rebuild the objective from the journal alone.
 ``show`` must not evaluate anything.  It replays a *copy* of the journal (SQLite's backup, so a
 journal being written is read consistently) with a budget of exactly the stored evaluations and an
 objective that refuses to run: the search takes every value from the journal and stops where the
-journal ends, which gives the solution as the run had it at that moment.
+journal ends, which gives the solution as the run had it at that moment.  A calibration replays
+the same way: the journal keeps each evaluation's residual vector beside its value, so its
+least-squares steps, its check and its uncertainty table are rebuilt from the journal without a
+call of the objective.  Only a calibration that stopped before its end (interrupted, killed, or
+still running), or one whose journal was written before the vectors were kept, is shown as its
+best stored point (`_as_stored`): it replays under the budget it ran with, whose split between
+its stages decides which points it asks for, so the replay runs past the journal's end, where
+the objective refuses.
 """
 
 from __future__ import annotations
@@ -17,6 +24,7 @@ import contextlib
 import dataclasses
 import io
 import os
+import sqlite3
 import tempfile
 from collections.abc import Callable
 from pathlib import Path
@@ -112,6 +120,8 @@ def solve(
         options["noise"] = spec.noise
     if spec.replicates != 1:
         options["replicates"] = spec.replicates
+    if problem.objective.sigma is not None:
+        options["sigma"] = problem.objective.sigma
     if path is not None:
         options["journal"] = journals.Target(
             path,
@@ -319,8 +329,8 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
                 budget = contents.header.budget if calibration and contents.header.budget else stored
                 try:
                     result = resumed(target, _refuse, budget=max(budget, stored))
-                except _Refused:  # the run ended early, or its journal keeps no vectors
-                    result = _as_stored(contents)
+                except _Refused:  # a calibration that stopped early asks past the journal's end
+                    result = _as_stored(contents, vectors=_keeps_vectors(copy))
     if isinstance(result, Solution):
         result = _ended(result, contents, holder(Path(path)), stored)
     return result, contents
@@ -356,17 +366,31 @@ class _Refused(ObjectiveError):
 
 
 def _refuse(x: np.ndarray) -> float:
-    # The budget ends the replay before any evaluation; but a calibration's least-squares steps
-    # need residual vectors, which the journal does not keep (it keeps each point's value).
+    # The budget ends the replay before any evaluation, and a finished calibration takes its
+    # residual vectors from the journal; only one that stopped early asks for a new point.
     raise _Refused("show evaluates nothing")
 
 
-def _as_stored(contents: journals.Contents) -> Solution:
+def _keeps_vectors(path: Path) -> bool:
+    """Whether the journal at ``path`` holds residual vectors (one written before they were kept
+    does not)."""
+    try:
+        with contextlib.closing(sqlite3.connect(path)) as connection:
+            row = connection.execute(
+                "SELECT 1 FROM evaluation WHERE residuals IS NOT NULL LIMIT 1"
+            ).fetchone()
+    except sqlite3.Error:  # no such column: written before the vectors were kept
+        return False
+    return row is not None
+
+
+def _as_stored(contents: journals.Contents, *, vectors: bool = True) -> Solution:
     """The run as its journal holds it, without replaying the search: the best stored point.
 
-    For a journal whose replay would need evaluations (a calibration's residual vectors): the
-    best value and point, every evaluation, the stop of the last session; no verdict, no
-    uncertainty, and a reason that says so.
+    For a journal whose replay would need evaluations (a calibration that stopped before its
+    end, or one written before the journal kept residual vectors, ``vectors`` false): the best
+    value and point, every evaluation, the stop of the last session; no verdict, no uncertainty,
+    and a reason that says so.
     """
     parameters = contents.header.parameters
     history = tuple(e for e in contents.evaluations if e.status != journals.INTERRUPTED)
@@ -384,8 +408,11 @@ def _as_stored(contents: journals.Contents) -> Solution:
         names=tuple(p.name for p in parameters), units=tuple(p.unit for p in parameters),
         lower=np.array([p.lower for p in parameters], dtype=float),
         upper=np.array([p.upper for p in parameters], dtype=float),
-        reason="the best point the journal holds; its least-squares steps cannot be replayed "
-        "without evaluating (the journal keeps values, not residual vectors), so no verdict "
+        reason="the best point the journal holds; the calibration stopped before its check, so "
+        "no verdict and no uncertainty are shown: directional resume finishes the run (no "
+        "stored evaluation is repeated)" if vectors else
+        "the best point the journal holds; its least-squares steps cannot be replayed without "
+        "evaluating (this journal was written before residual vectors were kept), so no verdict "
         "and no uncertainty are shown: directional resume recomputes them",
         history=history,
     )

@@ -3,9 +3,11 @@ Levenberg–Marquardt steps.
 
 The driver wants a number, so the objective it sees is `SumOfSquares`: it returns
 ``S(x) = sum r_i(x)**2`` and keeps each residual vector by the bytes of its point; the generators
-here yield batches (purposes "jacobian", "gauss-newton") and read the vectors back.  A vector the
-driver answered without calling the objective (a journal being replayed) is computed again, once,
-and counted in ``SumOfSquares.recomputed``.
+here yield batches (purposes "jacobian", "gauss-newton") and read the vectors back.  A replayed
+journal hands its stored vectors in (`directional.run.journal` keeps each evaluation's vector);
+only a vector the driver answered without calling the objective and that no journal holds (one
+written before the vectors were kept) is computed again, once, and counted in
+``SumOfSquares.recomputed``.
 
 With replicates (each point run k times, `directional.method.replicates`) every run keeps its own
 vector, matched to its evaluation by its sum of squares (bit for bit), and the value the search
@@ -64,18 +66,26 @@ def sum_of_squares(result: object) -> float:
         return float(r @ r)
 
 
+class WrongLength(ValueError):
+    """A residual vector whose length is not the run's: that evaluation fails (the driver records
+    the message as its reason and the search steps around the point), the run goes on."""
+
+
 class SumOfSquares:
     """The objective the driver sees: ``S(x)``, with each residual vector kept by point.
 
-    ``sigma`` (None or one positive standard deviation per residual) divides the residuals.
+    ``sigma`` (None, one positive standard deviation for every residual, or one per residual)
+    divides the residuals.  The length of the run's vectors is ``sigma``'s when it has one per
+    residual, else the first vector's (the start's).
     ``replicates`` above 1 keeps the vector of every run of a point in ``runs`` (with its sum of
     squares); ``vectors`` then holds each point's mean vector once `combine` has made it.
 
     Raises (when called)
     --------------------
     ObjectiveError
-        When the residuals are not a flat array of real numbers, change length between calls,
-        or do not match ``sigma``.
+        When the residuals are not a flat array of real numbers (a programming error).
+    WrongLength
+        When a vector's length is not the run's: a failed evaluation, not an abort.
     """
 
     def __init__(self, residuals: Residuals, sigma: np.ndarray | None, replicates: int = 1) -> None:
@@ -86,10 +96,15 @@ class SumOfSquares:
         self.runs: dict[bytes, list[tuple[float, np.ndarray]]] = {}
         self.size: int | None = None
         self.recomputed = 0
+        self.failed: set[bytes] = set()
 
     def __call__(self, x: np.ndarray) -> float:
         key = x.tobytes()
-        r = self._vector(self.residuals(x))
+        try:
+            r = self._vector(self.residuals(x))
+        except Exception:
+            self.failed.add(key)  # asked for its vector later: None, not a second call
+            raise
         value = float(r @ r) if np.all(np.isfinite(r)) else math.nan
         if self.replicates > 1:
             self.runs.setdefault(key, []).append((value, r))  # one list append: thread-safe
@@ -131,21 +146,19 @@ class SumOfSquares:
                 "residuals must return a flat array of real numbers, got "
                 + (text if len(text) <= 80 else text[:77] + "...")
             )
+        if self.sigma is not None and self.sigma.ndim == 1 and self.sigma.size != r.size:
+            raise WrongLength(f"the residuals have {r.size} entries but sigma has {self.sigma.size}")
         if self.size is None:
             self.size = r.size
-            if self.sigma is not None and self.sigma.size != r.size:
-                raise ObjectiveError(
-                    f"the residuals have {r.size} entries but sigma has {self.sigma.size}"
-                )
         elif r.size != self.size:
-            raise ObjectiveError(
-                f"the residuals had {self.size} entries and now have {r.size}"
-            )
+            raise WrongLength(f"the residuals had {self.size} entries and now have {r.size}")
         return r if self.sigma is None else r / self.sigma
 
     def vector(self, x: np.ndarray) -> np.ndarray | None:
         """The residual vector at user point ``x`` (None when its evaluation failed)."""
         key = x.tobytes()
+        if key in self.failed and key not in self.vectors:
+            return None
         if key not in self.vectors and key not in self.runs:
             self.recomputed += 1
             try:

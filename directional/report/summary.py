@@ -256,6 +256,17 @@ def _uncertainty(sol: Solution) -> dict[str, Any] | None:
     rough = getattr(u, "rough", None)
     if rough:
         out["not_smooth"] = list(rough)
+    source = getattr(u, "jacobian", "")
+    if source:
+        out["jacobian"] = source
+    fixed = getattr(u, "fixed", ())
+    if fixed:
+        out["fixed_on_bound"] = list(fixed)
+    confounded = getattr(u, "confounded", ())
+    if confounded:
+        out["not_separable"] = [
+            {"parameter": j, "on_bound": b, "error_growth": _number(g)} for j, b, g in confounded
+        ]
     return out
 
 

@@ -380,9 +380,20 @@ def test_residuals_that_are_not_a_flat_array_are_an_objective_error(bad, words):
         dl.calibrate(lambda k: bad, [1.0, 1.0], check=False)
 
 
-def test_residuals_that_change_length_are_an_objective_error():
-    with pytest.raises(dl.ObjectiveError, match="had 2 entries and now have 3"):
-        dl.calibrate(lambda k: np.ones(2 if k[0] == 1.0 else 3), [1.0, 1.0], check=False)
+def test_residuals_that_change_length_are_failed_evaluations_not_an_abort():
+    # the start's length is the run's; every other point fails, with the reason, and is not
+    # called twice (its vector is not "recomputed")
+    calls = []
+
+    def residuals(k):
+        calls.append(1)
+        return np.ones(2 if k[0] == 1.0 else 3)
+
+    sol = dl.calibrate(residuals, [1.0, 1.0], check=False)
+    assert sol.failures == sum(1 for e in sol.history if e.point[0] != 1.0) > 0
+    assert len(calls) == sol.evaluations
+    assert all("had 2 entries and now have 3" in e.detail for e in sol.history if e.status != "ok")
+    assert sol.uncertainty is None and not any("recomputed" in n for n in sol.notes)
 
 
 @pytest.mark.parametrize("seed", ["a", -1, 1.5])

@@ -88,7 +88,6 @@ def test_a_failing_residual_function_gives_no_vector():
         ([[[1.0, 2.0]]], "flat array"),
         ([[]], "flat array"),
         (["abc"], "flat array"),
-        ([[1.0, 2.0], [1.0, 2.0, 3.0]], "had 2 entries and now have 3"),
     ],
 )
 def test_residuals_that_are_not_one_flat_array_are_an_objective_error(results, message):
@@ -99,9 +98,26 @@ def test_residuals_that_are_not_one_flat_array_are_an_objective_error(results, m
             squares(np.zeros(1))
 
 
-def test_sigma_of_another_length_is_an_objective_error():
-    with pytest.raises(dl.ObjectiveError, match="4 entries but sigma has 3"):
+def test_a_vector_of_another_length_fails_that_evaluation_only():
+    # a failed evaluation, not an ObjectiveError (which would end the run)
+    answers = iter([[1.0, 2.0], [1.0, 2.0, 3.0], [3.0, 4.0]])
+    squares = SumOfSquares(lambda x: next(answers), None)
+    assert squares(np.zeros(1)) == 5.0
+    with pytest.raises(leastsquares.WrongLength, match="had 2 entries and now have 3") as caught:
+        squares(np.ones(1))
+    assert not isinstance(caught.value, dl.ObjectiveError)
+    assert squares(np.full(1, 2.0)) == 25.0  # 3-4-5 triangle
+    assert SumOfSquares(lambda x: [1.0, 2.0, 3.0], None).vector(np.zeros(1)) is not None
+
+
+def test_sigma_of_another_length_fails_the_evaluation():
+    with pytest.raises(leastsquares.WrongLength, match="4 entries but sigma has 3"):
         SumOfSquares(linear, np.ones(3))(np.zeros(2))
+
+
+def test_one_sigma_divides_every_residual():
+    r = SumOfSquares(linear, np.array(2.0))
+    assert r(np.ones(2)) == pytest.approx(np.sum((A @ np.ones(2) - B) ** 2) / 4.0)
 
 
 # ----------------------------------------------------------------------------- Jacobians
