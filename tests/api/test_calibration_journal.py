@@ -61,7 +61,8 @@ def test_show_and_resume_of_a_finished_calibration_evaluate_nothing(tmp_path):
     first = calibrate(objective, journal=path)
     certified(first)
     assert objective.calls == first.evaluations
-    shown, _ = runs.replay(path)  # what `directional show` sees; its objective refuses to run
+    with pytest.warns(UserWarning, match="b1 and b2"):
+        shown, _ = runs.replay(path)  # what `directional show` sees; its objective refuses to run
     assert shown.verdict is Verdict.MINIMUM and shown.uncertainty is not None
     assert shown.uncertainty.standard_errors.tobytes() == first.uncertainty.standard_errors.tobytes()
     again = Counted()
