@@ -25,7 +25,9 @@ class Solution:
 
     ``point`` is in the user's coordinates; ``directions`` holds the final direction set, one unit
     row per direction, expressed in search coordinates (each parameter, or its logarithm when it is
-    log-scaled); ``history`` is every evaluation in order, failed ones included.
+    log-scaled); ``history`` is every evaluation in order, failed ones included; ``noise`` is
+    the noise level the search worked above (stated, or measured; None for rounding only): the
+    standard deviation of ``value``, which is a single evaluation.
     """
 
     point: np.ndarray
@@ -45,6 +47,7 @@ class Solution:
     reason: str = ""
     notes: tuple[str, ...] = ()
     history: tuple[Evaluation, ...] = field(default=(), repr=False)
+    noise: float | None = None  # the noise level the search worked above: the ± of ``value``
 
     @property
     def named(self) -> dict[str, float]:
@@ -75,7 +78,10 @@ def summary_lines(sol: Solution) -> list[str]:
     ]
     if sol.reason:
         lines.append(f"  reason: {sol.reason}")
-    lines.append(f"  best value: {sol.value:.10g}")
+    if sol.noise:
+        lines.append(f"  best value: {sol.value:.10g} ± {sol.noise:.2g} (one evaluation; the noise level)")
+    else:
+        lines.append(f"  best value: {sol.value:.10g}")
     lines.append(f"  verdict: {sol.verdict.value}" + _verdict_hint(sol.verdict))
     if sol.active:
         lines.append(f"  on a bound: {', '.join(sol.active)} (left out of the curvature check)")

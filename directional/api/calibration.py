@@ -52,7 +52,7 @@ from directional.method.leastsquares import (
     extrapolated_jacobian,
     levenberg_marquardt,
 )
-from directional.method.noise import floored, noise_level
+from directional.method.noise import noise_level, noticed, planned
 from directional.method.search import Settings, powell
 from directional.method.space import Space
 from directional.records import SPENT, Batch, Halt, Outcome, Purpose, Request, Stop
@@ -295,7 +295,8 @@ def calibrate(
     if squares.recomputed:
         notes.append(f"{squares.recomputed} residual vectors were recomputed (replayed journal)")
     return dataclasses.replace(
-        solution_, point=x, value=outcome.value, uncertainty=result, notes=tuple(notes)
+        solution_, point=x, value=outcome.value, uncertainty=result, notes=tuple(notes),
+        noise=settings.noise or None,
     )
 
 
@@ -311,11 +312,14 @@ def calibration(
     """
     space = options.space
     level, noted = yield from noise_level(space, options.noise)
-    settings = floored(options.settings, level)
+    settings = planned(options.settings, options.noise, level)
     outcome = yield from _search(
         space, settings, squares, None, budget=options.budget,
         reserve=_reserve(space.size, options.budget), second_opinion=True,
     )
+    if outcome.noise is not None and level is None:  # noticed by the search: check above it too
+        level, settings = outcome.noise, planned(settings, options.noise, outcome.noise)
+        noted = (*noted, noticed(level))
     settled = yield from settle(
         space, settings, outcome, check=options.check, escapes=options.escapes, noise=level,
         restart=lambda u: _search(space, settings, squares, u, budget=options.budget, reserve=0),

@@ -43,7 +43,7 @@ from directional.api.options import (
 from directional.api.session import active, search_directions, session
 from directional.errors import ObjectiveError, ProblemError
 from directional.method.curvature import Settled, check_kind, escape_count, settle, settled_solution
-from directional.method.noise import floored, noise_level, noise_option
+from directional.method.noise import noise_level, noise_option, planned
 from directional.method.search import Settings, powell
 from directional.method.space import Space, build_space, space_from_parameters
 from directional.parameters import Parameter
@@ -465,7 +465,7 @@ def _explore(options: Options, driver: Driver) -> Landscape:
     assert scaled_starts is not None
     k = len(scaled_starts)
     level, noted = driver.run(noise_level(space, options.noise), search=k)
-    settings = floored(options.settings, level)
+    settings = planned(options.settings, options.noise, level)
     outcomes = driver.run_all(
         {j: powell(space, settings, start=u) for j, u in enumerate(scaled_starts)}
     )
@@ -478,7 +478,7 @@ def _explore(options: Options, driver: Driver) -> Landscape:
     settled: dict[int, Settled] = {
         j: driver.run(
             settle(space, settings, outcomes[j], check=check, escapes=options.escapes,
-                   noise=level, budget=options.budget),
+                   noise=level if level is not None else outcomes[j].noise, budget=options.budget),
             search=j,
         )
         for j in leaders

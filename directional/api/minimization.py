@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import concurrent.futures as cf
+import dataclasses
 import math
 from collections.abc import Callable, Generator, Sequence
 from typing import Any
@@ -19,8 +20,9 @@ from directional.method.noise import (
     NoiseLevel,
     check_options,
     estimate,
-    floored,
     noise_level,
+    noticed,
+    planned,
 )
 from directional.method.search import Settings, powell
 from directional.method.space import build_space
@@ -89,7 +91,11 @@ def minimize(
     noise
         The objective's noise level (standard deviation, in its units), or "estimate" to measure
         it at the start (`directional.method.noise`, Moré & Wild 2011).  It floors the value tolerance and
-        the Hessian's steps.  Default None: rounding errors only.
+        the Hessian's steps, and the search works above it (`directional.method.search`): its
+        answer is then the point its regression model puts lowest, and ``sol.noise`` gives the
+        ± of ``sol.value``.  Default None: not stated; the search measures the noise when its
+        values have calmed, and works above it when it is more than rounding (a note says so).
+        "none": rounding errors only, nothing measured.
     executor
         A `concurrent.futures.Executor` (a process pool, or a Dask cluster's
         ``client.get_executor()``) on which the points of a batch (both bracketing probes, the
@@ -124,6 +130,7 @@ def minimize(
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
         found = solution(options.space, driver.log, outcome, settings.point_tolerance)
+        found = dataclasses.replace(found, noise=settings.noise or None)
         return settled_solution(found, settled, (*noted, *book.notes))
 
 
@@ -138,8 +145,11 @@ def minimization(
     """
     space = options.space
     level, noted = yield from noise_level(space, options.noise)
-    settings = floored(options.settings, level)
+    settings = planned(options.settings, options.noise, level)
     outcome = yield from powell(space, settings)
+    if outcome.noise is not None and level is None:  # noticed by the search: check above it too
+        level, settings = outcome.noise, planned(settings, options.noise, outcome.noise)
+        noted = (*noted, noticed(level))
     settled = yield from settle(
         space, settings, outcome, check=options.check, escapes=options.escapes, noise=level,
         budget=options.budget,

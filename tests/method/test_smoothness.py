@@ -286,10 +286,14 @@ def test_unstated_noise_is_not_called_a_kink():
         d = np.asarray(x) - 0.3
         return float(d @ hessian @ d) + 1.0 + 1e-8 * rng.standard_normal()
 
-    sol = dl.minimize(f, np.zeros(3), bounds=[(-2, 2)] * 3, check="quick")
+    sol = dl.minimize(f, np.zeros(3), bounds=[(-2, 2)] * 3, check="quick", noise="none")
     assert sol.verdict is Verdict.MINIMUM
     assert sol.curvature.breaks == ()
     assert any("taken for noise that was not stated" in note for note in sol.notes)
+    # left to itself (the default), the search measures the noise and the check works above it
+    noticed = dl.minimize(f, np.zeros(3), bounds=[(-2, 2)] * 3, check="quick")
+    assert noticed.verdict is Verdict.MINIMUM and noticed.curvature.breaks == ()
+    assert any("noticed by the search" in note for note in noticed.notes)
     stated = dl.minimize(f, np.zeros(3), bounds=[(-2, 2)] * 3, check="quick", noise=1e-8)
     assert stated.verdict is Verdict.MINIMUM and stated.curvature.breaks == ()
 
