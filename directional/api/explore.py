@@ -471,7 +471,8 @@ def _explore(options: Options, driver: Driver) -> Landscape:
     )
     ends = np.array([outcomes[j].point for j in range(k)])
     values = np.array([outcomes[j].value for j in range(k)])
-    spread = 0.0 if level is None else float(level)
+    noticed = [o.noise for o in outcomes.values() if o.noise is not None]  # by the searches
+    spread = float(level) if level is not None else max(noticed, default=0.0)
     leaders, label = cluster(ends, values, options.same_point, options.same_value, spread)
     interrupted = any(o.stop is Stop.INTERRUPTED for o in outcomes.values())
     check = None if interrupted else options.check
@@ -552,6 +553,7 @@ def _minimum(
         upper=space.upper.copy(),
         reason=outcome.reason,
         history=history,
+        noise=settings.noise or outcome.noise,
     )
     return settled_solution(solution, settled)
 
