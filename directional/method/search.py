@@ -87,7 +87,7 @@ from directional.method.directions import (
 )
 from directional.method.linesearch import LineResult, line_search
 from directional.method.model import LARGEST, Quadratic, Sample, coefficients, fit, trust_step
-from directional.method.noise import INTERRUPTED, estimate, floored
+from directional.method.noise import INTERRUPTED, NoiseLevel, estimate, floored
 from directional.method.space import Space
 from directional.records import Batch, Halt, Outcome, Purpose, Stop
 
@@ -460,23 +460,40 @@ def _listen(
     space: Space, settings: Settings, best: _Tracker, cycles: int
 ) -> Generator[Batch, np.ndarray, float | None]:
     """The noise level at the best point when it is above what the value tolerance ignores,
-    else None (Moré & Wild 2011; the direction of the table is drawn from the cycle count, so a
-    replay draws the same).
+    else None (Moré & Wild 2011; the directions of the tables are drawn from the cycle count,
+    so a replay draws the same).
 
     A jump or a kink along the table also gives a level; noise shows in most of the differences
-    of the order the level came from, a kink or a jump in one or two (at the low orders the
-    rule picks for them), so a level is taken only when at least half those differences exceed
-    a quarter of their root mean square (of Gaussian noise's, about 80 % do), and when they
-    change sign at least twice (a V-shaped kink changes the sign of its first differences once,
-    noise about two times in three; common practice, no source).  One table only, without
-    retries: at the search's calm point a table that fails is rounding, not noise worth the name.
+    of the order the level came from, a kink or a jump in one or two (`_noise_like`).  A level
+    whose differences do not look like noise is measured once more along another direction
+    (noise fails the test about once in a hundred tables, a kink every time).  No retries with
+    other steps: at the search's calm point a table that fails is rounding, not noise worth
+    the name.
     """
-    # the search's own step is tiny beside its scale: the 10 % spread test of the table would
-    # only reject a minimum whose value is of the size of the noise
+    ignored = settings.value_tolerance * max(1.0, abs(best.value))
+    for attempt in range(2):
+        measured = yield from _table(space, best.u, np.random.default_rng([cycles, attempt]))
+        if measured is None:
+            return None
+        found, values = measured
+        if found.status == INTERRUPTED or not (found.detected and found.level > ignored):
+            return None
+        if _noise_like(np.diff(values, n=found.order)):
+            return float(found.level)
+    return None
+
+
+def _table(
+    space: Space, u: np.ndarray, rng: np.random.Generator
+) -> Generator[Batch, np.ndarray, tuple[NoiseLevel, np.ndarray] | None]:
+    """One difference table at ``u`` (`noise.estimate`) and its values; None when the bounds
+    leave no room for it.  The search's own step is tiny beside its scale, so the 10 % spread
+    test of the table is left out: it would only reject a minimum whose value is of the size
+    of the noise."""
     try:
-        table = estimate(space, best.u, seed=cycles, spread=None, retries=0)
+        table = estimate(space, u, seed=rng, spread=None, retries=0)
         batch = next(table)
-    except ProblemError:  # the bounds leave no room for the table along its direction
+    except ProblemError:
         return None
     values = np.empty(0)
     try:
@@ -488,25 +505,24 @@ def _listen(
             else:
                 batch = table.send(values)
     except StopIteration as done:
-        found = done.value
-    except ProblemError:  # a retried, longer table does not fit inside the bounds
-        return None
-    ignored = settings.value_tolerance * max(1.0, abs(best.value))
-    if found.status == INTERRUPTED or not (found.detected and found.level > ignored):
-        return None
-    signed = np.diff(values, n=found.order)
-    if np.count_nonzero(signed[:-1] * signed[1:] < 0.0) < 2:
-        return None  # the differences turn once: the V of a kink, or a jump; noise turns often
-    differences = np.abs(signed)
-    top = float(np.max(differences))
+        return done.value, values
+
+
+def _noise_like(differences: np.ndarray) -> bool:
+    """True when differences of a table look like noise's: they change sign at least twice (a
+    V-shaped kink changes the sign of its first differences once, noise about two times in
+    three), and at least half of them exceed a quarter of their root mean square (of Gaussian
+    noise's about 80 % do; a jump or kink puts its weight on one or two).  Common practice, no
+    source."""
+    if np.count_nonzero(differences[:-1] * differences[1:] < 0.0) < 2:
+        return False
+    size = np.abs(differences)
+    top = float(np.max(size))
     if not (0.0 < top < math.inf):
-        return None
-    relative = differences / top  # in units of the largest: no overflow when squared
-    if np.count_nonzero(relative > 0.25 * math.sqrt(float(np.mean(relative**2)))) < 0.5 * len(
-        relative
-    ):
-        return None  # the differences gather in one place: a kink or a jump, not noise
-    return float(found.level)
+        return False
+    relative = size / top  # in units of the largest: no overflow when squared
+    spread = math.sqrt(float(np.mean(relative**2)))
+    return bool(np.count_nonzero(relative > 0.25 * spread) >= 0.5 * len(relative))
 
 
 def _regression(best: _Tracker) -> tuple[Quadratic, np.ndarray] | None:
