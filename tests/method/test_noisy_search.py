@@ -4,6 +4,7 @@ stop on what the noise allows.  Driven directly with a plain function (no driver
 from __future__ import annotations
 
 import math
+import zlib
 
 import numpy as np
 import pytest
@@ -167,3 +168,29 @@ def test_a_kink_is_not_taken_for_noise():
     assert spent.get("noise", 0) >= 8  # the table was made
     assert outcome.noise is None
     assert x == pytest.approx([0.3, -0.2], abs=1e-5)
+
+
+def seeded_noise(x):
+    """Invented noise of deviation 1e-2 that is the same at the same point, so that a run can be
+    compared with its own resumption."""
+    return 1e-2 * np.random.default_rng(zlib.crc32(np.asarray(x, float).tobytes())).standard_normal()
+
+
+def test_a_noisy_run_stopped_and_resumed_ends_where_the_whole_run_ends(tmp_path):
+    # Replay must retrace the noisy mode exactly (the tables' directions come from the cycle
+    # count, not from a clock): stop on a budget late in the run, go on from the journal, and
+    # end on the whole run's point with only the missing evaluations made.
+    def f(x):
+        return quadratic6(x) + seeded_noise(x)
+
+    whole = dl.minimize(f, np.ones(6), check=False)
+    assert whole.noise is not None and whole.stop is Stop.CONVERGED
+    path = tmp_path / "run.sqlite"
+    first = dl.minimize(f, np.ones(6), check=False, budget=whole.evaluations - 20, journal=path)
+    assert first.stop is Stop.BUDGET
+    calls = []
+    again = dl.minimize(lambda x: calls.append(1) or f(x), np.ones(6), check=False, journal=path)
+    assert again.point.tolist() == whole.point.tolist() and again.noise == whole.noise
+    # the 20 missing, and the first and best points again: the counting wrapper is another
+    # callable, so the journal checks that it reproduces the stored values (README, journal)
+    assert len(calls) == 20 + 2
