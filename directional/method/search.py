@@ -194,6 +194,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
         calm, fresh, quiet = 0, True, 0
         ends: list[float] = []  # the best value after each noisy cycle
         anchors: list[np.ndarray] = []  # and the best point
+        realigned = False  # the last noisy cycle was quiet along a skewed set: axes taken
         while True:
             cycles += 1
             best.answered = 0
@@ -228,11 +229,14 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 ends.append(best.value)
                 anchors.append(best.u.copy())
                 still = _promise(space, best, ends) <= best.noise
-                if still and np.linalg.cond(directions.vectors) > SQUARE:
+                if still and not realigned and np.linalg.cond(directions.vectors) > SQUARE:
                     # as without noise, a quiet cycle along a skewed set proves nothing; with
-                    # noise the set skews more easily (a noisy step passes Powell's test)
+                    # noise the set skews more easily (a noisy step passes Powell's test).  Once
+                    # in a row: the next quiet cycle counts, so the search ends.
                     directions, fresh, quiet = _fresh_axes(best, anchors), True, 0
+                    realigned = True
                     continue
+                realigned = realigned and still
                 quiet = quiet + 1 if still else 0
                 if quiet >= QUIET:
                     yield from _finish(space, settings, best)
