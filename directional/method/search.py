@@ -37,7 +37,8 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   The driver ends it early by throwing `records.Halt` (budget, time, interrupt); it then returns
   its best point with that reason.
 - Noise.  When no level was stated (``Settings.notice``), the calm that would end the search is
-  not believed at once: the noise is measured at the best point by a difference table (Moré & Wild
+  not believed at once unless the quadratic model fits the samples to within the value
+  tolerance (rounding only): the noise is measured at the best point by a difference table (Moré & Wild
   2011, `noise`).  A level above what the value tolerance ignores puts the search in its noisy
   mode, as does a level the caller stated: line searches probe far enough for the value to change
   by several noise levels and fit least-squares parabolas (`linesearch`), a lower single value
@@ -255,7 +256,8 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 calm = calm + 1 if small else 0
                 best.resolution = _resolution(settings, moved)
                 ending = calm >= 2
-            if ending and listening:  # before believing the calm, ask whether it is the noise's
+            if ending and listening and not _rounding_only(settings, best):
+                # before believing the calm, ask whether it is the noise's
                 listening = False
                 level = yield from _listen(space, settings, best, cycles)
                 if level is not None:  # from now on the noisy mode
@@ -458,6 +460,19 @@ def _model_step(
             steps=np.full(n, max(length, 100.0 * settings.line_tolerance)),
         )
     return directions, settled, ratio >= 0.5
+
+
+def _rounding_only(settings: Settings, best: _Tracker) -> bool:
+    """True when the quadratic model of the samples nearest the best point fits them to within
+    what the value tolerance ignores: the scatter of the values about it leaves no room for
+    noise the search would need to know of, and no table is made."""
+    if best.sample is None:
+        return False
+    n = best.sample.points.shape[1]
+    model = fit(best.sample, best.u, int(FITTED * coefficients(n)))
+    if model is None:
+        return False
+    return model.misfit <= settings.value_tolerance * max(1.0, abs(best.value))
 
 
 def _listen(
