@@ -150,6 +150,7 @@ class Outcome:
     curvatures: np.ndarray
     reason: str = ""
     notes: tuple[str, ...] = field(default=())
+    noise: float | None = None  # the noise level the search worked above (None: rounding only)
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)

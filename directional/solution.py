@@ -27,7 +27,10 @@ class Solution:
     row per direction, expressed in search coordinates (each parameter, or its logarithm when it is
     log-scaled); ``history`` is every evaluation in order, failed ones included.  ``spread``
     (`method.replicates.Spread`, when each point was run several times) is the noise of one run
-    and of the mean, read off the scatter of the replicates.
+    and of the mean, read off the scatter of the replicates;
+    ``noise`` is the noise level the search worked above (stated, or measured; None for
+    rounding only): the standard deviation of ``value``, which is a single evaluation (or the
+    mean of the replicates).
     """
 
     point: np.ndarray
@@ -48,6 +51,7 @@ class Solution:
     notes: tuple[str, ...] = ()
     history: tuple[Evaluation, ...] = field(default=(), repr=False)
     spread: Any = None
+    noise: float | None = None  # the noise level the search worked above: the ± of ``value``
 
     @property
     def named(self) -> dict[str, float]:
@@ -78,7 +82,10 @@ def summary_lines(sol: Solution) -> list[str]:
     ]
     if sol.reason:
         lines.append(f"  reason: {sol.reason}")
-    lines.append(f"  best value: {sol.value:.10g}")
+    if sol.noise:
+        lines.append(f"  best value: {sol.value:.10g} ± {sol.noise:.2g} (one evaluation; the noise level)")
+    else:
+        lines.append(f"  best value: {sol.value:.10g}")
     lines.append(f"  verdict: {sol.verdict.value}" + _verdict_hint(sol.verdict, sol.curvature))
     if sol.active:
         lines.append(f"  on a bound: {', '.join(sol.active)} (left out of the curvature check)")

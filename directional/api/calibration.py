@@ -66,7 +66,7 @@ from directional.method.leastsquares import (
     SumOfSquares,
     levenberg_marquardt,
 )
-from directional.method.noise import floored
+from directional.method.noise import noticed, planned
 from directional.method.replicates import planned_level, pooled_level
 from directional.method.search import Settings, powell
 from directional.method.space import Space
@@ -495,7 +495,8 @@ def calibrate(
     if squares.recomputed:
         notes.append(f"{squares.recomputed} residual vectors were recomputed (replayed journal)")
     return dataclasses.replace(
-        solution_, point=x, value=outcome.value, uncertainty=result, notes=tuple(notes)
+        solution_, point=x, value=outcome.value, uncertainty=result, notes=tuple(notes),
+        noise=settings.noise or None,
     )
 
 
@@ -511,12 +512,15 @@ def calibration(
     """
     space = options.space
     level, noted = yield from planned_level(space, options.noise, options.replicates)
-    settings = floored(options.settings, level)
+    settings = planned(options.settings, options.noise, level)
     outcome = yield from _search(
         space, settings, squares, None, budget=options.budget,
         reserve=_reserve(space.size, options.budget), second_opinion=True,
     )
     level = yield from pooled_level(options.noise, options.replicates, level)
+    if outcome.noise is not None and level is None:  # noticed by the search: check above it too
+        level, settings = outcome.noise, planned(settings, options.noise, outcome.noise)
+        noted = (*noted, noticed(level))
     settled, free, fit = yield from checked(
         space, settings, outcome, squares, check=options.check, escapes=options.escapes,
         noise=level, budget=options.budget,

@@ -50,7 +50,7 @@ from directional.api.session import (
 )
 from directional.errors import ObjectiveError, ProblemError
 from directional.method.curvature import Settled, check_kind, escape_count, settle, settled_solution
-from directional.method.noise import floored, noise_option
+from directional.method.noise import noise_option, planned
 from directional.method.replicates import planned_level, pooled, pooled_level, replicate_count
 from directional.method.search import Settings, powell
 from directional.method.space import Space, build_space, space_from_parameters
@@ -487,21 +487,22 @@ def _explore(options: Options, driver: Driver) -> Landscape:
     assert scaled_starts is not None
     k = len(scaled_starts)
     level, noted = driver.run(planned_level(space, options.noise, options.replicates), search=k)
-    settings = floored(options.settings, level)
+    settings = planned(options.settings, options.noise, level)
     outcomes = driver.run_all(
         {j: powell(space, settings, start=u) for j, u in enumerate(scaled_starts)}
     )
     ends = np.array([outcomes[j].point for j in range(k)])
     values = np.array([outcomes[j].value for j in range(k)])
     level = _pooled_level(options, driver, k, level)
-    spread = 0.0 if level is None else float(level)
+    noticed = [o.noise for o in outcomes.values() if o.noise is not None]  # by the searches
+    spread = float(level) if level is not None else max(noticed, default=0.0)
     leaders, label = cluster(ends, values, options.same_point, options.same_value, spread)
     interrupted = any(o.stop is Stop.INTERRUPTED for o in outcomes.values())
     check = None if interrupted else options.check
     settled: dict[int, Settled] = {
         j: driver.run(
             settle(space, settings, outcomes[j], check=check, escapes=options.escapes,
-                   noise=level, budget=options.budget),
+                   noise=level if level is not None else outcomes[j].noise, budget=options.budget),
             search=j,
         )
         for j in leaders
@@ -593,6 +594,7 @@ def _minimum(
         upper=space.upper.copy(),
         reason=outcome.reason,
         history=history,
+        noise=settings.noise or outcome.noise,
     )
     return settled_solution(solution, settled)
 

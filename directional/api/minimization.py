@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import concurrent.futures as cf
+import dataclasses
 import math
 from collections.abc import Callable, Generator, Sequence
 from typing import Any
@@ -19,7 +20,8 @@ from directional.method.noise import (
     NoiseLevel,
     check_options,
     estimate,
-    floored,
+    noticed,
+    planned,
 )
 from directional.method.replicates import planned_level, pooled_level
 from directional.method.search import Settings, powell
@@ -90,8 +92,12 @@ def minimize(
     noise
         The objective's noise level (standard deviation, in its units), or "estimate" to measure
         it at the start (`directional.method.noise`, Moré & Wild 2011).  It floors the value tolerance and
-        the Hessian's steps.  Default None: rounding errors only (with ``replicates``, the level
-        read off the replicates at the start).
+        the Hessian's steps, and the search works above it (`directional.method.search`): its
+        answer is then the point its regression model puts lowest, and ``sol.noise`` gives the
+        ± of ``sol.value``.  Default None: not stated; the search measures the noise when its
+        values have calmed, and works above it when it is more than rounding (a note says so);
+        with ``replicates``, the level read off the replicates at the start.  "none": rounding
+        errors only, nothing measured.
     replicates
         Run each point this many times and give the search their mean (default 1), for an
         objective known to be stochastic (`directional.method.replicates`).  Every run is an
@@ -134,6 +140,7 @@ def minimize(
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
         found = solution(options.space, driver.log, outcome, settings.point_tolerance)
+        found = dataclasses.replace(found, noise=settings.noise or None)
         found = settled_solution(found, settled, (*noted, *book.notes))
         return with_replicates(found, driver.log.evaluations, options.replicates)
 
@@ -149,9 +156,12 @@ def minimization(
     """
     space = options.space
     level, noted = yield from planned_level(space, options.noise, options.replicates)
-    settings = floored(options.settings, level)
+    settings = planned(options.settings, options.noise, level)
     outcome = yield from powell(space, settings)
     level = yield from pooled_level(options.noise, options.replicates, level)
+    if outcome.noise is not None and level is None:  # noticed by the search: check above it too
+        level, settings = outcome.noise, planned(settings, options.noise, outcome.noise)
+        noted = (*noted, noticed(level))
     settled = yield from settle(
         space, settings, outcome, check=options.check, escapes=options.escapes, noise=level,
         budget=options.budget,

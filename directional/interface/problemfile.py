@@ -46,7 +46,7 @@ The schema (every table but ``[[parameter]]`` and ``[objective]`` is optional)::
     value_tolerance = 1e-10
     time_limit = 3600             # seconds
     check = true                  # the curvature check at the end
-    noise = "estimate"            # the objective's noise level: a number, or "estimate" (default: none)
+    noise = "estimate"            # noise level: a number, "estimate", or "none" (default: noticed)
     starts = 1                    # more than 1: many starts (dl.explore)
     workers = 1                   # processes for many starts
     seed = 0                      # of the start design
@@ -842,9 +842,10 @@ class _Reader:
         if seed < 0:
             raise self.fail((*at, "seed"), f"search.seed must be >= 0, got {seed!r}")
         noise = self._get(table, (*at, "noise"), (float, str), None)
-        if isinstance(noise, str) and noise != "estimate":
+        if isinstance(noise, str) and noise not in ("estimate", "none"):
             raise self.fail(
-                (*at, "noise"), f"search.noise must be a number or \"estimate\", got {noise!r}"
+                (*at, "noise"),
+                f"search.noise must be a number, \"estimate\" or \"none\", got {noise!r}",
             )
         if isinstance(noise, float) and not (0 <= noise < math.inf):
             raise self.fail((*at, "noise"), f"search.noise must be a number >= 0, got {noise!r}")

@@ -21,6 +21,15 @@ evaluated neighbours.
    step before last; otherwise a golden-section step into the larger part of the bracket.  No
    point is evaluated twice, and no two points lie closer than the tolerance.
 
+Noise.  Given the standard deviation ``noise`` of the values (the direction-set search passes
+the level once it has noticed one), the line search averages instead of interpolating: probes
+that change the value by less than three noise levels are repeated ten times farther out; its
+parabola is the least-squares one through up to ``FITTED`` points nearest the best (Conn,
+Scheinberg & Vicente 2009, ch. 4, regression in one variable), a bracket whose sides differ
+from the best by less than two noise levels is not refined (the values say nothing more), and
+the point returned is the evaluated one lowest on that parabola, not the lowest single value
+(which is biased low by the noise).
+
 Stopping: in ``exact`` mode (the public `line_minimum`) when the bracket is within the tolerance,
 as in Brent's procedure.  Inside the direction-set search, as soon as the parabola through the
 three best points puts its vertex within the tolerance of the best point: the next step would be
@@ -33,6 +42,8 @@ References
    and 7.
 .. [2] P. Jarratt, "An iterative method for locating turning points", *Computer Journal* 10
    (1967) 82-84.
+.. [3] A. R. Conn, K. Scheinberg and L. N. Vicente, *Introduction to Derivative-Free
+   Optimization*, SIAM, 2009, ch. 4.
 """
 
 from __future__ import annotations
@@ -46,6 +57,9 @@ import numpy as np
 GOLDEN = 0.5 * (3.0 - math.sqrt(5.0))  # 0.381966..., the golden-section fraction (Kiefer 1953)
 EXPAND = 0.5 * (1.0 + math.sqrt(5.0))  # 1.618..., growth of a plain bracketing step
 EPSILON = float(np.finfo(float).eps)
+FITTED = 5  # a noisy line's parabola is fitted to this many points nearest the best (at least 4)
+HEARD = 3.0  # a noisy probe tells something when it changes the value by this many noise levels
+WIDEN = 10.0  # an unheard noisy probe is repeated this many times farther out
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -105,6 +119,7 @@ def line_search(
     limit: int = 60,
     exact: bool = False,
     parabolic: bool = True,
+    noise: float = 0.0,
 ) -> LineSearch:
     """Search ``[lower, upper]`` for a minimum, as a generator (see the module docstring).
 
@@ -112,6 +127,8 @@ def line_search(
     ``start`` is evaluated first.  ``tolerance + relative * |t|`` is the resolution in ``t``.
     ``limit`` caps the evaluations this line search spends.  ``parabolic=False`` turns every
     parabolic step into a golden-section one (an ablation for the benchmarks, not for users).
+    ``noise`` (the values' standard deviation, 0 for rounding only) makes the parabolas
+    least-squares fits and the returned point the lowest on the fitted parabola.
     """
     points = {float(t): float(v) for t, v in known.items()}
     spent = 0
@@ -130,7 +147,7 @@ def line_search(
         (t0, f0), = points.items()
         t1 = _probe(t0, lower, upper, abs(step), tol(t0))
         if t1 is None:
-            return _result(points, t0, spent)
+            return _result(points, t0, spent, noise)
         t_back = 2.0 * t0 - t1
         if not (parabolic and curvature > 0.0) and lower <= t_back <= upper and spent + 2 <= limit:
             # No curvature known: probe both sides at once (one batch, so the two evaluations
@@ -142,13 +159,27 @@ def line_search(
             values = yield np.array([t1])
             points[t1] = float(values[0])
             spent += 1
+        widened = False
+        while noise > 0.0 and spent + 2 <= limit and _unheard(points, t0, noise):
+            # the probes changed the value by less than the noise: they cannot tell where the
+            # line goes down; go ten times as far to both sides (within the segment)
+            reach = WIDEN * max(abs(t - t0) for t in points)
+            wider = sorted({min(t0 + reach, upper), max(t0 - reach, lower)} - set(points))
+            if not wider:
+                break
+            values = yield np.array(wider)
+            points.update(zip(wider, map(float, values)))
+            spent += len(wider)
+            widened = True
         f1 = points[t1]
-        if parabolic and curvature > 0.0 and math.isfinite(f1) and math.isfinite(f0):
+        if widened:
+            pass  # the least-squares loop below takes over from the wide probes
+        elif parabolic and curvature > 0.0 and math.isfinite(f1) and math.isfinite(f0):
             vertex = 0.5 * (t0 + t1) - (f1 - f0) / (t1 - t0) / curvature
             reach = growth * abs(t1 - t0)
             t2 = min(max(vertex, lower, t0 - reach), upper, t0 + reach)
             if not fresh(t2):  # the model puts the minimum on a point already known
-                return _result(points, None, spent)
+                return _result(points, None, spent, noise)
             values = yield np.array([t2])
             points[t2] = float(values[0])
             spent += 1
@@ -160,7 +191,7 @@ def line_search(
         i = _best(ts, fs)
         x = ts[i]
         tx = tol(x)
-        vertex, c = _model(points, x) if parabolic else (math.nan, math.nan)
+        vertex, c = _model(points, x, noise) if parabolic else (math.nan, math.nan)
         if not exact and c > 0.0 and abs(vertex - x) <= tx:
             break
         left = ts[i - 1] if i > 0 else None
@@ -175,20 +206,32 @@ def line_search(
             b = x if right is None else right
             if _rises_inward(x, vertex, c, a, b, tx):
                 break
-            if _indistinct(points, a, x, b):
+            if _indistinct(points, a, x, b, noise):
                 break
             m = 0.5 * (a + b)
             if abs(x - m) <= 2.0 * tx - 0.5 * (b - a) or (not parabolic and b - a <= 4.0 * tx):
                 break
             u, last, before_last = _brent_step(
-                points, x, a, b, tx, last, before_last, parabolic
+                points, x, a, b, tx, last, before_last, parabolic, noise
             )
         if not fresh(u):
             break
         values = yield np.array([u])
         points[u] = float(values[0])
         spent += 1
-    return _result(points, None, spent)
+    return _result(points, None, spent, noise)
+
+
+def _unheard(points: dict[float, float], t0: float, noise: float) -> bool:
+    """True when no probe yet reaches beyond the noise: the two outermost probes differ by less
+    than `HEARD` noise levels (no slope heard), and their mean exceeds the base value by less
+    than twice that (no curvature heard; the base value may be a low one the noise picked
+    out, hence the wider margin)."""
+    finite = sorted(t for t, f in points.items() if math.isfinite(f) and t != t0)
+    if not finite:
+        return False
+    low, high = points[finite[0]], points[finite[-1]]
+    return abs(high - low) < HEARD * noise and 0.5 * (low + high) - points[t0] < 2 * HEARD * noise
 
 
 def _best(ts: list[float], fs: list[float]) -> int:
@@ -207,13 +250,47 @@ def _probe(t0: float, lower: float, upper: float, step: float, tol: float) -> fl
     return None
 
 
-def _model(points: dict[float, float], x: float) -> tuple[float, float]:
-    """Vertex and curvature of the parabola through the best point and the next two best."""
+def _model(points: dict[float, float], x: float, noise: float = 0.0) -> tuple[float, float]:
+    """Vertex and curvature of the parabola through the best point and the next two best; with
+    noise, of the least-squares parabola through the points nearest ``x`` (`fitted_parabola`)."""
+    if noise > 0.0:
+        fitted = fitted_parabola(points, x)
+        if fitted is not None:
+            return fitted[0], fitted[1]
     finite = sorted((f, t) for t, f in points.items() if math.isfinite(f))
     if len(finite) < 3:
         return math.nan, math.nan
     (fx, tx), (fw, tw), (fv, tv) = finite[:3]
     return parabola([tx, tw, tv], [fx, fw, fv])
+
+
+def fitted_parabola(
+    points: dict[float, float], x: float, count: int = FITTED
+) -> tuple[float, float, np.ndarray] | None:
+    """Vertex, curvature and coefficients of the least-squares parabola through the ``count``
+    finite points nearest ``x`` (in ``t``); None with fewer than four such points.
+
+    Regression rather than interpolation: with noisy values, a parabola through three points
+    takes the noise for curvature, one fitted to more points averages it (Conn, Scheinberg &
+    Vicente 2009, ch. 4).  The coefficients are those of ``numpy.polyfit`` in ``t - x``.
+
+    >>> vertex, curvature, _ = fitted_parabola({-2.0: 4.0, -1.0: 1.0, 0.0: 0.0, 1.0: 1.0, 2.0: 4.0}, 0.0)
+    >>> round(vertex, 12) + 0.0, round(curvature, 12)
+    (0.0, 2.0)
+    """
+    finite = sorted((abs(t - x), t) for t, f in points.items() if math.isfinite(f))[:count]
+    if len(finite) < 4:
+        return None
+    ts = np.array([t for _, t in finite])
+    fs = np.array([points[t] for t in ts])
+    span = float(np.max(np.abs(ts - x)))
+    if not span > 0.0:
+        return None
+    scaled = np.polyfit((ts - x) / span, fs, 2)
+    coefficients = scaled / np.array([span**2, span, 1.0])
+    a, b = float(coefficients[0]), float(coefficients[1])
+    vertex = x - b / (2.0 * a) if a != 0.0 else math.nan
+    return vertex, 2.0 * a, coefficients
 
 
 def _extend(
@@ -234,11 +311,14 @@ def _extend(
     return min(guess, end) if sign > 0 else max(guess, end)
 
 
-def _indistinct(points: dict[float, float], a: float, x: float, b: float) -> bool:
-    """True when the bracket's values differ from the best by rounding only: no information is
-    left to refine with (the resolution limit of Brent 1973, ch. 5, sec. 5.4)."""
+def _indistinct(
+    points: dict[float, float], a: float, x: float, b: float, noise: float = 0.0
+) -> bool:
+    """True when the bracket's values differ from the best by rounding (or two noise levels)
+    only: no information is left to refine with (the resolution limit of Brent 1973, ch. 5,
+    sec. 5.4)."""
     fx = points[x]
-    floor = 16.0 * EPSILON * abs(fx) + 1e-300
+    floor = max(16.0 * EPSILON * abs(fx) + 1e-300, 2.0 * noise)
     sides = [points[t] for t in (a, b) if t != x]
     return bool(sides) and all(abs(f - fx) <= floor for f in sides)
 
@@ -262,13 +342,14 @@ def _brent_step(
     last: float,
     before: float,
     parabolic: bool = True,
+    noise: float = 0.0,
 ) -> tuple[float, float, float]:
     """One step of Brent's (1973, ch. 5) safeguarded iteration inside ``[a, b]``.
 
     Returns the new point and the updated last and before-last step lengths.
     """
     m = 0.5 * (a + b)
-    vertex, c = _model(points, x) if parabolic else (math.nan, math.nan)
+    vertex, c = _model(points, x, noise) if parabolic else (math.nan, math.nan)
     if abs(before) > tol and c > 0.0 and math.isfinite(vertex):
         step = vertex - x
         if abs(step) < 0.5 * abs(before) and a < vertex < b:
@@ -284,11 +365,28 @@ def _brent_step(
     return x + step, step, span
 
 
-def _result(points: dict[float, float], x: float | None, spent: int) -> LineResult:
+def _result(
+    points: dict[float, float], x: float | None, spent: int, noise: float = 0.0
+) -> LineResult:
     ts = sorted(points)
     fs = [points[t] for t in ts]
     i = ts.index(x) if x is not None else _best(ts, fs)
-    _, c = _model(points, ts[i])
+    if noise > 0.0:
+        i = _lowest_fitted(points, ts, i)
+    _, c = _model(points, ts[i], noise)
     lo = ts[i - 1] if i > 0 else ts[i]
     hi = ts[i + 1] if i + 1 < len(ts) else ts[i]
     return LineResult(point=ts[i], value=fs[i], bracket=(lo, hi), curvature=c, evaluations=spent)
+
+
+def _lowest_fitted(points: dict[float, float], ts: list[float], i: int) -> int:
+    """Index of the evaluated point lowest on the least-squares parabola around ``ts[i]``: with
+    noise the lowest single value is biased low, the fitted one averages its neighbours.  ``i``
+    itself when the parabola is missing or opens downward."""
+    fitted = fitted_parabola(points, ts[i])
+    if fitted is None or not fitted[1] > 0.0:
+        return i
+    used = sorted((abs(t - ts[i]), k) for k, t in enumerate(ts) if math.isfinite(points[t]))
+    candidates = [k for _, k in used[:FITTED]]
+    heights = [float(np.polyval(fitted[2], ts[k] - ts[i])) for k in candidates]
+    return candidates[int(np.argmin(heights))]

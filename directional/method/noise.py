@@ -37,13 +37,17 @@ import dataclasses
 import math
 from collections.abc import Generator
 from dataclasses import dataclass
+from typing import TypeVar
 
 import numpy as np
 
 from directional.errors import ProblemError
-from directional.method.search import Settings
 from directional.method.space import Space
 from directional.records import Batch, Halt, Purpose
+
+# The search's settings (`directional.method.search.Settings`), which import this module: the
+# functions that adjust them name their type by this variable, not by an import.
+Settings = TypeVar("Settings")
 
 DETECTED = "detected"
 TOO_SMALL = "step too small"
@@ -83,14 +87,19 @@ class NoiseLevel:
         return self.status == DETECTED
 
 
-def difference_table(values: np.ndarray) -> tuple[np.ndarray, np.ndarray, str]:
+def difference_table(
+    values: np.ndarray, spread: float | None = SPREAD
+) -> tuple[np.ndarray, np.ndarray, str]:
     """Noise levels ``sigma_k`` (k = 1..m) from values at equally spaced points, and the verdict.
 
     Returns ``(levels, sign_changes, status)`` where ``levels[k - 1]`` is ``sigma_k`` (orders
     up to 16 for long tables),
     ``sign_changes[k - 1]`` says whether the k-th differences change sign, and ``status`` is
     ``"detected"``, ``"step too small"``, ``"step too large"`` or ``"too few sign changes"``
-    (Moré & Wild 2011, section 3 and their procedure ECnoise).
+    (Moré & Wild 2011, section 3 and their procedure ECnoise).  ``spread`` None leaves out the
+    test for values that spread too far: near a minimum whose value is itself of the size of the
+    noise the values spread by more than 10 % for no fault of the step, and the sign-change and
+    agreement tests alone tell the smooth part from the noise.
 
     >>> levels, _, status = difference_table(np.array([1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0]))
     >>> status
@@ -111,16 +120,19 @@ def difference_table(values: np.ndarray) -> tuple[np.ndarray, np.ndarray, str]:
     levels = np.zeros(orders)
     changes = np.zeros(orders, dtype=bool)
     size = float(np.max(np.abs(values)))
-    if size > 0.0 and (values.max() - values.min()) / size > SPREAD:
+    if spread is not None and size > 0.0 and (values.max() - values.min()) / size > spread:
         return levels, changes, TOO_LARGE
-    table = values.copy()
+    # differences of values near overflow overflow when squared: work in units of a power of
+    # two near their size (exact, so that the test for zero differences is unchanged)
+    unit = math.ldexp(1.0, math.frexp(size)[1]) if size > 0.0 else 1.0
+    table = values / unit
     gamma = 1.0
     for k in range(1, orders + 1):
         table = np.diff(table)
         if k == 1 and np.count_nonzero(table == 0.0) >= (m + 1) / 2:
             return levels, changes, TOO_SMALL
         gamma *= 0.5 * k / (2 * k - 1)  # (k!)^2 / (2k)!, built up one order at a time
-        levels[k - 1] = math.sqrt(gamma * float(np.mean(table**2)))
+        levels[k - 1] = unit * math.sqrt(gamma * float(np.mean(table**2)))
         changes[k - 1] = bool(table.min() * table.max() < 0.0)
     return levels, changes, _decide(levels, changes)
 
@@ -177,11 +189,13 @@ def estimate(
     points: int = 9,
     seed: int | np.random.Generator | None = 0,
     retries: int = 2,
+    spread: float | None = SPREAD,
 ) -> Generator[Batch, np.ndarray, NoiseLevel]:
     """The noise estimate at scaled point ``u``, as a generator for the driver (purpose "noise").
 
     Tries the step ``step``, then, after a failure signal that a different step would cure, up to
     ``retries`` more steps (times or divided by 100).  The direction is drawn once from ``seed``.
+    ``spread`` is passed to `difference_table`.
     """
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
     direction = random_direction(space.size, rng)
@@ -199,7 +213,7 @@ def estimate(
         except Halt:
             return result
         spent += len(t)
-        result = _from_values(values, t, h, spent, direction)
+        result = _from_values(values, t, h, spent, direction, spread)
         if result.status == TOO_SMALL:
             h *= GROWTH
         elif result.status in (TOO_LARGE, NO_SIGN_CHANGES):
@@ -210,7 +224,12 @@ def estimate(
 
 
 def _from_values(
-    values: np.ndarray, t: np.ndarray, h: float, spent: int, direction: np.ndarray
+    values: np.ndarray,
+    t: np.ndarray,
+    h: float,
+    spent: int,
+    direction: np.ndarray,
+    spread: float | None = SPREAD,
 ) -> NoiseLevel:
     def record(level: float, status: str, order: int, centre: float = math.nan) -> NoiseLevel:
         relative = level / abs(centre) if math.isfinite(centre) and centre != 0.0 else math.nan
@@ -221,7 +240,7 @@ def _from_values(
 
     if not np.all(np.isfinite(values)):
         return record(math.nan, FAILED, 0)
-    levels, changes, status = difference_table(values)
+    levels, changes, status = difference_table(values, spread)
     centre = float(values[int(np.argmin(np.abs(t)))])
     if status != DETECTED:
         return record(math.nan, status, 0, centre)
@@ -241,18 +260,20 @@ def check_options(step: object, points: object, retries: object) -> None:
 def noise_option(noise: object) -> float | str | None:
     """Validate the ``noise`` argument of the public entry points.
 
-    None (rounding only), a non-negative number (the absolute noise level, in the objective's
-    units), or "estimate" (estimate it at the start before the search).
+    None (not stated: the search notices noise when its values scatter and estimates it then,
+    `directional.method.search`), "none" (rounding only, nothing noticed), a non-negative number
+    (the absolute noise level, in the objective's units), or "estimate" (estimate it at the
+    start before the search).
 
     Raises
     ------
     ProblemError
         For anything else.
     """
-    if noise is None or noise == "estimate":
+    if noise is None or noise == "estimate" or noise == "none":
         return noise  # type: ignore[return-value]
     if isinstance(noise, bool) or not isinstance(noise, int | float | np.floating):
-        raise ProblemError(f"noise must be None, a number or 'estimate', got {noise!r}")
+        raise ProblemError(f"noise must be None, a number, 'estimate' or 'none', got {noise!r}")
     if not (math.isfinite(noise) and noise >= 0.0):
         raise ProblemError(f"noise must be a finite number >= 0, got {noise!r}")
     return float(noise)
@@ -268,7 +289,7 @@ def noise_level(
     only).  Any other option is returned as it is, with nothing evaluated.
     """
     if noise != "estimate":
-        return noise, ()  # type: ignore[return-value]
+        return (None if noise == "none" else noise), ()  # type: ignore[return-value]
     found: NoiseLevel = yield from estimate(space, np.zeros(space.size))
     if found.detected:
         return found.level, (
@@ -276,6 +297,27 @@ def noise_level(
             f"of order {found.order} at the start; {found.evaluations} evaluations",
         )
     return None, (f"noise level not detected at the start ({found.status}); rounding assumed",)
+
+
+def planned(settings: Settings, option: float | str | None, level: float | None) -> Settings:
+    """The settings a search runs with, given the ``noise`` option and the level found for it.
+
+    A level (stated, or estimated at the start) floors the value tolerance (`floored`) and is
+    the one the search works above; with no level the search watches for noise itself, unless
+    the option is "none" (rounding only).
+    """
+    if level is not None:
+        return dataclasses.replace(floored(settings, level), noise=float(level), notice=False)
+    return dataclasses.replace(settings, noise=0.0, notice=option != "none")
+
+
+def noticed(level: float) -> str:
+    """The note for the user when the search noticed noise nobody stated."""
+    return (
+        f"noise level {level:.3g} noticed by the search (a difference table at its best point, "
+        "Moré & Wild 2011): it then worked above it, and returned the point its regression "
+        "model puts lowest"
+    )
 
 
 def floored(settings: Settings, level: float | None) -> Settings:

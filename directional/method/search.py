@@ -39,6 +39,21 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   decrease within the value tolerance.
   The driver ends it early by throwing `records.Halt` (budget, time, interrupt); it then returns
   its best point with that reason.
+- Noise.  When no level was stated (``Settings.notice``), the calm that would end the search is
+  not believed at once unless the quadratic model fits the samples to within the value
+  tolerance (rounding only): the noise is measured at the best point by a difference table (Moré & Wild
+  2011, `noise`).  A level above what the value tolerance ignores puts the search in its noisy
+  mode, as does a level the caller stated: line searches probe far enough for the value to change
+  by several noise levels and fit least-squares parabolas (`linesearch`), a lower single value
+  no longer moves the best point (only a line's fitted minimum or a model step does), and the
+  search stops when the regression model over twice as many samples as it has coefficients
+  predicts a decrease below the noise on ``QUIET`` cycles in a row (a model that misfits its
+  sample by more than ``FITS`` noise levels, or whose sample spans less than ``HEARD``, is not
+  believed: then the gain of the last ``WINDOW`` cycles decides).  A cycle that did not move,
+  or a quiet one along a set conditioned worse than ``SQUARE``, restarts from the model's
+  axes (or from the way the search went lately) instead of counting.  The point returned is then
+  the model's minimizer inside its sample, evaluated, or else the sample point the model puts
+  lowest: not the lowest single value, which the noise biases low.
 
 On a quadratic in n variables the directions become mutually conjugate, and the minimum is
 reached after n cycles with exact line searches (Powell 1964); with the model, once the samples
@@ -47,6 +62,8 @@ the minimum.
 
 References
 ----------
+.. [0] J. J. Moré and S. M. Wild, "Estimating computational noise", *SIAM Journal on Scientific
+   Computing* 33(3) (2011) 1292-1314.
 .. [1] M. J. D. Powell, "An efficient method for finding the minimum of a function of several
    variables without calculating derivatives", *Computer Journal* 7 (1964) 155-162.
 .. [2] M. J. D. Powell, "Least Frobenius norm updating of quadratic models that satisfy
@@ -63,6 +80,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from directional.errors import ProblemError
 from directional.method.directions import (
     DirectionSet,
     degenerate,
@@ -72,7 +90,8 @@ from directional.method.directions import (
     replaced,
 )
 from directional.method.linesearch import LineResult, line_search
-from directional.method.model import LARGEST, Sample, coefficients, fit, trust_step
+from directional.method.model import LARGEST, Quadratic, Sample, coefficients, fit, trust_step
+from directional.method.noise import INTERRUPTED, NoiseLevel, estimate, floored
 from directional.method.space import Space
 from directional.records import Batch, Halt, Outcome, Purpose, Stop
 
@@ -87,6 +106,12 @@ GUESSES = False  # True: step on undetermined models too (measured: more evaluat
 FITTED = 2.0  # the model is fitted to this many times as many points as it has coefficients
 SEEDED = 10.0  # a first step borrowed from the last move is at most this many times its own
 FARTHEST = 1e10  # no line search goes farther, in scaled units: a descent to infinity stops there
+NOISE_REACH = 8.0  # noisy probes go as far as ½ c h² = NOISE_REACH σ / 2 (a change of several σ)
+QUIET = 2  # a noisy search stops after this many cycles in a row that promise less than σ
+HEARD = 10.0  # a noisy model is believed when its sample's values span this many noise levels
+WINDOW = 3  # without a believable model, a noisy search judges the gain of this many cycles
+FITS = 5.0  # a noisy model is believed when its largest residual is below this many noise levels
+SQUARE = 10.0  # a noisy search counts a quiet cycle only along directions this well conditioned
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -101,6 +126,8 @@ class Settings:
     replace_directions: bool = True  # False: keep the principal axes (no conjugate directions)
     reuse_curvature: bool = True  # False: every line search starts without a known curvature
     model_steps: bool = True  # False: no quadratic model (no model steps, no realignment)
+    noise: float = 0.0  # the noise level the search works above (stated or estimated); 0: none
+    notice: bool = True  # with no level: measure the noise at the first calm cycle (see above)
 
     @property
     def line_tolerance(self) -> float:
@@ -118,17 +145,24 @@ class _Tracker:
     resolution the line searches of this cycle work to."""
 
     def __init__(
-        self, u: np.ndarray, value: float, resolution: float, sample: Sample | None = None
+        self,
+        u: np.ndarray,
+        value: float,
+        resolution: float,
+        sample: Sample | None = None,
+        noise: float = 0.0,
     ) -> None:
         self.u = u
         self.value = value
         self.resolution = resolution
         self.answered = 0  # finite values received in this cycle
         self.sample = sample  # every finite evaluation, for the quadratic model
+        self.noise = noise  # > 0: the noisy mode (a lower single value proves nothing)
 
     def seen(self, u: np.ndarray, value: float) -> None:
-        """Take note of an evaluation: the new best point if it is lower, a sample anyway."""
-        if value < self.value:
+        """Take note of an evaluation: the new best point if it is lower (without noise), a
+        sample anyway."""
+        if value < self.value and self.noise == 0.0:
             self.u, self.value = u, float(value)
         if self.sample is not None:
             self.sample.add(u, float(value))
@@ -154,15 +188,19 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
         return _outcome(_Tracker(u, math.inf, 0.0), halt.stop, cycles, directions, halt.reason)
     modelled = settings.model_steps and 1 < n <= LARGEST
     sample = Sample(n, SAMPLES * coefficients(n)) if modelled else None
-    best = _Tracker(u, float(values[0]), _resolution(settings, FIRST_STEP), sample)
+    best = _Tracker(u, float(values[0]), _resolution(settings, FIRST_STEP), sample, settings.noise)
     if not math.isfinite(best.value):
         return _outcome(best, Stop.STALLED, cycles, directions, "the start point failed")
     if sample is not None:
         sample.add(u, best.value)
     trust = _Trust()
+    listening = settings.notice and settings.noise == 0.0
     try:
-        calm, fresh = 0, True
-        while calm < 2:
+        calm, fresh, quiet = 0, True, 0
+        ends: list[float] = []  # the best value after each noisy cycle
+        anchors: list[np.ndarray] = []  # and the best point
+        realigned = False  # the last noisy cycle was quiet along a skewed set: axes taken
+        while True:
             cycles += 1
             best.answered = 0
             begun = best.u.copy()
@@ -186,17 +224,56 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             small = moved <= settings.point_tolerance and dropped <= (
                 settings.value_tolerance * max(1.0, abs(best.value))
             )
-            if small and settled:
-                break  # the model agrees: nothing left to gain beyond the tolerances
-            if small and not fresh and np.linalg.cond(directions.vectors) > SKEWED:
+            if best.noise > 0.0:
+                if moved == 0.0 and not fresh:
+                    # stuck on a value the noise picked out, along directions grown too short:
+                    # start again from the axes, at the first step's scale (does not count)
+                    directions, fresh = _fresh_axes(best, anchors), True
+                    continue
+                fresh = moved == 0.0
+                ends.append(best.value)
+                anchors.append(best.u.copy())
+                still = _promise(space, best, ends) <= best.noise
+                if still and not realigned and np.linalg.cond(directions.vectors) > SQUARE:
+                    # as without noise, a quiet cycle along a skewed set proves nothing; with
+                    # noise the set skews more easily (a noisy step passes Powell's test).  Once
+                    # in a row: the next quiet cycle counts, so the search ends.
+                    directions, fresh, quiet = _fresh_axes(best, anchors), True, 0
+                    realigned = True
+                    continue
+                realigned = realigned and still
+                quiet = quiet + 1 if still else 0
+                if quiet >= QUIET:
+                    yield from _finish(space, settings, best)
+                    break
+                best.resolution = _resolution(settings, moved)
+                continue
+            ending = small and settled  # the model agrees: nothing left beyond the tolerances
+            if small and not ending and not fresh and np.linalg.cond(directions.vectors) > SKEWED:
                 # A calm cycle along a nearly dependent set proves nothing: it may have missed a
                 # valley that no direction points along.  Start again from orthogonal axes.
                 directions = principal_axes_of_estimate(directions) or principal_axes(n, FIRST_STEP)
                 fresh, calm = True, 0
                 continue
-            fresh = fresh and small
-            calm = calm + 1 if small else 0
-            best.resolution = _resolution(settings, moved)
+            if not ending:
+                fresh = fresh and small
+                calm = calm + 1 if small else 0
+                best.resolution = _resolution(settings, moved)
+                ending = calm >= 2
+            if ending and listening and not _rounding_only(settings, best):
+                # before believing the calm, ask whether it is the noise's
+                listening = False
+                level = yield from _listen(space, settings, best, cycles)
+                if level is not None:  # from now on the noisy mode
+                    settings, best.noise, calm, fresh = floored(settings, level), level, 0, True
+                    # curvatures measured by parabolas through noise are not to be reused
+                    directions = DirectionSet(
+                        vectors=directions.vectors, curvatures=np.full(n, math.nan),
+                        steps=directions.steps,
+                    )
+                    continue
+            if ending:
+                break
     except Halt as halt:
         return _outcome(best, halt.stop, cycles, directions, halt.reason)
     except _Endless:
@@ -279,15 +356,22 @@ def _line(
     base = best.u
     lo, hi = space.segment(base, d)
     lo, hi = max(lo, -FARTHEST), min(hi, FARTHEST)
+    tolerance = best.resolution
+    if best.noise > 0.0 and curvature > 0.0:
+        # probe far enough that the value changes by several noise levels; resolve no finer
+        # than a change of a quarter of one (common practice, no source)
+        reach = math.sqrt(NOISE_REACH * best.noise / curvature)
+        step, tolerance = max(step, reach), max(tolerance, 0.25 * reach)
     search = line_search(
         known if known is not None else {0.0: best.value},
         lo,
         hi,
         step=step,
         curvature=curvature,
-        tolerance=best.resolution,
+        tolerance=tolerance,
         limit=settings.line_limit,
         parabolic=settings.parabolic,
+        noise=best.noise,
     )
     try:
         ts = next(search)
@@ -299,7 +383,7 @@ def _line(
             ts = search.send(values)
     except StopIteration as stop:
         result: LineResult = stop.value
-    if result.value <= best.value:
+    if result.value <= best.value or best.noise > 0.0:  # noisy: the fitted minimum, even if higher
         best.u, best.value = base + result.point * d, result.value
     if abs(result.point) >= 0.5 * FARTHEST:
         raise _Endless
@@ -329,6 +413,7 @@ def _outcome(
         directions=directions.vectors.copy(),
         curvatures=directions.curvatures.copy(),
         reason=reason,
+        noise=best.noise if best.noise > 0.0 else None,
     )
 
 
@@ -369,6 +454,8 @@ def _model_step(
     value = float(values[0])
     best.answered += math.isfinite(value)
     best.seen(target, value)
+    if best.noise > 0.0 and value < before:
+        best.u, best.value = target, value
     ratio = (before - value) / predicted if math.isfinite(value) else -math.inf
     length = float(np.linalg.norm(s))
     if ratio >= 0.75 and length >= 0.5 * trust.radius:
@@ -384,3 +471,197 @@ def _model_step(
             steps=np.full(n, max(length, 100.0 * settings.line_tolerance)),
         )
     return directions, settled, ratio >= 0.5
+
+
+def _rounding_only(settings: Settings, best: _Tracker) -> bool:
+    """True when the quadratic model of the samples nearest the best point fits them to within
+    what the value tolerance ignores: the scatter of the values about it leaves no room for
+    noise the search would need to know of, and no table is made."""
+    if best.sample is None:
+        return False
+    n = best.sample.points.shape[1]
+    model = fit(best.sample, best.u, int(FITTED * coefficients(n)))
+    if model is None:
+        return False
+    return model.misfit <= settings.value_tolerance * max(1.0, abs(best.value))
+
+
+def _listen(
+    space: Space, settings: Settings, best: _Tracker, cycles: int
+) -> Generator[Batch, np.ndarray, float | None]:
+    """The noise level at the best point when it is above what the value tolerance ignores,
+    else None (Moré & Wild 2011; the directions of the tables are drawn from the cycle count,
+    so a replay draws the same).
+
+    A jump or a kink along the table also gives a level; noise shows in most of the differences
+    of the order the level came from, a kink or a jump in one or two (`_noise_like`).  A level
+    whose differences do not look like noise is measured once more along another direction
+    (noise fails the test about once in a hundred tables, a kink every time).  No retries with
+    other steps: at the search's calm point a table that fails is rounding, not noise worth
+    the name.
+    """
+    ignored = settings.value_tolerance * max(1.0, abs(best.value))
+    for attempt in range(2):
+        measured = yield from _table(space, best.u, np.random.default_rng([cycles, attempt]))
+        if measured is None:
+            return None
+        found, values = measured
+        if found.status == INTERRUPTED or not (found.detected and found.level > ignored):
+            return None
+        if _noise_like(np.diff(values, n=found.order)):
+            return float(found.level)
+    return None
+
+
+def _table(
+    space: Space, u: np.ndarray, rng: np.random.Generator
+) -> Generator[Batch, np.ndarray, tuple[NoiseLevel, np.ndarray] | None]:
+    """One difference table at ``u`` (`noise.estimate`) and its values; None when the bounds
+    leave no room for it.  The search's own step is tiny beside its scale, so the 10 % spread
+    test of the table is left out: it would only reject a minimum whose value is of the size
+    of the noise."""
+    try:
+        table = estimate(space, u, seed=rng, spread=None, retries=0)
+        batch = next(table)
+    except ProblemError:
+        return None
+    values = np.empty(0)
+    try:
+        while True:
+            try:
+                values = yield batch
+            except Halt as halt:
+                batch = table.throw(halt)
+            else:
+                batch = table.send(values)
+    except StopIteration as done:
+        return done.value, values
+
+
+def _noise_like(differences: np.ndarray) -> bool:
+    """True when differences of a table look like noise's: they change sign at least twice (a
+    V-shaped kink changes the sign of its first differences once, noise about two times in
+    three), and at least half of them exceed a quarter of their root mean square (of Gaussian
+    noise's about 80 % do; a jump or kink puts its weight on one or two).  Common practice, no
+    source."""
+    if np.count_nonzero(differences[:-1] * differences[1:] < 0.0) < 2:
+        return False
+    size = np.abs(differences)
+    top = float(np.max(size))
+    if not (0.0 < top < math.inf):
+        return False
+    relative = size / top  # in units of the largest: no overflow when squared
+    spread = math.sqrt(float(np.mean(relative**2)))
+    return bool(np.count_nonzero(relative > 0.25 * spread) >= 0.5 * len(relative))
+
+
+def _regression(best: _Tracker) -> tuple[Quadratic, np.ndarray] | None:
+    """The least-squares quadratic over `FITTED` times as many samples as it has coefficients
+    nearest the best point, when the samples fix every coefficient."""
+    if best.sample is None:
+        return None
+    n = best.sample.points.shape[1]
+    count = int(FITTED * coefficients(n))
+    model = fit(best.sample, best.u, count)
+    if model is None or not math.isfinite(model.misfit):
+        return None
+    # a sample that spans no more than the noise fixes nothing: its model is the noise's
+    values = best.sample.values[: best.sample.size]
+    distance = np.linalg.norm(best.sample.points[: best.sample.size] - best.u, axis=1)
+    nearest = values[np.argsort(distance)[:count]]
+    if float(np.ptp(nearest)) < HEARD * best.noise:
+        return None
+    if model.misfit > FITS * best.noise:
+        return None  # the quadratic does not describe the sample: its promise is worth nothing
+    with np.errstate(all="ignore"):
+        s = trust_step(model, model.radius)
+    if not np.all(np.isfinite(s)):
+        return None
+    return model, s
+
+
+def _promise(space: Space, best: _Tracker, ends: list[float]) -> float:
+    """The decrease still to be had, by the regression model's step inside its sample (clipped
+    to the bounds).  Where there is no such model, what the last ``WINDOW`` noisy cycles
+    gained together (one cycle's gain is as noisy as two values; infinite until there are as
+    many)."""
+    found = _regression(best)
+    if found is None:
+        return ends[-WINDOW - 1] - ends[-1] if len(ends) > WINDOW else math.inf
+    model, s = found
+    s = np.clip(best.u + s, space.lower_u, space.upper_u) - best.u
+    return float(-(model.gradient @ s + 0.5 * s @ model.hessian @ s))
+
+
+def _finish(space: Space, settings: Settings, best: _Tracker) -> Generator[Batch, np.ndarray, None]:
+    """Move ``best`` to the noisy search's answer: the regression model's minimizer inside its
+    sample, evaluated, when the model is convex; else the sample point the model puts lowest."""
+    found = _regression(best)
+    if found is None:
+        return
+    model, s = found
+    assert best.sample is not None
+    if np.linalg.eigvalsh(model.hessian)[0] > 0.0:
+        target = np.clip(best.u + s, space.lower_u, space.upper_u)
+        if float(np.max(np.abs(target - best.u))) > settings.line_tolerance:
+            values = yield Batch(points=space.to_user(target)[None, :], purpose="model")
+            if math.isfinite(values[0]):
+                best.sample.add(target, float(values[0]))
+                best.u, best.value = target, float(values[0])
+        return
+    size = best.sample.size
+    points = best.sample.points[:size]
+    near = np.linalg.norm(points - best.u, axis=1) <= model.radius
+    heights = np.where(
+        near, [model.predict(p - best.u) for p in points], math.inf
+    )
+    k = int(np.argmin(heights))
+    best.u, best.value = points[k].copy(), float(best.sample.values[k])
+
+
+def _fresh_axes(best: _Tracker, anchors: list[np.ndarray]) -> DirectionSet:
+    """Orthogonal directions for a noisy search that stalled or whose set skewed: the axes of
+    the regression model (`_model_axes`) when the samples determine it, else `_way_axes`."""
+    found = _model_axes(best)
+    if found is not None:
+        return found
+    return _way_axes(best, anchors)
+
+
+def _model_axes(best: _Tracker) -> DirectionSet | None:
+    """The eigenvectors of the regression model's Hessian, with its positive eigenvalues as
+    known curvatures (the idea of Brent 1973, ch. 7, for the free estimate); None while the
+    samples do not fix every coefficient.  Along a curved valley the flattest of them points
+    down the valley, which no coordinate axis does."""
+    if best.sample is None:
+        return None
+    n = best.sample.points.shape[1]
+    model = fit(best.sample, best.u, int(FITTED * coefficients(n)))
+    if model is None or not math.isfinite(model.misfit):
+        return None
+    eigenvalues, vectors = np.linalg.eigh(model.hessian)
+    return DirectionSet(
+        vectors=vectors.T.copy(),
+        curvatures=np.where(eigenvalues > 0.0, eigenvalues, math.nan),
+        steps=np.full(n, FIRST_STEP),
+    )
+
+
+def _way_axes(best: _Tracker, anchors: list[np.ndarray]) -> DirectionSet:
+    """Orthogonal directions for a noisy search that stalled: the way the best point went over
+    the last `WINDOW` cycles first (along a curved valley it points down the valley: Powell's
+    overall step over several cycles), completed to an orthogonal set; the axes when it has not
+    moved."""
+    n = best.u.size
+    axes = principal_axes(n, FIRST_STEP)
+    if not anchors:
+        return axes
+    way = best.u - anchors[max(0, len(anchors) - 1 - WINDOW)]
+    length = float(np.linalg.norm(way))
+    if not length > 0.0:
+        return axes
+    basis, _ = np.linalg.qr(np.column_stack([way / length, np.eye(n)]))
+    return DirectionSet(
+        vectors=basis[:, :n].T.copy(), curvatures=np.full(n, math.nan),
+        steps=np.full(n, max(length, FIRST_STEP * 0.1)),
+    )

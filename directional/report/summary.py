@@ -114,6 +114,7 @@ def solution_document(
         "format": FORMAT,
         "title": title,
         "value": _number(sol.value),
+        "noise": _number(sol.noise) if sol.noise else None,  # the ± of the value, when noisy
         "point": {name: _number(v) for name, v in zip(names, sol.point)},
         "stop": sol.stop.value,
         "verdict": sol.verdict.value,

@@ -83,7 +83,7 @@ BAD_ARGUMENTS = [
     (dict(start=[0.5, 1.0], check="yes"), "check must be True, False, 'quick' or 'extrapolated'"),
     (dict(start=[0.5, 1.0], escapes=-1), "escapes must be a whole number"),
     (dict(start=[0.5, 1.0], noise=-1.0), "noise must be a finite number >= 0"),
-    (dict(start=[0.5, 1.0], noise="loud"), "noise must be None, a number or 'estimate'"),
+    (dict(start=[0.5, 1.0], noise="loud"), "noise must be None, a number, 'estimate' or 'none'"),
 ]
 
 

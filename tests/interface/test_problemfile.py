@@ -284,5 +284,7 @@ def test_noise_is_a_level_or_estimate(tmp_path):
     assert read.search.noise == "estimate"
     level = Problem.from_file(write(tmp_path, GOOD.replace("check = false", "noise = 0.01")))
     assert level.search.noise == 0.01
+    off = Problem.from_file(write(tmp_path, GOOD.replace("check = false", 'noise = "none"')))
+    assert off.search.noise == "none"
     message = error_of(tmp_path, GOOD.replace("check = false", 'noise = "loud"'))
     assert "search.noise" in message and line_of(message) == 24

@@ -9,6 +9,7 @@ import pytest
 
 import directional as dl
 from directional.method import noise
+from directional.method.search import Settings
 
 EPS = float(np.finfo(float).eps)
 
@@ -128,5 +129,5 @@ def test_the_search_uses_an_estimated_noise_level_as_its_value_floor():
 def test_value_tolerance_is_floored_by_the_noise():
     # the search's test is drop <= value_tolerance * max(1, |f|): a value tolerance of at least
     # the noise level keeps that threshold above the noise (common practice, no source)
-    assert noise.floored(noise.Settings(value_tolerance=1e-10), 1e-4).value_tolerance == 1e-4
-    assert noise.floored(noise.Settings(value_tolerance=1e-3), 1e-4).value_tolerance == 1e-3
+    assert noise.floored(Settings(value_tolerance=1e-10), 1e-4).value_tolerance == 1e-4
+    assert noise.floored(Settings(value_tolerance=1e-3), 1e-4).value_tolerance == 1e-3

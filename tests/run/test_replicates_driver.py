@@ -186,7 +186,10 @@ def test_the_journal_keeps_every_run_and_the_solution_is_a_mean(tmp_path):
     assert {len(v) for v in groups.values()} == {3}
     assert sorted(r[1] for r in stored) == list(range(len(stored)))  # each run its own row
     assert sol.value == math.fsum(groups[sol.point.tobytes()]) / 3
-    assert sol.value == min(math.fsum(v) / 3 for v in groups.values())
+    # above the replicates' noise the search returns the point its model puts lowest, not the
+    # lowest mean (a low mean may be luck): still within a few noise levels of that lowest mean
+    lowest = min(math.fsum(v) / 3 for v in groups.values())
+    assert sol.noise is not None and sol.value <= lowest + 4 * sol.noise
     assert jr.read(path).header.identity["arguments"]["replicates"] == 3
 
 
