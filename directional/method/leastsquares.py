@@ -136,6 +136,7 @@ class Polished:
     reason: str
     steps: int
     jacobian: np.ndarray | None = None  # at ``point`` (scaled coordinates), when one was made
+    jacobian_kind: str = ""  # how: "forward", "central" (differences) or "secant" (Broyden 1965)
 
 
 def room_to_bounds(space: Space, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -143,110 +144,91 @@ def room_to_bounds(space: Space, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     return u - space.lower_u, space.upper_u - u
 
 
-def difference_jacobian(
-    space: Space, squares: SumOfSquares, u: np.ndarray
-) -> Generator[Batch, np.ndarray, np.ndarray | None]:
-    """Jacobian of the residual vector in scaled coordinates, by finite differences (one batch).
+def magnitude(space: Space, u: np.ndarray) -> np.ndarray:
+    """The size of each coordinate of scaled point ``u`` in scaled units, at least 1.
 
-    Central differences with the step ``eps^(1/3)``; a forward or backward difference with the
-    step ``sqrt(eps)`` where a bound is closer than that (common practice, no source; the point
-    itself is known, so a one-sided column costs one evaluation).  None when an evaluation failed.
+    ``x = origin + scale * u``, so ``|origin / scale + u|`` is ``|x| / scale``: a difference step
+    or a tolerance relative to it is relative to the parameter itself (Moré 1978's ``|x|``).
     """
+    return np.maximum(np.abs(space.origin / space.scale + u), 1.0)
+
+
+def central_jacobian(
+    space: Space, squares: SumOfSquares, u: np.ndarray, step: float = DIFFERENCE_STEP
+) -> Generator[Batch, np.ndarray, np.ndarray | None]:
+    """Jacobian of the residual vector in scaled coordinates, by central differences (one batch).
+
+    The step is ``step`` (``eps^(1/3)``: truncation h² against rounding eps/h) times the size of
+    the coordinate (`magnitude`); a forward or backward difference with the step ``step^(3/2)``
+    (``sqrt(eps)``) where a bound is closer than that (common practice, no source; the point itself
+    is known, so a one-sided column costs one evaluation).  None when an evaluation failed.
+    """
+    n = space.size
     below, above = room_to_bounds(space, u)
-    plus = np.zeros(space.size)
-    minus = np.zeros(space.size)
-    for j in range(space.size):
-        if below[j] >= DIFFERENCE_STEP and above[j] >= DIFFERENCE_STEP:
-            plus[j], minus[j] = DIFFERENCE_STEP, -DIFFERENCE_STEP
-        elif above[j] >= below[j]:
-            plus[j] = min(ONE_SIDED_STEP, above[j])
-        else:
-            minus[j] = -min(ONE_SIDED_STEP, below[j])
-    offsets = np.vstack([np.diag(plus), np.diag(minus)])
+    h = step * magnitude(space, u)
+    one = step**1.5 * magnitude(space, u)
+    plus, minus = h.copy(), -h
+    for j in range(n):
+        if below[j] < h[j] or above[j] < h[j]:
+            if above[j] >= below[j]:
+                plus[j], minus[j] = min(one[j], above[j]), 0.0
+            else:
+                plus[j], minus[j] = 0.0, -min(one[j], below[j])
+    if np.any(plus == minus):
+        return None  # a parameter with no room at all between its bounds
+    ends = [(j, e) for e in (plus, minus) for j in range(n) if e[j] != 0.0]
+    offsets = np.zeros((len(ends), n))
+    for row, (j, e) in enumerate(ends):
+        offsets[row, j] = e[j]
     points = space.to_user(u + offsets)
     values = yield Batch(points=points, purpose=Purpose.JACOBIAN)
     if not np.all(np.isfinite(values)):
         return None
+    here = squares.vector(space.to_user(u))
+    vectors = [[here, here] for _ in range(n)]  # the vectors at the ends +, - of each column
+    for (j, e), x in zip(ends, points):
+        vectors[j][0 if e is plus else 1] = squares.vector(x)
     columns = []
-    for j in range(space.size):
-        rp, rm = squares.vector(points[j]), squares.vector(points[space.size + j])
-        if rp is None or rm is None or plus[j] == minus[j]:
+    for j in range(n):
+        rp, rm = vectors[j]
+        if rp is None or rm is None:
             return None
         columns.append((rp - rm) / (plus[j] - minus[j]))
     return np.column_stack(columns)
 
 
-def _held(space: Space, u: np.ndarray, jacobian: np.ndarray, r: np.ndarray) -> np.ndarray:
+def forward_jacobian(
+    space: Space, squares: SumOfSquares, u: np.ndarray, r: np.ndarray, step: float
+) -> Generator[Batch, np.ndarray, np.ndarray | None]:
+    """Jacobian of the residual vector in scaled coordinates by forward differences (one batch).
+
+    ``r`` is the vector at ``u``, so a column costs one evaluation.  The step is ``step`` times the
+    size of the coordinate (at least one scaled unit; ``sqrt(eps)`` balances truncation against
+    rounding, common practice, no source), taken backward where the upper bound is closer than
+    that (`magnitude`).  None when an evaluation failed.
+    """
+    n = space.size
+    below, above = room_to_bounds(space, u)
+    h = step * magnitude(space, u)
+    h = np.where(above >= h, h, np.where(below >= h, -h, np.where(above >= below, above, -below)))
+    points = space.to_user(u + np.diag(h))
+    values = yield Batch(points=points, purpose=Purpose.JACOBIAN)
+    if not np.all(np.isfinite(values)) or np.any(h == 0.0):
+        return None
+    columns = []
+    for j in range(n):
+        rj = squares.vector(points[j])
+        if rj is None:
+            return None
+        columns.append((rj - r) / h[j])
+    return np.column_stack(columns)
+
+
+def held_at_bounds(space: Space, u: np.ndarray, jacobian: np.ndarray, r: np.ndarray) -> np.ndarray:
     """Parameters at a bound that the gradient ``2 Jᵀ r`` pushes outward: held there this step."""
     below, above = room_to_bounds(space, u)
     gradient = jacobian.T @ r
     return ((below < ONE_SIDED_STEP) & (gradient > 0.0)) | ((above < ONE_SIDED_STEP) & (gradient < 0.0))
-
-
-def levenberg_marquardt(
-    space: Space,
-    squares: SumOfSquares,
-    u0: np.ndarray,
-    value: float,
-    *,
-    iterations: int = 100,
-    tolerance: float = 1e-10,
-) -> Generator[Batch, np.ndarray, Polished]:
-    """Levenberg–Marquardt steps from scaled point ``u0`` until a step is below ``tolerance``.
-
-    Each step solves ``min |J d + r|² + lambda |D d|²`` with ``D² = diag(JᵀJ)`` (Marquardt 1963),
-    as the linear least-squares problem ``[J; sqrt(lambda) D] d = [-r; 0]`` so that JᵀJ is never
-    formed; a step that lowers S is taken and lambda divided by 10, otherwise lambda is multiplied
-    by 10 and the step solved again (ibid.).  Steps are clipped to the bounds, and a parameter at
-    a bound that the gradient pushes outward is held there for the step.
-    """
-    u, s_value = u0.copy(), value
-    lam = 1e-3
-    steps = 0
-    try:
-        r = squares.vector(space.to_user(u))
-        if r is None:
-            return Polished(point=u, value=s_value, stop=Stop.STALLED, reason="no residuals", steps=0)
-        for _ in range(iterations):
-            jacobian = yield from difference_jacobian(space, squares, u)
-            if jacobian is None:
-                return Polished(point=u, value=s_value, stop=Stop.STALLED, steps=steps,
-                                reason="an evaluation for the Jacobian failed")
-            moving = jacobian * ~_held(space, u, jacobian, r)
-            scale = np.sqrt(np.sum(jacobian**2, axis=0))
-            scale = np.maximum(scale, 1e-12 * max(float(scale.max()), 1e-300))
-            while True:
-                d = _marquardt_step(moving, r, lam, scale)
-                trial = np.clip(u + d, space.lower_u, space.upper_u)
-                move = float(np.max(np.abs(trial - u)))
-                if move <= tolerance:
-                    return Polished(point=u, value=s_value, stop=Stop.CONVERGED, steps=steps,
-                                    reason="", jacobian=jacobian)
-                x = space.to_user(trial)
-                values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
-                if values[0] < s_value:
-                    u, s_value, lam = trial, float(values[0]), max(lam / 10.0, 1e-15)
-                    r = squares.vector(x)
-                    steps += 1
-                    break
-                lam *= 10.0
-                if lam > 1e16:
-                    return Polished(point=u, value=s_value, stop=Stop.CONVERGED, steps=steps,
-                                    reason="", jacobian=jacobian)
-        return Polished(point=u, value=s_value, stop=Stop.STALLED, steps=steps,
-                        reason=f"no convergence in {iterations} Levenberg-Marquardt steps")
-    except Halt as halt:
-        return Polished(point=u, value=s_value, stop=halt.stop, reason=halt.reason, steps=steps)
-
-
-def _marquardt_step(jacobian: np.ndarray, r: np.ndarray, lam: float, scale: np.ndarray) -> np.ndarray:
-    used = np.any(jacobian != 0.0, axis=0)
-    j = jacobian[:, used]
-    a = np.vstack([j, math.sqrt(lam) * np.diag(scale[used])])
-    b = np.concatenate([-r, np.zeros(j.shape[1])])
-    d = np.zeros(jacobian.shape[1])
-    d[used] = np.linalg.lstsq(a, b, rcond=None)[0]
-    return d
 
 
 # ----------------------------------------------------------------------------- extrapolated Jacobian
