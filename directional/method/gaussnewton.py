@@ -16,15 +16,23 @@ coordinates) and steps to the minimizer of the linear model ``|r + J p|²`` insi
 - After every evaluation the Jacobian is moved by Broyden's (1965) rank-one secant update
   ``J += (r_new - r - J p) pᵀ / pᵀp``, so that a step costs one evaluation.
 - A fresh forward-difference Jacobian is paid for only when the secant model proves poor: a step
-  earned less than a tenth of its prediction, or the stopping test is met on a secant Jacobian
-  (the test must be met on a Jacobian made at the point itself, or a rounding-free fixed point
-  of a wrong model would be returned).
+  earned less than a tenth of its prediction, or the model sees almost nothing left to gain
+  while its steps are not small.  A step the secant model rejects does not shrink the radius:
+  the model failed, not the region.
+- The end is decided on a central-difference Jacobian made at the point itself (a secant or
+  forward one would leave the fixed point of a wrong model): it is paid for when the cheaper
+  model sees nothing left, and it ends the search when its step is within a tenth of the point
+  tolerance of every parameter's size and its predicted decrease within ``value_tolerance``
+  relative to ``S`` (or the noise level), or it predicts no decrease above rounding and noise,
+  or the radius has shrunk below the point tolerance.  Otherwise its step is taken and the
+  search goes on (without noise, a step too small for S to show a decrease but larger than the
+  point tolerance is taken on the model's word, while such steps keep halving).  Never on a
+  count of steps; the driver may end it early by throwing `records.Halt` (budget, time,
+  interrupt).
 
-It stops on the model's own criteria, never on a count of steps: the predicted and the actual
-decrease are both below ``value_tolerance`` relative to ``S`` (or below the noise level), or the
-scaled step is below ``point_tolerance`` relative to the size of the point; or the radius has
-shrunk below that size although the Jacobian is fresh (no descent is left that the model can
-see).  The driver ends it early by throwing `records.Halt` (budget, time, interrupt).
+Without noise the central differences use the step ``eps^(1/3)`` in scaled units: a check of
+the point that differences the residuals with that step gets its points back from the driver's
+cache.
 
 References
 ----------
@@ -34,8 +42,6 @@ References
    *Mathematics of Computation* 19 (1965) 577-593.
 .. [3] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
    *Journal of the Society for Industrial and Applied Mathematics* 11 (1963) 431-441.
-.. [4] C. Cartis and L. Roberts, "A derivative-free Gauss–Newton method", *Mathematical
-   Programming Computation* 11 (2019) 631-674.
 """
 
 from __future__ import annotations
@@ -46,6 +52,7 @@ from collections.abc import Generator
 import numpy as np
 
 from directional.method.leastsquares import (
+    DIFFERENCE_STEP,
     Polished,
     SumOfSquares,
     central_jacobian,
@@ -64,7 +71,6 @@ SHRINK = 0.25  # below this share the radius is halved (Moré 1978)
 GROW = 0.75  # above it the radius becomes twice the step (ibid.)
 ROUNDING = 16.0 * EPSILON  # a decrease of S below this share of it is rounding
 ACCEPT = 1e-4  # a step is taken when it earned at least this share of its prediction (ibid.)
-NEAR = 10.0  # within this many (tight) point tolerances a central Jacobian still counts as made here
 
 
 def gauss_newton(
@@ -86,37 +92,42 @@ def gauss_newton(
     u, s = np.array(u0, dtype=float), float(value)
     steps = 0
     jacobian: np.ndarray | None = None
+    made: np.ndarray | None = None
     kind = ""
 
+    central: np.ndarray | None = None  # the central-difference Jacobian made at u, if any
+
     def ended(stop: Stop, reason: str = "") -> Polished:
+        made, how = (central, "central") if central is not None else (jacobian, kind)
         return Polished(point=u, value=s, stop=stop, reason=reason, steps=steps,
-                        jacobian=jacobian, jacobian_kind=kind)
+                        jacobian=made, jacobian_kind=how)
 
     r = squares.vector(space.to_user(u))
     if r is None:
         return ended(Stop.STALLED, "no residuals at the start of the Gauss-Newton steps")
     floor = 0.0 if noise is None else float(noise)
-    relative = max(EPSILON, floor / s) if s > 0.0 else EPSILON
     scales = np.zeros(space.size)
     radius = math.nan
     wanted = "forward"  # the Jacobian to make before the next step ("": keep the secant one)
-    accurate = False  # a central-difference Jacobian, moved by secant updates only since
+    blind = math.inf  # the length of the last step taken below what S can resolve
     try:
         while True:
+            if wanted == "forward":
+                made = yield from forward_jacobian(
+                    space, squares, u, r, math.sqrt(relative_noise(noise, s)))
+            elif wanted == "central":
+                made = yield from central_jacobian(
+                    space, squares, u, central_step(noise, s, jacobian), point_tolerance)
             if wanted:
-                made = yield from (
-                    forward_jacobian(space, squares, u, r, math.sqrt(relative)) if wanted == "forward"
-                    else central_jacobian(space, squares, u, relative ** (1.0 / 3.0))
-                )
                 if made is None:
                     return ended(Stop.STALLED, "an evaluation for the Jacobian failed")
-                jacobian, kind, wanted = made, wanted, ""
-                accurate = kind == "central"
+                jacobian, kind = made, wanted
+                central = made.copy() if wanted == "central" else None
+                wanted = ""
             assert jacobian is not None
             scales = np.maximum(scales, np.sqrt(np.sum(jacobian**2, axis=0)))
             d = np.where(scales > 0.0, scales, 1.0)
-            sizes = magnitude(space, u)
-            size = float(np.linalg.norm(d * sizes))
+            size = float(np.linalg.norm(d * magnitude(space, u)))
             if not math.isfinite(radius):
                 radius = FIRST_RADIUS * size
             held = held_at_bounds(space, u, jacobian, r)
@@ -126,23 +137,30 @@ def gauss_newton(
             predicted = s - float(np.sum((r + jacobian @ p) ** 2))
             small = max(value_tolerance * s, floor)
             seen = max(ROUNDING * s, floor)  # a decrease below this cannot be told from zero
-            # within a tenth of the point tolerance of each parameter's own size (1e-3 of the
-            # problem's size at least: a parameter at zero), so that a slow last convergence of
-            # a large-residual fit does not leave a larger error than the last step
+            # Steps within a tenth of the point tolerance of each parameter's own size (1e-3 of
+            # the problem's size at least: a parameter at zero), so that the slow last
+            # convergence of a large-residual fit leaves no larger error than the last step.
             tight = 0.1 * point_tolerance * np.maximum(np.abs(space.origin / space.scale + u), 1e-3)
-            close = np.all(np.abs(p) <= tight)
-            if (close and predicted <= small) or not predicted > seen:
-                # nothing left that the model can see: on an accurate Jacobian that is the end
-                if not accurate:
+            close = np.abs(p) <= tight
+            if (np.all(close) and predicted <= small) or not predicted > seen:
+                if central is None:
                     wanted = "central"
                     continue
-                if np.any(p != 0.0):  # its last step is one evaluation, and near-exact
-                    x = space.to_user(trial)
-                    values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
-                    if values[0] < s:
-                        u, s = trial, float(values[0])
-                        steps += 1
-                return ended(Stop.CONVERGED)
+                if np.all(close) or not length < 0.5 * blind or floor > 0.0:
+                    return ended(Stop.CONVERGED)  # on an accurate Jacobian made here: the end
+                # a step S cannot see but the point tolerance asks for: taken on the model's word
+                x = space.to_user(trial)
+                values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
+                new = squares.vector(x) if math.isfinite(values[0]) else None
+                if new is None or values[0] > s + seen:
+                    return ended(Stop.CONVERGED)
+                u, r, s, blind = trial, new, float(values[0]), length
+                steps += 1
+                central, wanted = None, "central"
+                continue
+            if predicted <= small and kind == "secant":
+                wanted = "forward"  # little left to gain by steps that are not small: stale
+                continue
             x = space.to_user(trial)
             values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
             new = squares.vector(x) if math.isfinite(values[0]) else None
@@ -156,7 +174,6 @@ def gauss_newton(
             stale, kind = kind == "secant", "secant"
             if ratio < POOR and stale:
                 wanted = "forward"  # the secant model is poor, not the region: a fresh Jacobian
-                accurate = False
             elif ratio < SHRINK:
                 radius = 0.5 * min(radius, length)
             elif ratio >= GROW:
@@ -164,14 +181,48 @@ def gauss_newton(
             if ratio >= ACCEPT:
                 u, r, s = trial, new, s_new
                 steps += 1
-                # a Jacobian made far from here no longer decides the end
-                accurate = accurate and bool(np.all(np.abs(p) <= NEAR * tight))
-            if radius <= point_tolerance * size:
-                if accurate:
-                    return ended(Stop.CONVERGED, "")
+                central = None
+            if radius <= point_tolerance * size and not wanted:
+                if central is not None:
+                    return ended(Stop.CONVERGED)
                 wanted = "central"  # no room left: decide on an accurate Jacobian
     except Halt as halt:
         return ended(halt.stop, halt.reason)
+
+
+def relative_noise(noise: float | None, value: float) -> float:
+    """The noise of the residuals relative to their size, at least the rounding ``eps``.
+
+    A noise ``e`` in each residual moves ``S`` by ``2 r·e``, of standard deviation ``2 |r| e``,
+    so the residuals' own level is ``noise / (2 sqrt(S))`` (``sqrt(noise)`` where ``S`` is nearly
+    zero); relative to ``|r| = sqrt(S)`` (common practice, no source).
+
+    >>> relative_noise(None, 25.0) == EPSILON, relative_noise(1e-6, 25.0)
+    (True, 2e-08)
+    """
+    if noise is None or not math.isfinite(noise) or noise <= 0.0:
+        return EPSILON
+    level = float(noise) / max(2.0 * math.sqrt(max(value, 0.0)), math.sqrt(float(noise)))
+    return max(EPSILON, level / max(math.sqrt(max(value, 0.0)), 1e-300))
+
+
+def central_step(
+    noise: float | None, value: float, jacobian: np.ndarray | None
+) -> np.ndarray | float:
+    """Steps of a central difference (scaled units): ``eps^(1/3)`` with no noise, else the step
+    that balances truncation ``h² T / 6`` against noise ``e / h`` (common practice, no source):
+    ``(3 e / c)^(1/3)`` with ``e`` the noise of one residual and ``c``, the largest entry of each
+    column of the last Jacobian, standing in for the third derivative ``T``.
+
+    Without noise the curvature check of a calibration differences the residuals at the same
+    points, so that they come back from the driver's cache.
+    """
+    if noise is None or not noise > 0.0 or jacobian is None:
+        return DIFFERENCE_STEP
+    level = relative_noise(noise, value) * math.sqrt(max(value, 0.0))  # absolute, one residual
+    c = np.max(np.abs(jacobian), axis=0)
+    with np.errstate(divide="ignore"):
+        return np.maximum(DIFFERENCE_STEP, np.where(c > 0.0, (3.0 * level / c) ** (1.0 / 3.0), 0.1))
 
 
 def bounded_step(

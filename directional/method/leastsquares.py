@@ -154,26 +154,25 @@ def magnitude(space: Space, u: np.ndarray) -> np.ndarray:
 
 
 def central_jacobian(
-    space: Space, squares: SumOfSquares, u: np.ndarray, step: float = DIFFERENCE_STEP
+    space: Space,
+    squares: SumOfSquares,
+    u: np.ndarray,
+    step: float | np.ndarray = DIFFERENCE_STEP,
+    point_tolerance: float = 1e-6,
 ) -> Generator[Batch, np.ndarray, np.ndarray | None]:
     """Jacobian of the residual vector in scaled coordinates, by central differences (one batch).
 
-    The step is ``step`` (``eps^(1/3)``: truncation h² against rounding eps/h) times the size of
-    the coordinate (`magnitude`); a forward or backward difference with the step ``step^(3/2)``
-    (``sqrt(eps)``) where a bound is closer than that (common practice, no source; the point itself
-    is known, so a one-sided column costs one evaluation).  None when an evaluation failed.
+    The step is ``step`` scaled units (``eps^(1/3)``: truncation h² against rounding eps/h), less
+    where a bound is nearer; a parameter within ``10 * point_tolerance`` of a bound gets a
+    one-sided difference of the same step into the interior (common practice, no source; the
+    point itself is known, so that column costs one evaluation).  None when an evaluation failed.
     """
     n = space.size
     below, above = room_to_bounds(space, u)
-    h = step * magnitude(space, u)
-    one = step**1.5 * magnitude(space, u)
-    plus, minus = h.copy(), -h
-    for j in range(n):
-        if below[j] < h[j] or above[j] < h[j]:
-            if above[j] >= below[j]:
-                plus[j], minus[j] = min(one[j], above[j]), 0.0
-            else:
-                plus[j], minus[j] = 0.0, -min(one[j], below[j])
+    bound = (below <= 10.0 * point_tolerance) | (above <= 10.0 * point_tolerance)
+    h = np.minimum(step, np.minimum(below, above))
+    plus = np.where(bound, np.where(above >= below, np.minimum(step, above), 0.0), h)
+    minus = np.where(bound, np.where(above >= below, 0.0, -np.minimum(step, below)), -h)
     if np.any(plus == minus):
         return None  # a parameter with no room at all between its bounds
     ends = [(j, e) for e in (plus, minus) for j in range(n) if e[j] != 0.0]

@@ -109,7 +109,9 @@ def test_straight_line_matches_a_reference_library():
     s2 = rss / (m - 2)
     covariance = s2 * np.linalg.inv(design.T @ design)
     assert (a, b) == pytest.approx((line.intercept, line.slope), rel=1e-12)  # the two libraries
-    sol = dl.calibrate(lambda p: p[0] + p[1] * x - y, [0.0, 1.0], names=["a", "b"])
+    # the point to 1e-9 needs a point tolerance to match (the default 1e-6 is met at 5e-8)
+    sol = dl.calibrate(lambda p: p[0] + p[1] * x - y, [0.0, 1.0], names=["a", "b"],
+                       point_tolerance=1e-10)
     u = sol.uncertainty
     assert sol.point == pytest.approx([line.intercept, line.slope], rel=1e-9)
     assert sol.value == pytest.approx(rss, rel=1e-9)
