@@ -54,15 +54,16 @@ from directional.method.leastsquares import (
     extrapolated_jacobian,
 )
 from directional.method.noise import floored, noise_level
-from directional.method.search import Settings
+from directional.method.search import Settings, powell
 from directional.method.space import Space
-from directional.records import Batch, Halt, Outcome, Purpose, Request, Stop
+from directional.records import SPENT, Batch, Halt, Outcome, Purpose, Request, Stop
 from directional.solution import Solution
 
 EPSILON = float(np.finfo(float).eps)
 STRONG = 0.95  # correlations beyond this are named in a warning
 UNDETERMINED = 1e-8  # relative singular value of the column-scaled Jacobian taken as zero
 LEVEL = 0.95  # coverage of the intervals
+GLOBAL_SHARE = 40  # evaluations per parameter for the direction-set search where Gauss-Newton stalls
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -332,9 +333,18 @@ def _search(
     *,
     noise: float | None,
 ) -> Generator[Request, Any, Outcome]:
-    """Gauss–Newton steps on the residual vector from ``start`` (scaled; None: the user's start).
+    """Gauss–Newton steps on the residual vector from ``start`` (scaled; None: the user's start),
+    with the direction-set search as the globalization where they stall.
 
     `gaussnewton.gauss_newton` keeps a secant Jacobian and stops on its model's own criteria.
+    Where it stalls (an evaluation for its Jacobian failed) or ends on a plateau (the
+    Gauss–Newton matrix JᵀJ singular: a direction the linear model cannot see, where a
+    derivative-based step cannot go), the direction-set search (`search.powell`), whose line
+    searches bracket over plateaus and step around failures, runs from the start of this search
+    for at most `GLOBAL_SHARE` evaluations per parameter; if it finds a lower sum of squares,
+    Gauss–Newton goes on from there.  Damped Gauss–Newton steps do not jump, so they stay in the
+    start's basin where a line search may leap across a pole of the model into another branch
+    (seen on NIST's Hahn1 from its second start): that is why they come first.
     """
     u = np.zeros(space.size) if start is None else np.array(start, dtype=float)
     try:
@@ -354,7 +364,39 @@ def _search(
     )
     outcome = _replaced(dataclasses.replace(empty, stop=Stop.CONVERGED, reason=""), polished,
                         "Gauss-Newton")
-    return dataclasses.replace(outcome, cycles=polished.steps)
+    outcome = dataclasses.replace(outcome, cycles=polished.steps)
+    if not _stuck(polished):
+        return outcome
+    spent = yield SPENT
+    found = yield from limited(powell(space, settings, u), spent + GLOBAL_SHARE * space.size)
+    floor = max(settings.value_tolerance * abs(outcome.value), 0.0 if noise is None else noise)
+    if found.stop is Stop.INTERRUPTED or not found.value < outcome.value - floor:
+        note = ("the direction-set search from the start found nothing lower than the "
+                "Gauss-Newton steps" + (f" ({found.reason})" if found.reason else ""))
+        return dataclasses.replace(outcome, notes=(*outcome.notes, note))
+    again = yield from gauss_newton(
+        space, squares, found.point, found.value, point_tolerance=settings.point_tolerance,
+        value_tolerance=settings.value_tolerance, noise=noise,
+    )
+    how = "the direction-set search from the start, then Gauss-Newton"
+    moved = dataclasses.replace(found, stop=Stop.CONVERGED, reason="", notes=outcome.notes)
+    return dataclasses.replace(_replaced(moved, again, how),
+                               cycles=outcome.cycles + found.cycles + again.steps)
+
+
+def _stuck(polished: Polished) -> bool:
+    """Whether Gauss–Newton stalled or ended where JᵀJ is singular (a plateau of the model)."""
+    if polished.stop is Stop.STALLED:
+        return True
+    if polished.stop is not Stop.CONVERGED or polished.jacobian is None:
+        return False
+    norms = np.sqrt(np.sum(polished.jacobian**2, axis=0))
+    if not np.all(np.isfinite(norms)):
+        return True
+    if np.any(norms == 0.0):
+        return True
+    singular = np.linalg.svd(polished.jacobian / norms, compute_uv=False)
+    return bool(singular[-1] <= UNDETERMINED * singular[0])
 
 
 def limited(

@@ -24,11 +24,12 @@ coordinates) and steps to the minimizer of the linear model ``|r + J p|²`` insi
   model sees nothing left, and it ends the search when its step is within a tenth of the point
   tolerance of every parameter's size and its predicted decrease within ``value_tolerance``
   relative to ``S`` (or the noise level), or it predicts no decrease above rounding and noise,
-  or the radius has shrunk below the point tolerance.  Otherwise its step is taken and the
-  search goes on (without noise, a step too small for S to show a decrease but larger than the
-  point tolerance is taken on the model's word, while such steps keep halving).  Never on a
-  count of steps; the driver may end it early by throwing `records.Halt` (budget, time,
-  interrupt).
+  or the radius has shrunk below the point tolerance.  Otherwise its step is taken; after a
+  short one (within a hundred of those tolerances) the central Jacobian, moved by the secant
+  update, still decides, after a longer one the search goes on.  Without noise, a step too
+  small for S to show a decrease but larger than the point tolerance is taken on the model's
+  word, while such steps keep halving.  Never on a count of steps; the driver may end it early
+  by throwing `records.Halt` (budget, time, interrupt).
 
 Without noise the central differences use the step ``eps^(1/3)`` in scaled units: a check of
 the point that differences the residuals with that step gets its points back from the driver's
@@ -71,6 +72,7 @@ SHRINK = 0.25  # below this share the radius is halved (Moré 1978)
 GROW = 0.75  # above it the radius becomes twice the step (ibid.)
 ROUNDING = 16.0 * EPSILON  # a decrease of S below this share of it is rounding
 ACCEPT = 1e-4  # a step is taken when it earned at least this share of its prediction (ibid.)
+NEAR = 100.0  # after a step this many (tight) tolerances long a central Jacobian still decides the end
 
 
 def gauss_newton(
@@ -110,6 +112,7 @@ def gauss_newton(
     radius = math.nan
     wanted = "forward"  # the Jacobian to make before the next step ("": keep the secant one)
     blind = math.inf  # the length of the last step taken below what S can resolve
+    accurate = False  # the Jacobian is central, made here or a short step away (secant since)
     try:
         while True:
             if wanted == "forward":
@@ -123,7 +126,7 @@ def gauss_newton(
                     return ended(Stop.STALLED, "an evaluation for the Jacobian failed")
                 jacobian, kind = made, wanted
                 central = made.copy() if wanted == "central" else None
-                wanted = ""
+                accurate, wanted = central is not None, ""
             assert jacobian is not None
             scales = np.maximum(scales, np.sqrt(np.sum(jacobian**2, axis=0)))
             d = np.where(scales > 0.0, scales, 1.0)
@@ -143,7 +146,7 @@ def gauss_newton(
             tight = 0.1 * point_tolerance * np.maximum(np.abs(space.origin / space.scale + u), 1e-3)
             close = np.abs(p) <= tight
             if (np.all(close) and predicted <= small) or not predicted > seen:
-                if central is None:
+                if not accurate:
                     wanted = "central"
                     continue
                 if np.all(close) or not length < 0.5 * blind or floor > 0.0:
@@ -156,7 +159,7 @@ def gauss_newton(
                     return ended(Stop.CONVERGED)
                 u, r, s, blind = trial, new, float(values[0]), length
                 steps += 1
-                central, wanted = None, "central"
+                central, accurate, wanted = None, False, "central"
                 continue
             if predicted <= small and kind == "secant":
                 wanted = "forward"  # little left to gain by steps that are not small: stale
@@ -182,8 +185,10 @@ def gauss_newton(
                 u, r, s = trial, new, s_new
                 steps += 1
                 central = None
+                # a short step from an accurate Jacobian leaves it accurate (secant-updated)
+                accurate = accurate and bool(np.all(np.abs(p) <= NEAR * tight))
             if radius <= point_tolerance * size and not wanted:
-                if central is not None:
+                if accurate:
                     return ended(Stop.CONVERGED)
                 wanted = "central"  # no room left: decide on an accurate Jacobian
     except Halt as halt:

@@ -206,3 +206,22 @@ def test_a_parameter_on_a_bound_gets_no_error():
     assert sol.point[0] == pytest.approx(np.mean(y - x), rel=1e-7)
     assert math.isnan(sol.uncertainty.standard_errors[1])
     assert sol.uncertainty.degrees_of_freedom == 3
+
+
+def test_where_gauss_newton_stalls_the_direction_set_search_takes_over():
+    # r = (x0 - 3, x1 - 1): minimum (3, 1) (analytic).  The residuals fail in a thin band just
+    # above the start's x0 = 1, where the forward-difference Jacobian of Gauss-Newton probes: it
+    # stalls at once, and the direction-set search (whose line searches step over the band)
+    # must take over from the start.  The band is invented for this check.
+    def residuals(x):
+        if 1.0 + 1e-9 < x[0] < 1.0 + 1e-6:
+            raise RuntimeError("the model does not converge here")
+        return np.array([x[0] - 3.0, x[1] - 1.0])
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        sol = dl.calibrate(residuals, [1.0, 0.0])
+    assert sol.point == pytest.approx([3.0, 1.0], abs=1e-8)
+    assert any(e.status == "failed" for e in sol.history)
+    assert "line" in {e.purpose for e in sol.history}
+    assert any("direction-set search" in note for note in sol.notes)
