@@ -121,7 +121,9 @@ def gauss_newton(
             elif wanted == "central":
                 made = yield from central_jacobian(
                     space, squares, u, central_step(noise, s, jacobian), point_tolerance)
-            if wanted:
+            if wanted == "forward" and made is None and jacobian is not None:
+                wanted, radius = "", 0.5 * radius  # the secant model, in a smaller region
+            elif wanted:
                 if made is None:
                     return ended(Stop.STALLED, "an evaluation for the Jacobian failed")
                 jacobian, kind = made, wanted

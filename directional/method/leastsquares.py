@@ -165,7 +165,8 @@ def central_jacobian(
     The step is ``step`` scaled units (``eps^(1/3)``: truncation h² against rounding eps/h), less
     where a bound is nearer; a parameter within ``10 * point_tolerance`` of a bound gets a
     one-sided difference of the same step into the interior (common practice, no source; the
-    point itself is known, so that column costs one evaluation).  None when an evaluation failed.
+    point itself is known, so that column costs one evaluation).  Where one end of a column
+    failed, the column is the one-sided difference from the other; None when both failed.
     """
     n = space.size
     below, above = room_to_bounds(space, u)
@@ -181,46 +182,57 @@ def central_jacobian(
         offsets[row, j] = e[j]
     points = space.to_user(u + offsets)
     values = yield Batch(points=points, purpose=Purpose.JACOBIAN)
-    if not np.all(np.isfinite(values)):
-        return None
     here = squares.vector(space.to_user(u))
     vectors = [[here, here] for _ in range(n)]  # the vectors at the ends +, - of each column
-    for (j, e), x in zip(ends, points):
-        vectors[j][0 if e is plus else 1] = squares.vector(x)
+    for (j, e), x, value in zip(ends, points, values):
+        vectors[j][0 if e is plus else 1] = squares.vector(x) if np.isfinite(value) else None
     columns = []
     for j in range(n):
-        rp, rm = vectors[j]
-        if rp is None or rm is None:
+        (rp, hp), (rm, hm) = (vectors[j][0], plus[j]), (vectors[j][1], minus[j])
+        if rp is None and rm is not None:  # a failed end: one-sided from the other one
+            rp, hp = here, 0.0
+        elif rm is None and rp is not None:
+            rm, hm = here, 0.0
+        if rp is None or rm is None or hp == hm:
             return None
-        columns.append((rp - rm) / (plus[j] - minus[j]))
+        columns.append((rp - rm) / (hp - hm))
     return np.column_stack(columns)
 
 
 def forward_jacobian(
     space: Space, squares: SumOfSquares, u: np.ndarray, r: np.ndarray, step: float
 ) -> Generator[Batch, np.ndarray, np.ndarray | None]:
-    """Jacobian of the residual vector in scaled coordinates by forward differences (one batch).
+    """Jacobian of the residual vector in scaled coordinates by forward differences.
 
-    ``r`` is the vector at ``u``, so a column costs one evaluation.  The step is ``step`` times the
-    size of the coordinate (at least one scaled unit; ``sqrt(eps)`` balances truncation against
-    rounding, common practice, no source), taken backward where the upper bound is closer than
-    that (`magnitude`).  None when an evaluation failed.
+    ``r`` is the vector at ``u``, so a column costs one evaluation (one batch for all).  The step
+    is ``step`` times the size of the coordinate (at least one scaled unit; ``sqrt(eps)`` balances
+    truncation against rounding, common practice, no source), taken backward where the upper
+    bound is closer than that (`magnitude`).  A column whose point failed is tried once the other
+    way (a second batch); None when that fails too.
     """
     n = space.size
     below, above = room_to_bounds(space, u)
     h = step * magnitude(space, u)
     h = np.where(above >= h, h, np.where(below >= h, -h, np.where(above >= below, above, -below)))
-    points = space.to_user(u + np.diag(h))
-    values = yield Batch(points=points, purpose=Purpose.JACOBIAN)
-    if not np.all(np.isfinite(values)) or np.any(h == 0.0):
-        return None
-    columns = []
-    for j in range(n):
-        rj = squares.vector(points[j])
-        if rj is None:
+    if np.any(h == 0.0):
+        return None  # a parameter with no room at all between its bounds
+    columns: list[np.ndarray | None] = [None] * n
+    todo = np.arange(n)
+    for attempt in range(2):
+        points = space.to_user(u + np.diag(h)[todo])
+        values = yield Batch(points=points, purpose=Purpose.JACOBIAN)
+        for j, x, value in zip(todo, points, values):
+            rj = squares.vector(x) if np.isfinite(value) else None
+            columns[j] = None if rj is None else (rj - r) / h[j]
+        todo = np.array([j for j in range(n) if columns[j] is None], dtype=int)
+        if todo.size == 0:
+            return np.column_stack(columns)
+        flipped = -h[todo]
+        room = np.where(flipped > 0.0, above[todo], below[todo])
+        if attempt == 1 or np.any(np.abs(flipped) > room):
             return None
-        columns.append((rj - r) / h[j])
-    return np.column_stack(columns)
+        h[todo] = flipped
+    return None
 
 
 def held_at_bounds(space: Space, u: np.ndarray, jacobian: np.ndarray, r: np.ndarray) -> np.ndarray:

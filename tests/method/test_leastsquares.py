@@ -136,9 +136,21 @@ def test_the_central_jacobian_asks_for_two_points_per_free_column_and_one_at_a_b
     assert done.value.value == pytest.approx(A * np.array([4.0, 2.0]), rel=1e-7)
 
 
-def test_a_failed_point_gives_no_difference_jacobian():
+def test_a_failed_end_of_a_column_gives_a_one_sided_difference():
+    # a linear residual fails for x0 > 0 (invented): the columns come from the other side
     space = build_space([0.0, 0.0])
     squares = SumOfSquares(lambda x: linear(x) if x[0] <= 0.0 else [math.nan] * 4, None)
+    squares(space.start)
+    central = drive(central_jacobian(space, squares, np.zeros(2)), squares)
+    assert central == pytest.approx(A, rel=1e-6)  # scales 1: the user's Jacobian
+    r = squares.vector(space.start)
+    forward = drive(forward_jacobian(space, squares, np.zeros(2), r, 1e-7), squares)
+    assert forward == pytest.approx(A, rel=1e-6)
+
+
+def test_a_failed_point_gives_no_difference_jacobian():
+    space = build_space([0.0, 0.0])  # both sides of x0 = 0 fail (invented)
+    squares = SumOfSquares(lambda x: linear(x) if x[0] == 0.0 else [math.nan] * 4, None)
     squares(space.start)
     assert drive(central_jacobian(space, squares, np.zeros(2)), squares) is None
     r = squares.vector(space.start)
