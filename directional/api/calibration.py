@@ -370,10 +370,15 @@ def _search(
     spent = yield SPENT
     found = yield from limited(powell(space, settings, u), spent + GLOBAL_SHARE * space.size)
     floor = max(settings.value_tolerance * abs(outcome.value), 0.0 if noise is None else noise)
-    if found.stop is Stop.INTERRUPTED or not found.value < outcome.value - floor:
+    if found.stop is Stop.INTERRUPTED:
+        return dataclasses.replace(outcome, stop=found.stop, reason=found.reason)
+    if not found.value < outcome.value - floor:
+        # neither method finds anything lower: the point is what the search has to offer, and
+        # the check says what it is (a corner of a nonsmooth misfit stalls Gauss-Newton)
         note = ("the direction-set search from the start found nothing lower than the "
-                "Gauss-Newton steps" + (f" ({found.reason})" if found.reason else ""))
-        return dataclasses.replace(outcome, notes=(*outcome.notes, note))
+                "Gauss-Newton steps")
+        return dataclasses.replace(outcome, stop=Stop.CONVERGED, reason="",
+                                   notes=(*outcome.notes, note))
     again = yield from gauss_newton(
         space, squares, found.point, found.value, point_tolerance=settings.point_tolerance,
         value_tolerance=settings.value_tolerance, noise=noise,

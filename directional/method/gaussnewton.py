@@ -147,7 +147,20 @@ def gauss_newton(
             # convergence of a large-residual fit leaves no larger error than the last step.
             tight = 0.1 * point_tolerance * np.maximum(np.abs(space.origin / space.scale + u), 1e-3)
             close = np.abs(p) <= tight
-            if (np.all(close) and predicted <= small) or not predicted > seen:
+            limited = length >= 0.9 * radius  # the region, not the model, set the step
+            if limited and radius <= point_tolerance * size:
+                # the region has shrunk to the point tolerance: decide on an accurate Jacobian
+                # whether the model's own (unlimited) step still sees a decrease
+                if not accurate:
+                    wanted = "central"
+                    continue
+                free = bounded_step(jacobian, r, d, math.inf, u - space.lower_u,
+                                    space.upper_u - u, held)
+                if s - float(np.sum((r + jacobian @ free) ** 2)) <= small:
+                    return ended(Stop.CONVERGED)
+                return ended(Stop.STALLED, "the trust region shrank to the point tolerance while "
+                             "the model still saw a decrease (failed or noisy points)")
+            if not limited and ((np.all(close) and predicted <= small) or not predicted > seen):
                 if not accurate:
                     wanted = "central"
                     continue
@@ -170,7 +183,7 @@ def gauss_newton(
             values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
             new = squares.vector(x) if math.isfinite(values[0]) else None
             if new is None:
-                radius = 0.25 * length
+                radius = 0.5 * length  # a failed point: try nearer (failures may be scattered)
                 continue
             s_new = float(values[0])
             actual = s - s_new
@@ -189,10 +202,6 @@ def gauss_newton(
                 central = None
                 # a short step from an accurate Jacobian leaves it accurate (secant-updated)
                 accurate = accurate and bool(np.all(np.abs(p) <= NEAR * tight))
-            if radius <= point_tolerance * size and not wanted:
-                if accurate:
-                    return ended(Stop.CONVERGED)
-                wanted = "central"  # no room left: decide on an accurate Jacobian
     except Halt as halt:
         return ended(halt.stop, halt.reason)
 
@@ -294,6 +303,8 @@ def trust_region_step(
     # singular values below rounding (or so small that their squares underflow) count as zero
     kept = sigma > max(EPSILON * max(jacobian.shape) * (sigma[0] if sigma.size else 0.0), TINY)
     b = -(u_.T @ r)
+    if kept.any():  # lambda in units of the largest sigma²: q(lambda) does not change
+        b, sigma = b / sigma[0], sigma / sigma[0]
 
     def scaled(lam: float) -> np.ndarray:
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -320,4 +331,6 @@ def trust_region_step(
             slope = -float(np.sum(np.where(kept, sigma**2 * b**2 / (sigma**2 + lam) ** 3, 0.0))) / norm
         newton = lam - (norm / radius) * (norm - radius) / slope if slope < 0.0 else math.nan
         lam = newton if lo < newton < hi else (math.sqrt(lo * hi) if lo > 0.0 else 0.1 * hi)
+    if norm > 1.1 * radius:  # not found (rounding): the damped step cut back stays a descent
+        q = q * (radius / norm)
     return q / d

@@ -13,7 +13,7 @@ import doctest
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra import numpy as hnp
 
@@ -118,6 +118,9 @@ def test_the_trust_region_step_of_an_identity_jacobian():
     r=hnp.arrays(float, 5, elements=st.floats(-10.0, 10.0)),
     d=hnp.arrays(float, 3, elements=st.floats(0.1, 10.0)),
     radius=st.floats(1e-3, 1e3),
+)
+@example(  # values near underflow (found by hypothesis): lambda is solved in units of sigma²
+    jacobian=np.full((5, 3), 9.08321172e-131), r=np.full(5, 9.08321172e-131), d=np.ones(3), radius=0.5
 )
 def test_the_trust_region_step_stays_in_the_region_and_never_raises_the_model(jacobian, r, d, radius):
     p = trust_region_step(jacobian, r, d, radius)
