@@ -1,5 +1,5 @@
-"""Least squares on a residual vector through the driver: the objective, Jacobians, and
-Levenberg–Marquardt steps.
+"""Least squares on a residual vector through the driver: the objective and its Jacobians
+(forward, central and extrapolated differences; the steps are `gaussnewton`'s).
 
 The driver wants a number, so the objective it sees is `SumOfSquares`: it returns
 ``S(x) = sum r_i(x)**2`` and keeps each residual vector by the bytes of its point; the generators
@@ -9,11 +9,7 @@ and counted in ``SumOfSquares.recomputed``.
 
 References
 ----------
-.. [1] K. Levenberg, "A method for the solution of certain non-linear problems in least squares",
-   *Quarterly of Applied Mathematics* 2 (1944) 164-168.
-.. [2] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
-   *Journal of the Society for Industrial and Applied Mathematics* 11 (1963) 431-441.
-.. [3] P. A. Brodtkorb, numdifftools (Richardson extrapolation of finite differences).
+.. [1] P. A. Brodtkorb, numdifftools (Richardson extrapolation of finite differences).
 """
 
 from __future__ import annotations
@@ -123,12 +119,12 @@ class SumOfSquares:
         return r if r is not None and np.all(np.isfinite(r)) else None
 
 
-# ----------------------------------------------------------------------------- Levenberg–Marquardt
+# ----------------------------------------------------------------------------- where the steps end
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Polished:
-    """Where the Levenberg–Marquardt steps ended (scaled point) and why."""
+    """Where the Gauss–Newton steps (`gaussnewton`) ended (scaled point), why, and the Jacobian there."""
 
     point: np.ndarray
     value: float
