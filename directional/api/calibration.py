@@ -1,14 +1,15 @@
 """`calibrate`: least squares on a residual vector, and how well each parameter is determined.
 
 Theory of operation.  The objective is ``S(x) = sum r_i(x)**2`` of a residual vector (model minus
-data, divided by the data's standard deviations when they are given).  The direction-set search
-(`directional.method.search`) minimizes ``S`` without derivatives; since the residual vector is known, the
-search is finished with Levenberg–Marquardt steps on a central-difference Jacobian (Levenberg
-1944, Marquardt 1963), which reach the bottom of the flat curved valleys where a search on ``S``
-alone crawls.  The point is then checked by the Gauss–Newton matrix JᵀJ of one central-difference
-Jacobian of the residuals (`directional.method.fitcheck`; the full numerical Hessian of
-`directional.method.curvature` only where the residuals' curvature is not small against JᵀJ),
-and the same Jacobian gives the linearized uncertainty (Bates & Watts 1988, sec. 2.3):
+data, divided by the data's standard deviations when they are given).  Since every evaluation
+returns the whole vector, the search works on the vector itself: Gauss–Newton steps in a trust
+region (Moré 1978) on a Jacobian made once by forward differences and kept current by Broyden's
+(1965) secant updates, a fresh one paid for only when the model proves poor, and the end decided
+on a central-difference Jacobian at the point (`directional.method.gaussnewton`).  The point is
+then checked by the Gauss–Newton matrix JᵀJ of one central-difference Jacobian of the residuals
+(`directional.method.fitcheck`; the full numerical Hessian of `directional.method.curvature` only
+where the residuals' curvature is not small against JᵀJ), and the same Jacobian gives the
+linearized uncertainty (Bates & Watts 1988, sec. 2.3):
 
     covariance = s² (JᵀJ)⁻¹,   s² = S / (m - p),
 
@@ -24,10 +25,10 @@ Every evaluation goes through the driver (counted, cached, journaled): see
 
 References
 ----------
-.. [1] K. Levenberg, "A method for the solution of certain non-linear problems in least squares",
-   *Quarterly of Applied Mathematics* 2 (1944) 164-168.
-.. [2] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
-   *Journal of the Society for Industrial and Applied Mathematics* 11 (1963) 431-441.
+.. [1] J. J. Moré, "The Levenberg–Marquardt algorithm: implementation and theory", in G. A.
+   Watson (ed.), *Numerical Analysis*, Lecture Notes in Mathematics 630, Springer, 1978, 105-116.
+.. [2] C. G. Broyden, "A class of methods for solving nonlinear simultaneous equations",
+   *Mathematics of Computation* 19 (1965) 577-593.
 .. [3] D. M. Bates and D. G. Watts, *Nonlinear Regression Analysis and Its Applications*, Wiley,
    1988, sec. 2.3.
 """
@@ -60,11 +61,11 @@ from directional.method.curvature import (
     settled_solution,
 )
 from directional.method.fitcheck import GAUSS_NEWTON, FitCheck, check_fit
+from directional.method.gaussnewton import gauss_newton
 from directional.method.leastsquares import (
     Polished,
     Residuals,
     SumOfSquares,
-    levenberg_marquardt,
 )
 from directional.method.noise import noticed, planned
 from directional.method.replicates import planned_level, pooled_level
@@ -78,6 +79,7 @@ STRONG = 0.95  # correlations beyond this are named in a warning
 CONFOUNDED = 10.0  # freeing a bound parameter would multiply a standard error by this: not separable
 UNDETERMINED = 1e-8  # relative singular value of the column-scaled Jacobian taken as zero
 LEVEL = 0.95  # coverage of the intervals
+GLOBAL_SHARE = 40  # evaluations per parameter for the direction-set search where Gauss-Newton stalls
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -399,7 +401,7 @@ def calibrate(
     """Return the least-squares fit of a residual vector, with the uncertainty of its parameters.
 
     Minimizes ``S(x) = sum(r(x)**2)``, ``r`` = model minus data (divided by ``sigma`` when given),
-    by the direction-set search, finished with Levenberg–Marquardt steps; then checks the point
+    by Gauss–Newton steps on the residual vector in a trust region; then checks the point
     (`directional.method.curvature`) and computes ``sol.uncertainty`` (`Uncertainty`: standard errors,
     correlations, 95 % intervals) from s²(JᵀJ)⁻¹ (Bates & Watts 1988).  Warns when parameters are
     correlated beyond 0.95 or not determined.
@@ -428,7 +430,7 @@ def calibrate(
         noise level from the replicates is that of one run's sum of squares divided by sqrt(k).
 
     The other arguments are those of `directional.minimize`; ``budget`` counts every evaluation
-    (search, Levenberg–Marquardt, check and Jacobian).  The verdict comes from JᵀJ of one
+    (search, check and Jacobian).  The verdict comes from JᵀJ of one
     central-difference Jacobian, which also gives the standard errors (`checked`); ``check``
     (True, "quick" or "extrapolated") chooses the numerical Hessian used instead where the
     residuals' curvature is not small against JᵀJ, and False leaves the verdict UNCHECKED (the
@@ -505,18 +507,14 @@ def calibration(
 ) -> Generator[Request, Any, tuple[Settled, Settings, tuple[str, ...], np.ndarray, object]]:
     """The whole of `calibrate` as one generator for the driver.
 
-    Noise estimate, direction-set search finished by Levenberg–Marquardt (keeping some of the
-    budget for it), curvature check and escapes, and the Jacobian for the uncertainty; returns
-    what the check settled, the settings used, the notes, the mask of free parameters and the
-    Jacobian (None when it could not be had).
+    Noise estimate, the search on the residual vector (`_search`), curvature check and escapes,
+    and the Jacobian for the uncertainty; returns what the check settled, the settings used, the
+    notes, the mask of free parameters and the Jacobian (None when it could not be had).
     """
     space = options.space
     level, noted = yield from planned_level(space, options.noise, options.replicates)
     settings = planned(options.settings, options.noise, level)
-    outcome = yield from _search(
-        space, settings, squares, None, budget=options.budget,
-        reserve=_reserve(space.size, options.budget), second_opinion=True,
-    )
+    outcome = yield from _search(space, settings, squares, None, noise=level)
     level = yield from pooled_level(options.noise, options.replicates, level)
     if outcome.noise is not None and level is None:  # noticed by the search: check above it too
         level, settings = outcome.noise, planned(settings, options.noise, outcome.noise)
@@ -524,14 +522,9 @@ def calibration(
     settled, free, fit = yield from checked(
         space, settings, outcome, squares, check=options.check, escapes=options.escapes,
         noise=level, budget=options.budget,
-        restart=lambda u: _search(space, settings, squares, u, budget=options.budget, reserve=0),
+        restart=lambda u: _search(space, settings, squares, u, noise=level),
     )
     return settled, settings, noted, free, fit
-
-
-def _reserve(n: int, budget: int) -> int:
-    """Evaluations kept from the derivative-free search for the Levenberg–Marquardt runs."""
-    return min(budget // 2, 40 * (2 * n + 2))
 
 
 def _search(
@@ -540,41 +533,77 @@ def _search(
     squares: SumOfSquares,
     start: np.ndarray | None,
     *,
-    budget: int,
-    reserve: int,
-    second_opinion: bool = False,
+    noise: float | None,
 ) -> Generator[Request, Any, Outcome]:
-    """The direction-set search finished by Levenberg–Marquardt; optionally a second opinion.
+    """Gauss–Newton steps on the residual vector from ``start`` (scaled; None: the user's start),
+    with the direction-set search as the globalization where they stall.
 
-    The search leaves ``reserve`` evaluations of the ``budget`` to Levenberg–Marquardt (but
-    always has one new evaluation).  The second opinion is Levenberg–Marquardt alone from the
-    start: damped Gauss–Newton steps do
-    not jump, so it stays in the start's basin where a line search of the direction-set method
-    may leap across a pole of the model into another branch (seen on NIST's Hahn1 from its second
-    start), while the direction-set search gets off plateaus where Gauss–Newton steps stall
-    (NIST's BoxBOD from its first start).  The lower sum of squares wins.
+    `gaussnewton.gauss_newton` keeps a secant Jacobian and stops on its model's own criteria.
+    Where it stalls (an evaluation for its Jacobian failed) or ends on a plateau (the
+    Gauss–Newton matrix JᵀJ singular: a direction the linear model cannot see, where a
+    derivative-based step cannot go), the direction-set search (`search.powell`), whose line
+    searches bracket over plateaus and step around failures, runs from the start of this search
+    for at most `GLOBAL_SHARE` evaluations per parameter; if it finds a lower sum of squares,
+    Gauss–Newton goes on from there.  Damped Gauss–Newton steps do not jump, so they stay in the
+    start's basin where a line search may leap across a pole of the model into another branch
+    (seen on NIST's Hahn1 from its second start): that is why they come first.
     """
-    search = powell(space, settings, start)
-    if reserve > 0:
-        spent = yield SPENT
-        search = limited(search, max(spent + 1, budget - reserve))
-    outcome = yield from search
-    if outcome.stop in (Stop.INTERRUPTED, Stop.STALLED) or not math.isfinite(outcome.value):
+    u = np.zeros(space.size) if start is None else np.array(start, dtype=float)
+    try:
+        values = yield Batch(points=space.to_user(u)[None, :], purpose=Purpose.START)
+    except Halt as halt:
+        return Outcome(point=u, value=math.inf, stop=halt.stop, cycles=0,
+                       directions=np.eye(space.size), curvatures=np.full(space.size, np.nan),
+                       reason=halt.reason)
+    value = float(values[0])
+    empty = Outcome(point=u, value=value, stop=Stop.STALLED, cycles=0, directions=np.eye(space.size),
+                    curvatures=np.full(space.size, np.nan), reason="the start point failed")
+    if not math.isfinite(value):
+        return empty
+    polished = yield from gauss_newton(
+        space, squares, u, value, point_tolerance=settings.point_tolerance,
+        value_tolerance=settings.value_tolerance, noise=noise,
+    )
+    outcome = _replaced(dataclasses.replace(empty, stop=Stop.CONVERGED, reason=""), polished,
+                        "Gauss-Newton")
+    outcome = dataclasses.replace(outcome, cycles=polished.steps)
+    if not _stuck(polished):
         return outcome
-    polished = yield from levenberg_marquardt(space, squares, outcome.point, outcome.value)
-    outcome = _replaced(outcome, polished, "Levenberg-Marquardt after the search")
-    if not second_opinion or outcome.stop is Stop.INTERRUPTED:
-        return outcome
-    other = yield from _from_start(space, squares)
-    if other.value < outcome.value - 4.0 * EPSILON * abs(outcome.value):
-        lower = outcome.value - other.value  # the size of the gain, not the two values again
-        note = (
-            f"Levenberg-Marquardt from the start reached a sum of squares lower by {lower:.2g} "
-            f"(relative {lower / abs(outcome.value):.1g}) than the direction-set search; "
-            "its point is taken"
-        )
-        outcome = _replaced(outcome, other, note)
-    return outcome
+    spent = yield SPENT
+    found = yield from limited(powell(space, settings, u), spent + GLOBAL_SHARE * space.size)
+    floor = max(settings.value_tolerance * abs(outcome.value), 0.0 if noise is None else noise)
+    if found.stop is Stop.INTERRUPTED:
+        return dataclasses.replace(outcome, stop=found.stop, reason=found.reason)
+    if not found.value < outcome.value - floor:
+        # neither method finds anything lower: the point is what the search has to offer, and
+        # the check says what it is (a corner of a nonsmooth misfit stalls Gauss-Newton)
+        note = ("the direction-set search from the start found nothing lower than the "
+                "Gauss-Newton steps")
+        return dataclasses.replace(outcome, stop=Stop.CONVERGED, reason="",
+                                   notes=(*outcome.notes, note))
+    again = yield from gauss_newton(
+        space, squares, found.point, found.value, point_tolerance=settings.point_tolerance,
+        value_tolerance=settings.value_tolerance, noise=noise,
+    )
+    how = "the direction-set search from the start, then Gauss-Newton"
+    moved = dataclasses.replace(found, stop=Stop.CONVERGED, reason="", notes=outcome.notes)
+    return dataclasses.replace(_replaced(moved, again, how),
+                               cycles=outcome.cycles + found.cycles + again.steps)
+
+
+def _stuck(polished: Polished) -> bool:
+    """Whether Gauss–Newton stalled or ended where JᵀJ is singular (a plateau of the model)."""
+    if polished.stop is Stop.STALLED:
+        return True
+    if polished.stop is not Stop.CONVERGED or polished.jacobian is None:
+        return False
+    norms = np.sqrt(np.sum(polished.jacobian**2, axis=0))
+    if not np.all(np.isfinite(norms)):
+        return True
+    if np.any(norms == 0.0):
+        return True
+    singular = np.linalg.svd(polished.jacobian / norms, compute_uv=False)
+    return bool(singular[-1] <= UNDETERMINED * singular[0])
 
 
 def limited(
@@ -600,17 +629,8 @@ def limited(
             return done.value
 
 
-def _from_start(space: Space, squares: SumOfSquares) -> Generator[Batch, np.ndarray, Polished]:
-    u = np.zeros(space.size)
-    try:
-        values = yield Batch(points=space.to_user(u)[None, :], purpose=Purpose.START)
-    except Halt as halt:
-        return Polished(point=u, value=math.inf, stop=halt.stop, reason=halt.reason, steps=0)
-    return (yield from levenberg_marquardt(space, squares, u, float(values[0])))
-
-
 def _replaced(outcome: Outcome, polished: Polished, what: str) -> Outcome:
-    """The outcome moved to where Levenberg–Marquardt ended, if that is not higher.
+    """The outcome moved to where the Gauss–Newton steps ended, if that is not higher.
 
     With the final Jacobian J at hand, the directions become the eigenvectors of the Gauss–Newton
     matrix 2 JᵀJ and their curvatures its eigenvalues: conjugate directions whose free Hessian

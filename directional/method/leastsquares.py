@@ -1,5 +1,5 @@
-"""Least squares on a residual vector through the driver: the objective, Jacobians, and
-Levenberg–Marquardt steps.
+"""Least squares on a residual vector through the driver: the objective and its Jacobians
+(forward, central and extrapolated differences; the steps are `gaussnewton`'s).
 
 The driver wants a number, so the objective it sees is `SumOfSquares`: it returns
 ``S(x) = sum r_i(x)**2`` and keeps each residual vector by the bytes of its point; the generators
@@ -17,11 +17,7 @@ Levenberg–Marquardt steps read.
 
 References
 ----------
-.. [1] K. Levenberg, "A method for the solution of certain non-linear problems in least squares",
-   *Quarterly of Applied Mathematics* 2 (1944) 164-168.
-.. [2] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
-   *Journal of the Society for Industrial and Applied Mathematics* 11 (1963) 431-441.
-.. [3] P. A. Brodtkorb, numdifftools (Richardson extrapolation of finite differences).
+.. [1] P. A. Brodtkorb, numdifftools (Richardson extrapolation of finite differences).
 """
 
 from __future__ import annotations
@@ -192,12 +188,12 @@ def _matching(
     return found
 
 
-# ----------------------------------------------------------------------------- Levenberg–Marquardt
+# ----------------------------------------------------------------------------- where the steps end
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
 class Polished:
-    """Where the Levenberg–Marquardt steps ended (scaled point) and why."""
+    """Where the Gauss–Newton steps (`gaussnewton`) ended (scaled point), why, and the Jacobian there."""
 
     point: np.ndarray
     value: float
@@ -205,6 +201,7 @@ class Polished:
     reason: str
     steps: int
     jacobian: np.ndarray | None = None  # at ``point`` (scaled coordinates), when one was made
+    jacobian_kind: str = ""  # how: "forward", "central" (differences) or "secant" (Broyden 1965)
 
 
 def room_to_bounds(space: Space, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -212,110 +209,102 @@ def room_to_bounds(space: Space, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     return u - space.lower_u, space.upper_u - u
 
 
-def difference_jacobian(
-    space: Space, squares: SumOfSquares, u: np.ndarray
-) -> Generator[Batch, np.ndarray, np.ndarray | None]:
-    """Jacobian of the residual vector in scaled coordinates, by finite differences (one batch).
+def magnitude(space: Space, u: np.ndarray) -> np.ndarray:
+    """The size of each coordinate of scaled point ``u`` in scaled units, at least 1.
 
-    Central differences with the step ``eps^(1/3)``; a forward or backward difference with the
-    step ``sqrt(eps)`` where a bound is closer than that (common practice, no source; the point
-    itself is known, so a one-sided column costs one evaluation).  None when an evaluation failed.
+    ``x = origin + scale * u``, so ``|origin / scale + u|`` is ``|x| / scale``: a difference step
+    or a tolerance relative to it is relative to the parameter itself (Moré 1978's ``|x|``).
     """
+    return np.maximum(np.abs(space.origin / space.scale + u), 1.0)
+
+
+def central_jacobian(
+    space: Space,
+    squares: SumOfSquares,
+    u: np.ndarray,
+    step: float | np.ndarray = DIFFERENCE_STEP,
+    point_tolerance: float = 1e-6,
+) -> Generator[Batch, np.ndarray, np.ndarray | None]:
+    """Jacobian of the residual vector in scaled coordinates, by central differences (one batch).
+
+    The step is ``step`` scaled units (``eps^(1/3)``: truncation h² against rounding eps/h), less
+    where a bound is nearer; a parameter within ``10 * point_tolerance`` of a bound gets a
+    one-sided difference of the same step into the interior (common practice, no source; the
+    point itself is known, so that column costs one evaluation).  Where one end of a column
+    failed, the column is the one-sided difference from the other; None when both failed.
+    """
+    n = space.size
     below, above = room_to_bounds(space, u)
-    plus = np.zeros(space.size)
-    minus = np.zeros(space.size)
-    for j in range(space.size):
-        if below[j] >= DIFFERENCE_STEP and above[j] >= DIFFERENCE_STEP:
-            plus[j], minus[j] = DIFFERENCE_STEP, -DIFFERENCE_STEP
-        elif above[j] >= below[j]:
-            plus[j] = min(ONE_SIDED_STEP, above[j])
-        else:
-            minus[j] = -min(ONE_SIDED_STEP, below[j])
-    offsets = np.vstack([np.diag(plus), np.diag(minus)])
+    bound = (below <= 10.0 * point_tolerance) | (above <= 10.0 * point_tolerance)
+    h = np.minimum(step, np.minimum(below, above))
+    plus = np.where(bound, np.where(above >= below, np.minimum(step, above), 0.0), h)
+    minus = np.where(bound, np.where(above >= below, 0.0, -np.minimum(step, below)), -h)
+    if np.any(plus == minus):
+        return None  # a parameter with no room at all between its bounds
+    ends = [(j, e) for e in (plus, minus) for j in range(n) if e[j] != 0.0]
+    offsets = np.zeros((len(ends), n))
+    for row, (j, e) in enumerate(ends):
+        offsets[row, j] = e[j]
     points = space.to_user(u + offsets)
     values = yield Batch(points=points, purpose=Purpose.JACOBIAN)
-    if not np.all(np.isfinite(values)):
-        return None
+    here = squares.vector(space.to_user(u))
+    vectors = [[here, here] for _ in range(n)]  # the vectors at the ends +, - of each column
+    for (j, e), x, value in zip(ends, points, values):
+        vectors[j][0 if e is plus else 1] = squares.vector(x) if np.isfinite(value) else None
     columns = []
-    for j in range(space.size):
-        rp, rm = squares.vector(points[j]), squares.vector(points[space.size + j])
-        if rp is None or rm is None or plus[j] == minus[j]:
+    for j in range(n):
+        (rp, hp), (rm, hm) = (vectors[j][0], plus[j]), (vectors[j][1], minus[j])
+        if rp is None and rm is not None:  # a failed end: one-sided from the other one
+            rp, hp = here, 0.0
+        elif rm is None and rp is not None:
+            rm, hm = here, 0.0
+        if rp is None or rm is None or hp == hm:
             return None
-        columns.append((rp - rm) / (plus[j] - minus[j]))
+        columns.append((rp - rm) / (hp - hm))
     return np.column_stack(columns)
 
 
-def _held(space: Space, u: np.ndarray, jacobian: np.ndarray, r: np.ndarray) -> np.ndarray:
+def forward_jacobian(
+    space: Space, squares: SumOfSquares, u: np.ndarray, r: np.ndarray, step: float
+) -> Generator[Batch, np.ndarray, np.ndarray | None]:
+    """Jacobian of the residual vector in scaled coordinates by forward differences.
+
+    ``r`` is the vector at ``u``, so a column costs one evaluation (one batch for all).  The step
+    is ``step`` times the size of the coordinate (at least one scaled unit; ``sqrt(eps)`` balances
+    truncation against rounding, common practice, no source), taken backward where the upper
+    bound is closer than that (`magnitude`).  A column whose point failed is tried once the other
+    way (a second batch); None when that fails too.
+    """
+    n = space.size
+    below, above = room_to_bounds(space, u)
+    h = step * magnitude(space, u)
+    h = np.where(above >= h, h, np.where(below >= h, -h, np.where(above >= below, above, -below)))
+    if np.any(h == 0.0):
+        return None  # a parameter with no room at all between its bounds
+    columns: list[np.ndarray | None] = [None] * n
+    todo = np.arange(n)
+    for attempt in range(2):
+        points = space.to_user(u + np.diag(h)[todo])
+        values = yield Batch(points=points, purpose=Purpose.JACOBIAN)
+        for j, x, value in zip(todo, points, values):
+            rj = squares.vector(x) if np.isfinite(value) else None
+            columns[j] = None if rj is None else (rj - r) / h[j]
+        todo = np.array([j for j in range(n) if columns[j] is None], dtype=int)
+        if todo.size == 0:
+            return np.column_stack(columns)
+        flipped = -h[todo]
+        room = np.where(flipped > 0.0, above[todo], below[todo])
+        if attempt == 1 or np.any(np.abs(flipped) > room):
+            return None
+        h[todo] = flipped
+    return None
+
+
+def held_at_bounds(space: Space, u: np.ndarray, jacobian: np.ndarray, r: np.ndarray) -> np.ndarray:
     """Parameters at a bound that the gradient ``2 Jᵀ r`` pushes outward: held there this step."""
     below, above = room_to_bounds(space, u)
     gradient = jacobian.T @ r
     return ((below < ONE_SIDED_STEP) & (gradient > 0.0)) | ((above < ONE_SIDED_STEP) & (gradient < 0.0))
-
-
-def levenberg_marquardt(
-    space: Space,
-    squares: SumOfSquares,
-    u0: np.ndarray,
-    value: float,
-    *,
-    iterations: int = 100,
-    tolerance: float = 1e-10,
-) -> Generator[Batch, np.ndarray, Polished]:
-    """Levenberg–Marquardt steps from scaled point ``u0`` until a step is below ``tolerance``.
-
-    Each step solves ``min |J d + r|² + lambda |D d|²`` with ``D² = diag(JᵀJ)`` (Marquardt 1963),
-    as the linear least-squares problem ``[J; sqrt(lambda) D] d = [-r; 0]`` so that JᵀJ is never
-    formed; a step that lowers S is taken and lambda divided by 10, otherwise lambda is multiplied
-    by 10 and the step solved again (ibid.).  Steps are clipped to the bounds, and a parameter at
-    a bound that the gradient pushes outward is held there for the step.
-    """
-    u, s_value = u0.copy(), value
-    lam = 1e-3
-    steps = 0
-    try:
-        r = squares.vector(space.to_user(u))
-        if r is None:
-            return Polished(point=u, value=s_value, stop=Stop.STALLED, reason="no residuals", steps=0)
-        for _ in range(iterations):
-            jacobian = yield from difference_jacobian(space, squares, u)
-            if jacobian is None:
-                return Polished(point=u, value=s_value, stop=Stop.STALLED, steps=steps,
-                                reason="an evaluation for the Jacobian failed")
-            moving = jacobian * ~_held(space, u, jacobian, r)
-            scale = np.sqrt(np.sum(jacobian**2, axis=0))
-            scale = np.maximum(scale, 1e-12 * max(float(scale.max()), 1e-300))
-            while True:
-                d = _marquardt_step(moving, r, lam, scale)
-                trial = np.clip(u + d, space.lower_u, space.upper_u)
-                move = float(np.max(np.abs(trial - u)))
-                if move <= tolerance:
-                    return Polished(point=u, value=s_value, stop=Stop.CONVERGED, steps=steps,
-                                    reason="", jacobian=jacobian)
-                x = space.to_user(trial)
-                values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
-                if values[0] < s_value:
-                    u, s_value, lam = trial, float(values[0]), max(lam / 10.0, 1e-15)
-                    r = squares.vector(x)
-                    steps += 1
-                    break
-                lam *= 10.0
-                if lam > 1e16:
-                    return Polished(point=u, value=s_value, stop=Stop.CONVERGED, steps=steps,
-                                    reason="", jacobian=jacobian)
-        return Polished(point=u, value=s_value, stop=Stop.STALLED, steps=steps,
-                        reason=f"no convergence in {iterations} Levenberg-Marquardt steps")
-    except Halt as halt:
-        return Polished(point=u, value=s_value, stop=halt.stop, reason=halt.reason, steps=steps)
-
-
-def _marquardt_step(jacobian: np.ndarray, r: np.ndarray, lam: float, scale: np.ndarray) -> np.ndarray:
-    used = np.any(jacobian != 0.0, axis=0)
-    j = jacobian[:, used]
-    a = np.vstack([j, math.sqrt(lam) * np.diag(scale[used])])
-    b = np.concatenate([-r, np.zeros(j.shape[1])])
-    d = np.zeros(jacobian.shape[1])
-    d[used] = np.linalg.lstsq(a, b, rcond=None)[0]
-    return d
 
 
 # ----------------------------------------------------------------------------- extrapolated Jacobian

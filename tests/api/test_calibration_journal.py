@@ -77,7 +77,7 @@ def test_show_and_resume_of_a_finished_calibration_evaluate_nothing(tmp_path):
 def test_an_interrupted_calibration_resumes_without_repeating_an_evaluation(tmp_path):
     whole = calibrate(Counted())
     path = tmp_path / "fit.sqlite"
-    first = Counted(interrupt_after=40)
+    first = Counted(interrupt_after=8)
     stopped = calibrate(first, journal=path)
     assert stopped.stop is dl.Stop.INTERRUPTED
     shown, _ = runs.replay(path)  # stopped before its check: the best stored point, no verdict

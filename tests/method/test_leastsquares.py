@@ -20,13 +20,12 @@ import directional as dl
 from directional.method import differences, leastsquares
 from directional.method.leastsquares import (
     SumOfSquares,
-    difference_jacobian,
+    central_jacobian,
     extrapolated_jacobian,
-    levenberg_marquardt,
+    forward_jacobian,
     sum_of_squares,
 )
 from directional.method.space import build_space
-from directional.records import Stop
 
 A = np.array([[1.0, 2.0], [3.0, -1.0], [0.5, 0.5], [-2.0, 1.0]])
 B = np.array([1.0, 2.0, 0.0, -1.0])
@@ -128,12 +127,50 @@ def test_one_sigma_divides_every_residual():
     [np.zeros(2), np.array([-0.25, 0.5])],  # inside; on the lower bound of x0, the upper of x1
     ids=["central", "one-sided"],
 )
-def test_the_difference_jacobian_of_a_linear_residual_is_its_matrix(u):
+def test_the_difference_jacobians_of_a_linear_residual_are_its_matrix(u):
     space = build_space([1.0, 0.0], [(0.0, 4.0), (-1.0, 1.0)])  # scales 4 and 2
     squares = SumOfSquares(linear, None)
     squares(space.to_user(u))
-    jacobian = drive(difference_jacobian(space, squares, u), squares)
+    jacobian = drive(central_jacobian(space, squares, u), squares)
     assert jacobian == pytest.approx(A * np.array([4.0, 2.0]), rel=1e-7, abs=1e-7)
+    r = squares.vector(space.to_user(u))
+    forward = drive(forward_jacobian(space, squares, u, r, 1e-7), squares)
+    assert forward == pytest.approx(A * np.array([4.0, 2.0]), rel=1e-6, abs=1e-6)
+
+
+def test_the_central_jacobian_asks_for_two_points_per_free_column_and_one_at_a_bound():
+    # x0 on its lower bound (one point, forward), x1 inside (two points): three in one batch
+    space = build_space([0.0, 0.0], [(0.0, 4.0), (-1.0, 1.0)])
+    squares = SumOfSquares(linear, None)
+    squares(space.start)
+    generator = central_jacobian(space, squares, np.zeros(2))
+    batch = next(generator)
+    with pytest.raises(StopIteration) as done:
+        generator.send(np.array([squares(x.copy()) for x in batch.points]))
+    assert batch.points.shape == (3, 2) and batch.purpose == "jacobian"
+    assert np.all(batch.points[:, 0] >= 0.0)  # never below the bound
+    assert done.value.value == pytest.approx(A * np.array([4.0, 2.0]), rel=1e-7)
+
+
+def test_a_failed_end_of_a_column_gives_a_one_sided_difference():
+    # a linear residual fails for x0 > 0 (invented): the columns come from the other side
+    space = build_space([0.0, 0.0])
+    squares = SumOfSquares(lambda x: linear(x) if x[0] <= 0.0 else [math.nan] * 4, None)
+    squares(space.start)
+    central = drive(central_jacobian(space, squares, np.zeros(2)), squares)
+    assert central == pytest.approx(A, rel=1e-6)  # scales 1: the user's Jacobian
+    r = squares.vector(space.start)
+    forward = drive(forward_jacobian(space, squares, np.zeros(2), r, 1e-7), squares)
+    assert forward == pytest.approx(A, rel=1e-6)
+
+
+def test_a_failed_point_gives_no_difference_jacobian():
+    space = build_space([0.0, 0.0])  # both sides of x0 = 0 fail (invented)
+    squares = SumOfSquares(lambda x: linear(x) if x[0] == 0.0 else [math.nan] * 4, None)
+    squares(space.start)
+    assert drive(central_jacobian(space, squares, np.zeros(2)), squares) is None
+    r = squares.vector(space.start)
+    assert drive(forward_jacobian(space, squares, np.zeros(2), r, 1e-7), squares) is None
 
 
 def test_the_extrapolated_jacobian_is_exact_on_a_linear_residual_and_zero_off_the_free_columns():
@@ -165,42 +202,6 @@ def test_the_adapter_records_the_stencil_then_reads_it_back():
     recorder.missing = {}
     assert differences.jacobian(recorder, steps) == pytest.approx(np.array([[3.0, -2.0]]), abs=1e-10)
     assert not recorder.missing
-
-
-# ----------------------------------------------------------------------------- Levenberg–Marquardt
-
-
-def test_levenberg_marquardt_finds_the_linear_least_squares_solution():
-    space = build_space([5.0, -5.0])
-    squares = SumOfSquares(linear, None)
-    value = squares(space.start)
-    done = drive(levenberg_marquardt(space, squares, np.zeros(2), value), squares)
-    best, *_ = np.linalg.lstsq(A, B, rcond=None)  # numpy's reference solution
-    assert done.stop is Stop.CONVERGED
-    assert space.to_user(done.point) == pytest.approx(best, rel=1e-7, abs=1e-9)
-    r = A @ best - B
-    assert done.value == pytest.approx(float(r @ r), rel=1e-10)
-
-
-def test_levenberg_marquardt_fits_an_exponential_decay_to_exact_data():
-    t = np.linspace(0.0, 3.0, 12)
-    y = 2.0 * np.exp(-0.7 * t)
-    space = build_space([1.0, 0.3], [(0.1, 10.0), (0.01, 5.0)])
-    squares = SumOfSquares(lambda p: p[0] * np.exp(-p[1] * t) - y, None)
-    value = squares(space.start)
-    done = drive(levenberg_marquardt(space, squares, np.zeros(2), value), squares)
-    assert space.to_user(done.point) == pytest.approx([2.0, 0.7], rel=1e-6)
-    assert done.value < 1e-12 and done.jacobian is not None
-
-
-def test_levenberg_marquardt_holds_a_parameter_the_gradient_pushes_out_of_its_bounds():
-    # r = (x0 - 3, x1 - 1): unconstrained minimum (3, 1); with x0 <= 2 the minimum is (2, 1)
-    space = build_space([1.0, 0.0], [(0.0, 2.0), (-5.0, 5.0)])
-    squares = SumOfSquares(lambda x: np.array([x[0] - 3.0, x[1] - 1.0]), None)
-    value = squares(space.start)
-    done = drive(levenberg_marquardt(space, squares, np.zeros(2), value), squares)
-    assert space.to_user(done.point) == pytest.approx([2.0, 1.0], rel=1e-8)
-    assert done.value == pytest.approx(1.0, rel=1e-8)
 
 
 def test_docstring_examples():

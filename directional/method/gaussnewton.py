@@ -1,0 +1,336 @@
+"""Derivative-free Gauss–Newton steps in a trust region, on the residual vector itself.
+
+Theory of operation.  Every evaluation of a calibration returns the whole residual vector
+``r(u)``, not just ``S = |r|²``.  This generator keeps a Jacobian ``J`` of ``r`` (scaled
+coordinates) and steps to the minimizer of the linear model ``|r + J p|²`` inside a trust region
+``|D p| <= radius``:
+
+- The first Jacobian is made by forward differences (``p`` evaluations in one batch).
+- The step solves the trust-region problem with Moré's (1978) Levenberg–Marquardt parameter: the
+  Gauss–Newton step when it fits in the region, else the damped step ``(JᵀJ + lambda D²) p = -Jᵀr``
+  whose scaled length is the radius to within a tenth.  ``D`` holds the largest column norms of
+  the Jacobians seen so far (Moré 1978, sec. 6), so that the region follows the parameters' own
+  sensitivity.
+- The radius is halved after a step whose actual decrease is below a quarter of the predicted
+  one, and set to twice the step after a step that earned three quarters (Moré 1978, sec. 7).
+- After every evaluation the Jacobian is moved by Broyden's (1965) rank-one secant update
+  ``J += (r_new - r - J p) pᵀ / pᵀp``, so that a step costs one evaluation.
+- A fresh forward-difference Jacobian is paid for only when the secant model proves poor: a step
+  earned less than a tenth of its prediction, or the model sees almost nothing left to gain
+  while its steps are not small.  A step the secant model rejects does not shrink the radius:
+  the model failed, not the region.
+- The end is decided on a central-difference Jacobian made at the point itself (a secant or
+  forward one would leave the fixed point of a wrong model): it is paid for when the cheaper
+  model sees nothing left, and it ends the search when its step is within a tenth of the point
+  tolerance of every parameter's size and its predicted decrease within ``value_tolerance``
+  relative to ``S`` (or the noise level), or it predicts no decrease above rounding and noise,
+  or the radius has shrunk below the point tolerance.  Otherwise its step is taken; after a
+  short one (within a hundred of those tolerances) the central Jacobian, moved by the secant
+  update, still decides, after a longer one the search goes on.  Without noise, a step too
+  small for S to show a decrease but larger than the point tolerance is taken on the model's
+  word, while such steps keep halving.  Never on a count of steps; the driver may end it early
+  by throwing `records.Halt` (budget, time, interrupt).
+
+Without noise the central differences use the step ``eps^(1/3)`` in scaled units: a check of
+the point that differences the residuals with that step gets its points back from the driver's
+cache.
+
+References
+----------
+.. [1] J. J. Moré, "The Levenberg–Marquardt algorithm: implementation and theory", in G. A.
+   Watson (ed.), *Numerical Analysis*, Lecture Notes in Mathematics 630, Springer, 1978, 105-116.
+.. [2] C. G. Broyden, "A class of methods for solving nonlinear simultaneous equations",
+   *Mathematics of Computation* 19 (1965) 577-593.
+.. [3] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
+   *Journal of the Society for Industrial and Applied Mathematics* 11 (1963) 431-441.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Generator
+
+import numpy as np
+
+from directional.method.leastsquares import (
+    DIFFERENCE_STEP,
+    Polished,
+    SumOfSquares,
+    central_jacobian,
+    forward_jacobian,
+    held_at_bounds,
+    magnitude,
+)
+from directional.method.space import Space
+from directional.records import Batch, Halt, Purpose, Stop
+
+EPSILON = float(np.finfo(float).eps)
+TINY = math.sqrt(float(np.finfo(float).tiny))  # its square is still a normal number
+FIRST_RADIUS = 100.0  # first radius, times |D x|: the first Gauss-Newton step is rarely cut (Moré 1978)
+POOR = 0.1  # a step that earned less than this share of its prediction: the model is poor
+SHRINK = 0.25  # below this share the radius is halved (Moré 1978)
+GROW = 0.75  # above it the radius becomes twice the step (ibid.)
+ROUNDING = 16.0 * EPSILON  # a decrease of S below this share of it is rounding
+ACCEPT = 1e-4  # a step is taken when it earned at least this share of its prediction (ibid.)
+NEAR = 100.0  # after a step this many (tight) tolerances long a central Jacobian still decides the end
+
+
+def gauss_newton(
+    space: Space,
+    squares: SumOfSquares,
+    u0: np.ndarray,
+    value: float,
+    *,
+    point_tolerance: float = 1e-6,
+    value_tolerance: float = 1e-10,
+    noise: float | None = None,
+) -> Generator[Batch, np.ndarray, Polished]:
+    """Gauss–Newton trust-region steps from scaled point ``u0`` (value ``value``), until converged.
+
+    ``noise`` (absolute, in units of S; None for rounding only) sets the floor of the decrease
+    worth having and the forward-difference step.  Returns where it ended, with the Jacobian at
+    that point and how it was made (``"forward"`` or ``"secant"``).
+    """
+    u, s = np.array(u0, dtype=float), float(value)
+    steps = 0
+    jacobian: np.ndarray | None = None
+    made: np.ndarray | None = None
+    kind = ""
+
+    central: np.ndarray | None = None  # the central-difference Jacobian made at u, if any
+
+    def ended(stop: Stop, reason: str = "") -> Polished:
+        made, how = (central, "central") if central is not None else (jacobian, kind)
+        return Polished(point=u, value=s, stop=stop, reason=reason, steps=steps,
+                        jacobian=made, jacobian_kind=how)
+
+    r = squares.vector(space.to_user(u))
+    if r is None:
+        return ended(Stop.STALLED, "no residuals at the start of the Gauss-Newton steps")
+    floor = 0.0 if noise is None else float(noise)
+    scales = np.zeros(space.size)
+    radius = math.nan
+    wanted = "forward"  # the Jacobian to make before the next step ("": keep the secant one)
+    blind = math.inf  # the length of the last step taken below what S can resolve
+    accurate = False  # the Jacobian is central, made here or a short step away (secant since)
+    try:
+        while True:
+            if wanted == "forward":
+                made = yield from forward_jacobian(
+                    space, squares, u, r, math.sqrt(relative_noise(noise, s)))
+            elif wanted == "central":
+                made = yield from central_jacobian(
+                    space, squares, u, central_step(noise, s, jacobian), point_tolerance)
+            if wanted == "forward" and made is None and jacobian is not None:
+                wanted, radius = "", 0.5 * radius  # the secant model, in a smaller region
+            elif wanted:
+                if made is None:
+                    return ended(Stop.STALLED, "an evaluation for the Jacobian failed")
+                jacobian, kind = made, wanted
+                central = made.copy() if wanted == "central" else None
+                accurate, wanted = central is not None, ""
+            assert jacobian is not None
+            scales = np.maximum(scales, np.sqrt(np.sum(jacobian**2, axis=0)))
+            d = np.where(scales > 0.0, scales, 1.0)
+            size = float(np.linalg.norm(d * magnitude(space, u)))
+            if not math.isfinite(radius):
+                radius = FIRST_RADIUS * size
+            held = held_at_bounds(space, u, jacobian, r)
+            p = bounded_step(jacobian, r, d, radius, u - space.lower_u, space.upper_u - u, held)
+            trial = u + p
+            length = float(np.linalg.norm(d * p))
+            predicted = s - float(np.sum((r + jacobian @ p) ** 2))
+            small = max(value_tolerance * s, floor)
+            seen = max(ROUNDING * s, floor)  # a decrease below this cannot be told from zero
+            # Steps within a tenth of the point tolerance of each parameter's own size (1e-3 of
+            # the problem's size at least: a parameter at zero), so that the slow last
+            # convergence of a large-residual fit leaves no larger error than the last step.
+            tight = 0.1 * point_tolerance * np.maximum(np.abs(space.origin / space.scale + u), 1e-3)
+            close = np.abs(p) <= tight
+            limited = length >= 0.9 * radius  # the region, not the model, set the step
+            if limited and radius <= point_tolerance * size:
+                # the region has shrunk to the point tolerance: decide on an accurate Jacobian
+                # whether the model's own (unlimited) step still sees a decrease
+                if not accurate:
+                    wanted = "central"
+                    continue
+                free = bounded_step(jacobian, r, d, math.inf, u - space.lower_u,
+                                    space.upper_u - u, held)
+                if s - float(np.sum((r + jacobian @ free) ** 2)) <= small:
+                    return ended(Stop.CONVERGED)
+                return ended(Stop.STALLED, "the trust region shrank to the point tolerance while "
+                             "the model still saw a decrease (failed or noisy points)")
+            if not limited and ((np.all(close) and predicted <= small) or not predicted > seen):
+                if not accurate:
+                    wanted = "central"
+                    continue
+                if np.all(close) or not length < 0.5 * blind or floor > 0.0:
+                    return ended(Stop.CONVERGED)  # on an accurate Jacobian made here: the end
+                # a step S cannot see but the point tolerance asks for: taken on the model's word
+                x = space.to_user(trial)
+                values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
+                new = squares.vector(x) if math.isfinite(values[0]) else None
+                if new is None or values[0] > s + seen:
+                    return ended(Stop.CONVERGED)
+                u, r, s, blind = trial, new, float(values[0]), length
+                steps += 1
+                central, accurate, wanted = None, False, "central"
+                continue
+            if predicted <= small and kind == "secant":
+                wanted = "forward"  # little left to gain by steps that are not small: stale
+                continue
+            x = space.to_user(trial)
+            values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
+            new = squares.vector(x) if math.isfinite(values[0]) else None
+            if new is None:
+                radius = 0.5 * length  # a failed point: try nearer (failures may be scattered)
+                continue
+            s_new = float(values[0])
+            actual = s - s_new
+            ratio = actual / predicted
+            jacobian = jacobian + np.outer(new - r - jacobian @ p, p) / float(p @ p)
+            stale, kind = kind == "secant", "secant"
+            if ratio < POOR and stale:
+                wanted = "forward"  # the secant model is poor, not the region: a fresh Jacobian
+            elif ratio < SHRINK:
+                radius = 0.5 * min(radius, length)
+            elif ratio >= GROW:
+                radius = max(radius, 2.0 * length)
+            if ratio >= ACCEPT:
+                u, r, s = trial, new, s_new
+                steps += 1
+                central = None
+                # a short step from an accurate Jacobian leaves it accurate (secant-updated)
+                accurate = accurate and bool(np.all(np.abs(p) <= NEAR * tight))
+    except Halt as halt:
+        return ended(halt.stop, halt.reason)
+
+
+def relative_noise(noise: float | None, value: float) -> float:
+    """The noise of the residuals relative to their size, at least the rounding ``eps``.
+
+    A noise ``e`` in each residual moves ``S`` by ``2 r·e``, of standard deviation ``2 |r| e``,
+    so the residuals' own level is ``noise / (2 sqrt(S))`` (``sqrt(noise)`` where ``S`` is nearly
+    zero); relative to ``|r| = sqrt(S)`` (common practice, no source).
+
+    >>> relative_noise(None, 25.0) == EPSILON, relative_noise(1e-6, 25.0)
+    (True, 2e-08)
+    """
+    if noise is None or not math.isfinite(noise) or noise <= 0.0:
+        return EPSILON
+    level = float(noise) / max(2.0 * math.sqrt(max(value, 0.0)), math.sqrt(float(noise)))
+    return max(EPSILON, level / max(math.sqrt(max(value, 0.0)), 1e-300))
+
+
+def central_step(
+    noise: float | None, value: float, jacobian: np.ndarray | None
+) -> np.ndarray | float:
+    """Steps of a central difference (scaled units): ``eps^(1/3)`` with no noise, else the step
+    that balances truncation ``h² T / 6`` against noise ``e / h`` (common practice, no source):
+    ``(3 e / c)^(1/3)`` with ``e`` the noise of one residual and ``c``, the largest entry of each
+    column of the last Jacobian, standing in for the third derivative ``T``.
+
+    Without noise the curvature check of a calibration differences the residuals at the same
+    points, so that they come back from the driver's cache.
+    """
+    if noise is None or not noise > 0.0 or jacobian is None:
+        return DIFFERENCE_STEP
+    level = relative_noise(noise, value) * math.sqrt(max(value, 0.0))  # absolute, one residual
+    c = np.max(np.abs(jacobian), axis=0)
+    with np.errstate(divide="ignore"):
+        return np.maximum(DIFFERENCE_STEP, np.where(c > 0.0, (3.0 * level / c) ** (1.0 / 3.0), 0.1))
+
+
+def bounded_step(
+    jacobian: np.ndarray,
+    r: np.ndarray,
+    d: np.ndarray,
+    radius: float,
+    below: np.ndarray,
+    above: np.ndarray,
+    held: np.ndarray,
+) -> np.ndarray:
+    """The trust-region step kept inside the bounds: the better of two candidates for the model.
+
+    ``below`` and ``above`` are the room from the point down to the lower and up to the upper
+    bounds; parameters ``held`` do not move.  The candidates (common practice, no source): the
+    unconstrained step cut back to the first bound it meets (along a descent direction of the
+    model, so it never raises the model), and the step re-solved with each parameter that would
+    leave its bounds fixed on that bound, repeated until none leaves.  The one that lowers the
+    model ``|r + J p|²`` more is returned.
+
+    >>> bounded_step(np.eye(2), np.array([-3.0, -4.0]), np.ones(2), 10.0,
+    ...              np.full(2, 10.0), np.array([1.0, 10.0]), np.zeros(2, bool))
+    array([1., 4.])
+    """
+    n = jacobian.shape[1]
+    p = trust_region_step(jacobian * ~held, r, d, radius)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        reach = np.where(p > 0.0, above / p, np.where(p < 0.0, -below / p, np.inf))
+    cut = min(1.0, float(np.min(reach))) * p
+    fixed, base, active = held.copy(), np.zeros(n), p
+    for _ in range(n):
+        leaving = ~fixed & ((active > above) | (active < -below))
+        if not leaving.any():
+            break
+        base = np.where(leaving, np.clip(active, -below, above), base)
+        fixed |= leaving
+        active = base + trust_region_step(jacobian * ~fixed, r + jacobian @ base, d, radius)
+    active = np.clip(active, -below, above)
+
+    def model(step: np.ndarray) -> float:
+        return float(np.sum((r + jacobian @ step) ** 2))
+
+    return active if model(active) < model(cut) else cut
+
+
+def trust_region_step(
+    jacobian: np.ndarray, r: np.ndarray, d: np.ndarray, radius: float
+) -> np.ndarray:
+    """The minimizer of ``|r + J p|²`` subject to ``|D p| <= radius`` (Moré 1978, sec. 5).
+
+    The Gauss–Newton step (minimum norm, through the SVD of ``J D⁻¹``) when it fits; else the
+    Levenberg–Marquardt step ``(JᵀJ + lambda D²) p = -Jᵀr`` with lambda found by Newton's method on
+    ``1/radius - 1/|D p(lambda)|`` (Hebden 1973, as in Moré 1978), to a tenth of the radius.
+    Columns of zeros (parameters held at a bound) get no step.
+
+    >>> trust_region_step(np.eye(2), np.array([-3.0, -4.0]), np.ones(2), 10.0)
+    array([3., 4.])
+    >>> trust_region_step(np.eye(2), np.array([-3.0, -4.0]), np.ones(2), 1.0).round(3)
+    array([0.6, 0.8])
+    """
+    u_, sigma, vt = np.linalg.svd(jacobian / d, full_matrices=False)
+    # singular values below rounding (or so small that their squares underflow) count as zero
+    kept = sigma > max(EPSILON * max(jacobian.shape) * (sigma[0] if sigma.size else 0.0), TINY)
+    b = -(u_.T @ r)
+    if kept.any():  # lambda in units of the largest sigma²: q(lambda) does not change
+        b, sigma = b / sigma[0], sigma / sigma[0]
+
+    def scaled(lam: float) -> np.ndarray:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            factor = np.where(kept, sigma / (sigma**2 + lam), 0.0)
+        return vt.T @ (factor * b)
+
+    q = scaled(0.0)
+    norm = float(np.linalg.norm(q))
+    if norm <= radius:
+        return q / d
+    lo, hi = 0.0, float(np.linalg.norm(sigma * b)) / radius  # |q(hi)| <= radius (Moré 1978)
+    lam = hi if hi > 0.0 else 0.0
+    for _ in range(60):
+        q = scaled(lam)
+        norm = float(np.linalg.norm(q))
+        if abs(norm - radius) <= 0.1 * radius:
+            break
+        if norm > radius:
+            lo = lam
+        else:
+            hi = lam
+        # d|q|/dlam = -sum(sigma² b² / (sigma² + lam)³) / |q|
+        with np.errstate(divide="ignore", invalid="ignore"):
+            slope = -float(np.sum(np.where(kept, sigma**2 * b**2 / (sigma**2 + lam) ** 3, 0.0))) / norm
+        newton = lam - (norm / radius) * (norm - radius) / slope if slope < 0.0 else math.nan
+        lam = newton if lo < newton < hi else (math.sqrt(lo * hi) if lo > 0.0 else 0.1 * hi)
+    if norm > 1.1 * radius:  # not found (rounding): the damped step cut back stays a descent
+        q = q * (radius / norm)
+    return q / d
