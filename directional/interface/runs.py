@@ -322,9 +322,9 @@ def replay(path: str | os.PathLike[str]) -> tuple[Any, journals.Contents]:
                 result = explore(_refuse, contents.header.parameters, journal=target,
                                  budget=contents.header.budget, total_budget=stored, **arguments)
             else:
-                # A calibration's search leaves part of its budget to Levenberg-Marquardt, so it
-                # replays under the budget it ran with, from the residual vectors its journal
-                # keeps; other runs replay up to their last stored evaluation.
+                # A calibration replays under the budget it ran with (its check and Jacobian come
+                # after the search), from the residual vectors its journal keeps; other runs
+                # replay up to their last stored evaluation.
                 calibration = contents.header.kind == "calibrate"
                 budget = contents.header.budget if calibration and contents.header.budget else stored
                 try:
