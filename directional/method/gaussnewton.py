@@ -129,8 +129,11 @@ def gauss_newton(
                 jacobian, kind = made, wanted
                 central = made.copy() if wanted == "central" else None
                 accurate, wanted = central is not None, ""
+                # the scales follow only Jacobians made by differences at a taken point: a
+                # secant update from a wild rejected step (residuals of 1e38 on MGH10) would
+                # otherwise raise D for good and collapse the region in user terms
+                scales = np.maximum(scales, np.sqrt(np.sum(jacobian**2, axis=0)))
             assert jacobian is not None
-            scales = np.maximum(scales, np.sqrt(np.sum(jacobian**2, axis=0)))
             d = np.where(scales > 0.0, scales, 1.0)
             size = float(np.linalg.norm(d * magnitude(space, u)))
             if not math.isfinite(radius):
