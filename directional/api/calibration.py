@@ -325,8 +325,12 @@ def checked(
     JᵀJ (large residuals), or the check could not finish, the full numerical Hessian decides
     (`directional.method.curvature.settle`, with its escapes from saddles), and a point it moves
     to is measured again for the uncertainty.  With ``check`` None, or a search that did not
-    converge, the verdict is UNCHECKED but the Jacobian is still measured.  Returns what was
-    settled, the mask of free parameters and the check (None when the stencil could not be had).
+    converge, the verdict is UNCHECKED but the Jacobian is still measured.  Where a point of the
+    check's own stencil is lower than the search's by more than the value tolerance (or four
+    times the noise), the search did not converge there: it is restarted from that point
+    (``restart``, at most `RESTARTS` times, as `curvature.settle` does after an escape), and
+    after that the verdict is UNCHECKED with a note that says why.  Returns what was settled,
+    the mask of free parameters and the check (None when the stencil could not be had).
     """
     def free_at(u: np.ndarray) -> np.ndarray:
         return ~space.on_bound(space.to_user(u), 10.0 * settings.point_tolerance)
@@ -617,9 +621,11 @@ def _search(
     derivative-based step cannot go), the direction-set search (`search.powell`), whose line
     searches bracket over plateaus and step around failures, runs from the start of this search
     for at most `GLOBAL_SHARE` evaluations per parameter; if it finds a lower sum of squares,
-    Gauss–Newton goes on from there.  Damped Gauss–Newton steps do not jump, so they stay in the
-    start's basin where a line search may leap across a pole of the model into another branch
-    (seen on NIST's Hahn1 from its second start): that is why they come first.
+    Gauss–Newton goes on from there.  If not, a stall stays STALLED (with its reason) unless the
+    direction-set search converged to the same point (a corner of a nonsmooth misfit).  Damped
+    Gauss–Newton steps do not jump, so they stay in the start's basin where a line search may
+    leap across a pole of the model into another branch (seen on NIST's Hahn1 from its second
+    start): that is why they come first.
     """
     u = np.zeros(space.size) if start is None else np.array(start, dtype=float)
     try:
