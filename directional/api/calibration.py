@@ -78,6 +78,8 @@ EPSILON = float(np.finfo(float).eps)
 STRONG = 0.95  # correlations beyond this are named in a warning
 CONFOUNDED = 10.0  # freeing a bound parameter would multiply a standard error by this: not separable
 UNDETERMINED = 1e-8  # relative singular value of the column-scaled Jacobian taken as zero
+NEAR = 100.0  # point tolerances: the direction-set search converged to the Gauss-Newton point
+RESTARTS = 3  # searches again from a lower point the check found, at most
 LEVEL = 0.95  # coverage of the intervals
 GLOBAL_SHARE = 40  # evaluations per parameter for the direction-set search where Gauss-Newton stalls
 
@@ -323,24 +325,57 @@ def checked(
     JᵀJ (large residuals), or the check could not finish, the full numerical Hessian decides
     (`directional.method.curvature.settle`, with its escapes from saddles), and a point it moves
     to is measured again for the uncertainty.  With ``check`` None, or a search that did not
-    converge, the verdict is UNCHECKED but the Jacobian is still measured.  Returns what was
-    settled, the mask of free parameters and the check (None when the stencil could not be had).
+    converge, the verdict is UNCHECKED but the Jacobian is still measured.  Where a point of the
+    check's own stencil is lower than the search's by more than the value tolerance (or four
+    times the noise), the search did not converge there: it is restarted from that point
+    (``restart``, at most `RESTARTS` times, as `curvature.settle` does after an escape), and
+    after that the verdict is UNCHECKED with a note that says why.  Returns what was settled,
+    the mask of free parameters and the check (None when the stencil could not be had).
     """
     def free_at(u: np.ndarray) -> np.ndarray:
         return ~space.on_bound(space.to_user(u), 10.0 * settings.point_tolerance)
 
-    if check is None or outcome.stop is not Stop.CONVERGED:
-        settled = yield from settle(space, settings, outcome, check=check, escapes=escapes,
-                                    noise=noise, budget=budget)  # no evaluation: says why
+    notes: list[str] = []
+    restarts = 0
+    while True:
+        if check is None or outcome.stop is not Stop.CONVERGED:
+            settled = yield from settle(space, settings, outcome, check=check, escapes=escapes,
+                                        noise=noise, budget=budget)  # no evaluation: says why
+            free = free_at(outcome.point)
+            fit = yield from check_fit(space, squares, outcome.point, outcome.value, free,
+                                       noise=noise)
+            return _noted(settled, notes), free, fit
+        before = yield SPENT
         free = free_at(outcome.point)
-        fit = yield from check_fit(space, squares, outcome.point, outcome.value, free, noise=noise)
-        return settled, free, fit
-    before = yield SPENT
-    free = free_at(outcome.point)
-    fit = yield from check_fit(space, squares, outcome.point, outcome.value, free, noise=noise)
+        fit, low, lowest = yield from watched(
+            check_fit(space, squares, outcome.point, outcome.value, free, noise=noise))
+        # a point of the check's own stencil far below the search's (more than the tolerance or
+        # the noise allows): the search did not converge there, whatever JᵀJ says (where the
+        # Hessian decides, `settle` escapes from saddles itself)
+        floor = max(settings.value_tolerance * max(1.0, abs(outcome.value)),
+                    4.0 * EPSILON * abs(outcome.value) if noise is None else 4.0 * float(noise))
+        decides = fit.verdict is not Verdict.UNCHECKED and not fit.large  # JᵀJ, not the Hessian
+        if decides and low is not None and lowest < outcome.value - floor:
+            where = _described(space, low)
+            if restarts < RESTARTS:
+                restarts += 1
+                notes.append(f"restart {restarts}: an evaluation of the check at {where} came out "
+                             f"lower by {outcome.value - lowest:.2g} than the search's "
+                             f"{outcome.value:.6g}; the search went on from there")
+                cycles = outcome.cycles
+                outcome = yield from restart(space.to_scaled(low))
+                outcome = dataclasses.replace(outcome, cycles=cycles + outcome.cycles)
+                continue
+            notes.append(f"not a minimum: after {restarts} restarts an evaluation of the check "
+                         f"at {where} still came out lower by {outcome.value - lowest:.2g}")
+            spent = (yield SPENT) - before
+            settled = _fit_settled(space, outcome, fit, free, spent)
+            settled = dataclasses.replace(settled, verdict=Verdict.UNCHECKED)
+            return _noted(settled, notes), free, (fit if fit.jacobian is not None else None)
+        break
     if fit.verdict is not Verdict.UNCHECKED and not fit.large:
         spent = (yield SPENT) - before
-        return _fit_settled(space, outcome, fit, free, spent), free, fit
+        return _noted(_fit_settled(space, outcome, fit, free, spent), notes), free, fit
     settled = yield from settle(space, settings, outcome, check=check, escapes=escapes,
                                 noise=noise, restart=restart, budget=budget)
     why = (f"the residuals' curvature is not small against JᵀJ (|q| up to {fit.ratio:.2g}): the "
@@ -351,7 +386,49 @@ def checked(
         free = free_at(settled.outcome.point)
         fit = yield from check_fit(space, squares, settled.outcome.point, settled.outcome.value,
                                    free, noise=noise)
-    return settled, free, (fit if fit.jacobian is not None else None)
+    return _noted(settled, notes), free, (fit if fit.jacobian is not None else None)
+
+
+def _noted(settled: Settled, notes: list[str]) -> Settled:
+    """``settled`` with the restarts' notes first."""
+    return dataclasses.replace(settled, notes=(*notes, *settled.notes)) if notes else settled
+
+
+def _described(space: Space, x: np.ndarray) -> str:
+    return "(" + ", ".join(f"{n}={v:.6g}" for n, v in zip(space.names, x)) + ")"
+
+
+def watched(
+    search: Generator[Request, Any, Any]
+) -> Generator[Request, Any, tuple[Any, np.ndarray | None, float]]:
+    """``search`` passed through, with the lowest finite value of its batches' points: returns
+    its result, that point (user coordinates; None when no point had a finite value) and value."""
+    low: np.ndarray | None = None
+    lowest = math.inf
+    try:
+        request = next(search)
+    except StopIteration as done:
+        return done.value, low, lowest
+    while True:
+        try:
+            answer = yield request
+        except Halt as halt:
+            try:
+                request = search.throw(halt)
+            except StopIteration as done:
+                return done.value, low, lowest
+            continue
+        if isinstance(request, Batch):
+            values = np.asarray(answer, dtype=float)
+            finite = np.isfinite(values)
+            if finite.any():
+                i = int(np.argmin(np.where(finite, values, np.inf)))
+                if values[i] < lowest:
+                    low, lowest = np.array(request.points[i], dtype=float), float(values[i])
+        try:
+            request = search.send(answer)
+        except StopIteration as done:
+            return done.value, low, lowest
 
 
 def _fit_settled(
@@ -544,9 +621,11 @@ def _search(
     derivative-based step cannot go), the direction-set search (`search.powell`), whose line
     searches bracket over plateaus and step around failures, runs from the start of this search
     for at most `GLOBAL_SHARE` evaluations per parameter; if it finds a lower sum of squares,
-    Gauss–Newton goes on from there.  Damped Gauss–Newton steps do not jump, so they stay in the
-    start's basin where a line search may leap across a pole of the model into another branch
-    (seen on NIST's Hahn1 from its second start): that is why they come first.
+    Gauss–Newton goes on from there.  If not, a stall stays STALLED (with its reason) unless the
+    direction-set search converged to the same point (a corner of a nonsmooth misfit).  Damped
+    Gauss–Newton steps do not jump, so they stay in the start's basin where a line search may
+    leap across a pole of the model into another branch (seen on NIST's Hahn1 from its second
+    start): that is why they come first.
     """
     u = np.zeros(space.size) if start is None else np.array(start, dtype=float)
     try:
@@ -579,6 +658,13 @@ def _search(
         # the check says what it is (a corner of a nonsmooth misfit stalls Gauss-Newton)
         note = ("the direction-set search from the start found nothing lower than the "
                 "Gauss-Newton steps")
+        near = np.abs(found.point - outcome.point) <= NEAR * settings.point_tolerance * np.maximum(
+            1.0, np.abs(outcome.point))
+        if polished.stop is Stop.STALLED and not (found.stop is Stop.CONVERGED and near.all()):
+            # unless the direction-set search converged to the same point (a corner of a
+            # nonsmooth misfit), the point passed none of the convergence tests: not converged
+            return dataclasses.replace(outcome, stop=Stop.STALLED, reason=polished.reason,
+                                       notes=(*outcome.notes, note))
         return dataclasses.replace(outcome, stop=Stop.CONVERGED, reason="",
                                    notes=(*outcome.notes, note))
     again = yield from gauss_newton(

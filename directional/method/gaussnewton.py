@@ -9,8 +9,9 @@ coordinates) and steps to the minimizer of the linear model ``|r + J p|²`` insi
 - The step solves the trust-region problem with Moré's (1978) Levenberg–Marquardt parameter: the
   Gauss–Newton step when it fits in the region, else the damped step ``(JᵀJ + lambda D²) p = -Jᵀr``
   whose scaled length is the radius to within a tenth.  ``D`` holds the largest column norms of
-  the Jacobians seen so far (Moré 1978, sec. 6), so that the region follows the parameters' own
-  sensitivity.
+  the Jacobians made by differences so far (Moré 1978, sec. 6), so that the region follows the
+  parameters' own sensitivity (not of secant updates: one after a wild rejected step would
+  raise ``D`` for good).
 - The radius is halved after a step whose actual decrease is below a quarter of the predicted
   one, and set to twice the step after a step that earned three quarters (Moré 1978, sec. 7).
 - After every evaluation the Jacobian is moved by Broyden's (1965) rank-one secant update
@@ -129,8 +130,11 @@ def gauss_newton(
                 jacobian, kind = made, wanted
                 central = made.copy() if wanted == "central" else None
                 accurate, wanted = central is not None, ""
+                # the scales follow only Jacobians made by differences at a taken point: a
+                # secant update from a wild rejected step (residuals of 1e38 on MGH10) would
+                # otherwise raise D for good and collapse the region in user terms
+                scales = np.maximum(scales, np.sqrt(np.sum(jacobian**2, axis=0)))
             assert jacobian is not None
-            scales = np.maximum(scales, np.sqrt(np.sum(jacobian**2, axis=0)))
             d = np.where(scales > 0.0, scales, 1.0)
             size = float(np.linalg.norm(d * magnitude(space, u)))
             if not math.isfinite(radius):

@@ -238,7 +238,7 @@ def test_workers_journal_is_the_serial_journal_in_order(tmp_path):
     assert run(problem, "--journal", tmp_path / "parallel.sqlite", "--workers", "2") == 0
     serial = journals.read(tmp_path / "serial.sqlite").evaluations
     parallel = journals.read(tmp_path / "parallel.sqlite").evaluations
-    assert len(serial) == len(parallel) > 30
+    assert len(serial) == len(parallel) > 20
     for one, two in zip(serial, parallel, strict=True):
         assert one.point.tobytes() == two.point.tobytes()
         assert (one.value, one.status, one.purpose, one.sequence) == (
@@ -328,13 +328,13 @@ def test_template_placeholder_naming_no_parameter_is_an_error_at_load(tmp_path):
 def test_crashing_program_fails_and_the_search_steps_around_it(tmp_path):
     crash = JSON_RESIDUALS.replace(
         'print("decay model: starting")',
-        'import os\nif 4.7 < a < 4.9: os.abort()\nprint("decay model: starting")')
+        'import os\nif 4.4 < a < 4.6: os.abort()\nprint("decay model: starting")')
     problem = json_problem(tmp_path)
     (tmp_path / "decay.py").write_text(crash)
     assert run(problem, "--journal", tmp_path / "j.sqlite", "--json", tmp_path / "o.json") in (0, 1)
     evaluations = journals.read(tmp_path / "j.sqlite").evaluations
     crashed = [e for e in evaluations if e.status == "failed"]
-    assert crashed and all(4.7 < e.point[0] < 4.9 for e in crashed)
+    assert crashed and all(4.4 < e.point[0] < 4.6 for e in crashed)
     assert all("SIGABRT" in e.detail for e in crashed)
     point = json.loads((tmp_path / "o.json").read_text())["point"]
     assert point["a"] == pytest.approx(5.03, abs=0.1)  # the fit, beyond the band that crashes
