@@ -61,7 +61,7 @@ from directional.method.curvature import (
     settled_solution,
 )
 from directional.method.fitcheck import GAUSS_NEWTON, FitCheck, check_fit
-from directional.method.gaussnewton import gauss_newton
+from directional.method.gaussnewton import gauss_newton, residual_level
 from directional.method.leastsquares import (
     Polished,
     Residuals,
@@ -514,7 +514,8 @@ def calibration(
     space = options.space
     level, noted = yield from planned_level(space, options.noise, options.replicates)
     settings = planned(options.settings, options.noise, level)
-    outcome = yield from _search(space, settings, squares, None, noise=level)
+    pooled = options.replicates > 1 and (options.noise is None or options.noise == "estimate")
+    outcome = yield from _search(space, settings, squares, None, noise=level, pooled=pooled)
     level = yield from pooled_level(options.noise, options.replicates, level)
     if outcome.noise is not None and level is None:  # noticed by the search: check above it too
         level, settings = outcome.noise, planned(settings, options.noise, outcome.noise)
@@ -522,7 +523,7 @@ def calibration(
     settled, free, fit = yield from checked(
         space, settings, outcome, squares, check=options.check, escapes=options.escapes,
         noise=level, budget=options.budget,
-        restart=lambda u: _search(space, settings, squares, u, noise=level),
+        restart=lambda u: _search(space, settings, squares, u, noise=level, pooled=pooled),
     )
     return settled, settings, noted, free, fit
 
@@ -534,9 +535,13 @@ def _search(
     start: np.ndarray | None,
     *,
     noise: float | None,
+    pooled: bool = False,
 ) -> Generator[Request, Any, Outcome]:
     """Gauss–Newton steps on the residual vector from ``start`` (scaled; None: the user's start),
     with the direction-set search as the globalization where they stall.
+
+    ``pooled``: the residuals' noise is the replicates' pooled spread (`SumOfSquares.spread`),
+    else it is derived from ``noise``, the level of S measured at the start.
 
     `gaussnewton.gauss_newton` keeps a secant Jacobian and stops on its model's own criteria.
     Where it stalls (an evaluation for its Jacobian failed) or ends on a plateau (the
@@ -560,9 +565,13 @@ def _search(
                     curvatures=np.full(space.size, np.nan), reason="the start point failed")
     if not math.isfinite(value):
         return empty
+    # the residuals' own noise: from the replicates' vectors, else from the level of S measured
+    # at the start (where S was ``value``); Gauss-Newton derives the noise of S at each point
+    sigma = (squares.spread([space.to_user(u)]) if pooled else None) or residual_level(
+        noise, value) or None
     polished = yield from gauss_newton(
         space, squares, u, value, point_tolerance=settings.point_tolerance,
-        value_tolerance=settings.value_tolerance, noise=noise,
+        value_tolerance=settings.value_tolerance, noise=noise, residual_noise=sigma,
     )
     outcome = _replaced(dataclasses.replace(empty, stop=Stop.CONVERGED, reason=""), polished,
                         "Gauss-Newton")
@@ -584,6 +593,7 @@ def _search(
     again = yield from gauss_newton(
         space, squares, found.point, found.value, point_tolerance=settings.point_tolerance,
         value_tolerance=settings.value_tolerance, noise=noise,
+        residual_noise=sigma,
     )
     how = "the direction-set search from the start, then Gauss-Newton"
     moved = dataclasses.replace(found, stop=Stop.CONVERGED, reason="", notes=outcome.notes)

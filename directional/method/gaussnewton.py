@@ -84,12 +84,17 @@ def gauss_newton(
     point_tolerance: float = 1e-6,
     value_tolerance: float = 1e-10,
     noise: float | None = None,
+    residual_noise: float | None = None,
 ) -> Generator[Batch, np.ndarray, Polished]:
     """Gauss–Newton trust-region steps from scaled point ``u0`` (value ``value``), until converged.
 
-    ``noise`` (absolute, in units of S; None for rounding only) sets the floor of the decrease
-    worth having and the forward-difference step.  Returns where it ended, with the Jacobian at
-    that point and how it was made (``"forward"`` or ``"secant"``).
+    ``noise`` (absolute, in units of S at ``u0``; None for rounding only) or, better,
+    ``residual_noise`` (the standard deviation of one entry of the residual vector the search
+    sees) sets the floor of the decrease worth having and the difference steps.  The noise of
+    S is not constant: it scales with the residuals' size (`value_noise`), so a level measured
+    in S at the start, where the residuals are large, is turned into the residuals' own level
+    once and the floor in S is derived from it at every point.  Returns where it ended, with
+    the Jacobian at that point and how it was made (``"forward"`` or ``"secant"``).
     """
     u, s = np.array(u0, dtype=float), float(value)
     steps = 0
@@ -107,7 +112,11 @@ def gauss_newton(
     r = squares.vector(space.to_user(u))
     if r is None:
         return ended(Stop.STALLED, "no residuals at the start of the Gauss-Newton steps")
-    floor = 0.0 if noise is None else float(noise)
+    sigma = residual_level(noise, value) if residual_noise is None else float(residual_noise)
+    if not sigma > 0.0:
+        sigma = 0.0
+    noise = value_noise(sigma, s, r.size) if sigma > 0.0 else None
+    floor = 0.0 if noise is None else noise
     scales = np.zeros(space.size)
     radius = math.nan
     wanted = "forward"  # the Jacobian to make before the next step ("": keep the secant one)
@@ -115,6 +124,8 @@ def gauss_newton(
     accurate = False  # the Jacobian is central, made here or a short step away (secant since)
     try:
         while True:
+            if sigma > 0.0:  # the noise of S here, from the residuals' own level
+                noise = floor = value_noise(sigma, s, r.size)
             if wanted == "forward":
                 made = yield from forward_jacobian(
                     space, squares, u, r, math.sqrt(relative_noise(noise, s)))
@@ -156,7 +167,23 @@ def gauss_newton(
                     continue
                 free = bounded_step(jacobian, r, d, math.inf, u - space.lower_u,
                                     space.upper_u - u, held)
-                if s - float(np.sum((r + jacobian @ free) ** 2)) <= small:
+                gain = s - float(np.sum((r + jacobian @ free) ** 2))
+                reach = float(np.linalg.norm(d * free))
+                if (gain > seen and not np.all(np.abs(free) <= tight) and reach < 0.5 * blind
+                        and floor == 0.0):
+                    # the region shrank on the poor steps of forward or secant Jacobians (an
+                    # ill-conditioned fit: NIST's MGH09), but the central one still steps
+                    # beyond the point tolerance: taken on its word, as a step S cannot see
+                    x = space.to_user(u + free)
+                    values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
+                    new = squares.vector(x) if math.isfinite(values[0]) else None
+                    if new is not None and not values[0] > s + seen:
+                        u, r, s, blind = u + free, new, float(values[0]), reach
+                        radius = max(radius, 2.0 * reach)
+                        steps += 1
+                        central, accurate, wanted = None, False, "central"
+                        continue
+                if gain <= small:
                     return ended(Stop.CONVERGED)
                 return ended(Stop.STALLED, "the trust region shrank to the point tolerance while "
                              "the model still saw a decrease (failed or noisy points)")
@@ -204,6 +231,34 @@ def gauss_newton(
                 accurate = accurate and bool(np.all(np.abs(p) <= NEAR * tight))
     except Halt as halt:
         return ended(halt.stop, halt.reason)
+
+
+def residual_level(noise: float | None, value: float) -> float:
+    """The standard deviation of one residual from the noise ``noise`` of S measured where
+    S is ``value``: the inverse of `value_noise` without its small second-order term,
+    ``noise / (2 sqrt(S))`` (``sqrt(noise)`` where S is nearly zero); 0 for no noise.
+
+    >>> residual_level(1e-6, 25.0)
+    1e-07
+    """
+    if noise is None or not math.isfinite(noise) or noise <= 0.0:
+        return 0.0
+    return float(noise) / max(2.0 * math.sqrt(max(value, 0.0)), math.sqrt(float(noise)))
+
+
+def value_noise(sigma: float, value: float, size: int) -> float:
+    """The standard deviation of ``S = |r + e|²`` when each of the ``size`` residuals carries
+    independent noise ``e`` of standard deviation ``sigma``: ``S = |r|² + 2 r·e + |e|²``, and for
+    normal ``e`` the two terms are uncorrelated with variances ``4 |r|² sigma²`` and
+    ``2 m sigma⁴`` (the variance of a scaled chi-square with m degrees of freedom), so
+    ``sqrt(4 S sigma² + 2 m sigma⁴)`` (common practice: the moments of a noncentral
+    chi-square, e.g. Johnson, Kotz & Balakrishnan, *Continuous Univariate Distributions* 2,
+    1995, ch. 29).  Near a small-residual minimum it is far below its value at the start.
+
+    >>> round(value_noise(0.01, 1.0, 7), 6)
+    0.020003
+    """
+    return math.sqrt(4.0 * max(value, 0.0) * sigma**2 + 2.0 * size * sigma**4)
 
 
 def relative_noise(noise: float | None, value: float) -> float:
