@@ -52,6 +52,7 @@ from collections.abc import Generator
 
 import numpy as np
 
+from directional.errors import ProblemError
 from directional.method.leastsquares import (
     DIFFERENCE_STEP,
     Polished,
@@ -60,6 +61,15 @@ from directional.method.leastsquares import (
     forward_jacobian,
     held_at_bounds,
     magnitude,
+)
+from directional.method.noise import (
+    DETECTED,
+    GROWTH,
+    TOO_SMALL,
+    detected_level,
+    difference_table,
+    offsets,
+    random_direction,
 )
 from directional.method.space import Space
 from directional.records import Batch, Halt, Purpose, Stop
@@ -85,6 +95,7 @@ def gauss_newton(
     value_tolerance: float = 1e-10,
     noise: float | None = None,
     residual_noise: float | None = None,
+    notice: bool = False,
 ) -> Generator[Batch, np.ndarray, Polished]:
     """Gauss–Newton trust-region steps from scaled point ``u0`` (value ``value``), until converged.
 
@@ -93,8 +104,11 @@ def gauss_newton(
     sees) sets the floor of the decrease worth having and the difference steps.  The noise of
     S is not constant: it scales with the residuals' size (`value_noise`), so a level measured
     in S at the start, where the residuals are large, is turned into the residuals' own level
-    once and the floor in S is derived from it at every point.  Returns where it ended, with
-    the Jacobian at that point and how it was made (``"forward"`` or ``"secant"``).
+    once and the floor in S is derived from it at every point.  ``notice`` (no noise stated):
+    where the steps would stall with rounding assumed, the residuals' noise is measured along a
+    line (`residual_noise_level`) and, if found, the steps start again above it.  Returns where
+    it ended, with the Jacobian at that point and how it was made (``"forward"`` or
+    ``"secant"``), and the residuals' noise noticed (None if none was).
     """
     u, s = np.array(u0, dtype=float), float(value)
     steps = 0
@@ -104,10 +118,12 @@ def gauss_newton(
 
     central: np.ndarray | None = None  # the central-difference Jacobian made at u, if any
 
+    heard: float | None = None  # the residuals' noise noticed here
+
     def ended(stop: Stop, reason: str = "") -> Polished:
         made, how = (central, "central") if central is not None else (jacobian, kind)
         return Polished(point=u, value=s, stop=stop, reason=reason, steps=steps,
-                        jacobian=made, jacobian_kind=how)
+                        jacobian=made, jacobian_kind=how, noise=heard)
 
     r = squares.vector(space.to_user(u))
     if r is None:
@@ -185,6 +201,15 @@ def gauss_newton(
                         continue
                 if gain <= small:
                     return ended(Stop.CONVERGED)
+                if notice and heard is None and sigma == 0.0:
+                    # a Jacobian differenced at rounding-sized steps of noisy residuals is
+                    # noise itself: measure the noise and start again with steps above it
+                    level = yield from residual_noise_level(space, squares, u)
+                    heard = level if math.isfinite(level) and level > 0.0 else 0.0
+                    if heard > 0.0:
+                        sigma, radius, scales = heard, math.nan, np.zeros(space.size)
+                        central, accurate, wanted = None, False, "forward"
+                        continue
                 return ended(Stop.STALLED, "the trust region shrank to the point tolerance while "
                              "the model still saw a decrease (failed or noisy points)")
             if not limited and ((np.all(close) and predicted <= small) or not predicted > seen):
@@ -231,6 +256,47 @@ def gauss_newton(
                 accurate = accurate and bool(np.all(np.abs(p) <= NEAR * tight))
     except Halt as halt:
         return ended(halt.stop, halt.reason)
+
+
+def residual_noise_level(
+    space: Space, squares: SumOfSquares, u: np.ndarray, *, points: int = 9, retries: int = 2
+) -> Generator[Batch, np.ndarray, float]:
+    """The noise of one residual near scaled point ``u`` (nan when none is detected).
+
+    Moré & Wild's (2011) difference table (`noise.difference_table`) of every residual along one
+    random direction (seed 0) through ``u``: one batch of ``points`` evaluations gives a table for
+    each entry of the vector.  The level is the median of the entries' detected levels when most
+    entries detect one; when most see steps too small the step grows a hundredfold, when most
+    see the smooth part it shrinks a hundredfold (ibid.), at most ``retries`` times.  No test for
+    values that spread too far: a residual near zero spreads by its noise alone.
+    """
+    direction = random_direction(space.size, np.random.default_rng(0))
+    lo, hi = space.segment(u, direction)
+    h = 1e-6
+    for _ in range(retries + 1):
+        try:
+            t = offsets(points, h, lo, hi)
+        except ProblemError:
+            return math.nan
+        xs = space.to_user(u + t[:, None] * direction)
+        values = yield Batch(points=xs, purpose=Purpose.NOISE)
+        vectors = [squares.vector(x) if math.isfinite(v) else None for x, v in zip(xs, values)]
+        if any(r is None for r in vectors):
+            return math.nan
+        stack = np.stack(vectors)  # type: ignore[arg-type]
+        found, verdicts = [], []
+        for column in stack.T:
+            levels, changes, status = difference_table(column, None)
+            verdicts.append(status)
+            if status == DETECTED:
+                found.append(detected_level(levels, changes)[0])
+        if 2 * len(found) > len(verdicts):
+            return float(np.median(found))
+        if 2 * verdicts.count(TOO_SMALL) > len(verdicts):
+            h *= GROWTH
+        else:
+            h /= GROWTH
+    return math.nan
 
 
 def residual_level(noise: float | None, value: float) -> float:
