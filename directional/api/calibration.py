@@ -604,7 +604,7 @@ def _search(
     again = yield from gauss_newton(
         space, squares, found.point, found.value, point_tolerance=settings.point_tolerance,
         value_tolerance=settings.value_tolerance, noise=noise,
-        residual_noise=sigma, notice=notice and sigma is None,
+        residual_noise=sigma, notice=notice and sigma is None and polished.noise is None,
     )
     how = "the direction-set search from the start, then Gauss-Newton"
     moved = dataclasses.replace(found, stop=Stop.CONVERGED, reason="", notes=outcome.notes)

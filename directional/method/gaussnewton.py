@@ -28,8 +28,17 @@ coordinates) and steps to the minimizer of the linear model ``|r + J p|²`` insi
   short one (within a hundred of those tolerances) the central Jacobian, moved by the secant
   update, still decides, after a longer one the search goes on.  Without noise, a step too
   small for S to show a decrease but larger than the point tolerance is taken on the model's
-  word, while such steps keep halving.  Never on a count of steps; the driver may end it early
-  by throwing `records.Halt` (budget, time, interrupt).
+  word, while such steps keep halving.  When the region has shrunk to the point tolerance on
+  the poor steps of forward or secant Jacobians (an ill-conditioned fit) while the central
+  Jacobian's own step is still longer than the tolerances, that step is taken the same way.
+  Never on a count of steps; the driver may end it early by throwing `records.Halt` (budget,
+  time, interrupt).
+- Noise: the floor of S is derived at every point from the residuals' own noise (`value_noise`;
+  the noise of S grows with the residuals, so a level of S measured at the start is far too
+  large near a small-residual minimum).  With no noise stated, steps that would stall measure
+  the residuals' noise along a line (`residual_noise_level`, Moré & Wild 2011) and, if it is
+  above rounding, start again with difference steps and floors above it (the forward step
+  ``sqrt(noise / |r|)`` relative, Moré & Wild 2012).
 
 Without noise the central differences use the step ``eps^(1/3)`` in scaled units: a check of
 the point that differences the residuals with that step gets its points back from the driver's
@@ -43,6 +52,10 @@ References
    *Mathematics of Computation* 19 (1965) 577-593.
 .. [3] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
    *Journal of the Society for Industrial and Applied Mathematics* 11 (1963) 431-441.
+.. [4] J. J. Moré and S. M. Wild, "Estimating computational noise", *SIAM Journal on Scientific
+   Computing* 33(3) (2011) 1292-1314.
+.. [5] J. J. Moré and S. M. Wild, "Estimating derivatives of noisy simulations", *ACM
+   Transactions on Mathematical Software* 38(3) (2012) 19:1-19:21.
 """
 
 from __future__ import annotations
@@ -205,7 +218,10 @@ def gauss_newton(
                     # a Jacobian differenced at rounding-sized steps of noisy residuals is
                     # noise itself: measure the noise and start again with steps above it
                     level = yield from residual_noise_level(space, squares, u)
-                    heard = level if math.isfinite(level) and level > 0.0 else 0.0
+                    # a level within a thousand roundings of the residuals is rounding, which
+                    # the steps already assume: a smooth misfit that stalls for other reasons
+                    rounding = 1e3 * EPSILON * float(np.max(np.abs(r)))
+                    heard = level if math.isfinite(level) and level > rounding else 0.0
                     if heard > 0.0:
                         sigma, radius, scales = heard, math.nan, np.zeros(space.size)
                         central, accurate, wanted = None, False, "forward"

@@ -229,7 +229,7 @@ class Polished:
     steps: int
     jacobian: np.ndarray | None = None  # at ``point`` (scaled coordinates), when one was made
     jacobian_kind: str = ""  # how: "forward", "central" (differences) or "secant" (Broyden 1965)
-    noise: float | None = None  # the residuals' noise the steps noticed and worked above, if any
+    noise: float | None = None  # the residuals' noise the steps noticed (0: measured, none found)
 
 
 def room_to_bounds(space: Space, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
