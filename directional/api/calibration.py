@@ -61,7 +61,7 @@ from directional.method.curvature import (
     settled_solution,
 )
 from directional.method.fitcheck import GAUSS_NEWTON, FitCheck, check_fit
-from directional.method.gaussnewton import gauss_newton
+from directional.method.gaussnewton import gauss_newton, residual_level, value_noise
 from directional.method.leastsquares import (
     Polished,
     Residuals,
@@ -591,7 +591,10 @@ def calibration(
     space = options.space
     level, noted = yield from planned_level(space, options.noise, options.replicates)
     settings = planned(options.settings, options.noise, level)
-    outcome = yield from _search(space, settings, squares, None, noise=level)
+    pooled = options.replicates > 1 and (options.noise is None or options.noise == "estimate")
+    notice = options.noise is None and level is None
+    outcome = yield from _search(space, settings, squares, None, noise=level, pooled=pooled,
+                                 notice=notice)
     level = yield from pooled_level(options.noise, options.replicates, level)
     if outcome.noise is not None and level is None:  # noticed by the search: check above it too
         level, settings = outcome.noise, planned(settings, options.noise, outcome.noise)
@@ -599,7 +602,7 @@ def calibration(
     settled, free, fit = yield from checked(
         space, settings, outcome, squares, check=options.check, escapes=options.escapes,
         noise=level, budget=options.budget,
-        restart=lambda u: _search(space, settings, squares, u, noise=level),
+        restart=lambda u: _search(space, settings, squares, u, noise=level, pooled=pooled),
     )
     return settled, settings, noted, free, fit
 
@@ -611,9 +614,16 @@ def _search(
     start: np.ndarray | None,
     *,
     noise: float | None,
+    pooled: bool = False,
+    notice: bool = False,
 ) -> Generator[Request, Any, Outcome]:
     """Gauss–Newton steps on the residual vector from ``start`` (scaled; None: the user's start),
     with the direction-set search as the globalization where they stall.
+
+    ``pooled``: the residuals' noise is the replicates' pooled spread (`SumOfSquares.spread`),
+    else it is derived from ``noise``, the level of S measured at the start.  ``notice`` (no
+    noise stated): Gauss–Newton measures the residuals' noise where it would stall, and the
+    outcome carries the noise of S it implies at the end (`Outcome.noise`) for the check.
 
     `gaussnewton.gauss_newton` keeps a secant Jacobian and stops on its model's own criteria.
     Where it stalls (an evaluation for its Jacobian failed) or ends on a plateau (the
@@ -639,13 +649,23 @@ def _search(
                     curvatures=np.full(space.size, np.nan), reason="the start point failed")
     if not math.isfinite(value):
         return empty
+    # the residuals' own noise: from the replicates' vectors, else from the level of S measured
+    # at the start (where S was ``value``); Gauss-Newton derives the noise of S at each point
+    sigma = (squares.spread([space.to_user(u)]) if pooled else None) or residual_level(
+        noise, value) or None
     polished = yield from gauss_newton(
         space, squares, u, value, point_tolerance=settings.point_tolerance,
-        value_tolerance=settings.value_tolerance, noise=noise,
+        value_tolerance=settings.value_tolerance, noise=noise, residual_noise=sigma,
+        notice=notice,
     )
+    if polished.noise:
+        sigma = polished.noise
     outcome = _replaced(dataclasses.replace(empty, stop=Stop.CONVERGED, reason=""), polished,
                         "Gauss-Newton")
     outcome = dataclasses.replace(outcome, cycles=polished.steps)
+    if polished.noise:  # noticed: the noise of S at the end, from the residuals' own
+        outcome = dataclasses.replace(outcome, noise=value_noise(
+            polished.noise, outcome.value, polished_size(squares, space, outcome.point)))
     if not _stuck(polished):
         return outcome
     spent = yield SPENT
@@ -670,11 +690,22 @@ def _search(
     again = yield from gauss_newton(
         space, squares, found.point, found.value, point_tolerance=settings.point_tolerance,
         value_tolerance=settings.value_tolerance, noise=noise,
+        residual_noise=sigma, notice=notice and sigma is None and polished.noise is None,
     )
     how = "the direction-set search from the start, then Gauss-Newton"
     moved = dataclasses.replace(found, stop=Stop.CONVERGED, reason="", notes=outcome.notes)
-    return dataclasses.replace(_replaced(moved, again, how),
-                               cycles=outcome.cycles + found.cycles + again.steps)
+    final = dataclasses.replace(_replaced(moved, again, how),
+                                cycles=outcome.cycles + found.cycles + again.steps)
+    if again.noise:
+        final = dataclasses.replace(final, noise=value_noise(
+            again.noise, final.value, polished_size(squares, space, final.point)))
+    return final
+
+
+def polished_size(squares: SumOfSquares, space: Space, u: np.ndarray) -> int:
+    """The number of residuals (that of the vector at ``u``, else the run's)."""
+    r = squares.vector(space.to_user(u))
+    return int(r.size) if r is not None else int(squares.size or 1)
 
 
 def _stuck(polished: Polished) -> bool:

@@ -29,8 +29,17 @@ coordinates) and steps to the minimizer of the linear model ``|r + J p|²`` insi
   short one (within a hundred of those tolerances) the central Jacobian, moved by the secant
   update, still decides, after a longer one the search goes on.  Without noise, a step too
   small for S to show a decrease but larger than the point tolerance is taken on the model's
-  word, while such steps keep halving.  Never on a count of steps; the driver may end it early
-  by throwing `records.Halt` (budget, time, interrupt).
+  word, while such steps keep halving.  When the region has shrunk to the point tolerance on
+  the poor steps of forward or secant Jacobians (an ill-conditioned fit) while the central
+  Jacobian's own step is still longer than the tolerances, that step is taken the same way.
+  Never on a count of steps; the driver may end it early by throwing `records.Halt` (budget,
+  time, interrupt).
+- Noise: the floor of S is derived at every point from the residuals' own noise (`value_noise`;
+  the noise of S grows with the residuals, so a level of S measured at the start is far too
+  large near a small-residual minimum).  With no noise stated, steps that would stall measure
+  the residuals' noise along a line (`residual_noise_level`, Moré & Wild 2011) and, if it is
+  above rounding, start again with difference steps and floors above it (the forward step
+  ``sqrt(noise / |r|)`` relative, Moré & Wild 2012).
 
 Without noise the central differences use the step ``eps^(1/3)`` in scaled units: a check of
 the point that differences the residuals with that step gets its points back from the driver's
@@ -44,6 +53,10 @@ References
    *Mathematics of Computation* 19 (1965) 577-593.
 .. [3] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
    *Journal of the Society for Industrial and Applied Mathematics* 11 (1963) 431-441.
+.. [4] J. J. Moré and S. M. Wild, "Estimating computational noise", *SIAM Journal on Scientific
+   Computing* 33(3) (2011) 1292-1314.
+.. [5] J. J. Moré and S. M. Wild, "Estimating derivatives of noisy simulations", *ACM
+   Transactions on Mathematical Software* 38(3) (2012) 19:1-19:21.
 """
 
 from __future__ import annotations
@@ -53,6 +66,7 @@ from collections.abc import Generator
 
 import numpy as np
 
+from directional.errors import ProblemError
 from directional.method.leastsquares import (
     DIFFERENCE_STEP,
     Polished,
@@ -61,6 +75,15 @@ from directional.method.leastsquares import (
     forward_jacobian,
     held_at_bounds,
     magnitude,
+)
+from directional.method.noise import (
+    DETECTED,
+    GROWTH,
+    TOO_SMALL,
+    detected_level,
+    difference_table,
+    offsets,
+    random_direction,
 )
 from directional.method.space import Space
 from directional.records import Batch, Halt, Purpose, Stop
@@ -85,12 +108,21 @@ def gauss_newton(
     point_tolerance: float = 1e-6,
     value_tolerance: float = 1e-10,
     noise: float | None = None,
+    residual_noise: float | None = None,
+    notice: bool = False,
 ) -> Generator[Batch, np.ndarray, Polished]:
     """Gauss–Newton trust-region steps from scaled point ``u0`` (value ``value``), until converged.
 
-    ``noise`` (absolute, in units of S; None for rounding only) sets the floor of the decrease
-    worth having and the forward-difference step.  Returns where it ended, with the Jacobian at
-    that point and how it was made (``"forward"`` or ``"secant"``).
+    ``noise`` (absolute, in units of S at ``u0``; None for rounding only) or, better,
+    ``residual_noise`` (the standard deviation of one entry of the residual vector the search
+    sees) sets the floor of the decrease worth having and the difference steps.  The noise of
+    S is not constant: it scales with the residuals' size (`value_noise`), so a level measured
+    in S at the start, where the residuals are large, is turned into the residuals' own level
+    once and the floor in S is derived from it at every point.  ``notice`` (no noise stated):
+    where the steps would stall with rounding assumed, the residuals' noise is measured along a
+    line (`residual_noise_level`) and, if found, the steps start again above it.  Returns where
+    it ended, with the Jacobian at that point and how it was made (``"forward"`` or
+    ``"secant"``), and the residuals' noise noticed (None if none was).
     """
     u, s = np.array(u0, dtype=float), float(value)
     steps = 0
@@ -100,15 +132,21 @@ def gauss_newton(
 
     central: np.ndarray | None = None  # the central-difference Jacobian made at u, if any
 
+    heard: float | None = None  # the residuals' noise noticed here
+
     def ended(stop: Stop, reason: str = "") -> Polished:
         made, how = (central, "central") if central is not None else (jacobian, kind)
         return Polished(point=u, value=s, stop=stop, reason=reason, steps=steps,
-                        jacobian=made, jacobian_kind=how)
+                        jacobian=made, jacobian_kind=how, noise=heard)
 
     r = squares.vector(space.to_user(u))
     if r is None:
         return ended(Stop.STALLED, "no residuals at the start of the Gauss-Newton steps")
-    floor = 0.0 if noise is None else float(noise)
+    sigma = residual_level(noise, value) if residual_noise is None else float(residual_noise)
+    if not sigma > 0.0:
+        sigma = 0.0
+    noise = value_noise(sigma, s, r.size) if sigma > 0.0 else None
+    floor = 0.0 if noise is None else noise
     scales = np.zeros(space.size)
     radius = math.nan
     wanted = "forward"  # the Jacobian to make before the next step ("": keep the secant one)
@@ -116,6 +154,8 @@ def gauss_newton(
     accurate = False  # the Jacobian is central, made here or a short step away (secant since)
     try:
         while True:
+            if sigma > 0.0:  # the noise of S here, from the residuals' own level
+                noise = floor = value_noise(sigma, s, r.size)
             if wanted == "forward":
                 made = yield from forward_jacobian(
                     space, squares, u, r, math.sqrt(relative_noise(noise, s)))
@@ -160,8 +200,36 @@ def gauss_newton(
                     continue
                 free = bounded_step(jacobian, r, d, math.inf, u - space.lower_u,
                                     space.upper_u - u, held)
-                if s - float(np.sum((r + jacobian @ free) ** 2)) <= small:
+                gain = s - float(np.sum((r + jacobian @ free) ** 2))
+                reach = float(np.linalg.norm(d * free))
+                if (gain > seen and not np.all(np.abs(free) <= tight) and reach < 0.5 * blind
+                        and floor == 0.0):
+                    # the region shrank on the poor steps of forward or secant Jacobians (an
+                    # ill-conditioned fit: NIST's MGH09), but the central one still steps
+                    # beyond the point tolerance: taken on its word, as a step S cannot see
+                    x = space.to_user(u + free)
+                    values = yield Batch(points=x[None, :], purpose=Purpose.GAUSS_NEWTON)
+                    new = squares.vector(x) if math.isfinite(values[0]) else None
+                    if new is not None and not values[0] > s + seen:
+                        u, r, s, blind = u + free, new, float(values[0]), reach
+                        radius = max(radius, 2.0 * reach)
+                        steps += 1
+                        central, accurate, wanted = None, False, "central"
+                        continue
+                if gain <= small:
                     return ended(Stop.CONVERGED)
+                if notice and heard is None and sigma == 0.0:
+                    # a Jacobian differenced at rounding-sized steps of noisy residuals is
+                    # noise itself: measure the noise and start again with steps above it
+                    level = yield from residual_noise_level(space, squares, u)
+                    # a level within a thousand roundings of the residuals is rounding, which
+                    # the steps already assume: a smooth misfit that stalls for other reasons
+                    rounding = 1e3 * EPSILON * float(np.max(np.abs(r)))
+                    heard = level if math.isfinite(level) and level > rounding else 0.0
+                    if heard > 0.0:
+                        sigma, radius, scales = heard, math.nan, np.zeros(space.size)
+                        central, accurate, wanted = None, False, "forward"
+                        continue
                 return ended(Stop.STALLED, "the trust region shrank to the point tolerance while "
                              "the model still saw a decrease (failed or noisy points)")
             if not limited and ((np.all(close) and predicted <= small) or not predicted > seen):
@@ -208,6 +276,75 @@ def gauss_newton(
                 accurate = accurate and bool(np.all(np.abs(p) <= NEAR * tight))
     except Halt as halt:
         return ended(halt.stop, halt.reason)
+
+
+def residual_noise_level(
+    space: Space, squares: SumOfSquares, u: np.ndarray, *, points: int = 9, retries: int = 2
+) -> Generator[Batch, np.ndarray, float]:
+    """The noise of one residual near scaled point ``u`` (nan when none is detected).
+
+    Moré & Wild's (2011) difference table (`noise.difference_table`) of every residual along one
+    random direction (seed 0) through ``u``: one batch of ``points`` evaluations gives a table for
+    each entry of the vector.  The level is the median of the entries' detected levels when most
+    entries detect one; when most see steps too small the step grows a hundredfold, when most
+    see the smooth part it shrinks a hundredfold (ibid.), at most ``retries`` times.  No test for
+    values that spread too far: a residual near zero spreads by its noise alone.
+    """
+    direction = random_direction(space.size, np.random.default_rng(0))
+    lo, hi = space.segment(u, direction)
+    h = 1e-6
+    for _ in range(retries + 1):
+        try:
+            t = offsets(points, h, lo, hi)
+        except ProblemError:
+            return math.nan
+        xs = space.to_user(u + t[:, None] * direction)
+        values = yield Batch(points=xs, purpose=Purpose.NOISE)
+        vectors = [squares.vector(x) if math.isfinite(v) else None for x, v in zip(xs, values)]
+        if any(r is None for r in vectors):
+            return math.nan
+        stack = np.stack(vectors)  # type: ignore[arg-type]
+        found, verdicts = [], []
+        for column in stack.T:
+            levels, changes, status = difference_table(column, None)
+            verdicts.append(status)
+            if status == DETECTED:
+                found.append(detected_level(levels, changes)[0])
+        if 2 * len(found) > len(verdicts):
+            return float(np.median(found))
+        if 2 * verdicts.count(TOO_SMALL) > len(verdicts):
+            h *= GROWTH
+        else:
+            h /= GROWTH
+    return math.nan
+
+
+def residual_level(noise: float | None, value: float) -> float:
+    """The standard deviation of one residual from the noise ``noise`` of S measured where
+    S is ``value``: the inverse of `value_noise` without its small second-order term,
+    ``noise / (2 sqrt(S))`` (``sqrt(noise)`` where S is nearly zero); 0 for no noise.
+
+    >>> residual_level(1e-6, 25.0)
+    1e-07
+    """
+    if noise is None or not math.isfinite(noise) or noise <= 0.0:
+        return 0.0
+    return float(noise) / max(2.0 * math.sqrt(max(value, 0.0)), math.sqrt(float(noise)))
+
+
+def value_noise(sigma: float, value: float, size: int) -> float:
+    """The standard deviation of ``S = |r + e|²`` when each of the ``size`` residuals carries
+    independent noise ``e`` of standard deviation ``sigma``: ``S = |r|² + 2 r·e + |e|²``, and for
+    normal ``e`` the two terms are uncorrelated with variances ``4 |r|² sigma²`` and
+    ``2 m sigma⁴`` (the variance of a scaled chi-square with m degrees of freedom), so
+    ``sqrt(4 S sigma² + 2 m sigma⁴)`` (common practice: the moments of a noncentral
+    chi-square, e.g. Johnson, Kotz & Balakrishnan, *Continuous Univariate Distributions* 2,
+    1995, ch. 29).  Near a small-residual minimum it is far below its value at the start.
+
+    >>> round(value_noise(0.01, 1.0, 7), 6)
+    0.020003
+    """
+    return math.sqrt(4.0 * max(value, 0.0) * sigma**2 + 2.0 * size * sigma**4)
 
 
 def relative_noise(noise: float | None, value: float) -> float:

@@ -23,7 +23,7 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Generator, Sequence
+from collections.abc import Callable, Generator, Iterable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -107,6 +107,33 @@ class SumOfSquares:
         else:
             self.vectors[key] = r
         return value
+
+    def spread(self, points: Iterable[np.ndarray]) -> float | None:
+        """The noise of one entry of the mean vector the search sees, from the replicates.
+
+        The pooled sample variance of the runs' entries about their point's mean, over the
+        ``points`` (user units; those the search has been sent, so that a resumed run, which
+        knows every stored run from the outset, decides the same) with two or more finite runs
+        and every entry (each point gives ``m (k - 1)``
+        degrees of freedom), divided by ``k`` for the mean of ``k`` runs (the pooled variance,
+        common practice, e.g. Box, Hunter & Hunter, *Statistics for Experimenters*, 2005,
+        sec. 3.1).  None without replicates or without two runs of any point.
+        """
+        if self.replicates < 2:
+            return None
+        squares, freedom, counts = 0.0, 0, []
+        for x in points:
+            runs = self.runs.get(np.asarray(x, dtype=float).tobytes(), [])
+            good = [r for _, r in runs if r.size and np.all(np.isfinite(r))]
+            if len(good) < 2 or len({r.size for r in good}) != 1:
+                continue
+            stack = np.stack(good)
+            squares += float(np.sum((stack - stack.mean(axis=0)) ** 2))
+            freedom += stack.shape[1] * (len(good) - 1)
+            counts.append(len(good))
+        if freedom == 0:
+            return None
+        return math.sqrt(squares / freedom / float(np.mean(counts)))
 
     def journaled(self, evaluation: object) -> np.ndarray | None:
         """The residual vector of one evaluation (a `run.driver.Evaluation`), for the journal."""
@@ -202,6 +229,7 @@ class Polished:
     steps: int
     jacobian: np.ndarray | None = None  # at ``point`` (scaled coordinates), when one was made
     jacobian_kind: str = ""  # how: "forward", "central" (differences) or "secant" (Broyden 1965)
+    noise: float | None = None  # the residuals' noise the steps noticed (0: measured, none found)
 
 
 def room_to_bounds(space: Space, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

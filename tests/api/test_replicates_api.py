@@ -11,11 +11,13 @@ from __future__ import annotations
 
 import math
 import sqlite3
+import warnings
 
 import numpy as np
 import pytest
 
 import directional as dl
+from directional.records import Stop, Verdict
 
 T = np.linspace(0.0, 3.0, 7)
 DATA = 2.0 * np.exp(-0.5 * T)  # invented: a decay with amplitude 2 and rate 0.5, no noise in the data
@@ -88,3 +90,15 @@ def test_explore_runs_the_replicates_of_many_starts_on_a_process_pool():
         assert minimum.spread.replicates == 2
         assert abs(abs(minimum.point[0]) - 1.0) < 0.05 and abs(minimum.point[1]) < 0.1
     assert any("noise from the 2 replicates" in note for note in land.notes)
+
+
+def test_one_run_per_point_notices_the_residuals_noise_converges_and_is_checked():
+    # with rounding-sized difference steps the first Jacobian of NoisyDecay is noise: the
+    # Gauss-Newton steps measure the residuals' noise (Moré & Wild 2011) and work above it
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        sol = dl.calibrate(NoisyDecay(), [1.0, 1.0], names=["a", "k"])
+    assert sol.stop is Stop.CONVERGED and sol.verdict is not Verdict.UNCHECKED
+    assert any("noticed" in note for note in sol.notes)
+    # the decay the data were made from (invented, known): amplitude 2, rate 0.5
+    assert sol.point == pytest.approx([2.0, 0.5], abs=0.03)

@@ -130,3 +130,35 @@ def test_the_trust_region_step_stays_in_the_region_and_never_raises_the_model(ja
 
 def test_docstring_examples():
     assert doctest.testmod(gaussnewton).failed == 0
+
+
+def test_the_noise_of_a_sum_of_squares_matches_its_sampled_spread():
+    # the variance of |r + e|² for normal e: 4|r|²sigma² + 2m sigma⁴ (moments of a noncentral
+    # chi-square, Johnson, Kotz & Balakrishnan 1995, ch. 29); checked against numpy's sampling
+    rng = np.random.default_rng(5)
+    r, sigma = np.array([0.3, -0.2, 0.1, 0.05]), 0.02
+    samples = np.sum((r + sigma * rng.standard_normal((200_000, r.size))) ** 2, axis=1)
+    expected = gaussnewton.value_noise(sigma, float(r @ r), r.size)
+    assert float(np.std(samples)) == pytest.approx(expected, rel=0.02)
+    # far from the minimum the same residual noise moves S ten times more (|r| ten times larger)
+    assert gaussnewton.value_noise(sigma, 100 * float(r @ r), r.size) > 9 * expected
+
+
+def test_the_residuals_noise_is_measured_along_a_line_and_the_steps_work_above_it():
+    # Moré & Wild 2011: a difference table finds noise of standard deviation 0.01 added to each
+    # residual of a smooth model (invented data); the steps then converge instead of stalling
+    rng = np.random.default_rng(3)
+
+    def noisy(x):
+        return linear(x) + 0.01 * rng.standard_normal(B.size)
+
+    space = build_space([5.0, -5.0])
+    squares = SumOfSquares(noisy, None)
+    level = drive(gaussnewton.residual_noise_level(space, squares, np.zeros(2)), squares)
+    assert 0.005 < level < 0.02
+    start = squares(space.start)
+    done = drive(gauss_newton(space, squares, np.zeros(2), start, notice=True), squares)
+    best, *_ = np.linalg.lstsq(A, B, rcond=None)
+    assert done.stop is Stop.CONVERGED and 0.005 < done.noise < 0.02  # noticed, not stalled
+    # the least-squares estimate moves by about 0.01 / (smallest singular value of A) ≈ 0.004
+    assert space.to_user(done.point) == pytest.approx(best, abs=0.03)
