@@ -1,10 +1,10 @@
 """`dl.calibrate` on the harder NIST StRD sets, from the starts where it reaches NIST's values today.
 
-The files (tests/reference/nist-strd, MGH09, MGH17, Rat42, Rat43) were written from memory and
-are cross-checked in tests/test_recalled_reference.py (tests/reference/README.md says how).  The
-runs `calibrate` misses today are listed by `benchmarks/calibration.py` in
-benchmarks/results/calibration.md (MGH09 and MGH17 from start 1, MGH10 from both starts), not
-here.
+The files (tests/reference/nist-strd, MGH09, MGH10, MGH17, Rat42, Rat43) were written from memory
+and are cross-checked in tests/test_recalled_reference.py (tests/reference/README.md says how).
+The one run `calibrate` misses today, MGH09 from start 1 (its budget of 5000 runs out while it
+creeps towards a minimum at infinity), is listed by `benchmarks/calibration.py` in
+benchmarks/results/calibration.md, not here.
 """
 
 from __future__ import annotations
@@ -21,8 +21,9 @@ import directional as dl
 from directional.records import Verdict
 
 NIST = REFERENCE / "nist-strd"
-PASSING = [("MGH09", "start2"), ("MGH17", "start2"), ("Rat42", "start1"), ("Rat42", "start2"),
-           ("Rat43", "start1"), ("Rat43", "start2")]
+PASSING = [("MGH09", "start2"), ("MGH10", "start1"), ("MGH10", "start2"), ("MGH17", "start1"),
+           ("MGH17", "start2"), ("Rat42", "start1"), ("Rat42", "start2"), ("Rat43", "start1"),
+           ("Rat43", "start2")]
 
 
 def nist(name: str) -> tuple[dict, object]:
