@@ -170,7 +170,7 @@ def uncertainty(
     se_free[involved] = np.inf
     errors = np.full(n, np.nan)
     errors[free] = se_free
-    known = np.isfinite(errors)
+    known = np.isfinite(errors) & (errors > 0.0)  # a perfect fit (S = 0): no correlation to show
     correlation = np.full((n, n), np.nan)
     correlation[np.ix_(known, known)] = covariance[np.ix_(known, known)] / np.outer(
         errors[known], errors[known]
