@@ -12,6 +12,11 @@ coordinates) and steps to the minimizer of the linear model ``|r + J p|²`` insi
   the Jacobians made by differences so far (Moré 1978, sec. 6), so that the region follows the
   parameters' own sensitivity (not of secant updates: one after a wild rejected step would
   raise ``D`` for good).
+- The first radius is ``|D x|``, the size of the start itself (Moré's factor 1, inside the 0.1
+  to 100 his MINPACK guide allows): with a hundred, the first Gauss-Newton step of the linear
+  model at NIST's MGH09 start 1 was taken whole and threw the parameters thirty times past the
+  data's scale, onto the side (b1 < 0, b2 = c / b1 -> -inf) where S falls along a valley to
+  infinity towards about 9.45e-4, three times the certified minimum: no finite step leaves it.
 - The radius is halved after a step whose actual decrease is below a quarter of the predicted
   one, and set to twice the step after a step that earned three quarters (Moré 1978, sec. 7).
 - After every evaluation the Jacobian is moved by Broyden's (1965) rank-one secant update
@@ -90,7 +95,7 @@ from directional.records import Batch, Halt, Purpose, Stop
 
 EPSILON = float(np.finfo(float).eps)
 TINY = math.sqrt(float(np.finfo(float).tiny))  # its square is still a normal number
-FIRST_RADIUS = 100.0  # first radius, times |D x|: the first Gauss-Newton step is rarely cut (Moré 1978)
+FIRST_RADIUS = 1.0  # first radius, times |D x| (Moré 1978, sec. 7; MINPACK's guide allows 0.1 to 100)
 POOR = 0.1  # a step that earned less than this share of its prediction: the model is poor
 SHRINK = 0.25  # below this share the radius is halved (Moré 1978)
 GROW = 0.75  # above it the radius becomes twice the step (ibid.)

@@ -21,9 +21,9 @@ import directional as dl
 from directional.records import Verdict
 
 NIST = REFERENCE / "nist-strd"
-PASSING = [("MGH09", "start2"), ("MGH10", "start1"), ("MGH10", "start2"), ("MGH17", "start1"),
-           ("MGH17", "start2"), ("Rat42", "start1"), ("Rat42", "start2"), ("Rat43", "start1"),
-           ("Rat43", "start2")]
+PASSING = [("MGH09", "start1"), ("MGH09", "start2"), ("MGH10", "start1"), ("MGH10", "start2"),
+           ("MGH17", "start1"), ("MGH17", "start2"), ("Rat42", "start1"), ("Rat42", "start2"),
+           ("Rat43", "start1"), ("Rat43", "start2")]
 
 
 def nist(name: str) -> tuple[dict, object]:
