@@ -8,9 +8,9 @@ really reached, not by what the noise showed it).
 - `RelativeNoise`: ``f(x) (1 + level ε)``, ε uniform on [-1, 1].  The relative level 1e-3 is
   that of the noisy problems of Moré & Wild (2009) (from memory, section and details not checked
   against the paper: there the factor is a deterministic oscillating function of x with values
-  in [-1, 1], ``f(x) (1 + ε_f φ(x))`` with ``ε_f = 1e-3``).  Here, as issue 18 asks, ε is
-  stochastic, drawn anew at each evaluation, uniform on the same range (our choice).  At a zero
-  minimum the noise vanishes with f.
+  in [-1, 1], ``f(x) (1 + ε_f φ(x))`` with ``ε_f = 1e-3``).  Here ε is stochastic (a
+  simulation whose noise changes from run to run), drawn anew at each evaluation, uniform on the
+  same range (our choice).  At a zero minimum the noise vanishes with f.
 - `GaussianNoise`: ``f(x) + σ ε``, ε standard normal: additive noise of known size.
 
 The smooth functions of the Gaussian table (`smooth_functions`) are our own, each with a known

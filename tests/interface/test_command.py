@@ -180,7 +180,7 @@ def test_last_line_one_number(text, expected):
 @pytest.mark.parametrize(
     "text",
     [
-        "misfit 3.5\ndone in 3 s, 1000 steps",  # issue 15 item 8: was read as 1000
+        "misfit 3.5\ndone in 3 s, 1000 steps",  # was once read as 1000
         "step42 done", "version 1.2.3", "12.5e", "", "infinite", "1 2", "misfit 12.5",
     ],
 )

@@ -341,7 +341,7 @@ def test_crashing_program_fails_and_the_search_steps_around_it(tmp_path):
     assert point["a"] == pytest.approx(5.03, abs=0.1)  # the fit, beyond the band that crashes
 
 
-# --- residual vectors in the journal (issue 16, item 5) ---------------------------------------
+# --- residual vectors in the journal ---------------------------------------------------------
 
 
 def test_show_gives_the_uncertainty_from_stored_residual_vectors(tmp_path):
