@@ -102,10 +102,10 @@ GROW = 0.75  # above it the radius becomes twice the step (ibid.)
 ROUNDING = 16.0 * EPSILON  # a decrease of S below this share of it is rounding
 ACCEPT = 1e-4  # a step is taken when it earned at least this share of its prediction (ibid.)
 NEAR = 100.0  # after a step this many (tight) tolerances long a central Jacobian still decides the end
-AWAY_STEPS = 8  # accepted steps the runaway test (`running_away`) looks back over
-AWAY_GROWTH = 2.0  # |x_i| must grow at every one of them and by this factor over them all
-AWAY_MESH = 1.1  # ... sampled at |x_i| within this factor of the Aitken points t0, t1
-AWAY_FAR = 10.0  # ... and end this many times beyond its magnitude at the start (or its scale)
+AWAY_STEPS = 8  # the runaway test (`running_away`) reads a law from this many accepted steps at least
+AWAY_GROWTH = 2.0  # ... along which |x_i| grew by this factor twice (the Aitken points t0, t1, t2)
+AWAY_MESH = 1.1  # ... with accepted points within this factor of t0 and t1
+AWAY_FAR = 10.0  # ... ending this many times beyond its magnitude at the start (or its scale)
 AWAY_SHARE = 1e-3  # ... and the gain still to come (extrapolated) be below this share of S
 
 
