@@ -102,6 +102,11 @@ GROW = 0.75  # above it the radius becomes twice the step (ibid.)
 ROUNDING = 16.0 * EPSILON  # a decrease of S below this share of it is rounding
 ACCEPT = 1e-4  # a step is taken when it earned at least this share of its prediction (ibid.)
 NEAR = 100.0  # after a step this many (tight) tolerances long a central Jacobian still decides the end
+AWAY_STEPS = 8  # the runaway test (`running_away`) reads a law from this many accepted steps at least
+AWAY_GROWTH = 2.0  # ... along which |x_i| grew by this factor twice (the Aitken points t0, t1, t2)
+AWAY_MESH = 1.1  # ... with accepted points within this factor of t0 and t1
+AWAY_FAR = 10.0  # ... ending this many times beyond its magnitude at the start (or its scale)
+AWAY_SHARE = 1e-3  # ... and the gain still to come (extrapolated) be below this share of S
 
 
 def gauss_newton(
@@ -157,6 +162,8 @@ def gauss_newton(
     wanted = "forward"  # the Jacobian to make before the next step ("": keep the secant one)
     blind = math.inf  # the length of the last step taken below what S can resolve
     accurate = False  # the Jacobian is central, made here or a short step away (secant since)
+    trail: list[tuple[np.ndarray, float]] = [(space.to_user(u), s)]  # accepted points, values
+    near = np.maximum(np.abs(trail[0][0]), np.abs(space.scale))  # beyond AWAY_FAR times: far
     try:
         while True:
             if sigma > 0.0:  # the noise of S here, from the residuals' own level
@@ -276,11 +283,82 @@ def gauss_newton(
             if ratio >= ACCEPT:
                 u, r, s = trial, new, s_new
                 steps += 1
+                trail.append((space.to_user(u), s))
+                away, limit = running_away(trail, AWAY_SHARE, near)
+                if away:
+                    names = ", ".join(space.names[i] for i in away)
+                    return ended(Stop.STALLED, f"{names} running away without bound while the "
+                                 "decrease of S dies out: the fit approaches a limit at infinity "
+                                 f"(an asymptote of the model; S tends to about {limit:.4g}), not "
+                                 "a minimum at a finite point")
                 central = None
                 # a short step from an accurate Jacobian leaves it accurate (secant-updated)
                 accurate = accurate and bool(np.all(np.abs(p) <= NEAR * tight))
     except Halt as halt:
         return ended(halt.stop, halt.reason)
+
+
+def running_away(trail: list[tuple[np.ndarray, float]], share: float,
+                 near: np.ndarray) -> tuple[list[int], float]:
+    """The parameters of a run heading for a limit of S at infinity, and that limit; or none.
+
+    ``trail`` holds the accepted points (user units) and their values S in order.  A parameter
+    runs away when its magnitude ``t`` grew at every step of the run's end while S fell, and
+    now stands `AWAY_FAR` times beyond ``near`` (its magnitude at the start, or its scale if
+    larger): a parameter growing from near zero on its way to a finite minimum is no runaway.
+    Along that run S is taken to approach its limit like ``S(t) = S_inf + c t^-p`` (an
+    asymptote: MGH09's model with ``b2 -> -inf`` has ``p = 1``).  At ``t0, t1, t2`` spaced by
+    `AWAY_GROWTH` at the end of the run (accepted points within `AWAY_MESH` of them,
+    `AWAY_STEPS` steps at least since ``t0``: a leap of one step tells no law) the differences
+    of S form a geometric series of ratio ``theta = (S1 - S2) / (S0 - S1) = (t1/t0)^-p``;
+    ``theta < 1`` (the gains shrink in step, ``p > 0``) and the sum of the rest,
+    ``(S1 - S2) theta / (1 - theta)``, is the extrapolated gain still to come (Aitken's
+    delta-squared process [1]_).  When that gain is below ``share`` of S, the run only creeps
+    towards a limit at infinity (or an asymptote of the model) which no finite point reaches:
+    better ended than left to spend its budget.  Returns the indices of the runaway parameters
+    (empty: keep going) and the lowest extrapolated limit of S among them (nan if none).
+
+    .. [1] A. C. Aitken, "On Bernoulli's numerical solution of algebraic equations",
+       *Proceedings of the Royal Society of Edinburgh* 46 (1926) 289-305.
+
+    >>> trail = [(np.array([1.1 ** k, 1.0]), 1.0 + 1.1 ** -k) for k in range(1, 200)]
+    >>> away, limit = running_away(trail, 1e-6, np.ones(2))
+    >>> away, round(limit, 6)
+    ([0], 1.0)
+    >>> running_away(trail[:40], 1e-6, np.ones(2))[0]
+    []
+    """
+    found: list[int] = []
+    limit = math.nan
+    if len(trail) < AWAY_STEPS + 1:
+        return found, limit
+    points = np.abs(np.array([x for x, _ in trail]))
+    values = np.array([v for _, v in trail])
+    falling = np.diff(values) < 0.0
+    for i in range(points.shape[1]):
+        broken = np.flatnonzero(~(falling & (np.diff(points[:, i]) > 0.0)))
+        start = 0 if broken.size == 0 else int(broken[-1]) + 1  # the last unbroken run
+        if len(trail) - 1 - start < AWAY_STEPS:
+            continue
+        t, v = points[start:, i], values[start:]
+        if not (t[-1] >= AWAY_FAR * near[i] and t[0] * AWAY_GROWTH**2 <= t[-1]):
+            continue
+        # the last stretch of growth by AWAY_GROWTH twice, sampled finely enough to see its law
+        logs = np.log(np.maximum(t, TINY))
+        wanted = logs[-1] - math.log(AWAY_GROWTH) * np.array([2.0, 1.0])
+        picks = np.argmin(np.abs(logs[:, None] - wanted[None, :]), axis=0)
+        if (np.max(np.abs(logs[picks] - wanted)) > math.log(AWAY_MESH)
+                or len(t) - 1 - picks[0] < AWAY_STEPS):
+            continue
+        first, second = v[picks[0]] - v[picks[1]], v[picks[1]] - v[-1]
+        if not (first > 0.0 and second > 0.0 and second < first):
+            continue
+        theta = second / first
+        left = second * theta / (1.0 - theta)
+        if left <= share * v[-1]:
+            found.append(i)
+            limit = float(np.fmin(limit, v[-1] - left))
+    return found, limit
 
 
 def residual_noise_level(

@@ -162,3 +162,20 @@ def test_the_residuals_noise_is_measured_along_a_line_and_the_steps_work_above_i
     assert done.stop is Stop.CONVERGED and 0.005 < done.noise < 0.02  # noticed, not stalled
     # the least-squares estimate moves by about 0.01 / (smallest singular value of A) ≈ 0.004
     assert space.to_user(done.point) == pytest.approx(best, abs=0.03)
+
+
+def test_a_fit_whose_minimum_lies_at_infinity_stalls_and_names_the_parameter_running_away():
+    # analytic: S(a, b) = (a - 1)^2 + exp(-2 b) + 1/4 has no minimum; its infimum 1/4 lies at
+    # a = 1, b -> +inf.  Without the runaway test the steps go on until the decrease is
+    # rounding and then call the point converged.
+    space = build_space([0.0, 1.0], names=["a", "b"])
+    squares = SumOfSquares(lambda x: np.array([x[0] - 1.0, np.exp(-x[1]), 0.5]), None)
+    purposes = []
+    done = drive(gauss_newton(space, squares, np.zeros(2), squares(space.start)), squares, purposes)
+    assert done.stop is Stop.STALLED
+    assert done.reason.startswith("b running away") and "limit at infinity" in done.reason
+    assert "0.25" in done.reason  # the extrapolated limit of S
+    assert 10.0 < space.to_user(done.point)[1] < 30.0
+    assert done.value == pytest.approx(0.25, rel=1e-6)
+    assert len(purposes) < 100
+
