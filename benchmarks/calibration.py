@@ -36,9 +36,7 @@ import math
 import os
 import sys
 import time
-import tomllib
 import warnings
-from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -47,6 +45,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 import numpy as np  # noqa: E402
 
 import directional as dl  # noqa: E402
+from directional.benchmarking import nist as nist_files
 from directional.benchmarking.marquardt import Fit, levenberg_marquardt  # noqa: E402
 from directional.records import Purpose, Stop  # noqa: E402
 
@@ -66,19 +65,9 @@ def sets() -> list[str]:
     return [n for n in TESTED if n in found] + [n for n in found if n not in TESTED]
 
 
-def load(name: str) -> tuple[dict, Callable[[np.ndarray], np.ndarray]]:
-    """The NIST file ``name`` and its residuals ``f(x; b) - y`` from the plain-math model line."""
-    with open(NIST / f"{name}.toml", "rb") as handle:
-        data = tomllib.load(handle)
-    expression = compile(data["model"].replace("^", "**"), name, "eval")
-    x, y = np.array(data["x"], dtype=float), np.array(data["y"], dtype=float)
-
-    def residuals(b: np.ndarray) -> np.ndarray:
-        names = {f"b{i + 1}": b[i] for i in range(len(b))}
-        with np.errstate(all="ignore"):
-            return eval(expression, {"exp": np.exp, "x": x, **names}) - y  # noqa: S307
-
-    return data, residuals
+def load(name: str) -> tuple[dict, nist_files.Residuals]:
+    """The NIST file ``name`` and its residuals ``f(x; b) - y`` (`directional.benchmarking.nist`)."""
+    return nist_files.read(NIST / f"{name}.toml")
 
 
 @dataclass(slots=True, kw_only=True)

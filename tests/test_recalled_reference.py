@@ -27,6 +27,7 @@ import pytest
 from conftest import REFERENCE
 
 from directional.benchmarking import marquardt
+from directional.benchmarking import nist as nist_files
 
 NIST = REFERENCE / "nist-strd"
 RECALLED = ["MGH09", "MGH10", "MGH17", "Rat42", "Rat43"]
@@ -38,18 +39,9 @@ MGH = {
 }
 
 
-def load(name: str) -> tuple[dict, object]:
-    with open(NIST / f"{name}.toml", "rb") as handle:
-        data = tomllib.load(handle)
-    expression = compile(data["model"].replace("^", "**"), name, "eval")
-    x, y = np.array(data["x"], dtype=float), np.array(data["y"], dtype=float)
-
-    def residuals(b: np.ndarray) -> np.ndarray:
-        names = {f"b{i + 1}": b[i] for i in range(len(b))}
-        with np.errstate(all="ignore"):
-            return eval(expression, {"exp": np.exp, "x": x, **names}) - y  # noqa: S307
-
-    return data, residuals
+def load(name: str) -> tuple[dict, nist_files.Residuals]:
+    """The NIST file ``name`` and its residuals ``f(x; b) - y`` (`directional.benchmarking.nist`)."""
+    return nist_files.read(NIST / f"{name}.toml")
 
 
 def test_every_recalled_file_says_so():

@@ -9,14 +9,13 @@ valley that falls towards a limit at infinity; that run must end early, naming t
 from __future__ import annotations
 
 import math
-import tomllib
 import warnings
 
-import numpy as np
 import pytest
 from conftest import REFERENCE
 
 import directional as dl
+from directional.benchmarking import nist as nist_files
 from directional.method import gaussnewton
 from directional.records import Stop, Verdict
 
@@ -26,18 +25,9 @@ PASSING = [("MGH09", "start1"), ("MGH09", "start2"), ("MGH10", "start1"), ("MGH1
            ("Rat43", "start1"), ("Rat43", "start2")]
 
 
-def nist(name: str) -> tuple[dict, object]:
-    with open(NIST / f"{name}.toml", "rb") as handle:
-        data = tomllib.load(handle)
-    expression = compile(data["model"].replace("^", "**"), name, "eval")
-    x, y = np.array(data["x"], dtype=float), np.array(data["y"], dtype=float)
-
-    def residuals(b: np.ndarray) -> np.ndarray:
-        names = {f"b{i + 1}": b[i] for i in range(len(b))}
-        with np.errstate(all="ignore"):
-            return eval(expression, {"exp": np.exp, "x": x, **names}) - y  # noqa: S307
-
-    return data, residuals
+def nist(name: str) -> tuple[dict, nist_files.Residuals]:
+    """The NIST file ``name`` and its residuals ``f(x; b) - y`` (`directional.benchmarking.nist`)."""
+    return nist_files.read(NIST / f"{name}.toml")
 
 
 @pytest.mark.parametrize(("name", "start"), PASSING)

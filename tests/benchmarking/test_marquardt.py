@@ -6,8 +6,6 @@ number came from): data, NIST's two starts, certified estimates and residual sum
 
 from __future__ import annotations
 
-import tomllib
-
 import numpy as np
 import pytest
 from conftest import REFERENCE
@@ -15,6 +13,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from directional.benchmarking import marquardt
+from directional.benchmarking import nist as nist_files
 
 NIST = REFERENCE / "nist-strd"
 SETS = ["Misra1a", "Chwirut2", "DanWood", "Misra1b", "Kirby2", "Hahn1", "BoxBOD"]
@@ -23,19 +22,9 @@ MISSED = {("BoxBOD", "start1")}
 SOLVED = [(n, s) for n in SETS for s in ("start1", "start2") if (n, s) not in MISSED]
 
 
-def nist(name: str) -> tuple[dict, object]:
-    """The NIST file and its residual function ``f(x; b) - y`` from the plain-math model line."""
-    with open(NIST / f"{name}.toml", "rb") as handle:
-        data = tomllib.load(handle)
-    expression = compile(data["model"].replace("^", "**"), name, "eval")
-    x, y = np.array(data["x"], dtype=float), np.array(data["y"], dtype=float)
-
-    def residuals(b: np.ndarray) -> np.ndarray:
-        names = {f"b{i + 1}": b[i] for i in range(len(b))}
-        with np.errstate(all="ignore"):
-            return eval(expression, {"exp": np.exp, "x": x, **names}) - y  # noqa: S307
-
-    return data, residuals
+def nist(name: str) -> tuple[dict, nist_files.Residuals]:
+    """The NIST file ``name`` and its residuals ``f(x; b) - y`` (`directional.benchmarking.nist`)."""
+    return nist_files.read(NIST / f"{name}.toml")
 
 
 @pytest.mark.parametrize(("name", "start"), SOLVED)
