@@ -52,8 +52,8 @@ cache.
 
 References
 ----------
-.. [1] J. J. Moré, "The Levenberg–Marquardt algorithm: implementation and theory", in G. A.
-   Watson (ed.), *Numerical Analysis*, Lecture Notes in Mathematics 630, Springer, 1978, 105-116.
+.. [1] J. J. Moré, "The Levenberg–Marquardt algorithm: implementation and theory",
+   Lecture Notes in Mathematics 630, Springer, 1978, 105-116.
 .. [2] C. G. Broyden, "A class of methods for solving nonlinear simultaneous equations",
    *Mathematics of Computation* 19 (1965) 577-593.
 .. [3] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
