@@ -137,7 +137,11 @@ def line_search(
         return tolerance + relative * abs(t)
 
     def fresh(t: float) -> bool:
-        return all(abs(t - s) >= 0.5 * tol(t) for s in points)
+        half = 0.5 * tol(t)
+        for s in points:
+            if not abs(t - s) >= half:
+                return False
+        return True
 
     if not points:
         values = yield np.array([start])
@@ -193,6 +197,8 @@ def line_search(
         tx = tol(x)
         vertex, c = _model(points, x, noise) if parabolic else (math.nan, math.nan)
         if not exact and c > 0.0 and abs(vertex - x) <= tx:
+            if noise == 0.0:  # what `_result` would find again: the best point and its c
+                return _found(ts, fs, i, c, spent)
             break
         left = ts[i - 1] if i > 0 else None
         right = ts[i + 1] if i + 1 < len(ts) else None
@@ -257,7 +263,7 @@ def _model(points: dict[float, float], x: float, noise: float = 0.0) -> tuple[fl
         fitted = fitted_parabola(points, x)
         if fitted is not None:
             return fitted[0], fitted[1]
-    finite = sorted((f, t) for t, f in points.items() if math.isfinite(f))
+    finite = sorted([(f, t) for t, f in points.items() if math.isfinite(f)])
     if len(finite) < 3:
         return math.nan, math.nan
     (fx, tx), (fw, tw), (fv, tv) = finite[:3]
@@ -374,6 +380,11 @@ def _result(
     if noise > 0.0:
         i = _lowest_fitted(points, ts, i)
     _, c = _model(points, ts[i], noise)
+    return _found(ts, fs, i, c, spent)
+
+
+def _found(ts: list[float], fs: list[float], i: int, c: float, spent: int) -> LineResult:
+    """The result at ``ts[i]`` of the sorted points ``ts`` (values ``fs``), curvature ``c``."""
     lo = ts[i - 1] if i > 0 else ts[i]
     hi = ts[i + 1] if i + 1 < len(ts) else ts[i]
     return LineResult(point=ts[i], value=fs[i], bracket=(lo, hi), curvature=c, evaluations=spent)

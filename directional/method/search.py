@@ -376,10 +376,11 @@ def _line(
     try:
         ts = next(search)
         while True:
-            values = yield Batch(points=space.to_user(base + ts[:, None] * d), purpose=Purpose.LINE)
-            for t, value in zip(ts, values):
+            us = base + ts[:, None] * d
+            values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
+            for u, value in zip(us, values):
                 best.answered += math.isfinite(value)
-                best.seen(base + t * d, float(value))
+                best.seen(u, float(value))
             ts = search.send(values)
     except StopIteration as stop:
         result: LineResult = stop.value

@@ -11,7 +11,7 @@ to the user's start bit for bit.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -32,6 +32,17 @@ class Space:
     scale: np.ndarray  # s
     lower_u: np.ndarray
     upper_u: np.ndarray
+    # Shortcuts of the hot path (`to_user` runs once per evaluation), decided once here: no
+    # bound at all, and a map back that needs no special case (no log scale, no start of -0.0,
+    # whose sum with a zero step would lose its sign).  They change no result, only the work.
+    unbounded: bool = field(init=False, repr=False, compare=False)
+    direct: bool = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        unbounded = bool(np.all(self.lower == -np.inf) and np.all(self.upper == np.inf))
+        negative_zero = bool(np.any((self.start == 0.0) & np.signbit(self.start)))
+        object.__setattr__(self, "unbounded", unbounded)
+        object.__setattr__(self, "direct", not self.log.any() and not negative_zero)
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -45,6 +56,8 @@ class Space:
         """Map scaled points (shape (..., n)) to user coordinates, clipped to the bounds."""
         u = np.asarray(u, dtype=float)
         x = self.origin + self.scale * u
+        if self.direct:  # x is the start bit for bit where u is 0, and lies inside the bounds
+            return x if self.unbounded else np.minimum(np.maximum(x, self.lower), self.upper)
         if self.log.any():
             x = np.where(self.log, np.exp(np.where(self.log, x, 0.0)), x)
         x = np.minimum(np.maximum(x, self.lower), self.upper)
@@ -60,8 +73,10 @@ class Space:
     def segment(self, u: np.ndarray, direction: np.ndarray) -> tuple[float, float]:
         """The feasible range ``[lo, hi]`` of ``t`` for ``u + t * direction`` (``lo <= 0 <= hi``)."""
         lo, hi = -np.inf, np.inf
+        if self.unbounded:
+            return lo, hi
         moving = direction != 0.0
-        if np.any(moving):
+        if moving.any():
             d = direction[moving]
             to_lower = (self.lower_u[moving] - u[moving]) / d
             to_upper = (self.upper_u[moving] - u[moving]) / d

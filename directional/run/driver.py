@@ -182,7 +182,8 @@ def as_value(result: object) -> float:
 def call(objective: Objective, x: np.ndarray) -> tuple[float, str, str]:
     """Evaluate once: ``(value, status, detail)``; failures give ``(inf, status, text)``."""
     try:
-        value = as_value(objective(x.copy()))
+        result = objective(x.copy())
+        value = result if type(result) is float else as_value(result)
     except ObjectiveError:
         raise
     except Exception as error:  # the objective's own failure: recorded, never fatal
@@ -234,8 +235,8 @@ class _Task:
     search: Search
     batch: Batch | None = None
     serial: int = 0  # counts the batches, so that late results for a dropped batch are ignored
-    values: np.ndarray = field(default_factory=lambda: np.empty(0))
-    answered: np.ndarray = field(default_factory=lambda: np.empty(0, bool))
+    values: list[float] = field(default_factory=list)  # of the batch's rows, inf until answered
+    answered: list[bool] = field(default_factory=list)
     fresh: list[bool] = field(default_factory=list)  # rows asked, and whether new to the search
     taken: int = 0  # rows of the batch already taken in order (failures, -inf)
     halt: Halt | None = None  # a limit was met while asking: thrown once the rows asked are in
@@ -475,9 +476,8 @@ class Driver:
                     return
                 continue
             task.batch, task.serial = batch, task.serial + 1
-            task.values = np.empty(len(batch.points))
-            task.values.fill(math.inf)
-            task.answered = np.zeros(len(batch.points), dtype=bool)
+            rows = len(batch.points)
+            task.values, task.answered = [math.inf] * rows, [False] * rows
             task.fresh, task.taken, task.halt = [], 0, None
             try:
                 self._ask(task, batch)
@@ -583,7 +583,7 @@ class Driver:
         return pending.waiters if pending.group is None else self._groups[pending.group].waiters
 
     def _answer(self, task: _Task, row: int, value: float) -> None:
-        task.values[row] = value
+        task.values[row] = float(value)
         task.answered[row] = True
 
     def _advance(self, task: _Task) -> Batch | Spent | None:
@@ -593,7 +593,7 @@ class Driver:
         while task.taken < len(task.fresh) and task.answered[task.taken]:
             row = task.taken
             task.taken += 1
-            value = float(task.values[row])
+            value = task.values[row]
             if value == -math.inf:
                 x = batch.points[row].tolist()
                 return self._halt(task, Halt(
@@ -616,7 +616,7 @@ class Driver:
             return self._halt(task, task.halt)
         task.batch, task.halts_in_a_row = None, 0
         try:
-            return task.search.send(task.values.copy())
+            return task.search.send(np.array(task.values))
         except StopIteration as done:
             task.ended, task.result = True, done.value
             return None
@@ -681,10 +681,11 @@ class Driver:
 
     def _fill(self) -> None:
         """Start queued points while there is room; on an executor suspects first, each alone."""
-        suspects = [k for k in self._queue if self._pending[k].suspect]
-        for key in suspects:
-            self._queue.remove(key)
-        self._queue.extendleft(reversed(suspects))
+        if self.executor is not None:  # only a broken pool makes suspects
+            suspects = [k for k in self._queue if self._pending[k].suspect]
+            for key in suspects:
+                self._queue.remove(key)
+            self._queue.extendleft(reversed(suspects))
         while self._queue and self._room():
             halt = self._run_limit(self._pending[self._queue[0]])
             if halt is not None:

@@ -13,10 +13,8 @@ run while the driver and the many-search runner enter their own.
 
 from __future__ import annotations
 
-import contextlib
 import signal
 import threading
-from collections.abc import Iterator
 from types import FrameType
 
 
@@ -97,18 +95,10 @@ class Interrupts:
             self._previous.clear()
             self._root = self
 
-    @contextlib.contextmanager
-    def raising(self) -> Iterator[None]:
-        """A stretch where a stopping signal raises `KeyboardInterrupt` at once."""
-        root = self._root
-        if root._pending:
-            raise KeyboardInterrupt
-        outer = root._inside
-        root._inside = True
-        try:
-            yield
-        finally:
-            root._inside = outer
+    def raising(self) -> _Raising:
+        """A stretch where a stopping signal raises `KeyboardInterrupt` at once (a context
+        manager; already pending, it raises on entry)."""
+        return _Raising(self._root)
 
     def _handle(self, signum: int, frame: FrameType | None) -> None:
         self._pending = True
@@ -116,6 +106,27 @@ class Interrupts:
             self._signal = signum
         if self._inside:
             raise KeyboardInterrupt
+
+
+class _Raising:
+    """The context manager of `Interrupts.raising`: a plain class, not a generator-based one,
+    since the driver enters it once per evaluation."""
+
+    __slots__ = ("root", "outer")
+
+    def __init__(self, root: Interrupts) -> None:
+        self.root = root
+        self.outer = False
+
+    def __enter__(self) -> None:
+        root = self.root
+        if root._pending:
+            raise KeyboardInterrupt
+        self.outer = root._inside
+        root._inside = True
+
+    def __exit__(self, *exc: object) -> None:
+        self.root._inside = self.outer
 
 
 class deferred:  # noqa: N801 (used as a statement: ``with deferred():``)
