@@ -126,9 +126,9 @@ def fit(
     if sample.size > points:
         chosen = np.argpartition(distance, points - 1)[:points]
         u, values, distance = u[chosen], values[chosen], distance[chosen]
-    radius = math.sqrt(float(np.max(distance)))
-    offset = float(np.min(values))
-    span = float(np.max(values)) - offset
+    radius = math.sqrt(float(distance.max()))
+    offset = float(values.min())
+    span = float(values.max()) - offset
     if not (radius > 0.0 and span > 0.0):
         return None
     d = u / radius
@@ -138,7 +138,10 @@ def fit(
     products = d[:, rows] * d[:, cols]
     products[:, diagonal] *= 0.5
     products *= near
-    linear = np.hstack([np.ones((len(d), 1)), d]) * near
+    linear = np.empty((len(d), n + 1))
+    linear[:, 0] = 1.0
+    linear[:, 1:] = d
+    linear *= near
     scaled_prior = np.zeros(len(rows))
     if prior is not None:
         scaled_prior = prior[rows, cols] * radius**2 / span
@@ -150,7 +153,8 @@ def fit(
         if singular[-1] <= singular[0] / POISED:
             return None
         # the part of the data the linear terms cannot explain fixes the change of the Hessian
-        rest = products / weight - basis @ (basis.T @ (products / weight))
+        unweighted = products / weight
+        rest = unweighted - basis @ (basis.T @ unweighted)
         if len(d) == n + 1:  # the linear part interpolates: nothing is left (rest is rounding)
             change, rank = np.zeros(len(rows)), 0
         else:
@@ -166,8 +170,8 @@ def fit(
     residual = scaled - products @ h_coefficients
     line = np.linalg.solve(triangle, basis.T @ residual)  # the linear part, by the same QR
     determined = rank == len(rows) and len(d) >= coefficients(n)
-    misfit = span * float(np.max(np.abs(linear @ line - residual)))
-    if not (np.all(np.isfinite(h_coefficients)) and np.all(np.isfinite(line))):
+    misfit = span * float(np.abs(linear @ line - residual).max())
+    if not (np.isfinite(h_coefficients).all() and np.isfinite(line).all()):
         return None
     h = np.zeros((n, n))
     h[rows, cols] = h_coefficients
@@ -194,7 +198,7 @@ def _nearness(distance: np.ndarray) -> np.ndarray:
     the MGH benchmark (n ≤ 11): ``LOCAL`` = 0.01 lowered the tail and the evaluations spent;
     0.1 and 1 helped less (benchmarks/results/model-steps.md).
     """
-    reach = LOCAL * float(np.median(distance))
+    reach = LOCAL * _median(distance)
     if not reach > 0.0:
         return np.ones_like(distance)
     return (1.0 + distance / reach) ** -2.0
@@ -211,6 +215,20 @@ def _layout(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     for array in (rows, cols, diagonal, weight):
         array.flags.writeable = False
     return rows, cols, diagonal, weight
+
+
+def _median(x: np.ndarray) -> float:
+    """``numpy.median`` of a non-empty 1-d array, bit for bit, without its general machinery:
+    the middle order statistic, or the mean of the two middle ones; nan when ``x`` holds one."""
+    size = len(x)
+    half = size // 2
+    if size % 2:
+        part = np.partition(x, [half, size - 1])
+        middle = float(part[half])
+    else:
+        part = np.partition(x, [half - 1, half, size - 1])
+        middle = float((part[half - 1] + part[half]) / 2)
+    return math.nan if math.isnan(part[-1]) else middle
 
 
 def trust_step(model: Quadratic, radius: float) -> np.ndarray:

@@ -39,8 +39,8 @@ class Space:
     direct: bool = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
-        unbounded = bool(np.all(self.lower == -np.inf) and np.all(self.upper == np.inf))
-        negative_zero = bool(np.any((self.start == 0.0) & np.signbit(self.start)))
+        unbounded = bool((self.lower == -np.inf).all() and (self.upper == np.inf).all())
+        negative_zero = bool(((self.start == 0.0) & np.signbit(self.start)).any())
         object.__setattr__(self, "unbounded", unbounded)
         object.__setattr__(self, "direct", not self.log.any() and not negative_zero)
 
