@@ -135,8 +135,10 @@ def solution(space: Space, log: Log, outcome: Outcome, point_tolerance: float) -
 
 def _with_last_error(outcome: Outcome, evaluations: list[Evaluation]) -> str:
     """The search's reason for stopping, with the last failure's text when it stalled on failures."""
+    if outcome.stop is not Stop.STALLED or "last error" in outcome.reason:
+        return outcome.reason
     failed = [e for e in evaluations if e.status != Status.OK]
-    if outcome.stop is Stop.STALLED and failed and "last error" not in outcome.reason:
+    if failed:
         return f"{outcome.reason}; last error: {failed[-1].detail or failed[-1].status}"
     return outcome.reason
 

@@ -747,7 +747,7 @@ class Driver:
         del self._pending[pending.key]
         owner = self._tasks[pending.search]
         evaluation = Evaluation(
-            index=self.spent,
+            index=len(self.log.evaluations),  # `spent`
             point=pending.point,
             value=value,
             status=_status(status),
