@@ -664,7 +664,7 @@ class Driver:
         if self.interrupted or self._interrupts.pending:
             return Halt(Stop.INTERRUPTED, self._interrupts.reason)
         need = 1 if pending is None or pending.group is None else self.replicates - pending.replicate
-        if self.total is not None and self.spent + len(self._flying) + need > self.total:
+        if self.total is not None and len(self.log.evaluations) + len(self._flying) + need > self.total:
             return Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
         if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
             return Halt(Stop.BUDGET, f"the time limit of {self.time_limit:g} s has passed")
@@ -687,12 +687,12 @@ class Driver:
                 self._queue.remove(key)
             self._queue.extendleft(reversed(suspects))
         while self._queue and self._room():
-            halt = self._run_limit(self._pending[self._queue[0]])
+            key = self._queue[0]
+            pending = self._pending[key]
+            halt = self._run_limit(pending)
             if halt is not None:
                 self._halt_queued(halt)
                 continue
-            key = self._queue[0]
-            pending = self._pending[key]
             if pending.suspect and self._flying:
                 return
             if self.executor is None:
@@ -779,7 +779,8 @@ class Driver:
         self.log.add(evaluation)
         self._cache[pending.key] = value
         self._made[pending.key] = evaluation
-        self._notify(evaluation)
+        for observer in self.observers:  # `_notify`, inline: once per evaluation
+            observer(evaluation)
         for ident, serial, row in pending.waiters:
             task = self._tasks[ident]
             if task.batch is None or task.serial != serial:
