@@ -376,11 +376,11 @@ def _line(
     try:
         ts = next(search)
         while True:
-            us = base + ts[:, None] * d
+            us = base + ts[:, None] * d if len(ts) > 1 else (base + ts[0] * d)[None, :]
             values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
-            for u, value in zip(us, values):
+            for u, value in zip(us, values.tolist()):
                 best.answered += math.isfinite(value)
-                best.seen(u, float(value))
+                best.seen(u, value)
             ts = search.send(values)
     except StopIteration as stop:
         result: LineResult = stop.value
