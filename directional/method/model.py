@@ -26,9 +26,12 @@ search then clips it to the bounds; it never evaluates outside them.
 Cost.  A fit on ``p`` points costs ``O(p N²)`` with ``N`` the number of coefficients, so the search
 fits once per cycle and after each successful model step, on at most ``points`` samples (a
 multiple of ``N``), not while too few samples could determine it, and not at all above
-``LARGEST`` variables: measured on the benchmark's machine, the model adds about 25 µs of
-processor time per evaluation at n = 10 and 0.3 ms at n = 30, and a fit at n = 50 takes about a
-second, which only an expensive objective repays (benchmarks/RESULTS.md).
+``LARGEST`` variables: measured on the benchmark's machine, the model adds about 20 µs of
+processor time per evaluation at n = 10, 0.3 ms at n = 30 and 3 ms at n = 50 (a fit there takes
+about 0.8 s).  It saves 3 to 11 times the evaluations on random quadratics, so a run's own time
+is no larger with it up to n = 30 even for a free objective, and at n = 50 it pays once an
+evaluation costs more than about 0.7 ms; above 50 a fit takes seconds and its memory grows as
+n⁴ (benchmarks/results/model-steps.md).
 
 References
 ----------
