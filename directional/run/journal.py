@@ -583,10 +583,12 @@ def read(path: str | os.PathLike[str]) -> Contents:
     try:
         return _read(path, path)
     except JournalError:
-        if _writable(path):
+        if _writable(path) and not _hot(path):
             raise
-    # SQLite reads a journal in write-ahead mode only where it may write its index beside it: read
-    # a copy of a journal on a read-only disk or folder.
+    # SQLite reads a journal in write-ahead mode only where it may write its index beside it, and
+    # a read-only connection cannot roll back a transaction a killed writer left half done: read a
+    # copy (where SQLite may replay its log or roll the transaction back) of a journal on a
+    # read-only disk or folder, or one left with a rollback journal beside it.
     with tempfile.TemporaryDirectory(prefix="directional-read-") as folder:
         copy = Path(folder) / path.name
         _copy_files(path, copy)
@@ -626,13 +628,20 @@ def _writable(path: Path) -> bool:
     return all(os.access(p, os.W_OK, effective_ids=effective) for p in (path, path.parent))
 
 
+def _hot(path: Path) -> bool:
+    """Whether a rollback journal lies beside ``path``: a writer died inside a transaction."""
+    return Path(str(path) + "-journal").is_file()
+
+
 def _copy_files(source: Path, target: Path) -> None:
-    """Copy the journal's file and its write-ahead log (SQLite replays the log on opening)."""
+    """Copy the journal's file with its write-ahead log and any rollback journal (SQLite replays
+    the log, or rolls the unfinished transaction back, when the copy is opened)."""
     try:
         shutil.copyfile(source, target)
-        wal = Path(str(source) + "-wal")
-        if wal.is_file():
-            shutil.copyfile(wal, str(target) + "-wal")
+        for suffix in ("-wal", "-journal"):
+            beside = Path(str(source) + suffix)
+            if beside.is_file():
+                shutil.copyfile(beside, str(target) + suffix)
     except OSError as error:
         raise JournalError(f"cannot read journal {str(source)!r}: {error}") from None
 

@@ -116,6 +116,43 @@ def test_a_journal_cut_before_its_header_says_so_and_a_new_run_starts_there(tmp_
     same_as(dl.minimize(rosenbrock, START, journal=path, check=False), reference)
 
 
+def _die_inside_a_transaction(path: Path) -> None:
+    """Write half a transaction in rollback mode, then die as ``kill -9`` would: SQLite leaves the
+    original pages in ``path-journal`` ("hot journal", https://sqlite.org/lockingv3.html)."""
+    db = sqlite3.connect(path, isolation_level=None)
+    db.execute("PRAGMA journal_mode = DELETE")
+    db.execute("PRAGMA cache_size = 1")  # changed pages reach the file before the commit
+    db.execute("BEGIN")
+    db.execute("DELETE FROM evaluation")
+    db.execute("CREATE TABLE filler (x BLOB)")
+    for _ in range(200):
+        db.execute("INSERT INTO filler VALUES (zeroblob(4096))")
+    os.kill(os.getpid(), signal.SIGKILL)
+
+
+def test_a_writer_killed_inside_a_rollback_transaction_leaves_what_was_committed(
+    tmp_path, reference
+):
+    # A read-only connection cannot roll a hot journal back (SQLITE_READONLY_ROLLBACK, "attempt to
+    # write a readonly database"): reading must still give the committed contents.
+    path = tmp_path / "run.sqlite"
+    dl.minimize(rosenbrock, START, journal=path, check=False)
+    committed = jr.read(path)
+    child = FORK.Process(target=_die_inside_a_transaction, args=(path,), daemon=True)
+    child.start()
+    child.join(30)
+    assert child.exitcode == -signal.SIGKILL
+    assert Path(str(path) + "-journal").is_file()
+    held = jr.read(path)
+    assert [e.point.tobytes() for e in held.evaluations] == [
+        e.point.tobytes() for e in committed.evaluations
+    ]
+    assert len(held.evaluations) == reference.evaluations
+    counting = Counting()
+    same_as(dl.resume(path, counting), reference)
+    assert counting.calls == 0
+
+
 # ----------------------------------------------------------------------------- another process
 
 
