@@ -135,6 +135,7 @@ def line_search(
     parabolic: bool = True,
     noise: float = 0.0,
     heard: float = 0.0,
+    listen: bool = True,
 ) -> LineSearch:
     """Search ``[lower, upper]`` for a minimum, as a generator (see the module docstring).
 
@@ -144,7 +145,8 @@ def line_search(
     parabolic step into a golden-section one (an ablation for the benchmarks, not for users).
     ``noise`` (the values' standard deviation, 0 for rounding only) makes the parabolas
     least-squares fits and the returned point the lowest on the fitted parabola.  ``heard`` (a
-    level an earlier line's points showed; 0 for none) only limits the resolution.
+    level an earlier line's points showed; 0 for none) only limits the resolution; ``listen``
+    False leaves the line's own table unread (the caller said the values have no noise).
     """
     points = {float(t): float(v) for t, v in known.items()}
     spent = 0
@@ -202,7 +204,7 @@ def line_search(
 
     last = before_last = math.inf  # Brent's d and e: the last step and the one before
     while spent < limit:
-        if noise == 0.0 and not exact and len(points) >= LINE_POINTS:
+        if listen and noise == 0.0 and not exact and len(points) >= LINE_POINTS:
             level = line_level(points)
             if math.isfinite(level):  # the values scatter like noise: refining chases it
                 return dataclasses.replace(_result(points, None, spent), heard=level)

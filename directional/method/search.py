@@ -60,7 +60,9 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   resolution of the later line searches, so that a noisy objective does not cost ten
   evaluations per line long before the calm.  Smooth lines leave it silent: of the smooth
   benchmark problems only one is searched otherwise (Moré, Garbow & Hillstrom 1981, no. 11,
-  whose terms |y_i − x2|^x3 are not smooth where x2 = y_i), in fewer evaluations.
+  whose terms |y_i − x2|^x3 are not smooth where x2 = y_i); there the table at the calm finds
+  no noise, and the search drops the level and resolves its lines finely again.  With "none"
+  stated (``notice`` False) no line listens.
 
 On a quadratic in n variables the directions become mutually conjugate, and the minimum is
 reached after n cycles with exact line searches (Powell 1964); with the model, once the samples
@@ -166,6 +168,7 @@ class _Tracker:
         self.sample = sample  # every finite evaluation, for the quadratic model
         self.noise = noise  # > 0: the noisy mode (a lower single value proves nothing)
         self.heard = 0.0  # before it: the noise level relative to |f| a line's points showed
+        self.hearing = False  # whether line searches read their own points' table
 
     def seen(self, u: np.ndarray, value: float) -> None:
         """Take note of an evaluation: the new best point if it is lower (without noise), a
@@ -203,6 +206,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
         sample.add(u, best.value)
     trust = _Trust()
     listening = settings.notice and settings.noise == 0.0
+    best.hearing = listening
     try:
         calm, fresh, quiet = 0, True, 0
         ends: list[float] = []  # the best value after each noisy cycle
@@ -280,6 +284,12 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                         steps=directions.steps,
                     )
                     continue
+            if ending and best.heard > 0.0:
+                # a line heard noise the table at the calm does not confirm (a kink): the line
+                # searches resolved no finer than it, so the calm proves nothing yet; go on
+                # without listening to lines
+                best.heard, best.hearing, calm = 0.0, False, 0
+                continue
             if ending:
                 break
     except Halt as halt:
@@ -384,6 +394,7 @@ def _line(
         parabolic=settings.parabolic,
         noise=best.noise,
         heard=heard,
+        listen=best.hearing,
     )
     try:
         ts = next(search)
