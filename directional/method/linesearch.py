@@ -30,6 +30,14 @@ from the best by less than two noise levels is not refined (the values say nothi
 the point returned is the evaluated one lowest on that parabola, not the lowest single value
 (which is biased low by the noise).
 
+Before any level is known, a line whose own points scatter like noise stops refining: once
+``noise.LINE_POINTS`` of them agree in value, their difference table (`noise.line_level`, Moré
+& Wild 2011 on unequally spaced points) is read after each evaluation, and a level found ends
+the search and is returned (``LineResult.heard``): Brent's iteration would otherwise chase the
+noise to the tolerance.  The caller passes such a level back as ``heard`` to later line
+searches, which then resolve no finer than a quarter of it (neither in ``t``, where the
+parabola changes by that much, nor in value).
+
 Stopping: in ``exact`` mode (the public `line_minimum`) when the bracket is within the tolerance,
 as in Brent's procedure.  Inside the direction-set search, as soon as the parabola through the
 three best points puts its vertex within the tolerance of the best point: the next step would be
@@ -44,15 +52,20 @@ References
    (1967) 82-84.
 .. [3] A. R. Conn, K. Scheinberg and L. N. Vicente, *Introduction to Derivative-Free
    Optimization*, SIAM, 2009, ch. 4.
+.. [4] J. J. Moré and S. M. Wild, "Estimating computational noise", *SIAM Journal on Scientific
+   Computing* 33(3) (2011) 1292-1314.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Generator, Iterable
 from dataclasses import dataclass
 
 import numpy as np
+
+from directional.method.noise import LINE_POINTS, line_level
 
 GOLDEN = 0.5 * (3.0 - math.sqrt(5.0))  # 0.381966..., the golden-section fraction (Kiefer 1953)
 EXPAND = 0.5 * (1.0 + math.sqrt(5.0))  # 1.618..., growth of a plain bracketing step
@@ -76,6 +89,7 @@ class LineResult:
     bracket: tuple[float, float]
     curvature: float
     evaluations: int
+    heard: float = math.nan  # the noise level the line's own points showed (`noise.line_level`)
 
 
 LineSearch = Generator[np.ndarray, np.ndarray, LineResult]
@@ -120,6 +134,8 @@ def line_search(
     exact: bool = False,
     parabolic: bool = True,
     noise: float = 0.0,
+    heard: float = 0.0,
+    listen: bool = True,
 ) -> LineSearch:
     """Search ``[lower, upper]`` for a minimum, as a generator (see the module docstring).
 
@@ -128,7 +144,9 @@ def line_search(
     ``limit`` caps the evaluations this line search spends.  ``parabolic=False`` turns every
     parabolic step into a golden-section one (an ablation for the benchmarks, not for users).
     ``noise`` (the values' standard deviation, 0 for rounding only) makes the parabolas
-    least-squares fits and the returned point the lowest on the fitted parabola.
+    least-squares fits and the returned point the lowest on the fitted parabola.  ``heard`` (a
+    level an earlier line's points showed; 0 for none) only limits the resolution; ``listen``
+    False leaves the line's own table unread (the caller said the values have no noise).
     """
     points = {float(t): float(v) for t, v in known.items()}
     spent = 0
@@ -190,12 +208,18 @@ def line_search(
 
     last = before_last = math.inf  # Brent's d and e: the last step and the one before
     while spent < limit:
+        if listen and noise == 0.0 and not exact and len(points) >= LINE_POINTS:
+            level = line_level(points)
+            if math.isfinite(level):  # the values scatter like noise: refining chases it
+                return dataclasses.replace(_result(points, None, spent), heard=level)
         ts = sorted(points)
         fs = [points[t] for t in ts]
         i = _best(ts, fs)
         x = ts[i]
         tx = tol(x)
         vertex, c = _model(points, x, noise) if parabolic else (math.nan, math.nan)
+        if heard > 0.0 and c > 0.0:  # no finer than a change of a quarter of the level
+            tx = max(tx, math.sqrt(0.5 * heard / c))
         if not exact and c > 0.0 and abs(vertex - x) <= tx:
             if noise == 0.0:  # what `_result` would find again: the best point and its c
                 return _found(ts, fs, i, c, spent)
@@ -212,7 +236,7 @@ def line_search(
             b = x if right is None else right
             if _rises_inward(x, vertex, c, a, b, tx):
                 break
-            if _indistinct(points, a, x, b, noise):
+            if _indistinct(points, a, x, b, max(noise, heard)):
                 break
             m = 0.5 * (a + b)
             if abs(x - m) <= 2.0 * tx - 0.5 * (b - a) or (not parabolic and b - a <= 4.0 * tx):

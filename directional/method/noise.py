@@ -25,6 +25,15 @@ Failure signals (``NoiseLevel.status``), each with its cure:
 
 A failed evaluation among the points makes the table useless: status ``"failed evaluation"``.
 
+A line search's own points (`line_level`) are not equally spaced, but the same table can be
+made of them: the k-th divided difference of ``k + 1`` neighbouring points, divided by the root
+sum of squares of its weights, has the standard deviation ``sigma`` under noise whatever the
+spacing (for equal spacing it is ``Delta^k f / sqrt(C(2k, k))``, the table above).  Only the
+points nearest the lowest whose values agree to within ``LINE_SPREAD`` are used (the spread test
+above, tighter), and the test is stricter than for a designed table, since the points were not
+chosen for it: from some order on, every order changes sign and the levels agree within
+``LINE_AGREEMENT``, and the differences of that order look like noise (`noise_like`).
+
 References
 ----------
 .. [1] J. J. Moré and S. M. Wild, "Estimating computational noise", *SIAM Journal on Scientific
@@ -60,6 +69,11 @@ AGREEMENT = 4.0  # sigma_k, sigma_{k+1}, sigma_{k+2} within this factor (Moré &
 SPREAD = 0.1  # values spreading more than this fraction of their size: step too large (ibid.)
 GROWTH = 100.0  # factor by which the step changes after a failure (ibid.)
 MAX_ORDER = 16  # differences of higher order only grow rounding (our choice; the paper uses m <= 8)
+LINE_POINTS = 7  # a line's own table needs this many points within the spread (our choice)
+LINE_SPREAD = 0.05  # a line's table uses the points whose values agree this closely (relative)
+LINE_AGREEMENT = 3.5  # its levels from the first noisy order on agree within this factor
+LINE_ORDERS = 8  # its highest order (each order from at least two differences)
+AUDIBLE = 1e-10  # a line's level below this fraction of its values (at least 1) is rounding
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -148,6 +162,104 @@ def detected_level(levels: np.ndarray, changes: np.ndarray) -> tuple[float, int]
         if changes[k] and window.max() <= AGREEMENT * window.min():
             return float(levels[k]), k + 1
     return math.nan, 0
+
+
+def line_level(points: dict[float, float]) -> float:
+    """The noise level shown by a line search's own points ``{t: f(t)}``, nan when they look
+    smooth (or too few agree in value).
+
+    The generalized difference table of the module docstring, over the run of neighbouring
+    points around the lowest whose values lie within ``LINE_SPREAD`` of their size.  Smooth
+    values give levels that fall with the order; noise gives levels that stay level and
+    differences that change sign at every order.  Measured on the smooth problems of the
+    benchmarks (Moré, Garbow & Hillstrom 1981, the random quadratics): it stays silent there
+    except along kinks, where refining a line further does not pay either.
+
+    >>> rng = np.random.default_rng(1)
+    >>> t = np.array([0.0, 0.1, 0.13, 0.2, 0.26, 0.3, 0.4, 0.45, 0.5])
+    >>> noisy = dict(zip(t, 1.0 + (t - 0.3) ** 2 + 1e-3 * rng.standard_normal(t.size)))
+    >>> bool(0.3e-3 < line_level(noisy) < 3e-3)
+    True
+    >>> math.isnan(line_level(dict(zip(t, 1.0 + (t - 0.3) ** 2))))
+    True
+    """
+    t, f = _agreeing(points)
+    if t.size < LINE_POINTS:
+        return math.nan
+    orders = min(t.size - 2, LINE_ORDERS)
+    size = max(1.0, float(np.max(np.abs(f))))
+    f = f - f.min()  # the differences annihilate constants: work with the smaller numbers
+    # The orders that qualify are those from some k on (a tail that qualifies stays so without
+    # its first order): grow the tail down from the highest order while it does, which rejects
+    # most smooth lines after one or two orders.
+    found, low, high = None, math.inf, 0.0
+    for k in range(orders, 0, -1):
+        z = _divided(t, f, k)
+        level = math.sqrt(float(np.mean(z**2)))
+        low, high = min(low, level), max(high, level)
+        if not (z.min() * z.max() < 0.0 and high <= LINE_AGREEMENT * low):
+            break
+        found = (z, level) if orders - k >= 2 else None
+    if found is None:
+        return math.nan
+    z, level = found
+    return level if noise_like(z) and level > AUDIBLE * size else math.nan
+
+
+def _agreeing(points: dict[float, float]) -> tuple[np.ndarray, np.ndarray]:
+    """The run of neighbouring points (sorted by t) around the lowest finite value whose values
+    lie within ``LINE_SPREAD`` of the largest of them in size, grown one neighbour at a time
+    towards the one nearer the lowest value."""
+    items = sorted((t, f) for t, f in points.items() if math.isfinite(f))
+    f = [v for _, v in items]
+    if len(f) < LINE_POINTS:
+        return np.empty(0), np.empty(0)
+    lowest = lo = hi = min(range(len(f)), key=f.__getitem__)
+    bottom, top = f[lowest], f[lowest]
+    while True:
+        grow = []
+        for j in (lo - 1, hi + 1):
+            if 0 <= j < len(f):
+                a, b = min(bottom, f[j]), max(top, f[j])
+                if b - a <= LINE_SPREAD * max(abs(a), abs(b)):
+                    grow.append((f[j] - f[lowest], j))
+        if not grow:
+            break
+        j = min(grow)[1]
+        lo, hi = min(lo, j), max(hi, j)
+        bottom, top = min(bottom, f[j]), max(top, f[j])
+    run = items[lo : hi + 1]
+    return np.array([t for t, _ in run]), np.array([v for _, v in run])
+
+
+def _divided(t: np.ndarray, f: np.ndarray, k: int) -> np.ndarray:
+    """The k-th divided differences of neighbouring points, each divided by the root sum of
+    squares of its weights ``1 / prod_{l != i} (t_i - t_l)``: of standard deviation sigma under
+    noise of standard deviation sigma (in units of the values, whatever the spacing)."""
+    windows = np.lib.stride_tricks.sliding_window_view(t, k + 1)  # (count, k + 1)
+    gaps = windows[:, :, None] - windows[:, None, :]
+    gaps[:, np.arange(k + 1), np.arange(k + 1)] = 1.0
+    products = np.prod(gaps, axis=2)
+    weights = np.min(np.abs(products), axis=1, keepdims=True) / products  # largest has size 1
+    values = np.lib.stride_tricks.sliding_window_view(f, k + 1)
+    return np.einsum("ij,ij->i", weights, values) / np.linalg.norm(weights, axis=1)
+
+
+def noise_like(differences: np.ndarray) -> bool:
+    """True when differences of a table look like noise's: they change sign at least twice (a
+    V-shaped kink changes the sign of its first differences once, noise about two times in
+    three), and at least half of them exceed a quarter of their root mean square (of Gaussian
+    noise's about 80 % do; a jump or kink puts its weight on one or two).  Common practice, no
+    source."""
+    if np.count_nonzero(differences[:-1] * differences[1:] < 0.0) < 2:
+        return False
+    size = np.abs(differences)
+    top = float(np.max(size))
+    if not (0.0 < top < math.inf):
+        return False
+    relative = size / top  # in units of the largest: no overflow when squared
+    spread = math.sqrt(float(np.mean(relative**2)))
+    return bool(np.count_nonzero(relative > 0.25 * spread) >= 0.5 * len(relative))
 
 
 def random_direction(n: int, rng: np.random.Generator) -> np.ndarray:

@@ -54,6 +54,15 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   axes (or from the way the search went lately) instead of counting.  The point returned is then
   the model's minimizer inside its sample, evaluated, or else the sample point the model puts
   lowest: not the lowest single value, which the noise biases low.
+  Before that, a line search whose own points scatter like noise stops refining and says so
+  (`linesearch`, `noise.line_level`); the level it heard, relative to |f| since noise in a
+  simulation often scales with its output (Moré & Wild 2011 treat both kinds), then limits the
+  resolution of the later line searches, so that a noisy objective does not cost ten
+  evaluations per line long before the calm.  Smooth lines leave it silent: of the smooth
+  benchmark problems only one is searched otherwise (Moré, Garbow & Hillstrom 1981, no. 11,
+  whose terms |y_i − x2|^x3 are not smooth where x2 = y_i); there the table at the calm finds
+  no noise, and the search drops the level and resolves its lines finely again.  With "none"
+  stated (``notice`` False) no line listens.
 
 On a quadratic in n variables the directions become mutually conjugate, and the minimum is
 reached after n cycles with exact line searches (Powell 1964); with the model, once the samples
@@ -91,7 +100,7 @@ from directional.method.directions import (
 )
 from directional.method.linesearch import LineResult, line_search
 from directional.method.model import LARGEST, Quadratic, Sample, coefficients, fit, trust_step
-from directional.method.noise import INTERRUPTED, NoiseLevel, estimate, floored
+from directional.method.noise import INTERRUPTED, NoiseLevel, estimate, floored, noise_like
 from directional.method.space import Space
 from directional.records import Batch, Halt, Outcome, Purpose, Stop
 
@@ -158,6 +167,8 @@ class _Tracker:
         self.answered = 0  # finite values received in this cycle
         self.sample = sample  # every finite evaluation, for the quadratic model
         self.noise = noise  # > 0: the noisy mode (a lower single value proves nothing)
+        self.heard = 0.0  # before it: the noise level relative to |f| a line's points showed
+        self.hearing = False  # whether line searches read their own points' table
 
     def seen(self, u: np.ndarray, value: float) -> None:
         """Take note of an evaluation: the new best point if it is lower (without noise), a
@@ -195,6 +206,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
         sample.add(u, best.value)
     trust = _Trust()
     listening = settings.notice and settings.noise == 0.0
+    best.hearing = listening
     try:
         calm, fresh, quiet = 0, True, 0
         ends: list[float] = []  # the best value after each noisy cycle
@@ -272,6 +284,12 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                         steps=directions.steps,
                     )
                     continue
+            if ending and best.heard > 0.0:
+                # a line heard noise the table at the calm does not confirm (a kink): the line
+                # searches resolved no finer than it, so the calm proves nothing yet; go on
+                # without listening to lines
+                best.heard, best.hearing, calm = 0.0, False, 0
+                continue
             if ending:
                 break
     except Halt as halt:
@@ -362,6 +380,9 @@ def _line(
         # than a change of a quarter of one (common practice, no source)
         reach = math.sqrt(NOISE_REACH * best.noise / curvature)
         step, tolerance = max(step, reach), max(tolerance, 0.25 * reach)
+    heard = best.heard * abs(best.value) if best.noise == 0.0 else 0.0
+    if heard > 0.0 and curvature > 0.0:  # as above, without the longer probes
+        tolerance = max(tolerance, 0.25 * math.sqrt(NOISE_REACH * heard / curvature))
     search = line_search(
         known if known is not None else {0.0: best.value},
         lo,
@@ -372,6 +393,8 @@ def _line(
         limit=settings.line_limit,
         parabolic=settings.parabolic,
         noise=best.noise,
+        heard=heard,
+        listen=best.hearing,
     )
     try:
         ts = next(search)
@@ -384,6 +407,8 @@ def _line(
             ts = search.send(values)
     except StopIteration as stop:
         result: LineResult = stop.value
+    if math.isfinite(result.heard) and result.value != 0.0:  # the noise follows |f| from here
+        best.heard = result.heard / abs(result.value)
     if result.value <= best.value or best.noise > 0.0:  # noisy: the fitted minimum, even if higher
         best.u, best.value = base + result.point * d, result.value
     if abs(result.point) >= 0.5 * FARTHEST:
@@ -495,7 +520,7 @@ def _listen(
     so a replay draws the same).
 
     A jump or a kink along the table also gives a level; noise shows in most of the differences
-    of the order the level came from, a kink or a jump in one or two (`_noise_like`).  A level
+    of the order the level came from, a kink or a jump in one or two (`noise.noise_like`).  A level
     whose differences do not look like noise is measured once more along another direction
     (noise fails the test about once in a hundred tables, a kink every time).  No retries with
     other steps: at the search's calm point a table that fails is rounding, not noise worth
@@ -509,7 +534,7 @@ def _listen(
         found, values = measured
         if found.status == INTERRUPTED or not (found.detected and found.level > ignored):
             return None
-        if _noise_like(np.diff(values, n=found.order)):
+        if noise_like(np.diff(values, n=found.order)):
             return float(found.level)
     return None
 
@@ -537,23 +562,6 @@ def _table(
                 batch = table.send(values)
     except StopIteration as done:
         return done.value, values
-
-
-def _noise_like(differences: np.ndarray) -> bool:
-    """True when differences of a table look like noise's: they change sign at least twice (a
-    V-shaped kink changes the sign of its first differences once, noise about two times in
-    three), and at least half of them exceed a quarter of their root mean square (of Gaussian
-    noise's about 80 % do; a jump or kink puts its weight on one or two).  Common practice, no
-    source."""
-    if np.count_nonzero(differences[:-1] * differences[1:] < 0.0) < 2:
-        return False
-    size = np.abs(differences)
-    top = float(np.max(size))
-    if not (0.0 < top < math.inf):
-        return False
-    relative = size / top  # in units of the largest: no overflow when squared
-    spread = math.sqrt(float(np.mean(relative**2)))
-    return bool(np.count_nonzero(relative > 0.25 * spread) >= 0.5 * len(relative))
 
 
 def _regression(best: _Tracker) -> tuple[Quadratic, np.ndarray] | None:

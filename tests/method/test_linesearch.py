@@ -116,3 +116,34 @@ def test_never_evaluates_outside_the_segment(lower, width, centre, power, start_
     assert all(lower <= t <= upper for t in seen)
     assert len(seen) == len(set(seen))  # never the same point twice
     assert result.value == min((t - centre) ** power for t in seen)
+
+
+def test_a_noisy_line_stops_refining_and_says_what_it_heard():
+    # A parabola plus N(0, 1e-3²) (invented for the test): Brent's iteration would chase the
+    # noise to the 40-evaluation limit; the line's own table stops it and returns the level.
+    rng = np.random.default_rng(7)
+    sigma = 1e-3
+
+    def f(t):
+        return 1.0 + (t - 0.3) ** 2 + sigma * rng.standard_normal()
+
+    result, seen = drive(f, line_search({0.0: f(0.0)}, -2.0, 2.0, step=0.1, tolerance=1e-9,
+                                        limit=40))
+    assert 0.5 * sigma <= result.heard <= 2.0 * sigma
+    assert len(seen) < 20
+    assert abs(result.point - 0.3) < 0.1  # where (t - 0.3)² is a few sigma
+
+
+def test_a_level_heard_before_ends_the_next_line_early():
+    # With the level passed as ``heard``, the next line on the same noisy function resolves no
+    # finer than a quarter of it: it stops once the parabola's vertex is that near the best.
+    rng = np.random.default_rng(8)
+
+    def f(t):
+        return 1.0 + (t - 0.3) ** 2 + 1e-3 * rng.standard_normal()
+
+    result, seen = drive(f, line_search({0.0: f(0.0)}, -2.0, 2.0, step=0.1, tolerance=1e-9,
+                                        limit=40, heard=1e-3))
+    assert len(seen) <= 6
+    assert math.isnan(result.heard)  # nothing more to hear: it stopped before the table
+    assert abs(result.point - 0.3) < 0.1

@@ -149,7 +149,9 @@ def test_the_summary_gives_the_value_with_its_noise():
         return quadratic6(x) + 1e-2 * rng.standard_normal()
 
     sol = dl.minimize(f, np.ones(6), check=False)
-    assert sol.noise == pytest.approx(1e-2, rel=0.5)
+    # one table of nine values gives the level within about a factor 2 (Moré & Wild 2011, from
+    # memory; over 16 seeds of this objective we measured 0.73 to 1.61 times the true 1e-2)
+    assert 0.5e-2 <= sol.noise <= 2e-2
     assert any("noticed by the search" in note for note in sol.notes)
     assert f"± {sol.noise:.2g}" in sol.summary()
     assert solution_document(sol)["noise"] == sol.noise
@@ -194,3 +196,50 @@ def test_a_noisy_run_stopped_and_resumed_ends_where_the_whole_run_ends(tmp_path)
     # the 20 missing, and the first and best points again: the counting wrapper is another
     # callable, so the journal checks that it reproduces the stored values (README, journal)
     assert len(calls) == 20 + 2
+
+
+def test_a_kink_heard_as_noise_is_disowned_at_the_calm(monkeypatch):
+    # Gulf research and development (Moré, Garbow & Hillstrom 1981, problem 11; minimum 0 at
+    # (50, 25, 1.5)) from its standard start: its terms |y_i - x2|^x3 are not smooth where
+    # x2 = y_i, and the points of one line there look like noise to the line's own table.  The
+    # table at the calm finds none, so the search drops the level and goes on to the minimum.
+    from directional.method import search as module
+    from directional.testproblems.mgh import problem
+
+    gulf = problem(11)
+    heard = []
+
+    def listened(*args, **kwargs):
+        result = yield from line_search(*args, **kwargs)
+        heard.append(result.heard)
+        return result
+
+    monkeypatch.setattr(module, "line_search", listened)
+    outcome, x, spent = drive(gulf, gulf.start, 0.0, budget=2000)
+    assert any(math.isfinite(level) for level in heard)
+    assert outcome.stop == Stop.CONVERGED and outcome.noise is None
+    # to a tenth of the point tolerance (1e-6) in relative terms, as a smooth search gets; kept,
+    # the level limited the lines' resolution and the search stopped 3.5e-7 away (measured)
+    assert x == pytest.approx([50.0, 25.0, 1.5], rel=1e-7)
+
+
+def test_rounding_only_means_no_line_listens(monkeypatch):
+    # noise="none" (notice=False): the caller says there is no noise, so no line reads its own
+    # table, however its values scatter (quadratic6 plus noise of 1e-2, as above); by default the
+    # same run hears it on its lines.
+    from directional.method import search as module
+
+    def heard_levels(**settings):
+        heard = []
+
+        def listened(*args, **kwargs):
+            result = yield from line_search(*args, **kwargs)
+            heard.append(result.heard)
+            return result
+
+        monkeypatch.setattr(module, "line_search", listened)
+        drive(quadratic6, np.ones(6), 1e-2, budget=600, **settings)
+        return [level for level in heard if math.isfinite(level)]
+
+    assert heard_levels(notice=False) == []
+    assert heard_levels() != []
