@@ -149,7 +149,9 @@ def test_the_summary_gives_the_value_with_its_noise():
         return quadratic6(x) + 1e-2 * rng.standard_normal()
 
     sol = dl.minimize(f, np.ones(6), check=False)
-    assert sol.noise == pytest.approx(1e-2, rel=0.5)
+    # within a factor of two: over 30 seeds the estimate ranged over 0.0103-0.0185 (measured,
+    # before and after the calm rule of issue 14 changed where the table is made)
+    assert 0.5e-2 <= sol.noise <= 2e-2
     assert any("noticed by the search" in note for note in sol.notes)
     assert f"± {sol.noise:.2g}" in sol.summary()
     assert solution_document(sol)["noise"] == sol.noise
