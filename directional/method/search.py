@@ -16,7 +16,9 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   decrease, which keeps the set from collapsing (Zangwill 1967).
 - When the set nevertheless becomes nearly dependent it is reset to principal axes (Brent 1973,
   ch. 7): the eigenvectors of the free Hessian estimate when every curvature is known, else the
-  coordinate axes.
+  coordinate axes.  Long before that, once its condition number passes ``ALIGNED``, a set whose
+  curvatures are all known is replaced after the cycle by the eigenvectors of its estimate, with
+  their eigenvalues as the known curvatures.
 - Model steps (`model`).  Every finite value the search receives is kept, and after each cycle
   a quadratic is fitted to the samples nearest the best point (least squares; until the samples
   fix every coefficient, the Hessian nearest the last model's, Powell 2004, and such a model is
@@ -103,6 +105,7 @@ Search = Generator[Batch, np.ndarray, Outcome]
 
 FIRST_STEP = 0.1  # first probe along an axis, in scaled units (a tenth of the problem's size)
 SKEWED = 1e3  # condition of the direction set beyond which a calm cycle is not trusted
+ALIGNED = 10.0  # condition beyond which the set is replaced by the principal axes of its estimate
 SAMPLES = 3  # the model's store holds this many times the coefficients of a quadratic
 MODEL_STEPS = 8  # at most this many model steps in a row, while each is a success
 SETTLE_MISFIT = 1e-3  # a model may end the search when it misfits its sample by less (relative)
@@ -271,6 +274,12 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 )
                 fresh, calm = True, 0
                 continue
+            if not ending and np.linalg.cond(directions.vectors) > ALIGNED:
+                # the principal axes of the Hessian the set implies, once every curvature is
+                # known: orthogonal, and conjugate as far as the estimate is right (Brent 1973,
+                # ch. 7, resets to them regularly, from memory); a set that skews along a curved
+                # valley otherwise keeps line-searching across it
+                directions = principal_axes_of_estimate(directions) or directions
             if not ending:
                 fresh = fresh and small
                 calm = calm + 1 if small else 0
