@@ -18,7 +18,7 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   ch. 7): the eigenvectors of the free Hessian estimate when every curvature is known, else the
   coordinate axes.  Long before that, once its condition number passes ``ALIGNED``, a set whose
   curvatures are all known is replaced after the cycle by the eigenvectors of its estimate, with
-  their eigenvalues as the known curvatures.
+  their eigenvalues as the known curvatures, unless they spread beyond ``SPREAD``.
 - Model steps (`model`).  Every finite value the search receives is kept, and after each cycle
   a quadratic is fitted to the samples nearest the best point (least squares; until the samples
   fix every coefficient, the Hessian nearest the last model's, Powell 2004, and such a model is
@@ -106,6 +106,7 @@ Search = Generator[Batch, np.ndarray, Outcome]
 FIRST_STEP = 0.1  # first probe along an axis, in scaled units (a tenth of the problem's size)
 SKEWED = 1e3  # condition of the direction set beyond which a calm cycle is not trusted
 ALIGNED = 10.0  # condition beyond which the set is replaced by the principal axes of its estimate
+SPREAD = 1e5  # ... unless the estimate's largest curvature exceeds its least this many times
 SAMPLES = 3  # the model's store holds this many times the coefficients of a quadratic
 MODEL_STEPS = 8  # at most this many model steps in a row, while each is a success
 SETTLE_MISFIT = 1e-3  # a model may end the search when it misfits its sample by less (relative)
@@ -278,8 +279,13 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 # the principal axes of the Hessian the set implies, once every curvature is
                 # known: orthogonal, and conjugate as far as the estimate is right (Brent 1973,
                 # ch. 7, resets to them regularly, from memory); a set that skews along a curved
-                # valley otherwise keeps line-searching across it
-                directions = principal_axes_of_estimate(directions) or directions
+                # valley otherwise keeps line-searching across it.  Not where the estimate's
+                # curvatures spread beyond SPREAD: there its flat axes are the least certain,
+                # and the skewed set knows the valley better (Meyer's problem, MGH 10, took
+                # 5673 evaluations instead of 3067 with such resets)
+                axes = principal_axes_of_estimate(directions)
+                if axes is not None and np.max(axes.curvatures) <= SPREAD * np.min(axes.curvatures):
+                    directions = axes
             if not ending:
                 fresh = fresh and small
                 calm = calm + 1 if small else 0
