@@ -33,8 +33,8 @@ scaled coordinates of `space.Space`, starting from the principal axes.
 - A calm cycle (see below), or one that moved less than the point tolerance, along a nearly
   dependent set (condition beyond ``SKEWED``) proves nothing: a valley no direction points
   along can be missed, which stopped Meyer's problem (Moré, Garbow & Hillstrom 1981, no. 10)
-  at f = 7665 instead of 87.95.  The set is then
-  reset to orthogonal axes and the cycle does not count.
+  at f = 7665 instead of 87.95.  The set is then reset to orthogonal axes, with curvatures
+  unknown, and the cycle does not count.
 - The search stops when, on two consecutive cycles, the point moved less than ``point_tolerance``
   (scaled, infinity norm) and the value fell by less than ``value_tolerance * max(1, |f|)``, the
   second of them with line searches resolving moves of ``point_tolerance`` (a coarser cycle that
@@ -277,7 +277,8 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 continue
             if not ending and np.linalg.cond(directions.vectors) > ALIGNED:
                 # the principal axes of the Hessian the set implies, once every curvature is
-                # known: orthogonal, and conjugate as far as the estimate is right (Brent 1973,
+                # known and the estimate is positive definite (else a curvature is nan and the
+                # test below fails): orthogonal, and conjugate as far as the estimate is right (Brent 1973,
                 # ch. 7, resets to them regularly, from memory); a set that skews along a curved
                 # valley otherwise keeps line-searching across it.  Not where the estimate's
                 # curvatures spread beyond SPREAD: there its flat axes are the least certain,
