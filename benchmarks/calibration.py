@@ -13,7 +13,7 @@ estimates (1e-6 relative) and standard deviations (1e-3 relative) were reached, 
 the stop.  The demo (``directional demo``'s problem, `directional.interface.demo`) is run as the
 command line runs it, without a journal.
 
-The targets (issue 13) are computed from the runs, never typed:
+The targets are computed from the runs, never typed:
 
 - evaluations to the certified S, median over the runs of the sets in the tests (the seven
   NIST files copied from NIST's own, both starts) that the baseline solves, of the ratio
@@ -54,7 +54,7 @@ NIST = Path(__file__).resolve().parents[1] / "tests" / "reference" / "nist-strd"
 TESTED = ("Misra1a", "Chwirut2", "DanWood", "Misra1b", "Kirby2", "Hahn1", "BoxBOD")
 STARTS = ("start1", "start2")
 REACHED = 1e-6  # relative distance to the certified S that counts as reaching it
-ESTIMATES, DEVIATIONS = 1e-6, 1e-3  # relative tolerances on the certified values (issue 13)
+ESTIMATES, DEVIATIONS = 1e-6, 1e-3  # relative tolerances on the certified values (our targets)
 LM_BUDGET = 5000  # the baseline's budget: far above what it spends where it converges
 DEMO_LIMIT, DEMO_SAME = 250, 1e-8
 
@@ -277,7 +277,7 @@ def shares(rows: list[Row], part: str = "phases") -> str:
 
 
 def targets(rows: list[Row], shown: Demo | None) -> list[tuple[str, str, bool, str]]:
-    """(target, measured, met, note) for each target of issue 13, computed from the runs."""
+    """(target, measured, met, note) for each target, computed from the runs."""
     solved = [r for r in rows if r.tested and r.lm_to is not None]
     to = [_ratio(r.calibrate_to, r.lm_to) for r in solved]
     total = [r.calibrate_total / r.lm_total for r in solved]
@@ -331,7 +331,7 @@ def write_up(rows: list[Row], shown: Demo | None, seconds: float) -> str:
         "(relative) against NIST's certified values; \"(harder)\": a set whose file was "
         "recalled from memory (tests/reference/README.md), not in the tests of `calibrate`.",
         "",
-        "### Targets (issue 13)",
+        "### Targets",
         "",
         "| target | measured | met | note |",
         "|---|---|:---:|---|",

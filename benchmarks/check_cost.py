@@ -16,9 +16,9 @@ For each problem of Moré, Garbow & Hillstrom (1981) in `directional.testproblem
 
 The table gives each check's cost (evaluations with purpose "hessian", escapes included) as a
 share of the search's, the verdicts, and whether the free estimate agrees where both paid checks
-agree.  Targets (issue 4): the free estimate decides correctly wherever the paid checks agree, and
+agree.  Targets: the free estimate decides correctly wherever the paid checks agree, and
 the quick check costs at most 2 n² + 1 (2 n² + 2 n + 1 with the smoothness test's half steps);
-(issue 14) the default check costs at most one stencil (2 n² + 2 n + 1) in the median and gives
+the default check costs at most one stencil (2 n² + 2 n + 1) in the median and gives
 the extrapolated check's verdict on at least 34 of the 35 problems.
 """
 

@@ -2,7 +2,7 @@
 
 Runs `directional` and the baselines on the MGH set under relative noise 1e-3 (data profiles at
 τ = 1e-1 and 1e-3, judged on true values) and on smooth functions of our own plus Gaussian noise
-(final true gap in units of σ, verdict, evaluations), checks the targets of issue 18 and writes
+(final true gap in units of σ, verdict, evaluations), checks its targets and writes
 ``results/noise.md`` (default ``benchmarks/results/noise.md``) and the figure
 ``noise-profiles.png`` beside RESULTS.md.  The smooth MGH numbers are read from RESULTS.md, so
 run ``python -m benchmarks`` first; the block of RESULTS.md that includes ``results/noise.md``

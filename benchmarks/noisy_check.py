@@ -3,7 +3,7 @@
 ``python -m benchmarks.noisy_check [--out FILE]``: prints a markdown table.
 
 The functions are smooth with known minima, plus independent Gaussian noise of known standard
-deviation sigma from a seeded generator (invented for this benchmark, as in issue 18):
+deviation sigma from a seeded generator (invented for this benchmark):
 
 - a curved valley in three variables, (x0 - 1)² + 10 (x1 - x0²)² + (x2 + 0.5)², sigma = 1e-3
   (Hessian at the minimum (1, 1, -0.5): eigenvalues 0.394, 2 and 101.6, analytic);
@@ -13,7 +13,7 @@ deviation sigma from a seeded generator (invented for this benchmark, as in issu
 Each runs with five seeds and three noise settings: the default (no level stated: the check
 notices the noise itself), ``noise=sigma`` and ``noise="estimate"``.  For each, the check's
 verdict at the point the search returns and at the true minimum (the check alone, default
-``check=True``), and the check's evaluations (median).  Target (issue 18, item 4): never
+``check=True``), and the check's evaluations (median).  Target: never
 ``flat``; ``minimum`` where the noise allows, ``noisy`` where it does not.  The search's own
 final gaps are another item's and are shown only for context.
 """

@@ -216,7 +216,7 @@ def test_label_needs_a_whole_line(text):
 
 
 def test_program_ending_with_a_count_fails_with_the_line_quoted():
-    # Issue 15 item 8: "done in 3 s, 1000 steps" after the value was stored as 1000.
+    # A program that prints "done in 3 s, 1000 steps" after its value once had 1000 stored.
     code = "print(2.5 * float(__import__('sys').argv[1])); print('done in 3 s, 1000 steps')"
     with pytest.raises(EvaluationFailed) as caught:
         python(code, "{a}", timeout=60)([1.0])

@@ -1,7 +1,7 @@
 """The curvature check under a stated noise level: steps, error bars, and flat against noisy.
 
 The objectives are smooth functions with analytic Hessians plus Gaussian noise of known standard
-deviation drawn from a seeded generator (invented for these tests, as in issue 18: a curved
+deviation drawn from a seeded generator (invented for these tests: a curved
 3-variable valley with sigma = 1e-3, a 6-variable quadratic of condition 1e2 with sigma = 1e-2).
 Each expected Hessian and minimum is worked out in the comment beside it.
 """
@@ -145,7 +145,7 @@ def test_the_half_steps_measure_the_truncation_of_a_quartic():
     assert hessian.truncation(m.spread, steps, 1e-3) == pytest.approx([0.0])
 
 
-# --------------------------------------------------------------------------- the issue's problems
+# --------------------------------------------------------------------------- the two target problems
 
 
 @pytest.mark.parametrize("name", sorted(CASES))

@@ -1,4 +1,4 @@
-"""The search through noise (issue 18): noticed by default, averaged line searches and models, a
+"""The search through noise: noticed by default, averaged line searches and models, a
 stop on what the noise allows.  Driven directly with a plain function (no driver) where it can."""
 
 from __future__ import annotations
@@ -94,7 +94,7 @@ def test_a_noisy_line_probes_until_the_value_changes_by_several_sigma():
 
 
 def test_noise_is_noticed_and_the_minimum_found_through_it():
-    # Target of issue 18: default settings, a quadratic of condition 1e2 in six variables with
+    # The target: default settings, a quadratic of condition 1e2 in six variables with
     # sigma = 1e-2, end within 10 sigma of the true minimum (analytic, 0).  The level measured
     # is the noise's within a factor 2 (Moré & Wild 2011 report estimates within such factors).
     outcome, x, spent = drive(quadratic6, np.ones(6), 1e-2)
@@ -105,7 +105,7 @@ def test_noise_is_noticed_and_the_minimum_found_through_it():
 
 
 def test_a_curved_valley_through_noise():
-    # Target of issue 18: the curved 3-variable valley (minimum 0 at (1, 1, -0.5), analytic)
+    # The target: the curved 3-variable valley (minimum 0 at (1, 1, -0.5), analytic)
     # with sigma = 1e-3 ends within 10 sigma of the minimum; before, it stopped at f = 3.96.
     outcome, x, _ = drive(valley3, [-1.2, 1.0, 0.5], 1e-3)
     assert outcome.noise is not None

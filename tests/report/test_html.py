@@ -294,7 +294,7 @@ def test_demo_report_in_a_browser(chromium, demo):
 
 
 def test_demo_notes_do_not_repeat_the_value_as_news(demo):
-    # the fault: "reached S = 21.03734853, below the 21.03734853"
+    # the fault once seen: "reached S = 21.03734853, below the 21.03734853"
     document = json.loads((demo / "solution.json").read_text())
     printed = f"{document['value']:.10g}"
     assert not any(note.count(printed) for note in document["notes"]), document["notes"]
