@@ -16,7 +16,9 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   decrease, which keeps the set from collapsing (Zangwill 1967).
 - When the set nevertheless becomes nearly dependent it is reset to principal axes (Brent 1973,
   ch. 7): the eigenvectors of the free Hessian estimate when every curvature is known, else the
-  coordinate axes.
+  coordinate axes.  Long before that, once its condition number passes ``ALIGNED``, a set whose
+  curvatures are all known is replaced after the cycle by the eigenvectors of its estimate, with
+  their eigenvalues as the known curvatures.
 - Model steps (`model`).  Every finite value the search receives is kept, and after each cycle
   a quadratic is fitted to the samples nearest the best point (least squares; until the samples
   fix every coefficient, the Hessian nearest the last model's, Powell 2004, and such a model is
@@ -28,12 +30,16 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   after a poor step, doubles after a good one, and is never less than the last cycle's reach.
   The model is switched off above `model.LARGEST` variables, where its fit costs more than
   it saves.
-- A calm cycle (see below) along a nearly dependent set (condition beyond ``SKEWED``) proves
-  nothing: a valley no direction points along can be missed, which stopped Meyer's problem
-  (Moré, Garbow & Hillstrom 1981, no. 10) at f = 7665 instead of 87.95.  The set is then
+- A calm cycle (see below), or one that moved less than the point tolerance, along a nearly
+  dependent set (condition beyond ``SKEWED``) proves nothing: a valley no direction points
+  along can be missed, which stopped Meyer's problem (Moré, Garbow & Hillstrom 1981, no. 10)
+  at f = 7665 instead of 87.95.  The set is then
   reset to orthogonal axes and the cycle does not count.
 - The search stops when, on two consecutive cycles, the point moved less than ``point_tolerance``
-  (scaled, infinity norm) and the value fell by less than ``value_tolerance * max(1, |f|)``; or
+  (scaled, infinity norm) and the value fell by less than ``value_tolerance * max(1, |f|)``, the
+  second of them with line searches resolving moves of ``point_tolerance`` (a coarser cycle that
+  saw no move only makes the next one finer: a hundredth of the larger of its move and its
+  resolution, so the resolution falls a hundredfold per cycle at most); or
   after one such cycle when a model that fixes every coefficient, fits its sample to within
   ``SETTLE_MISFIT`` and is convex puts its minimizer within the point tolerance with a predicted
   decrease within the value tolerance.
@@ -108,6 +114,7 @@ Search = Generator[Batch, np.ndarray, Outcome]
 
 FIRST_STEP = 0.1  # first probe along an axis, in scaled units (a tenth of the problem's size)
 SKEWED = 1e3  # condition of the direction set beyond which a calm cycle is not trusted
+ALIGNED = 10.0  # condition beyond which the set is replaced by the principal axes of its estimate
 SAMPLES = 3  # the model's store holds this many times the coefficients of a quadratic
 MODEL_STEPS = 8  # at most this many model steps in a row, while each is a success
 SETTLE_MISFIT = 1e-3  # a model may end the search when it misfits its sample by less (relative)
@@ -216,6 +223,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             cycles += 1
             best.answered = 0
             begun = best.u.copy()
+            worked_at = best.resolution
             directions, moved, dropped = yield from _cycle(space, settings, best, directions)
             if best.answered == 0:
                 reason = "every evaluation of a whole cycle failed: the best point is walled in"
@@ -261,16 +269,35 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 best.resolution = _resolution(settings, moved)
                 continue
             ending = small and settled  # the model agrees: nothing left beyond the tolerances
-            if small and not ending and not fresh and np.linalg.cond(directions.vectors) > SKEWED:
+            # a cycle whose line searches could not see a move of the point tolerance proves
+            # nothing about the point: it may count towards the calm, never end the search alone
+            resolved = worked_at <= settings.point_tolerance
+            crawl = moved <= settings.point_tolerance and resolved
+            if crawl and not ending and not fresh and np.linalg.cond(directions.vectors) > SKEWED:
                 # A calm cycle along a nearly dependent set proves nothing: it may have missed a
-                # valley that no direction points along.  Start again from orthogonal axes.
-                directions = principal_axes_of_estimate(directions) or principal_axes(n, FIRST_STEP)
+                # valley that no direction points along.  Nor does one that still lowers the
+                # value by creeping less than the point tolerance (Meyer's problem without the
+                # model crept so for 3000 cycles).  Start again from orthogonal axes, measuring
+                # their curvatures afresh: those the skewed set implies are the ones that missed
+                # the valley (with them Meyer's problem stopped at 89.13 instead of 87.95).
+                axes = principal_axes_of_estimate(directions) or principal_axes(n, FIRST_STEP)
+                directions = DirectionSet(
+                    vectors=axes.vectors, curvatures=np.full(n, math.nan), steps=axes.steps
+                )
                 fresh, calm = True, 0
                 continue
+            if not ending and np.linalg.cond(directions.vectors) > ALIGNED:
+                # the principal axes of the Hessian the set implies, once every curvature is
+                # known: orthogonal, and conjugate as far as the estimate is right (Brent 1973,
+                # ch. 7, resets to them regularly, from memory); a set that skews along a curved
+                # valley otherwise keeps line-searching across it
+                directions = principal_axes_of_estimate(directions) or directions
             if not ending:
                 fresh = fresh and small
                 calm = calm + 1 if small else 0
-                best.resolution = _resolution(settings, moved)
+                # a cycle that moved less than its resolution makes the next one 100 times finer,
+                # not at once as fine as the end needs (which cost cycles of long line searches)
+                best.resolution = _resolution(settings, max(moved, best.resolution))
                 ending = calm >= 2
             if ending and listening and not _rounding_only(settings, best):
                 # before believing the calm, ask whether it is the noise's
@@ -290,7 +317,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 # without listening to lines
                 best.heard, best.hearing, calm = 0.0, False, 0
                 continue
-            if ending:
+            if ending and (resolved or settled):
                 break
     except Halt as halt:
         return _outcome(best, halt.stop, cycles, directions, halt.reason)

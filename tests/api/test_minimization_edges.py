@@ -12,8 +12,10 @@ import directional as dl
 
 
 def test_a_constant_objective_converges_at_once():
+    # three cycles of two line searches: the first two, at the coarse resolution of the start,
+    # only make the next one finer (21 evaluations; two cycles and 17 before issue 14)
     sol = dl.minimize(lambda x: 1.0, [1.0, 2.0], check=False)
-    assert sol.stop is dl.Stop.CONVERGED and sol.evaluations < 20
+    assert sol.stop is dl.Stop.CONVERGED and sol.evaluations <= 21
     assert list(sol.point) == [1.0, 2.0]
 
 
