@@ -549,8 +549,9 @@ def _nearly(model: Quadratic, best: _Tracker, n: int) -> bool:
     (n = 10 and 20, condition 1e3) the ratio of the evaluations to f <= 1e-8 f(x0) to the
     coefficients fell from 2.14 and 2.04 to 1.86 and 1.88 (benchmarks/results/model-steps.md).
     Not in the noisy mode, where a model is believed only as a regression over more points than
-    coefficients; and not below 6 variables, where ``NEARLY`` leaves no coefficient free
-    (stepping on every undetermined model took a minimum at infinity for converged, ibid.).
+    coefficients (with it, a noisy quadratic in 6 variables spent its whole budget); and not
+    below 6 variables, where ``NEARLY`` leaves no coefficient free (stepping on every
+    undetermined model took a minimum at infinity for converged: same notes).
     """
     return best.noise == 0.0 and 0 < model.missing <= min(NEARLY * coefficients(n), MODEL_STEPS)
 
