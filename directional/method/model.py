@@ -103,6 +103,7 @@ class Quadratic:
     hessian: np.ndarray
     radius: float
     misfit: float  # largest weighted residual (objective units); inf when not determined
+    missing: int = 0  # Hessian coefficients (combinations of them) the sample leaves free
 
     def predict(self, s: np.ndarray) -> float:
         return float(self.value + self.gradient @ s + 0.5 * s @ self.hessian @ s)
@@ -116,7 +117,9 @@ def fit(
     With fewer samples than coefficients, or samples that do not fix every second derivative,
     the Hessian is the one closest to ``prior`` (zero when None) in the Frobenius norm among
     those that fit best: the least-change model of Powell (2004), the minimum-norm model of Conn,
-    Scheinberg & Vicente (2009, ch. 5).  Such a model is not ``determined``.  None when fewer than
+    Scheinberg & Vicente (2009, ch. 5).  Such a model is not determined (infinite ``misfit``), and
+    its ``missing`` counts the Hessian coefficients (independent combinations of them) that the
+    sample leaves to the prior.  None when fewer than
     ``n + 1`` samples or samples that do not fix the linear part (scaled condition beyond
     `POISED`).
     """
@@ -186,6 +189,7 @@ def fit(
         hessian=span * h / radius**2,
         radius=radius,
         misfit=misfit if determined else math.inf,
+        missing=len(rows) - rank,
     )
 
 

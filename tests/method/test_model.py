@@ -60,6 +60,29 @@ def test_a_linear_interpolation_leaves_the_prior_hessian_unchanged(n):
     assert model.misfit == np.inf  # not determined
 
 
+def test_a_sample_on_the_axes_leaves_the_cross_terms_free_until_a_point_off_them():
+    # on the coordinate axes every product x_i x_j (i != j) vanishes, so points there fix the
+    # value, the gradient and the diagonal of the Hessian but none of its n (n - 1) / 2 cross
+    # terms; one point off the axes adds one equation in them, fixing one combination (Conn,
+    # Scheinberg & Vicente 2009, ch. 3: the poisedness of the sample; analytic)
+    n = 3
+    h = np.array([[4.0, 1.0, 0.0], [1.0, 3.0, -0.5], [0.0, -0.5, 2.0]])
+    sample = Sample(n, 40)
+    sample.add(np.zeros(n), 0.0)
+    for i in range(n):
+        for t in (-1.0, -0.5, 0.5, 1.0):
+            x = np.zeros(n)
+            x[i] = t
+            sample.add(x, 0.5 * x @ h @ x)
+    model = fit(sample, np.zeros(n), 40)
+    assert model is not None and model.missing == 3 and model.misfit == np.inf
+    assert np.diag(model.hessian) == pytest.approx(np.diag(h), abs=1e-9)
+    x = np.array([0.3, -0.7, 0.4])
+    sample.add(x, 0.5 * x @ h @ x)
+    model = fit(sample, np.zeros(n), 40)
+    assert model is not None and model.missing == 2 and model.misfit == np.inf
+
+
 def test_near_samples_decide_the_model_where_far_ones_see_higher_terms():
     # f = Σ cos x_i has gradient -sin c and Hessian diag(-cos c) at c (analytic).  A cluster of
     # samples about 0.03 from c fixes them to about 0.03 |f'''|; far samples (distance ~2) see
@@ -133,6 +156,31 @@ def test_model_steps_reach_a_rotated_quadratic_in_a_few_times_its_coefficients(n
     first = next(i for i, v in enumerate(counted) if v <= 1e-8 * counted[0]) + 1
     assert first <= 3.0 * coefficients(n)
     assert sol.stop is dl.Stop.CONVERGED
+
+
+def test_a_nearly_determined_model_is_completed_by_its_own_steps():
+    # the line searches' points fix about one coefficient of the model per two evaluations, so
+    # waiting for them to determine it costs about 2 (n + 1)(n + 2) / 2 evaluations (2.01 times
+    # on this quadratic before nearly determined models were stepped on); model steps land off
+    # their lines and fix about one each.  A convex quadratic (condition 1e3, random rotation),
+    # minimum 0 at x* (analytic).
+    n = 20
+    rng = np.random.default_rng(n)
+    q, _ = np.linalg.qr(rng.standard_normal((n, n)))
+    a = (q * np.geomspace(1.0, 1e3, n)) @ q.T
+    x_star = rng.standard_normal(n)
+    counted = []
+
+    def f(x):
+        d = x - x_star
+        counted.append(0.5 * float(d @ a @ d))
+        return counted[-1]
+
+    sol = dl.minimize(f, np.zeros(n), check=False)
+    assert sol.stop is dl.Stop.CONVERGED
+    assert sol.point == pytest.approx(x_star, abs=1e-5)
+    first = next(i for i, v in enumerate(counted) if v <= 1e-8 * counted[0]) + 1
+    assert first < 2.0 * coefficients(n)
 
 
 def test_meyer_reaches_the_published_minimum():
