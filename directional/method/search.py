@@ -399,7 +399,8 @@ def _line(
     try:
         ts = next(search)
         while True:
-            us = base + ts[:, None] * d if len(ts) > 1 else (base + ts[0] * d)[None, :]
+            # a float times a vector costs less than a numpy scalar times it (the same product)
+            us = base + ts[:, None] * d if len(ts) > 1 else (base + float(ts[0]) * d)[None, :]
             values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
             for u, value in zip(us, values.tolist()):
                 best.answered += math.isfinite(value)
