@@ -140,7 +140,7 @@ def fit(
     # each sample's equation is weighted by its nearness (see `_nearness`)
     near = _nearness(distance)[:, None]
     products = d[:, rows] * d[:, cols]
-    products[:, diagonal] *= 0.5
+    products *= _halves(n)  # 0.5 on the diagonal, 1.0 (exact) elsewhere: no masked copy
     products *= near
     linear = np.empty((len(d), n + 1))
     linear[:, 0] = 1.0
@@ -244,6 +244,14 @@ def _layout(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     for array in (rows, cols, diagonal, weight):
         array.flags.writeable = False
     return rows, cols, diagonal, weight
+
+
+@functools.cache
+def _halves(n: int) -> np.ndarray:
+    """Per column of the Hessian's upper triangle: ½ on the diagonal (``½ hᵢᵢ sᵢ²``), else 1."""
+    halves = np.where(_layout(n)[2], 0.5, 1.0)
+    halves.flags.writeable = False
+    return halves
 
 
 def _median(x: np.ndarray) -> float:
