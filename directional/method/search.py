@@ -312,8 +312,10 @@ def _cycle(
     last = 0.0  # the move of the cycle's last line search
     for i, d in enumerate(directions.vectors):
         before = best.value
-        known_curvature = directions.curvatures[i] if settings.reuse_curvature else math.nan
-        step = directions.steps[i]
+        # plain floats: the line search's scalar arithmetic is then Python's, not numpy's (the
+        # same doubles, a fraction of the time)
+        known_curvature = float(directions.curvatures[i]) if settings.reuse_curvature else math.nan
+        step = float(directions.steps[i])
         if math.isnan(directions.curvatures[i]):  # nothing measured here: the last move is
             step = max(step, min(last, SEEDED * step))  # a better guess of the scale
         result = yield from _line(space, settings, best, d, step, known_curvature)
