@@ -8,6 +8,7 @@ a `ProblemError` that names it, in the order the arguments are listed.
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -22,7 +23,7 @@ from directional.method.replicates import replicate_count
 from directional.method.search import Settings
 from directional.method.space import Space, build_space
 from directional.records import Check
-from directional.run.identity import run_identity
+from directional.run.identity import Deferred, run_identity
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -143,11 +144,11 @@ def _single(
     if "sigma" in arguments:  # calibrate's
         sigma = sigma_option(arguments["sigma"])
         extra["sigma"] = None if sigma is None else sigma.tolist()
-    identity = run_identity(
-        kind, space.parameters, settings,
+    identity = Deferred(functools.partial(
+        run_identity, kind, space.parameters, settings,
         point_tolerance=arguments["point_tolerance"], value_tolerance=arguments["value_tolerance"],
         check=arguments["check"], escapes=escapes, noise=noise, **extra,
-    )
+    ))  # made only if a journal reads it
     return Options(
         kind=kind, space=space, settings=settings, budget=allowed, time_limit=time_limit,
         check=check, escapes=escapes, noise=noise, identity=identity, sigma=sigma,

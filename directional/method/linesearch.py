@@ -267,7 +267,8 @@ def _unheard(points: dict[float, float], t0: float, noise: float) -> bool:
 def _best(ts: list[float], fs: list[float]) -> int:
     """Index of the lowest value; among equal values the point nearest the base ``t = 0``, so that
     a flat stretch is never mistaken for a descent."""
-    return min(range(len(ts)), key=lambda k: (fs[k], abs(ts[k])))
+    # the index breaks no tie the key leaves (equal keys: the first, as min with a key keeps)
+    return min(zip(fs, map(abs, ts), range(len(ts))))[2]
 
 
 def _probe(t0: float, lower: float, upper: float, step: float, tol: float) -> float | None:
@@ -291,7 +292,7 @@ def _model(points: dict[float, float], x: float, noise: float = 0.0) -> tuple[fl
     if len(finite) < 3:
         return math.nan, math.nan
     (fx, tx), (fw, tw), (fv, tv) = finite[:3]
-    return parabola([tx, tw, tv], [fx, fw, fv])
+    return parabola((tx, tw, tv), (fx, fw, fv))
 
 
 def fitted_parabola(

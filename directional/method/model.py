@@ -54,6 +54,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
+import scipy.linalg.lapack
 
 LOCAL = 0.01  # sets the reach of the fit's weights (see `_nearness`)
 POISED = 1e12  # condition number of the scaled design matrix beyond which the fit is not trusted
@@ -142,7 +143,7 @@ def fit(
     # each sample's equation is weighted by its nearness (see `_nearness`)
     near = _nearness(distance)[:, None]
     products = d[:, rows] * d[:, cols]
-    products[:, diagonal] *= 0.5
+    products *= _halves(n)  # 0.5 on the diagonal, 1.0 (exact) elsewhere: no masked copy
     products *= near
     linear = np.empty((len(d), n + 1))
     linear[:, 0] = 1.0
@@ -166,10 +167,7 @@ def fit(
         else:
             # a complete orthogonal factorization (LAPACK gelsy) gives the same minimum-norm
             # solution as an SVD at a quarter of its cost (Golub & Van Loan 2013, sec. 5.5)
-            change, _, rank, _ = scipy.linalg.lstsq(
-                rest, target - basis @ (basis.T @ target), cond=1.0 / POISED,
-                check_finite=False, lapack_driver="gelsy",
-            )
+            change, rank = _gelsy(rest, target - basis @ (basis.T @ target), 1.0 / POISED)
     except (np.linalg.LinAlgError, ValueError):
         return None
     h_coefficients = scaled_prior + change / weight
@@ -191,6 +189,34 @@ def fit(
         misfit=misfit if determined else math.inf,
         missing=len(rows) - rank,
     )
+
+
+def _gelsy(a: np.ndarray, b: np.ndarray, cond: float) -> tuple[np.ndarray, int]:
+    """The minimum-norm least-squares solution of ``a x = b`` and the rank, by LAPACK's gelsy:
+    the routine, arguments and work size of ``scipy.linalg.lstsq(a, b, cond,
+    lapack_driver="gelsy")``, so the same result bit for bit, without its checks and look-ups
+    (a fit spends as long in them as in the factorization at n = 10)."""
+    m, n = a.shape
+    routine, lwork = _gelsy_routine(m, n, cond)
+    if m < n:  # LAPACK writes the n unknowns over b
+        b = np.concatenate((b, np.zeros(n - m)))
+    _, x, _, rank, info = routine(a, b, np.zeros((n, 1), dtype=np.int32), cond, lwork, False, False)
+    if info < 0:
+        raise ValueError(f"illegal value in argument {-info} of LAPACK gelsy")
+    return x[:n], int(rank)
+
+
+@functools.lru_cache(maxsize=64)
+def _gelsy_routine(m: int, n: int, cond: float) -> tuple[object, int]:
+    """LAPACK's double-precision gelsy and its work size for an ``m`` × ``n`` system (as
+    `scipy.linalg.lstsq` computes it); cached, the fits of one run having few distinct shapes."""
+    routine, query = scipy.linalg.lapack.get_lapack_funcs(
+        ("gelsy", "gelsy_lwork"), (np.empty((1, 1)), np.empty(1))
+    )
+    work, info = query(m, n, 1, cond)
+    if info != 0:
+        raise ValueError(f"LAPACK gelsy's work size query failed: {info}")
+    return routine, int(work)
 
 
 def _nearness(distance: np.ndarray) -> np.ndarray:
@@ -222,6 +248,14 @@ def _layout(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     for array in (rows, cols, diagonal, weight):
         array.flags.writeable = False
     return rows, cols, diagonal, weight
+
+
+@functools.cache
+def _halves(n: int) -> np.ndarray:
+    """Per column of the Hessian's upper triangle: ½ on the diagonal (``½ hᵢᵢ sᵢ²``), else 1."""
+    halves = np.where(_layout(n)[2], 0.5, 1.0)
+    halves.flags.writeable = False
+    return halves
 
 
 def _median(x: np.ndarray) -> float:

@@ -349,8 +349,10 @@ def _cycle(
     last = 0.0  # the move of the cycle's last line search
     for i, d in enumerate(directions.vectors):
         before = best.value
-        known_curvature = directions.curvatures[i] if settings.reuse_curvature else math.nan
-        step = directions.steps[i]
+        # plain floats: the line search's scalar arithmetic is then Python's, not numpy's (the
+        # same doubles, a fraction of the time)
+        known_curvature = float(directions.curvatures[i]) if settings.reuse_curvature else math.nan
+        step = float(directions.steps[i])
         if math.isnan(directions.curvatures[i]):  # nothing measured here: the last move is
             step = max(step, min(last, SEEDED * step))  # a better guess of the scale
         result = yield from _line(space, settings, best, d, step, known_curvature)
@@ -436,7 +438,8 @@ def _line(
     try:
         ts = next(search)
         while True:
-            us = base + ts[:, None] * d if len(ts) > 1 else (base + ts[0] * d)[None, :]
+            # a float times a vector costs less than a numpy scalar times it (the same product)
+            us = base + ts[:, None] * d if len(ts) > 1 else (base + float(ts[0]) * d)[None, :]
             values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
             for u, value in zip(us, values.tolist()):
                 best.answered += math.isfinite(value)

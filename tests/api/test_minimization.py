@@ -210,3 +210,21 @@ def test_a_failing_start_point_is_an_objective_error():
 
     with pytest.raises(dl.ObjectiveError, match="licence server unreachable"):
         dl.minimize(broken, [1.0, 2.0], check=False)
+
+
+def test_the_journal_identity_is_made_only_when_read_and_is_the_same_when_it_is():
+    # a run without a journal never pays for its identity; read, it is what run_identity makes
+    # (and what the journal stores, through canonical) - common practice, no source
+    from directional.api.options import minimize_options, search_settings
+    from directional.method.space import build_space
+    from directional.run.identity import Deferred, canonical, run_identity
+
+    options = minimize_options(lambda x: float(x @ x), np.ones(3), check="quick", escapes=2)
+    assert isinstance(options.identity, Deferred)
+    assert options.identity._made is None
+    direct = run_identity(
+        "minimize", build_space(np.ones(3)).parameters, search_settings(1e-6, 1e-10),
+        point_tolerance=1e-6, value_tolerance=1e-10, check="quick", escapes=2, noise=None,
+    )
+    assert canonical(options.identity) == canonical(direct)
+    assert dict(options.identity) == direct and options.identity["kind"] == "minimize"

@@ -226,3 +226,23 @@ def test_the_default_check_escalates_only_when_a_stencil_leaves_the_sign_in_doub
     assert clear.curvature.evaluations <= curvature.check_cost("quick", 2) + 1
     assert flat.curvature.source == "extrapolated"
     assert flat.verdict is Verdict.FLAT
+
+
+@pytest.mark.parametrize("rows, columns, rank", [(30, 10, 10), (30, 10, 6), (7, 12, 7), (12, 12, 5)])
+def test_the_fits_gelsy_call_is_scipys_lstsq_bit_for_bit(rows, columns, rank):
+    # the fit calls LAPACK's gelsy directly; the reference is scipy.linalg.lstsq with the same
+    # driver and cutoff (a general-purpose library): the same solution to the last bit and the
+    # same rank, on full-rank, rank-deficient and underdetermined systems
+    import scipy.linalg
+
+    from directional.method.model import POISED, _gelsy
+
+    rng = np.random.default_rng(rows * columns + rank)
+    a = rng.standard_normal((rows, rank)) @ rng.standard_normal((rank, columns))
+    b = rng.standard_normal(rows)
+    x, found = _gelsy(a, b, 1.0 / POISED)
+    expected, _, expected_rank, _ = scipy.linalg.lstsq(
+        a, b, cond=1.0 / POISED, check_finite=False, lapack_driver="gelsy"
+    )
+    assert found == expected_rank == rank
+    assert x.tobytes() == expected.tobytes()
