@@ -44,8 +44,10 @@ def main(argv: list[str] | None = None) -> int:
                         "above --out when it lies in a results/ folder, else none)")
     parser.add_argument("--smoke", action="store_true",
                         help="three problems, two functions, two seeds: checks it runs")
-    parser.add_argument("--streams", type=int, default=1,
-                        help="noise streams per MGH pair (default 1: each pair once)")
+    parser.add_argument("--streams", type=int, default=3,
+                        help="noise streams per MGH pair (default 3: each pair under three "
+                        "random streams, so that one stream's luck on a few pairs does not "
+                        "decide a budget)")
     parser.add_argument("--record-before", action="store_true",
                         help=f"store the smooth numbers of RESULTS.md in {BEFORE.name} and stop")
     args = parser.parse_args(argv)
