@@ -18,7 +18,9 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   ch. 7): the eigenvectors of the free Hessian estimate when every curvature is known, else the
   coordinate axes.  Long before that, once its condition number passes ``ALIGNED``, a set whose
   curvatures are all known is replaced after the cycle by the eigenvectors of its estimate, with
-  their eigenvalues as the known curvatures, unless they spread beyond ``SPREAD``.
+  their eigenvalues as the known curvatures, unless they spread beyond ``SPREAD`` or the cycle
+  cut the value by more than the share ``FALLING`` (its parabolas then spanned more than a
+  quadratic describes).
 - Model steps (`model`).  Every finite value the search receives is kept, and after each cycle
   a quadratic is fitted to the samples nearest the best point (least squares; until the samples
   fix every coefficient, the Hessian nearest the last model's, Powell 2004, and such a model is
@@ -117,6 +119,7 @@ FIRST_STEP = 0.1  # first probe along an axis, in scaled units (a tenth of the p
 SKEWED = 1e3  # condition of the direction set beyond which a calm cycle is not trusted
 ALIGNED = 10.0  # condition beyond which the set is replaced by the principal axes of its estimate
 SPREAD = 1e5  # ... unless the estimate's largest curvature exceeds its least this many times
+FALLING = 0.9  # ... or the cycle lowered the value by more than this share of it
 SAMPLES = 3  # the model's store holds this many times the coefficients of a quadratic
 MODEL_STEPS = 8  # at most this many model steps in a row, while each is a success
 SETTLE_MISFIT = 1e-3  # a model may end the search when it misfits its sample by less (relative)
@@ -290,7 +293,8 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 )
                 fresh, calm = True, 0
                 continue
-            if not ending and np.linalg.cond(directions.vectors) > ALIGNED:
+            falling = dropped > FALLING * abs(best.value + dropped)
+            if not ending and not falling and np.linalg.cond(directions.vectors) > ALIGNED:
                 # the principal axes of the Hessian the set implies, once every curvature is
                 # known and the estimate is positive definite (else a curvature is nan and the
                 # test below fails): orthogonal, and conjugate as far as the estimate is right (Brent 1973,
@@ -298,7 +302,11 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 # valley otherwise keeps line-searching across it.  Not where the estimate's
                 # curvatures spread beyond SPREAD: there its flat axes are the least certain,
                 # and the skewed set knows the valley better (Meyer's problem, MGH 10, took
-                # 5673 evaluations instead of 3067 with such resets)
+                # 5673 evaluations instead of 3067 with such resets).  Nor after a cycle that
+                # cut the value more than tenfold: its parabolas spanned more than a quadratic
+                # describes, so their curvatures are no Hessian yet (such resets made Powell's
+                # singular function, MGH 13, and Brown and Dennis, MGH 16, from 10 times their
+                # starts miss 20 (n + 1) evaluations at a relative decrease of 1e-7)
                 axes = principal_axes_of_estimate(directions)
                 if axes is not None and np.max(axes.curvatures) <= SPREAD * np.min(axes.curvatures):
                     directions = axes
