@@ -2,11 +2,19 @@
 
 from __future__ import annotations
 
+import os
 import signal
 import tomllib
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
+
+# Under CI (the CI variable set) the property tests draw the same examples on every run, so that a
+# failure there can be repeated; elsewhere they draw new ones each time, which finds more.
+settings.register_profile("ci", derandomize=True, print_blob=True)
+if os.environ.get("CI"):
+    settings.load_profile("ci")
 
 # A test run started in the background inherits SIGINT ignored, and Python then installs no handler
 # of its own; the Ctrl-C tests (and the processes they start) need the ordinary one.
