@@ -136,21 +136,28 @@ def test_the_newton_step_of_a_convex_model_is_its_minimizer():
     assert trust_step(model, 5.0) == pytest.approx([2.0, 0.0])
 
 
-@pytest.mark.parametrize("n", [5, 10])
-def test_model_steps_reach_a_rotated_quadratic_in_a_few_times_its_coefficients(n):
-    # a convex quadratic (condition 1e3, random rotation); the minimum is 0 at x* (analytic).
-    # Without the model the search needs 4-6 times (n+1)(n+2)/2 evaluations (benchmarks/RESULTS.md)
+def _rotated_quadratic(n: int):
+    """A convex quadratic in ``n`` variables (condition 1e3, random rotation seeded by ``n``) with
+    minimum 0 at x* (analytic); returns it, x* and the list of the values it gave."""
     rng = np.random.default_rng(n)
     q, _ = np.linalg.qr(rng.standard_normal((n, n)))
     a = (q * np.geomspace(1.0, 1e3, n)) @ q.T
     x_star = rng.standard_normal(n)
-    counted = []
+    counted: list[float] = []
 
     def f(x):
         d = x - x_star
         counted.append(0.5 * float(d @ a @ d))
         return counted[-1]
 
+    return f, x_star, counted
+
+
+@pytest.mark.parametrize("n", [5, 10])
+def test_model_steps_reach_a_rotated_quadratic_in_a_few_times_its_coefficients(n):
+    # a convex quadratic (condition 1e3, random rotation); the minimum is 0 at x* (analytic).
+    # Without the model the search needs 4-6 times (n+1)(n+2)/2 evaluations (benchmarks/RESULTS.md)
+    f, x_star, counted = _rotated_quadratic(n)
     sol = dl.minimize(f, np.zeros(n), check=False)
     assert sol.point == pytest.approx(x_star, abs=1e-5)
     first = next(i for i, v in enumerate(counted) if v <= 1e-8 * counted[0]) + 1
@@ -165,17 +172,7 @@ def test_a_nearly_determined_model_is_completed_by_its_own_steps():
     # their lines and fix about one each.  A convex quadratic (condition 1e3, random rotation),
     # minimum 0 at x* (analytic).
     n = 20
-    rng = np.random.default_rng(n)
-    q, _ = np.linalg.qr(rng.standard_normal((n, n)))
-    a = (q * np.geomspace(1.0, 1e3, n)) @ q.T
-    x_star = rng.standard_normal(n)
-    counted = []
-
-    def f(x):
-        d = x - x_star
-        counted.append(0.5 * float(d @ a @ d))
-        return counted[-1]
-
+    f, x_star, counted = _rotated_quadratic(n)
     sol = dl.minimize(f, np.zeros(n), check=False)
     assert sol.stop is dl.Stop.CONVERGED
     assert sol.point == pytest.approx(x_star, abs=1e-5)

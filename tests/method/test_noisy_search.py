@@ -198,16 +198,12 @@ def test_a_noisy_run_stopped_and_resumed_ends_where_the_whole_run_ends(tmp_path)
     assert len(calls) == 20 + 2
 
 
-def test_a_kink_heard_as_noise_is_disowned_at_the_calm(monkeypatch):
-    # Gulf research and development (Moré, Garbow & Hillstrom 1981, problem 11; minimum 0 at
-    # (50, 25, 1.5)) from its standard start: its terms |y_i - x2|^x3 are not smooth where
-    # x2 = y_i, and the points of one line there look like noise to the line's own table.  The
-    # table at the calm finds none, so the search drops the level and goes on to the minimum.
+def _record_heard(monkeypatch) -> list[float]:
+    """Have the search's line searches append the noise level each heard (nan: none) to the list
+    returned."""
     from directional.method import search as module
-    from directional.testproblems.mgh import problem
 
-    gulf = problem(11)
-    heard = []
+    heard: list[float] = []
 
     def listened(*args, **kwargs):
         result = yield from line_search(*args, **kwargs)
@@ -215,6 +211,18 @@ def test_a_kink_heard_as_noise_is_disowned_at_the_calm(monkeypatch):
         return result
 
     monkeypatch.setattr(module, "line_search", listened)
+    return heard
+
+
+def test_a_kink_heard_as_noise_is_disowned_at_the_calm(monkeypatch):
+    # Gulf research and development (Moré, Garbow & Hillstrom 1981, problem 11; minimum 0 at
+    # (50, 25, 1.5)) from its standard start: its terms |y_i - x2|^x3 are not smooth where
+    # x2 = y_i, and the points of one line there look like noise to the line's own table.  The
+    # table at the calm finds none, so the search drops the level and goes on to the minimum.
+    from directional.testproblems.mgh import problem
+
+    gulf = problem(11)
+    heard = _record_heard(monkeypatch)
     outcome, x, spent = drive(gulf, gulf.start, 0.0, budget=2000)
     assert any(math.isfinite(level) for level in heard)
     assert outcome.stop == Stop.CONVERGED and outcome.noise is None
@@ -227,17 +235,8 @@ def test_rounding_only_means_no_line_listens(monkeypatch):
     # noise="none" (notice=False): the caller says there is no noise, so no line reads its own
     # table, however its values scatter (quadratic6 plus noise of 1e-2, as above); by default the
     # same run hears it on its lines.
-    from directional.method import search as module
-
     def heard_levels(**settings):
-        heard = []
-
-        def listened(*args, **kwargs):
-            result = yield from line_search(*args, **kwargs)
-            heard.append(result.heard)
-            return result
-
-        monkeypatch.setattr(module, "line_search", listened)
+        heard = _record_heard(monkeypatch)
         drive(quadratic6, np.ones(6), 1e-2, budget=600, **settings)
         return [level for level in heard if math.isfinite(level)]
 
