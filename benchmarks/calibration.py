@@ -45,6 +45,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 import numpy as np  # noqa: E402
 
 import directional as dl  # noqa: E402
+from benchmarks import publish
 from directional.benchmarking import nist as nist_files
 from directional.benchmarking.marquardt import Fit, levenberg_marquardt  # noqa: E402
 from directional.records import Purpose, Stop  # noqa: E402
@@ -388,10 +389,7 @@ def main(argv: list[str] | None = None) -> int:
             print(f"  {name} {start}: {rows[-1].seconds:.1f} s", file=sys.stderr)
     shown = None if args.quick or args.sets else demo()
     text = write_up(rows, shown, time.perf_counter() - tick)
-    print(text)
-    if args.out is not None:
-        args.out.parent.mkdir(parents=True, exist_ok=True)
-        args.out.write_text(text, encoding="utf-8")
+    publish(text, args.out)
     return 0
 
 

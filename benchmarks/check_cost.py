@@ -35,6 +35,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 import numpy as np  # noqa: E402
 
 import directional as dl  # noqa: E402
+from benchmarks import publish
 from directional.method import curvature  # noqa: E402
 from directional.testproblems import mgh  # noqa: E402
 
@@ -168,10 +169,7 @@ def main(argv: list[str] | None = None) -> int:
         + f"\n\nRun time {time.perf_counter() - tick:.0f} s, numdifftools "
         f"{_version('numdifftools')}, numpy {np.__version__}.\n"
     )
-    print(text)
-    if args.out is not None:
-        args.out.parent.mkdir(parents=True, exist_ok=True)
-        args.out.write_text(text, encoding="utf-8")
+    publish(text, args.out)
     return 0
 
 

@@ -31,6 +31,7 @@ from pathlib import Path
 import numpy as np
 
 import directional as dl
+from benchmarks import publish
 
 BOX = [(-5.0, 5.0), (-5.0, 5.0)]
 STARTS = 8
@@ -157,10 +158,7 @@ def main(argv: list[str] | None = None) -> int:
         results[kind] = measure(makers[kind](cost), starts)
         loads[kind] = (before, os.getloadavg()[0])
     text = table(results, starts, cost, loads)
-    print(text)
-    if args.out is not None:
-        args.out.parent.mkdir(parents=True, exist_ok=True)
-        args.out.write_text(text + "\n")
+    publish(text + "\n", args.out)
     return 0
 
 

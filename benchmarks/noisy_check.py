@@ -32,6 +32,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 import numpy as np  # noqa: E402
 
 import directional as dl  # noqa: E402
+from benchmarks import publish
 from directional.method import curvature  # noqa: E402
 from directional.method.space import build_space  # noqa: E402
 from directional.records import Check  # noqa: E402
@@ -134,10 +135,7 @@ def main(argv: list[str] | None = None) -> int:
         + table(rows)
         + f"\n\nRun time {time.perf_counter() - tick:.0f} s.\n"
     )
-    print(text)
-    if args.out is not None:
-        args.out.parent.mkdir(parents=True, exist_ok=True)
-        args.out.write_text(text, encoding="utf-8")
+    publish(text, args.out)
     return 0
 
 
