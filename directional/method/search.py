@@ -101,6 +101,7 @@ import numpy as np
 from directional.errors import ProblemError
 from directional.method.directions import (
     DirectionSet,
+    condition,
     degenerate,
     powell_accepts,
     principal_axes,
@@ -261,7 +262,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 ends.append(best.value)
                 anchors.append(best.u.copy())
                 still = _promise(space, best, ends) <= best.noise
-                if still and not realigned and np.linalg.cond(directions.vectors) > SQUARE:
+                if still and not realigned and condition(directions.vectors) > SQUARE:
                     # as without noise, a quiet cycle along a skewed set proves nothing; with
                     # noise the set skews more easily (a noisy step passes Powell's test).  Once
                     # in a row: the next quiet cycle counts, so the search ends.
@@ -280,7 +281,9 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             # nothing about the point: it may count towards the calm, never end the search alone
             resolved = worked_at <= settings.point_tolerance
             crawl = moved <= settings.point_tolerance and resolved
-            if crawl and not ending and not fresh and np.linalg.cond(directions.vectors) > SKEWED:
+            # how far the set is from orthogonal, for the two resets below (once per cycle)
+            skew = math.inf if ending else condition(directions.vectors)
+            if crawl and not ending and not fresh and skew > SKEWED:
                 # A calm cycle along a nearly dependent set proves nothing: it may have missed a
                 # valley that no direction points along.  Nor does one that still lowers the
                 # value by creeping less than the point tolerance (Meyer's problem without the
@@ -294,7 +297,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 fresh, calm = True, 0
                 continue
             falling = dropped > FALLING * abs(best.value + dropped)
-            if not ending and not falling and np.linalg.cond(directions.vectors) > ALIGNED:
+            if not ending and not falling and skew > ALIGNED:
                 # the principal axes of the Hessian the set implies, once every curvature is
                 # known and the estimate is positive definite (else a curvature is nan and the
                 # test below fails): orthogonal, and conjugate as far as the estimate is right (Brent 1973,
