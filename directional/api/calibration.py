@@ -26,7 +26,8 @@ Every evaluation goes through the driver (counted, cached, journaled): see
 References
 ----------
 .. [1] J. J. Moré, "The Levenberg–Marquardt algorithm: implementation and theory",
-   Lecture Notes in Mathematics 630, Springer, 1978, 105-116.
+   in *Numerical Analysis* (proceedings of the Dundee biennial conference, 1977), Springer,
+   Berlin, 1978, 105-116.
 .. [2] C. G. Broyden, "A class of methods for solving nonlinear simultaneous equations",
    *Mathematics of Computation* 19 (1965) 577-593.
 .. [3] D. M. Bates and D. G. Watts, *Nonlinear Regression Analysis and Its Applications*, Wiley,

@@ -25,7 +25,8 @@ References
 .. [1] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
    *Journal of the Society for Industrial and Applied Mathematics* 11(2) (1963) 431-441.
 .. [2] J. J. Moré, "The Levenberg–Marquardt algorithm: implementation and theory",
-   Lecture Notes in Mathematics 630, Springer, 1978, 105-116.
+   in *Numerical Analysis* (proceedings of the Dundee biennial conference, 1977), Springer,
+   Berlin, 1978, 105-116.
 .. [3] J. E. Dennis and R. B. Schnabel, *Numerical Methods for Unconstrained Optimization and
    Nonlinear Equations*, Prentice-Hall (1983), section 5.4 (forward-difference steps).
 """

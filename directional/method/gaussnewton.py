@@ -53,7 +53,8 @@ cache.
 References
 ----------
 .. [1] J. J. Moré, "The Levenberg–Marquardt algorithm: implementation and theory",
-   Lecture Notes in Mathematics 630, Springer, 1978, 105-116.
+   in *Numerical Analysis* (proceedings of the Dundee biennial conference, 1977), Springer,
+   Berlin, 1978, 105-116.
 .. [2] C. G. Broyden, "A class of methods for solving nonlinear simultaneous equations",
    *Mathematics of Computation* 19 (1965) 577-593.
 .. [3] D. W. Marquardt, "An algorithm for least-squares estimation of nonlinear parameters",
