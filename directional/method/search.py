@@ -128,6 +128,7 @@ NEARLY = 0.04  # a model leaving at most this share of its coefficients free (an
 # MODEL_STEPS of them) is stepped on: each step's point fixes about one more
 GUESSES = False  # True: step on undetermined models too (measured: more evaluations wasted on MGH)
 FITTED = 2.0  # the model is fitted to this many times as many points as it has coefficients
+EPSILON = float(np.finfo(float).eps)
 SEEDED = 10.0  # a first step borrowed from the last move is at most this many times its own
 FARTHEST = 1e10  # no line search goes farther, in scaled units: a descent to infinity stops there
 NOISE_REACH = 8.0  # noisy probes go as far as ½ c h² = NOISE_REACH σ / 2 (a change of several σ)
@@ -136,6 +137,8 @@ HEARD = 10.0  # a noisy model is believed when its sample's values span this man
 WINDOW = 3  # without a believable model, a noisy search judges the gain of this many cycles
 FITS = 5.0  # a noisy model is believed when its largest residual is below this many noise levels
 SQUARE = 10.0  # a noisy search counts a quiet cycle only along directions this well conditioned
+FLAT = 100.0  # a direction whose parabola saw value differences below this many roundings is flat
+REACH = 1024.0  # a flat direction is probed out to this many scaled units on each side
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -339,6 +342,12 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 best.heard, best.hearing, calm = 0.0, False, 0
                 continue
             if ending and (resolved or settled):
+                if best.noise == 0.0:
+                    directions, escaped = yield from _leave_plateau(space, settings, best, directions)
+                    if escaped:  # lower ground beyond a plateau: the search goes on from there
+                        calm, fresh = 0, True
+                        best.resolution = _resolution(settings, FIRST_STEP)
+                        continue
                 break
     except Halt as halt:
         return _outcome(best, halt.stop, cycles, directions, halt.reason)
@@ -465,6 +474,67 @@ def _line(
     if abs(result.point) >= 0.5 * FARTHEST:
         raise _Endless
     return result
+
+
+def _flat(directions: DirectionSet, value: float) -> list[int]:
+    """The directions along which the last line search could not tell its points apart: the
+    parabola through points ``step`` apart changed by no more than ``FLAT`` roundings of the
+    value (curvature * step² <= FLAT * eps * |f|), flattest first.
+
+    Such a direction is a plateau, not a minimum: the search stopped there because every value
+    along it looked the same, e.g. where an exponential term of the objective has died out
+    (Box's three-dimensional function, Moré, Garbow & Hillstrom 1981, no. 12, from its standard
+    start: x2 runs out to 353, where exp(-t x2) no longer counts).  A direction whose curvature
+    was never measured (nan) is not taken for one: the zero columns of MGH 34 are flat for good.
+    """
+    rounding = FLAT * EPSILON * abs(value)
+    spread = directions.curvatures * directions.steps**2
+    flat = [i for i in np.argsort(spread) if np.isfinite(spread[i]) and spread[i] <= rounding]
+    return [int(i) for i in flat]
+
+
+def _leave_plateau(
+    space: Space, settings: Settings, best: _Tracker, directions: DirectionSet
+) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool]]:
+    """Probe each flat direction (`_flat`) on both sides with doubling steps, from one scaled
+    unit out to ``REACH``, for a value below what the value tolerance ignores; line-search from
+    the first such point.  Returns the direction set (that direction measured afresh) and
+    whether a lower point was found.
+
+    A smooth function's calm point with a flat direction is either a plateau that stretches
+    without end, or the edge of one: the value sinks again farther out (Box's function sinks
+    back to its minimum 0 when x2 returns to about 10; Box 1966).  Doubling steps find lower
+    ground at distance D within about 2 log2(D) evaluations; a plateau of no end costs
+    2 log2(REACH) + 2 = 24 per flat direction.  Nothing is probed beyond the bounds."""
+    floor = settings.value_tolerance * max(1.0, abs(best.value))
+    for i in _flat(directions, best.value):
+        d = directions.vectors[i]
+        lo, hi = space.segment(best.u, d)
+        base, f0 = best.u.copy(), best.value
+        t, open_sides = 1.0, [side for side in (-1.0, 1.0) if (hi if side > 0 else -lo) > 0.0]
+        while open_sides and t <= REACH:
+            ts = [side * min(t, hi if side > 0 else -lo) for side in open_sides]
+            us = base + np.asarray(ts)[:, None] * d
+            values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
+            for u, value in zip(us, values.tolist()):
+                best.answered += math.isfinite(value)
+                best.seen(u, value)
+            lowest = int(np.argmin(values))
+            if values[lowest] < f0 - floor:
+                known = {0.0: f0, ts[lowest]: float(values[lowest])}
+                best.u, best.value = base, f0  # the line search starts from the plateau
+                result = yield from _line(
+                    space, settings, best, d, abs(ts[lowest]), math.nan, known=known
+                )
+                directions = directions.measured(i, result.curvature, _next_step(result, settings))
+                return directions, True
+            # a side ends at its bound, or where the value rose by more than it ignores
+            open_sides = [
+                side for side, x, value in zip(open_sides, ts, values.tolist())
+                if abs(x) < (hi if side > 0 else -lo) and not value > f0 + floor
+            ]
+            t *= 2.0
+    return directions, False
 
 
 def _resolution(settings: Settings, moved: float) -> float:
