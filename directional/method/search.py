@@ -139,6 +139,7 @@ FITS = 5.0  # a noisy model is believed when its largest residual is below this 
 SQUARE = 10.0  # a noisy search counts a quiet cycle only along directions this well conditioned
 FLAT = 100.0  # a direction whose parabola saw value differences below this many roundings is flat
 REACH = 1024.0  # a flat direction is probed out to this many scaled units on each side
+EDGE = 8  # ... and where the value rose, bisected this many times for a dip at the plateau's edge
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -496,45 +497,80 @@ def _flat(directions: DirectionSet, value: float) -> list[int]:
 def _leave_plateau(
     space: Space, settings: Settings, best: _Tracker, directions: DirectionSet
 ) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool]]:
-    """Probe each flat direction (`_flat`) on both sides with doubling steps, from one scaled
-    unit out to ``REACH``, for a value below what the value tolerance ignores; line-search from
-    the first such point.  Returns the direction set (that direction measured afresh) and
-    whether a lower point was found.
+    """Look along each flat direction (`_flat`) for a value below what the value tolerance
+    ignores (`_lower_ground`); line-search from the first such point.  Returns the direction set
+    (that direction measured afresh) and whether a lower point was found.
 
-    A smooth function's calm point with a flat direction is either a plateau that stretches
-    without end, or the edge of one: the value sinks again farther out (Box's function sinks
-    back to its minimum 0 when x2 returns to about 10; Box 1966).  Doubling steps find lower
-    ground at distance D within about 2 log2(D) evaluations; a plateau of no end costs
-    2 log2(REACH) + 2 = 24 per flat direction.  Nothing is probed beyond the bounds."""
+    A smooth function's calm point with a flat direction is either on a plateau that stretches
+    without end, or near the edge of one: the value sinks again farther out (Box's function sinks
+    back to its minimum 0 when x2 returns to about 10; Box 1966)."""
     floor = settings.value_tolerance * max(1.0, abs(best.value))
     for i in _flat(directions, best.value):
         d = directions.vectors[i]
-        lo, hi = space.segment(best.u, d)
         base, f0 = best.u.copy(), best.value
-        t, open_sides = 1.0, [side for side in (-1.0, 1.0) if (hi if side > 0 else -lo) > 0.0]
-        while open_sides and t <= REACH:
-            ts = [side * min(t, hi if side > 0 else -lo) for side in open_sides]
-            us = base + np.asarray(ts)[:, None] * d
-            values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
-            for u, value in zip(us, values.tolist()):
-                best.answered += math.isfinite(value)
-                best.seen(u, value)
-            lowest = int(np.argmin(values))
-            if values[lowest] < f0 - floor:
-                known = {0.0: f0, ts[lowest]: float(values[lowest])}
-                best.u, best.value = base, f0  # the line search starts from the plateau
-                result = yield from _line(
-                    space, settings, best, d, abs(ts[lowest]), math.nan, known=known
-                )
-                directions = directions.measured(i, result.curvature, _next_step(result, settings))
-                return directions, True
-            # a side ends at its bound, or where the value rose by more than it ignores
-            open_sides = [
-                side for side, x, value in zip(open_sides, ts, values.tolist())
-                if abs(x) < (hi if side > 0 else -lo) and not value > f0 + floor
-            ]
-            t *= 2.0
+        found = yield from _lower_ground(space, best, d, f0 - floor, f0 + floor)
+        if found is not None:
+            best.u, best.value = base, f0  # the line search starts from the plateau
+            result = yield from _line(
+                space, settings, best, d, abs(found[0]), math.nan, known={0.0: f0, found[0]: found[1]}
+            )
+            directions = directions.measured(i, result.curvature, _next_step(result, settings))
+            return directions, True
     return directions, False
+
+
+def _lower_ground(
+    space: Space, best: _Tracker, d: np.ndarray, below: float, above: float
+) -> Generator[Batch, np.ndarray, tuple[float, float] | None]:
+    """The first point ``(t, value)`` along ``d`` from ``best`` with a value below ``below``,
+    or None.
+
+    Doubling steps on both sides at once, from one scaled unit out to ``REACH``; a side ends at
+    its bound or where the value rises above ``above``.  A side that rose is then bisected
+    ``EDGE`` times between its last flat point and the risen one, for a dip at the plateau's edge
+    (Box's function from 100 times its start: the plateau is x2 > 100 and the first step, to
+    x2 = 0.4, passes the dip at 10 < x2 < 100).  Lower ground at a distance D costs about
+    2 log2(D) evaluations; a plateau of no end 2 log2(REACH) + 2 = 24."""
+    lo, hi = space.segment(best.u, d)
+    ends = {-1.0: -lo, 1.0: hi}
+    base = best.u.copy()
+    flat_at = {-1.0: 0.0, 1.0: 0.0}
+    risen_at: dict[float, float] = {}
+    sides = [side for side in (-1.0, 1.0) if ends[side] > 0.0]
+    t = 1.0
+    while sides and t <= REACH:
+        ts = [side * min(t, ends[side]) for side in sides]
+        values = yield from _probe(space, best, base, d, ts)
+        for side, x, value in zip(sides, ts, values):
+            if value < below:
+                return x, value
+            if value > above:
+                risen_at[side] = x
+            else:
+                flat_at[side] = x
+        sides = [side for side in sides if side not in risen_at and abs(flat_at[side]) < ends[side]]
+        t *= 2.0
+    for side, high in risen_at.items():
+        low = flat_at[side]
+        for _ in range(EDGE):
+            middle = 0.5 * (low + high)
+            (value,) = yield from _probe(space, best, base, d, [middle])
+            if value < below:
+                return middle, value
+            low, high = (middle, high) if value <= above else (low, middle)
+    return None
+
+
+def _probe(
+    space: Space, best: _Tracker, base: np.ndarray, d: np.ndarray, ts: list[float]
+) -> Generator[Batch, np.ndarray, list[float]]:
+    """Evaluate ``base + t d`` for each ``t`` (one batch); every value is seen by ``best``."""
+    us = base + np.asarray(ts)[:, None] * d
+    values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
+    for u, value in zip(us, values.tolist()):
+        best.answered += math.isfinite(value)
+        best.seen(u, value)
+    return values.tolist()
 
 
 def _resolution(settings: Settings, moved: float) -> float:

@@ -26,6 +26,16 @@ def test_box_leaves_the_plateau_it_reached_and_finds_the_published_minimum():
     assert sol.point == pytest.approx([1.0, 10.0, 1.0], abs=1e-4)
 
 
+def test_box_from_a_hundred_times_its_start_finds_the_dip_at_the_plateaus_edge():
+    # the same function from (0, 1000, 2000) (MGH 1981 take starts 10 and 100 times out): the
+    # plateau is x2 > 100, and the first probe along x2 (one scaled unit, to x2 = 0.4) passes
+    # the region 10 < x2 < 100 where the value sinks; the search used to stop at 0.0756
+    p = mgh.problem(12)
+    sol = dl.minimize(p, 100.0 * np.asarray(p.start), check=False, budget=100 * (p.n + 1))
+    assert sol.stop is dl.Stop.CONVERGED
+    assert sol.value < 1e-10
+
+
 def test_only_directions_whose_parabola_saw_rounding_are_flat():
     # common practice, no source: a parabola through points h apart whose curvature c changes
     # the value by c h² ~ eps |f| saw nothing but rounding; one that saw more is a real minimum
