@@ -349,11 +349,15 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 continue
             if ending and (resolved or settled):
                 if best.noise == 0.0:
-                    directions, escaped = yield from _leave_plateau(space, settings, best, directions)
+                    directions, escaped, flat = yield from _leave_plateau(
+                        space, settings, best, directions
+                    )
                     if escaped:  # lower ground beyond a plateau: the search goes on from there
                         calm, fresh = 0, True
                         best.resolution = _resolution(settings, FIRST_STEP)
                         continue
+                    if flat:
+                        return _outcome(best, Stop.CONVERGED, cycles, directions, flat)
                 break
     except Halt as halt:
         return _outcome(best, halt.stop, cycles, directions, halt.reason)
@@ -501,16 +505,19 @@ def _flat(directions: DirectionSet, value: float) -> list[int]:
 
 def _leave_plateau(
     space: Space, settings: Settings, best: _Tracker, directions: DirectionSet
-) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool]]:
+) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool, str]]:
     """Look along each flat direction (`_flat`) for a value below what the value tolerance
     ignores (`_lower_ground`); line-search from the first such point.  Returns the direction set
-    (that direction measured afresh) and whether a lower point was found.
+    (that direction measured afresh), whether a lower point was found, and when none was, a
+    note for the outcome that the point is not determined along a flat direction ("" when
+    there was none).
 
     A smooth function's calm point with a flat direction is either on a plateau that stretches
     without end, or near the edge of one: the value sinks again farther out (Box's function sinks
     back to its minimum 0 when x2 returns to about 10; Box 1966)."""
     floor = settings.value_tolerance * max(1.0, abs(best.value))
-    for i in _flat(directions, best.value):
+    flat = _flat(directions, best.value)
+    for i in flat:
         d = directions.vectors[i]
         base, f0 = best.u.copy(), best.value
         found = yield from _lower_ground(space, best, d, f0 - floor, f0 + floor)
@@ -520,8 +527,16 @@ def _leave_plateau(
                 space, settings, best, d, abs(found[0]), math.nan, known={0.0: f0, found[0]: found[1]}
             )
             directions = directions.measured(i, result.curvature, _next_step(result, settings))
-            return directions, True
-    return directions, False
+            return directions, True, ""
+    if not flat:
+        return directions, False, ""
+    note = (
+        f"on a plateau: along {len(flat)} direction(s) of the set the value changes by no more "
+        f"than rounding near the point, and no lower value was found out to {REACH:g} scaled "
+        "units on either side; the point is not determined along them (the minimum may lie at "
+        "infinity)"
+    )
+    return directions, False, note
 
 
 def _lower_ground(

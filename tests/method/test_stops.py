@@ -62,3 +62,22 @@ def test_a_variable_the_objective_ignores_costs_no_probes():
     sol = dl.minimize(f, [0.0, 0.0], check=False)
     assert sol.stop is dl.Stop.CONVERGED
     assert max(abs(x[1]) for x in counted) < 10.0
+
+
+def test_a_plateau_without_lower_ground_is_said_so():
+    # f = (x0 - 1)² + 1 + exp(-x1) (analytic): the infimum 1 is approached as x1 -> infinity, and
+    # beyond x1 ≈ 37 the value is 1 to rounding.  The search stops there, "converged" (nothing
+    # lower within reach), and the reason says that x1 is not determined
+    sol = dl.minimize(lambda x: (x[0] - 1.0) ** 2 + 1.0 + math.exp(-x[1]), [0.0, 0.0], check=False)
+    assert sol.stop is dl.Stop.CONVERGED
+    assert sol.value == pytest.approx(1.0, abs=1e-12)
+    assert sol.point[1] > 30.0
+    assert "plateau" in sol.reason and "not determined" in sol.reason
+
+
+def test_a_true_minimum_is_not_called_a_plateau():
+    # Rosenbrock (MGH 1981, problem 1): a strict minimum 0 at (1, 1); no note
+    p = mgh.problem(1)
+    sol = dl.minimize(p, p.start, check=False)
+    assert sol.stop is dl.Stop.CONVERGED and sol.value < 1e-10
+    assert sol.reason == ""
