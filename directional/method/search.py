@@ -522,9 +522,12 @@ def _leave_plateau(
         base, f0 = best.u.copy(), best.value
         found = yield from _lower_ground(space, best, d, f0 - floor, f0 + floor)
         if found is not None:
-            best.u, best.value = base, f0  # the line search starts from the plateau
+            # the best point is now the one found, at t along d from the plateau's point; the
+            # line search goes on from it, knowing that point too
+            t, value = found
+            assert best.value == value and np.array_equal(best.u, base + t * d)
             result = yield from _line(
-                space, settings, best, d, abs(found[0]), math.nan, known={0.0: f0, found[0]: found[1]}
+                space, settings, best, d, abs(t), math.nan, known={0.0: value, -t: f0}
             )
             directions = directions.measured(i, result.curvature, _next_step(result, settings))
             return directions, True, ""
@@ -542,8 +545,8 @@ def _leave_plateau(
 def _lower_ground(
     space: Space, best: _Tracker, d: np.ndarray, below: float, above: float
 ) -> Generator[Batch, np.ndarray, tuple[float, float] | None]:
-    """The first point ``(t, value)`` along ``d`` from ``best`` with a value below ``below``,
-    or None.
+    """The first point ``(t, value)`` along ``d`` from ``best`` with a value below ``below``
+    (the lower of the two sides when both are), or None.
 
     Doubling steps on both sides at once, from one scaled unit out to ``REACH``; a side ends at
     its bound or where the value rises above ``above``.  A side that rose is then bisected
@@ -562,9 +565,10 @@ def _lower_ground(
     while sides and t <= REACH:
         ts = [side * min(t, ends[side]) for side in sides]
         values = yield from _probe(space, best, base, d, ts)
+        lowest = int(np.argmin(values))
+        if values[lowest] < below:
+            return ts[lowest], values[lowest]
         for side, x, value in zip(sides, ts, values):
-            if value < below:
-                return x, value
             if value > above:
                 risen_at[side] = x
             else:

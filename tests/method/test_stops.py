@@ -81,3 +81,14 @@ def test_a_true_minimum_is_not_called_a_plateau():
     sol = dl.minimize(p, p.start, check=False)
     assert sol.stop is dl.Stop.CONVERGED and sol.value < 1e-10
     assert sol.reason == ""
+
+
+@pytest.mark.parametrize("budget", [131, 135, 141, 144, 147, 150])
+def test_a_run_halted_while_leaving_a_plateau_returns_its_lowest_value(budget):
+    # Box (MGH 1981, problem 12) from its start probes its plateau from evaluation 130 on; a
+    # budget that ends the run among the probes or the line search after them must still
+    # return the lowest value evaluated (nothing computed is lost)
+    p = mgh.problem(12)
+    sol = dl.minimize(p, p.start, check=False, budget=budget)
+    assert sol.stop is dl.Stop.BUDGET
+    assert sol.value == min(e.value for e in sol.history)
