@@ -48,6 +48,11 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   decrease within the value tolerance.
   The driver ends it early by throwing `records.Halt` (budget, time, interrupt); it then returns
   its best point with that reason.
+- Plateaus.  Before it stops, a direction whose last parabola saw nothing but rounding (``FLAT``)
+  is probed with doubling steps on both sides, and bisected where the value rose past the
+  plateau's edge; lower ground found there is line-searched and the cycles go on.  A dying
+  exponential otherwise leaves the search "converged" where the value no longer depends on a
+  parameter: Box's function (Moré, Garbow & Hillstrom 1981, no. 12) stopped at 0.0756, not 0.
 - Noise.  When no level was stated (``Settings.notice``), the calm that would end the search is
   not believed at once unless the quadratic model fits the samples to within the value
   tolerance (rounding only): the noise is measured at the best point by a difference table (Moré & Wild
@@ -128,6 +133,7 @@ NEARLY = 0.04  # a model leaving at most this share of its coefficients free (an
 # MODEL_STEPS of them) is stepped on: each step's point fixes about one more
 GUESSES = False  # True: step on undetermined models too (measured: more evaluations wasted on MGH)
 FITTED = 2.0  # the model is fitted to this many times as many points as it has coefficients
+EPSILON = float(np.finfo(float).eps)
 SEEDED = 10.0  # a first step borrowed from the last move is at most this many times its own
 FARTHEST = 1e10  # no line search goes farther, in scaled units: a descent to infinity stops there
 NOISE_REACH = 8.0  # noisy probes go as far as ½ c h² = NOISE_REACH σ / 2 (a change of several σ)
@@ -136,6 +142,9 @@ HEARD = 10.0  # a noisy model is believed when its sample's values span this man
 WINDOW = 3  # without a believable model, a noisy search judges the gain of this many cycles
 FITS = 5.0  # a noisy model is believed when its largest residual is below this many noise levels
 SQUARE = 10.0  # a noisy search counts a quiet cycle only along directions this well conditioned
+FLAT = 100.0  # a direction whose parabola saw value differences below this many roundings is flat
+REACH = 1024.0  # a flat direction is probed out to this many scaled units on each side
+EDGE = 8  # ... and where the value rose, bisected this many times for a dip at the plateau's edge
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -339,6 +348,16 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 best.heard, best.hearing, calm = 0.0, False, 0
                 continue
             if ending and (resolved or settled):
+                if best.noise == 0.0:
+                    directions, escaped, flat = yield from _leave_plateau(
+                        space, settings, best, directions
+                    )
+                    if escaped:  # lower ground beyond a plateau: the search goes on from there
+                        calm, fresh = 0, True
+                        best.resolution = _resolution(settings, FIRST_STEP)
+                        continue
+                    if flat:
+                        return _outcome(best, Stop.CONVERGED, cycles, directions, flat)
                 break
     except Halt as halt:
         return _outcome(best, halt.stop, cycles, directions, halt.reason)
@@ -465,6 +484,118 @@ def _line(
     if abs(result.point) >= 0.5 * FARTHEST:
         raise _Endless
     return result
+
+
+def _flat(directions: DirectionSet, value: float) -> list[int]:
+    """The directions along which the last line search could not tell its points apart: the
+    parabola through points ``step`` apart changed by no more than ``FLAT`` roundings of the
+    value (curvature * step² <= FLAT * eps * |f|), flattest first.
+
+    Such a direction is a plateau, not a minimum: the search stopped there because every value
+    along it looked the same, e.g. where an exponential term of the objective has died out
+    (Box's three-dimensional function, Moré, Garbow & Hillstrom 1981, no. 12, from its standard
+    start: x2 runs out to 353, where exp(-t x2) no longer counts).  A direction whose curvature
+    was never measured (nan) is not taken for one: the zero columns of MGH 34 are flat for good.
+    """
+    rounding = FLAT * EPSILON * abs(value)
+    spread = directions.curvatures * directions.steps**2
+    flat = [i for i in np.argsort(spread) if np.isfinite(spread[i]) and spread[i] <= rounding]
+    return [int(i) for i in flat]
+
+
+def _leave_plateau(
+    space: Space, settings: Settings, best: _Tracker, directions: DirectionSet
+) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool, str]]:
+    """Look along each flat direction (`_flat`) for a value below what the value tolerance
+    ignores (`_lower_ground`); line-search from the first such point.  Returns the direction set
+    (that direction measured afresh), whether a lower point was found, and when none was, a
+    note for the outcome that the point is not determined along a flat direction ("" when
+    there was none).
+
+    A smooth function's calm point with a flat direction is either on a plateau that stretches
+    without end, or near the edge of one: the value sinks again farther out (Box's function sinks
+    back to its minimum 0 when x2 returns to about 10; Box 1966)."""
+    floor = settings.value_tolerance * max(1.0, abs(best.value))
+    flat = _flat(directions, best.value)
+    for i in flat:
+        d = directions.vectors[i]
+        base, f0 = best.u.copy(), best.value
+        found = yield from _lower_ground(space, best, d, f0 - floor, f0 + floor)
+        if found is not None:
+            # the best point is now the one found, at t along d from the plateau's point; the
+            # line search goes on from it, knowing that point too
+            t, value = found
+            assert best.value == value and np.array_equal(best.u, base + t * d)
+            result = yield from _line(
+                space, settings, best, d, abs(t), math.nan, known={0.0: value, -t: f0}
+            )
+            directions = directions.measured(i, result.curvature, _next_step(result, settings))
+            return directions, True, ""
+    if not flat:
+        return directions, False, ""
+    note = (
+        f"on a plateau: along {len(flat)} direction(s) of the set the value changes by no more "
+        f"than rounding near the point, and no lower value was found out to {REACH:g} scaled "
+        "units on either side; the point is not determined along them (the minimum may lie at "
+        "infinity)"
+    )
+    return directions, False, note
+
+
+def _lower_ground(
+    space: Space, best: _Tracker, d: np.ndarray, below: float, above: float
+) -> Generator[Batch, np.ndarray, tuple[float, float] | None]:
+    """The first point ``(t, value)`` along ``d`` from ``best`` with a value below ``below``
+    (the lower of the two sides when both are), or None.
+
+    Doubling steps on both sides at once, from one scaled unit out to ``REACH``; a side ends at
+    its bound or where the value rises above ``above``.  A side that rose is then bisected
+    ``EDGE`` times between its last flat point and the risen one, for a dip at the plateau's edge
+    (Box's function from 100 times its start: the plateau is x2 > 100 and the first step, to
+    x2 = 0.4, passes the dip at 10 < x2 < 100).  Lower ground at a distance D costs about
+    2 log2(D) evaluations; a plateau of no end 2 log2(REACH) + 2 = 22, and 2 EDGE more
+    where both sides rose."""
+    lo, hi = space.segment(best.u, d)
+    ends = {-1.0: -lo, 1.0: hi}
+    base = best.u.copy()
+    flat_at = {-1.0: 0.0, 1.0: 0.0}
+    risen_at: dict[float, float] = {}
+    sides = [side for side in (-1.0, 1.0) if ends[side] > 0.0]
+    t = 1.0
+    while sides and t <= REACH:
+        ts = [side * min(t, ends[side]) for side in sides]
+        values = yield from _probe(space, best, base, d, ts)
+        lowest = int(np.argmin(values))
+        if values[lowest] < below:
+            return ts[lowest], values[lowest]
+        for side, x, value in zip(sides, ts, values):
+            if value > above:
+                risen_at[side] = x
+            else:
+                flat_at[side] = x
+        sides = [side for side in sides if side not in risen_at and abs(flat_at[side]) < ends[side]]
+        t *= 2.0
+    for side, high in risen_at.items():
+        low = flat_at[side]
+        for _ in range(EDGE):
+            middle = 0.5 * (low + high)
+            (value,) = yield from _probe(space, best, base, d, [middle])
+            if value < below:
+                return middle, value
+            low, high = (middle, high) if value <= above else (low, middle)
+    return None
+
+
+def _probe(
+    space: Space, best: _Tracker, base: np.ndarray, d: np.ndarray, ts: list[float]
+) -> Generator[Batch, np.ndarray, list[float]]:
+    """Evaluate ``base + t d`` for each ``t`` (one batch); every value is seen by ``best``."""
+    us = base + np.asarray(ts)[:, None] * d
+    values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
+    for u, value in zip(us, values.tolist()):
+        best.answered += math.isfinite(value)
+        best.seen(u, value)
+    return values.tolist()
 
 
 def _resolution(settings: Settings, moved: float) -> float:

@@ -1,0 +1,94 @@
+"""Where the direction-set search stops early: plateaus and lines that run out to infinity."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+import directional as dl
+from directional.method.directions import DirectionSet
+from directional.method.search import _flat
+from directional.testproblems import mgh
+
+
+def test_box_leaves_the_plateau_it_reached_and_finds_the_published_minimum():
+    # Box's three-dimensional function (Moré, Garbow & Hillstrom 1981, problem 12; Box 1966):
+    # minimum 0 at (1, 10, 1) among others.  From the standard start (0, 10, 20) the first cycle's
+    # line search along x2 follows the dying exponential exp(-t x2) out to x2 = 353, where the
+    # value no longer depends on x2; the search used to stop there, "converged", at 0.0756.
+    # Within 100 (n + 1) evaluations (the benchmark's budget) it must reach the minimum.
+    p = mgh.problem(12)
+    sol = dl.minimize(p, p.start, check=False, budget=100 * (p.n + 1))
+    assert sol.stop is dl.Stop.CONVERGED
+    assert sol.value < 1e-10
+    assert sol.point == pytest.approx([1.0, 10.0, 1.0], abs=1e-4)
+
+
+def test_box_from_a_hundred_times_its_start_finds_the_dip_at_the_plateaus_edge():
+    # the same function from (0, 1000, 2000) (MGH 1981 take starts 10 and 100 times out): the
+    # plateau is x2 > 100, and the first probe along x2 (one scaled unit, to x2 = 0.4) passes
+    # the region 10 < x2 < 100 where the value sinks; the search used to stop at 0.0756
+    p = mgh.problem(12)
+    sol = dl.minimize(p, 100.0 * np.asarray(p.start), check=False, budget=100 * (p.n + 1))
+    assert sol.stop is dl.Stop.CONVERGED
+    assert sol.value < 1e-10
+
+
+def test_only_directions_whose_parabola_saw_rounding_are_flat():
+    # common practice, no source: a parabola through points h apart whose curvature c changes
+    # the value by c h² ~ eps |f| saw nothing but rounding; one that saw more is a real minimum
+    # along its line, and a direction never measured (nan) is not judged
+    eps = float(np.finfo(float).eps)
+    directions = DirectionSet(
+        vectors=np.eye(3),
+        curvatures=np.array([2.0, 10.0 * eps / 1e-10, math.nan]),
+        steps=np.full(3, 1e-5),
+    )
+    assert _flat(directions, 1.0) == [1]
+    assert _flat(directions, 0.0) == []
+
+
+def test_a_variable_the_objective_ignores_costs_no_probes():
+    # f = (x0 - 1)² (analytic): x1 does not enter, so it is flat for good; its line searches see
+    # equal values, measure no curvature, and the search must not probe it to the end of REACH
+    counted = []
+
+    def f(x):
+        counted.append(x.copy())
+        return float((x[0] - 1.0) ** 2)
+
+    sol = dl.minimize(f, [0.0, 0.0], check=False)
+    assert sol.stop is dl.Stop.CONVERGED
+    assert max(abs(x[1]) for x in counted) < 10.0
+
+
+def test_a_plateau_without_lower_ground_is_said_so():
+    # f = (x0 - 1)² + 1 + exp(-x1) (analytic): the infimum 1 is approached as x1 -> infinity, and
+    # beyond x1 ≈ 37 the value is 1 to rounding.  The search stops there, "converged" (nothing
+    # lower within reach), and the reason says that x1 is not determined
+    sol = dl.minimize(lambda x: (x[0] - 1.0) ** 2 + 1.0 + math.exp(-x[1]), [0.0, 0.0], check=False)
+    assert sol.stop is dl.Stop.CONVERGED
+    assert sol.value == pytest.approx(1.0, abs=1e-12)
+    assert sol.point[1] > 30.0
+    assert "plateau" in sol.reason and "not determined" in sol.reason
+
+
+def test_a_true_minimum_is_not_called_a_plateau():
+    # Rosenbrock (MGH 1981, problem 1): a strict minimum 0 at (1, 1); no note
+    p = mgh.problem(1)
+    sol = dl.minimize(p, p.start, check=False)
+    assert sol.stop is dl.Stop.CONVERGED and sol.value < 1e-10
+    assert sol.reason == ""
+
+
+@pytest.mark.parametrize("budget", [131, 135, 141, 144, 147, 150])
+def test_a_run_halted_while_leaving_a_plateau_returns_its_lowest_value(budget):
+    # Box (MGH 1981, problem 12) from its start probes its plateau from evaluation 130 on; a
+    # budget that ends the run among the probes or the line search after them must still
+    # return the lowest value evaluated (nothing computed is lost)
+    p = mgh.problem(12)
+    sol = dl.minimize(p, p.start, check=False, budget=budget)
+    assert sol.stop is dl.Stop.BUDGET
+    assert sol.value == min(e.value for e in sol.history)
