@@ -42,7 +42,9 @@ Stopping: in ``exact`` mode (the public `line_minimum`) when the bracket is with
 as in Brent's procedure.  Inside the direction-set search, as soon as the parabola through the
 three best points puts its vertex within the tolerance of the best point: the next step would be
 below the tolerance, so it is not taken (this is what makes a line search on a quadratic cost two
-new evaluations).
+new evaluations).  Also, given ``worth`` (the least decrease the caller can still use), as soon
+as the parabola promises less than that below the best value: with a known curvature this can be
+right after the first probe, so that a line costs one evaluation.
 
 References
 ----------
@@ -136,6 +138,7 @@ def line_search(
     noise: float = 0.0,
     heard: float = 0.0,
     listen: bool = True,
+    worth: float = 0.0,
 ) -> LineSearch:
     """Search ``[lower, upper]`` for a minimum, as a generator (see the module docstring).
 
@@ -147,6 +150,8 @@ def line_search(
     least-squares fits and the returned point the lowest on the fitted parabola.  ``heard`` (a
     level an earlier line's points showed; 0 for none) only limits the resolution; ``listen``
     False leaves the line's own table unread (the caller said the values have no noise).
+    ``worth`` (without noise; 0 for none) is the least decrease worth another evaluation: the
+    search stops when its parabola promises less.
     """
     points = {float(t): float(v) for t, v in known.items()}
     spent = 0
@@ -202,6 +207,8 @@ def line_search(
             t2 = min(max(vertex, lower, t0 - reach), upper, t0 + reach)
             if not fresh(t2):  # the model puts the minimum on a point already known
                 return _result(points, None, spent, noise)
+            if worth > 0.0 and noise == 0.0 and _promise(t0, f0, t1, f1, curvature) <= worth:
+                return _result(points, None, spent)  # the probe is as good as the caller needs
             values = yield np.array([t2])
             points[t2] = float(values[0])
             spent += 1
@@ -220,7 +227,9 @@ def line_search(
         vertex, c = _model(points, x, noise) if parabolic else (math.nan, math.nan)
         if heard > 0.0 and c > 0.0:  # no finer than a change of a quarter of the level
             tx = max(tx, math.sqrt(0.5 * heard / c))
-        if not exact and c > 0.0 and abs(vertex - x) <= tx:
+        if not exact and c > 0.0 and (
+            abs(vertex - x) <= tx or (noise == 0.0 and 0.5 * c * (vertex - x) ** 2 <= worth)
+        ):
             if noise == 0.0:  # what `_result` would find again: the best point and its c
                 return _found(ts, fs, i, c, spent)
             break
@@ -250,6 +259,13 @@ def line_search(
         points[u] = float(values[0])
         spent += 1
     return _result(points, None, spent, noise)
+
+
+def _promise(t0: float, f0: float, t1: float, f1: float, curvature: float) -> float:
+    """How far below the lower of two values the parabola through them with the given second
+    derivative reaches: the decrease its vertex promises."""
+    slope = (f1 - f0) / (t1 - t0) - 0.5 * curvature * (t1 - t0)  # the parabola's slope at t0
+    return min(f0, f1) - (f0 - 0.5 * slope * slope / curvature)
 
 
 def _unheard(points: dict[float, float], t0: float, noise: float) -> bool:

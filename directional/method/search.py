@@ -9,7 +9,11 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   costs two evaluations.  A direction with no curvature measured yet starts its bracket with the
   move of the line search before it, when that is longer than its own step (at most ``SEEDED``
   times longer: a longer jump sent a NIST calibration into another basin): the first cycle then
-  learns the problem's scale once instead of once per axis.
+  learns the problem's scale once instead of once per axis.  A line search refines only while
+  its parabola promises more than ``WORTH`` of the decrease the cycle is expected to bring (the
+  last cycle's, shrunk at the rate of the last two): far from the minimum a point a little off
+  the line's minimum costs the next cycle nothing, and with a known curvature such a line often
+  ends after its first probe.
 - At the end of a cycle the point extrapolated as far again along the cycle's overall step is
   evaluated.  If Powell's (1964) test accepts, the overall step becomes a new direction: it is
   line-searched (the three points on it are already known) and replaces the direction of largest
@@ -134,6 +138,7 @@ NEARLY = 0.04  # a model leaving at most this share of its coefficients free (an
 GUESSES = False  # True: step on undetermined models too (measured: more evaluations wasted on MGH)
 FITTED = 2.0  # the model is fitted to this many times as many points as it has coefficients
 EPSILON = float(np.finfo(float).eps)
+WORTH = 0.003  # line searches stop refining below this share of the next cycle's expected decrease
 SEEDED = 10.0  # a first step borrowed from the last move is at most this many times its own
 FARTHEST = 1e10  # no line search goes farther, in scaled units: a descent to infinity stops there
 NOISE_REACH = 8.0  # noisy probes go as far as ½ c h² = NOISE_REACH σ / 2 (a change of several σ)
@@ -193,6 +198,7 @@ class _Tracker:
         self.noise = noise  # > 0: the noisy mode (a lower single value proves nothing)
         self.heard = 0.0  # before it: the noise level relative to |f| a line's points showed
         self.hearing = False  # whether line searches read their own points' table
+        self.worth = 0.0  # the least decrease worth another evaluation in a line search
 
     def seen(self, u: np.ndarray, value: float) -> None:
         """Take note of an evaluation: the new best point if it is lower (without noise), a
@@ -236,12 +242,14 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
         ends: list[float] = []  # the best value after each noisy cycle
         anchors: list[np.ndarray] = []  # and the best point
         realigned = False  # the last noisy cycle was quiet along a skewed set: axes taken
+        last_drop = math.nan  # how much the cycle before lowered the value
         while True:
             cycles += 1
             best.answered = 0
             begun = best.u.copy()
             worked_at = best.resolution
             directions, moved, dropped = yield from _cycle(space, settings, best, directions)
+            best.worth, last_drop = WORTH * _expected(dropped, last_drop), dropped
             if best.answered == 0:
                 reason = "every evaluation of a whole cycle failed: the best point is walled in"
                 return _outcome(best, Stop.STALLED, cycles, directions, reason)
@@ -464,6 +472,7 @@ def _line(
         noise=best.noise,
         heard=heard,
         listen=best.hearing,
+        worth=best.worth,
     )
     try:
         ts = next(search)
@@ -603,6 +612,19 @@ def _resolution(settings: Settings, moved: float) -> float:
     finer than the final resolution.  Far from the minimum a line search need not be exact
     (common practice, no source); near it the resolution reaches ``settings.line_tolerance``."""
     return max(settings.line_tolerance, 0.01 * moved)
+
+
+def _expected(dropped: float, before: float) -> float:
+    """The decrease the next cycle may be expected to bring: the last cycle's, shrunk by the
+    ratio of the last two (linear convergence at the rate they showed), never more than the
+    last; 0 (no expectation) after the first cycle or a cycle that gained nothing.
+
+    The first cycle's decrease says nothing of the second's (on MGH 24 from its start the first
+    cut the value from 2.34 to 0.0167, the second by 0.0145): line searches tied to it stopped far
+    from their minima (common practice, no source)."""
+    if not (dropped > 0.0 and before > 0.0):
+        return 0.0
+    return min(dropped, dropped * dropped / before)
 
 
 def _next_step(result: LineResult, settings: Settings) -> float:

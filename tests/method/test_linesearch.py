@@ -95,6 +95,21 @@ def test_known_curvature_makes_a_quadratic_cost_two_evaluations():
     assert result.curvature == pytest.approx(4.0, rel=1e-8)
 
 
+@pytest.mark.parametrize("worth, count, point", [(0.1, 1, 2.9), (0.01, 2, 3.0)])
+def test_a_line_stops_when_the_parabola_promises_less_than_it_is_worth(worth, count, point):
+    # f = 2 (t - 3)^2 with known second derivative 4, probe at 2.9 (analytic): f(2.9) = 0.02
+    # and the parabola promises 0.02 more at its vertex 3; worth 0.1 leaves it there after one
+    # evaluation, worth 0.01 takes the second.
+    f = lambda t: 2.0 * (t - 3.0) ** 2  # noqa: E731
+    result, seen = drive(
+        f,
+        line_search({0.0: f(0.0)}, -10.0, 10.0, step=2.9, curvature=4.0, tolerance=1e-9,
+                    worth=worth),
+    )
+    assert len(seen) == count
+    assert result.point == pytest.approx(point, abs=1e-12)
+
+
 @settings(max_examples=60, deadline=None)
 @given(
     lower=st.floats(-50, 0),
