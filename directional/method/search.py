@@ -52,8 +52,9 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   decrease within the value tolerance.
   The driver ends it early by throwing `records.Halt` (budget, time, interrupt); it then returns
   its best point with that reason.
-- Plateaus.  Before it stops, a direction whose last parabola saw nothing but rounding (``FLAT``)
-  is probed with doubling steps on both sides, and bisected where the value rose past the
+- Plateaus.  Before it stops, a direction whose last parabola saw nothing but rounding (``FLAT``),
+  or saw no upward curvature at all although the point travelled along it (``TRAVELLED``), is
+  probed with doubling steps on both sides, and bisected where the value rose past the
   plateau's edge; lower ground found there is line-searched and the cycles go on.  A dying
   exponential otherwise leaves the search "converged" where the value no longer depends on a
   parameter: Box's function (Moré, Garbow & Hillstrom 1981, no. 12) stopped at 0.0756, not 0.
@@ -148,6 +149,7 @@ WINDOW = 3  # without a believable model, a noisy search judges the gain of this
 FITS = 5.0  # a noisy model is believed when its largest residual is below this many noise levels
 SQUARE = 10.0  # a noisy search counts a quiet cycle only along directions this well conditioned
 FLAT = 100.0  # a direction whose parabola saw value differences below this many roundings is flat
+TRAVELLED = 1.0  # ... or one never curved upward along which the point moved this far (scaled)
 REACH = 1024.0  # a flat direction is probed out to this many scaled units on each side
 EDGE = 8  # ... and where the value rose, bisected this many times for a dip at the plateau's edge
 
@@ -221,6 +223,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
     """Minimize over ``space`` from its start (or ``start``, scaled coordinates)."""
     n = space.size
     u = np.zeros(n) if start is None else np.array(start, dtype=float)
+    origin = u
     directions = principal_axes(n, FIRST_STEP)
     cycles = 0
     try:
@@ -358,7 +361,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             if ending and (resolved or settled):
                 if best.noise == 0.0:
                     directions, escaped, flat = yield from _leave_plateau(
-                        space, settings, best, directions
+                        space, settings, best, directions, origin
                     )
                     if escaped:  # lower ground beyond a plateau: the search goes on from there
                         calm, fresh = 0, True
@@ -495,25 +498,37 @@ def _line(
     return result
 
 
-def _flat(directions: DirectionSet, value: float) -> list[int]:
+def _flat(
+    directions: DirectionSet, value: float, travelled: np.ndarray | None = None
+) -> list[int]:
     """The directions along which the last line search could not tell its points apart: the
     parabola through points ``step`` apart changed by no more than ``FLAT`` roundings of the
-    value (curvature * step² <= FLAT * eps * |f|), flattest first.
+    value (curvature * step² <= FLAT * eps * |f|), flattest first; then, given ``travelled``
+    (the best point's offset from the start), those with no positive curvature measured along
+    which the point has moved at least ``TRAVELLED`` scaled units.
 
     Such a direction is a plateau, not a minimum: the search stopped there because every value
     along it looked the same, e.g. where an exponential term of the objective has died out
     (Box's three-dimensional function, Moré, Garbow & Hillstrom 1981, no. 12, from its standard
-    start: x2 runs out to 353, where exp(-t x2) no longer counts).  A direction whose curvature
-    was never measured (nan) is not taken for one: the zero columns of MGH 34 are flat for good.
+    start: x2 runs out to 353, where exp(-t x2) no longer counts; there the values along x2 are
+    equal to the last bit, so its parabola has no positive curvature at all).  A direction whose
+    curvature was never measured (nan) and along which the point never moved is not taken for
+    one: the zero columns of MGH 34 are flat for good.
     """
     rounding = FLAT * EPSILON * abs(value)
     spread = directions.curvatures * directions.steps**2
-    flat = [i for i in np.argsort(spread) if np.isfinite(spread[i]) and spread[i] <= rounding]
-    return [int(i) for i in flat]
+    flat = [int(i) for i in np.argsort(spread) if np.isfinite(spread[i]) and spread[i] <= rounding]
+    if travelled is not None:
+        moved = np.abs(directions.vectors @ travelled)
+        flat += [
+            int(i) for i in np.argsort(-moved)
+            if np.isnan(spread[i]) and moved[i] >= TRAVELLED
+        ]
+    return flat
 
 
 def _leave_plateau(
-    space: Space, settings: Settings, best: _Tracker, directions: DirectionSet
+    space: Space, settings: Settings, best: _Tracker, directions: DirectionSet, origin: np.ndarray
 ) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool, str]]:
     """Look along each flat direction (`_flat`) for a value below what the value tolerance
     ignores (`_lower_ground`); line-search from the first such point.  Returns the direction set
@@ -525,7 +540,7 @@ def _leave_plateau(
     without end, or near the edge of one: the value sinks again farther out (Box's function sinks
     back to its minimum 0 when x2 returns to about 10; Box 1966)."""
     floor = settings.value_tolerance * max(1.0, abs(best.value))
-    flat = _flat(directions, best.value)
+    flat = _flat(directions, best.value, best.u - origin)
     for i in flat:
         d = directions.vectors[i]
         base, f0 = best.u.copy(), best.value

@@ -26,14 +26,16 @@ def test_box_leaves_the_plateau_it_reached_and_finds_the_published_minimum():
     assert sol.point == pytest.approx([1.0, 10.0, 1.0], abs=1e-4)
 
 
-def test_box_from_a_hundred_times_its_start_finds_the_dip_at_the_plateaus_edge():
+def test_box_from_a_hundred_times_its_start_is_not_called_a_minimum_on_its_plateau():
     # the same function from (0, 1000, 2000) (MGH 1981 take starts 10 and 100 times out): the
-    # plateau is x2 > 100, and the first probe along x2 (one scaled unit, to x2 = 0.4) passes
-    # the region 10 < x2 < 100 where the value sinks; the search used to stop at 0.0756
+    # start itself lies on the plateau x2 > 100, where the values along x2 are equal to the last
+    # bit.  The search does not probe a direction it never moved along (a parameter the
+    # objective ignores looks the same: MGH 34), so it stops at the plateau's 0.0756; the
+    # default check must then say the point is flat, not a minimum.
     p = mgh.problem(12)
-    sol = dl.minimize(p, 100.0 * np.asarray(p.start), check=False, budget=100 * (p.n + 1))
-    assert sol.stop is dl.Stop.CONVERGED
-    assert sol.value < 1e-10
+    sol = dl.minimize(p, 100.0 * np.asarray(p.start), budget=100 * (p.n + 1))
+    assert sol.value == pytest.approx(0.0755887, rel=1e-5)
+    assert sol.verdict is dl.Verdict.FLAT
 
 
 def test_only_directions_whose_parabola_saw_rounding_are_flat():
@@ -48,6 +50,19 @@ def test_only_directions_whose_parabola_saw_rounding_are_flat():
     )
     assert _flat(directions, 1.0) == [1]
     assert _flat(directions, 0.0) == []
+
+
+def test_a_direction_travelled_far_without_upward_curvature_is_flat():
+    # common practice, no source: equal values to the last bit give no positive curvature (nan);
+    # such a direction is a plateau once the point has travelled along it (Box's x2 ran from 10
+    # to 353 in Moré, Garbow & Hillstrom 1981, no. 12), not while it never moved (MGH 34's zero
+    # columns)
+    directions = DirectionSet(
+        vectors=np.eye(3), curvatures=np.array([2.0, math.nan, math.nan]), steps=np.full(3, 1e-5)
+    )
+    assert _flat(directions, 1.0, np.array([0.5, 34.0, 0.0])) == [1]
+    assert _flat(directions, 1.0, np.array([0.5, 0.5, 0.0])) == []
+    assert _flat(directions, 1.0) == []
 
 
 def test_a_variable_the_objective_ignores_costs_no_probes():
