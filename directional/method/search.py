@@ -28,14 +28,12 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   next model steps' points fix them).  Its minimizer
   inside a trust region, clipped to the bounds, is evaluated; while such steps succeed (actual
   decrease at least half the predicted) more follow (after a success, a failed step is
-  retried ``RETRIES`` times on the model refitted with its point, inside half the radius; not
-  in the noisy mode), and
-  a convex model that predicted well replaces the direction set by its eigenvectors with their
-  eigenvalues as known curvatures, so that the next cycle's line searches are along conjugate
-  directions.  The trust radius halves
-  after a poor step, doubles after a good one, and is never less than the last cycle's reach.
-  The model is switched off above `model.LARGEST` variables, where its fit costs more than
-  it saves.
+  retried ``RETRIES`` times on the model refitted with its point, inside the radius the failure
+  left; not in the noisy mode), and a convex model that predicted well replaces the direction
+  set by its eigenvectors with their eigenvalues as known curvatures, so that the next cycle's
+  line searches are along conjugate directions.  The trust radius halves after a poor step,
+  doubles after a good one, and is never less than the last cycle's reach.  The model is
+  switched off above `model.LARGEST` variables, where its fit costs more than it saves.
 - A calm cycle (see below), or one that moved less than the point tolerance, along a nearly
   dependent set (condition beyond ``SKEWED``) proves nothing: a valley no direction points
   along can be missed, which stopped Meyer's problem (Moré, Garbow & Hillstrom 1981, no. 10)
@@ -126,7 +124,7 @@ SPREAD = 1e5  # ... unless the estimate's largest curvature exceeds its least th
 FALLING = 0.9  # ... or the cycle lowered the value by more than this share of it
 SAMPLES = 3  # the model's store holds this many times the coefficients of a quadratic
 MODEL_STEPS = 8  # at most this many model steps in a row, while each is a success
-RETRIES = 1  # failed model steps retried in a row that had a success (refitted, half the radius)
+RETRIES = 1  # failed model steps retried in a row that had a success (refitted, smaller radius)
 SETTLE_MISFIT = 1e-3  # a model may end the search when it misfits its sample by less (relative)
 NEARLY = 0.04  # a model leaving at most this share of its coefficients free (and at most
 # MODEL_STEPS of them) is stepped on: each step's point fixes about one more
@@ -504,7 +502,8 @@ def _model_row(
     model describes the objective at the row's scale, so a failure after it is retried up to
     ``RETRIES`` times before the row ends: the model refitted with the failed point (which lies
     off the lines of the cycles and corrects the model where it was wrong) and stepped on
-    inside half the radius, the trust-region iteration's answer to a failed step (Conn,
+    inside the radius the failure left (half the failed step's length after a poor one, whose
+    ratio is below 0.25), the trust-region iteration's answer to a failed step (Conn,
     Scheinberg & Vicente 2009, ch. 10), instead of a whole cycle of line searches before the
     next model.  Measured on the MGH benchmark (benchmarks/results/model-steps.md): Rosenbrock
     (MGH 1) from its standard start reached τ = 1e-5 after 39.7 (n + 1) evaluations instead of
