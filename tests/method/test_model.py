@@ -243,3 +243,57 @@ def test_the_fits_gelsy_call_is_scipys_lstsq_bit_for_bit(rows, columns, rank):
     )
     assert found == expected_rank == rank
     assert x.tobytes() == expected.tobytes()
+
+
+def _purposes_and_values(p, **changes):
+    """The purpose and value of every evaluation of the search driven alone on ``p`` from its
+    standard start, with module constants of the search changed as given."""
+    from directional.method import search
+    from directional.method.space import build_space
+
+    saved = {name: getattr(search, name) for name in changes}
+    for name, value in changes.items():
+        setattr(search, name, value)
+    rows: list[tuple[str, float]] = []
+    try:
+        run = search.powell(build_space(p.start), Settings())
+        batch = next(run)
+        while True:
+            values = np.array([p(x) for x in batch.points])
+            rows.extend((str(batch.purpose), float(v)) for v in values)
+            batch = run.send(values)
+    except StopIteration as stop:
+        return rows, stop.value
+    finally:
+        for name, value in saved.items():
+            setattr(search, name, value)
+
+
+def _retries(rows: list[tuple[str, float]]) -> tuple[int, int]:
+    """Model steps that follow a failed model step directly (no line search between), and how
+    many of them lowered the best value."""
+    best = np.fmin.accumulate([v for _, v in rows])
+    retried = [
+        i for i in range(1, len(rows) - 1)
+        if rows[i][0] == rows[i + 1][0] == "model" and rows[i][1] >= best[i - 1]
+    ]
+    return len(retried), sum(rows[i + 1][1] < best[i] for i in retried)
+
+
+def test_a_failed_model_step_after_a_success_is_retried_on_the_refitted_model():
+    # Moré, Garbow & Hillstrom (1981), problem 1 (Rosenbrock), standard start (-1.2, 1):
+    # f* = 0 at (1, 1).  Along its curved valley the model's steps succeed in rows and then
+    # overshoot; the refitted model, inside half the radius, lowers the value again on most
+    # of its tries instead of a cycle of line searches coming first.  Without retries
+    # (RETRIES = 0) a failed model step always ends its row.
+    from directional.method.space import build_space
+
+    p = mgh.problem(1)
+    rows, outcome = _purposes_and_values(p)
+    tried, lowered = _retries(rows)
+    assert tried >= 3 and lowered >= tried / 2
+    assert outcome.value <= 1e-10
+    point = build_space(p.start).to_user(outcome.point)  # the outcome is in scaled units
+    assert point == pytest.approx([1.0, 1.0], abs=1e-4)
+    plain, _ = _purposes_and_values(p, RETRIES=0)
+    assert _retries(plain) == (0, 0)
