@@ -31,13 +31,12 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   used only after a model step succeeded, or when it leaves so few coefficients free that the
   next model steps' points fix them).  Its minimizer
   inside a trust region, clipped to the bounds, is evaluated; while such steps succeed (actual
-  decrease at least half the predicted) more follow (after a success, a failed step is
-  retried ``RETRIES`` times on the model refitted with its point, inside the radius the failure
-  left; not in the noisy mode), and a convex model that predicted well replaces the direction
-  set by its eigenvectors with their eigenvalues as known curvatures, so that the next cycle's
-  line searches are along conjugate directions.  The trust radius halves after a poor step,
-  doubles after a good one, and is never less than the last cycle's reach.  The model is
-  switched off above `model.LARGEST` variables, where its fit costs more than it saves.
+  decrease at least half the predicted) more follow, and a convex model that predicted well
+  replaces the direction set by its eigenvectors with their eigenvalues as known curvatures, so
+  that the next cycle's line searches are along conjugate directions.  The trust radius halves
+  after a poor step, doubles after a good one, and is never less than the last cycle's reach.
+  The model is switched off above `model.LARGEST` variables, where its fit costs more than
+  it saves.
 - A calm cycle (see below), or one that moved less than the point tolerance, along a nearly
   dependent set (condition beyond ``SKEWED``) proves nothing: a valley no direction points
   along can be missed, which stopped Meyer's problem (Moré, Garbow & Hillstrom 1981, no. 10)
@@ -134,7 +133,6 @@ SPREAD = 1e5  # ... unless the estimate's largest curvature exceeds its least th
 FALLING = 0.9  # ... or the cycle lowered the value by more than this share of it
 SAMPLES = 3  # the model's store holds this many times the coefficients of a quadratic
 MODEL_STEPS = 8  # at most this many model steps in a row, while each is a success
-RETRIES = 1  # failed model steps retried in a row that had a success (refitted, smaller radius)
 SETTLE_MISFIT = 1e-3  # a model may end the search when it misfits its sample by less (relative)
 NEARLY = 0.04  # a model leaving at most this share of its coefficients free (and at most
 # MODEL_STEPS of them) is stepped on: each step's point fixes about one more
@@ -219,7 +217,6 @@ class _Trust:
     def __init__(self) -> None:
         self.radius = math.nan
         self.hessian: np.ndarray | None = None  # the last model's, for the least-change fit
-        self.ratio = math.nan  # the last model step's actual over predicted decrease (nan: none)
 
 
 def powell(space: Space, settings: Settings, start: np.ndarray | None = None) -> Search:
@@ -264,7 +261,12 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 before = best.u.copy(), best.value
                 # the model may go at least as far as the line searches just went
                 trust.radius = max(trust.radius, float(np.linalg.norm(best.u - begun)))
-                directions, settled = yield from _model_row(space, settings, best, directions, trust)
+                for _ in range(MODEL_STEPS):
+                    directions, settled, gained = yield from _model_step(
+                        space, settings, best, directions, trust
+                    )
+                    if settled or not gained:
+                        break
                 moved = max(moved, float(np.max(np.abs(best.u - before[0]))))
                 dropped += before[1] - best.value
             small = moved <= settings.point_tolerance and dropped <= (
@@ -660,43 +662,6 @@ def _outcome(
     )
 
 
-def _model_row(
-    space: Space, settings: Settings, best: _Tracker, directions: DirectionSet, trust: _Trust
-) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool]]:
-    """Model steps after a cycle, in a row while they pay (`_model_step`); returns the direction
-    set and whether the model says the point is settled.
-
-    A row that had a success (actual decrease at least half the predicted) has shown that the
-    model describes the objective at the row's scale, so a failure after it is retried up to
-    ``RETRIES`` times before the row ends: the model refitted with the failed point (which lies
-    off the lines of the cycles and corrects the model where it was wrong) and stepped on
-    inside the radius the failure left (half the failed step's length after a poor one, whose
-    ratio is below 0.25), the trust-region iteration's answer to a failed step (Conn,
-    Scheinberg & Vicente 2009, ch. 10), instead of a whole cycle of line searches before the
-    next model.  Measured on the MGH benchmark (benchmarks/results/model-steps.md): Rosenbrock
-    (MGH 1) from its standard start reached τ = 1e-5 after 39.7 (n + 1) evaluations instead of
-    48.3, Watson (MGH 20) after 42.0 instead of 46.0; rows without a success end at their first
-    failure as before (retrying those too lost as many pairs as it gained, and fitted three
-    times as often).  Not in the noisy mode, where one ratio is as noisy as two values (with
-    retries, a noisy run with replicates ended after too few points to pool their spread,
-    tests/run/test_replicates_driver.py).
-    """
-    succeeded, settled, failures = False, False, 0
-    for _ in range(MODEL_STEPS + RETRIES):
-        trust.ratio = math.nan
-        directions, settled, gained = yield from _model_step(space, settings, best, directions, trust)
-        succeeded = succeeded or trust.ratio >= 0.5
-        if settled:
-            break
-        if gained:
-            failures = 0
-            continue
-        failures += 1
-        if not succeeded or failures > RETRIES or math.isnan(trust.ratio) or best.noise > 0.0:
-            break
-    return directions, settled
-
-
 def _model_step(
     space: Space, settings: Settings, best: _Tracker, directions: DirectionSet, trust: _Trust
 ) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool, bool]]:
@@ -743,7 +708,6 @@ def _model_step(
     if best.noise > 0.0 and value < before:
         best.u, best.value = target, value
     ratio = (before - value) / predicted if math.isfinite(value) else -math.inf
-    trust.ratio = ratio
     length = float(np.linalg.norm(s))
     if ratio >= 0.75 and length >= 0.5 * trust.radius:
         trust.radius = 2.0 * trust.radius
