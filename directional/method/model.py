@@ -79,6 +79,7 @@ class Sample:
         self.size = 0
         self.next = 0  # where the next point goes once the store is full (oldest first out)
         self.added = 0  # points ever added
+        self.last: tuple[tuple[int, int, bytes], Quadratic | None] | None = None  # see `fit`
 
     def add(self, u: np.ndarray, value: float) -> None:
         if not math.isfinite(value):
@@ -111,7 +112,12 @@ class Quadratic:
 
 
 def fit(
-    sample: Sample, centre: np.ndarray, points: int, prior: np.ndarray | None = None
+    sample: Sample,
+    centre: np.ndarray,
+    points: int,
+    prior: np.ndarray | None = None,
+    *,
+    reuse: bool = False,
 ) -> Quadratic | None:
     """Least-squares quadratic through the ``points`` samples nearest ``centre``.
 
@@ -123,10 +129,30 @@ def fit(
     sample leaves to the prior.  None when fewer than
     ``n + 1`` samples or samples that do not fix the linear part (scaled condition beyond
     `POISED`).
+
+    ``reuse``: when the last fit of ``sample`` had the same samples, centre and ``points`` and
+    no prior, or was determined (then the prior changes it by rounding only: the least-squares
+    solution is unique), its model is returned without a new fit (a search asks again at the
+    end of a cycle).
     """
     n = sample.points.shape[1]
     if sample.size < n + 1:
         return None
+    key = (sample.added, points, centre.tobytes())
+    if reuse and sample.last is not None and sample.last[0] == key:
+        last = sample.last[1]
+        if last is not None and math.isfinite(last.misfit):
+            return last
+    model = _fit(sample, centre, points, prior)
+    sample.last = key, model
+    return model
+
+
+def _fit(
+    sample: Sample, centre: np.ndarray, points: int, prior: np.ndarray | None
+) -> Quadratic | None:
+    """`fit` itself, with at least ``n + 1`` samples."""
+    n = sample.points.shape[1]
     u = sample.points[: sample.size] - centre
     distance = np.einsum("ij,ij->i", u, u)
     values = sample.values[: sample.size]
@@ -141,30 +167,34 @@ def fit(
     d = u / radius
     rows, cols, diagonal, weight = _layout(n)
     # each sample's equation is weighted by its nearness (see `_nearness`)
-    near = _nearness(distance)[:, None]
-    products = d[:, rows] * d[:, cols]
-    products *= _halves(n)  # 0.5 on the diagonal, 1.0 (exact) elsewhere: no masked copy
-    products *= near
+    near = _nearness(distance)
+    products = d[:, rows]
+    products *= d[:, cols]
+    products[:, diagonal] *= 0.5  # ½ hᵢᵢ sᵢ²: the other columns' factor is 1 (exact)
+    products *= near[:, None]
     linear = np.empty((len(d), n + 1))
-    linear[:, 0] = 1.0
-    linear[:, 1:] = d
-    linear *= near
-    scaled_prior = np.zeros(len(rows))
-    if prior is not None:
+    linear[:, 0] = near  # 1 · near
+    np.multiply(d, near[:, None], out=linear[:, 1:])
+    scaled = (values - offset) / span * near
+    if prior is None:
+        scaled_prior = np.zeros(len(rows))
+        target = scaled  # less a product with zeros: the same values (``scaled`` >= 0)
+    else:
         scaled_prior = prior[rows, cols] * radius**2 / span
-    scaled = (values - offset) / span * near[:, 0]
-    target = scaled - products @ scaled_prior
+        target = scaled - products @ scaled_prior
     try:
         basis, triangle = np.linalg.qr(linear)
         singular = np.linalg.svd(triangle, compute_uv=False)
         if singular[-1] <= singular[0] / POISED:
             return None
-        # the part of the data the linear terms cannot explain fixes the change of the Hessian
-        unweighted = products / weight
-        rest = unweighted - basis @ (basis.T @ unweighted)
         if len(d) == n + 1:  # the linear part interpolates: nothing is left (rest is rounding)
             change, rank = np.zeros(len(rows)), 0
         else:
+            # the part of the data the linear terms cannot explain fixes the change of the
+            # Hessian; laid out by columns, as LAPACK reads it, so it is not copied again
+            unweighted = products / weight
+            rest = np.empty(unweighted.shape, order="F")
+            np.subtract(unweighted, basis @ (basis.T @ unweighted), out=rest)
             # a complete orthogonal factorization (LAPACK gelsy) gives the same minimum-norm
             # solution as an SVD at a quarter of its cost (Golub & Van Loan 2013, sec. 5.5)
             change, rank = _gelsy(rest, target - basis @ (basis.T @ target), 1.0 / POISED)
@@ -177,9 +207,8 @@ def fit(
     misfit = span * float(np.abs(linear @ line - residual).max())
     if not (np.isfinite(h_coefficients).all() and np.isfinite(line).all()):
         return None
-    h = np.zeros((n, n))
-    h[rows, cols] = h_coefficients
-    h = h + h.T - np.diag(np.diag(h))
+    # the symmetric matrix from its upper triangle (+ 0.0: a zero is +0.0, as h + hᵀ - diag made it)
+    h = h_coefficients[_symmetric(n)] + 0.0
     return Quadratic(
         centre=centre.copy(),
         value=offset + span * float(line[0]),
@@ -200,7 +229,9 @@ def _gelsy(a: np.ndarray, b: np.ndarray, cond: float) -> tuple[np.ndarray, int]:
     routine, lwork = _gelsy_routine(m, n, cond)
     if m < n:  # LAPACK writes the n unknowns over b
         b = np.concatenate((b, np.zeros(n - m)))
-    _, x, _, rank, info = routine(a, b, np.zeros((n, 1), dtype=np.int32), cond, lwork, False, False)
+    # ``a`` is overwritten when it is laid out by columns (then it is not copied): the fit's is
+    # a scratch array
+    _, x, _, rank, info = routine(a, b, np.zeros((n, 1), dtype=np.int32), cond, lwork, True, False)
     if info < 0:
         raise ValueError(f"illegal value in argument {-info} of LAPACK gelsy")
     return x[:n], int(rank)
@@ -251,11 +282,15 @@ def _layout(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
 
 
 @functools.cache
-def _halves(n: int) -> np.ndarray:
-    """Per column of the Hessian's upper triangle: ½ on the diagonal (``½ hᵢᵢ sᵢ²``), else 1."""
-    halves = np.where(_layout(n)[2], 0.5, 1.0)
-    halves.flags.writeable = False
-    return halves
+def _symmetric(n: int) -> np.ndarray:
+    """For each entry ``(i, j)`` of an ``n`` × ``n`` symmetric matrix, the index of its
+    coefficient among the upper triangle's (`_layout`).  Cached, like `_layout`."""
+    rows, cols, _, _ = _layout(n)
+    index = np.empty((n, n), dtype=np.intp)
+    index[rows, cols] = np.arange(len(rows))
+    index[cols, rows] = np.arange(len(rows))
+    index.flags.writeable = False
+    return index
 
 
 def _median(x: np.ndarray) -> float:

@@ -584,7 +584,8 @@ def _rounding_only(settings: Settings, best: _Tracker) -> bool:
     if best.sample is None:
         return False
     n = best.sample.points.shape[1]
-    model = fit(best.sample, best.u, int(FITTED * coefficients(n)))
+    # the cycle's last model step fitted the same samples, as a rule: its model serves
+    model = fit(best.sample, best.u, int(FITTED * coefficients(n)), reuse=True)
     if model is None:
         return False
     return model.misfit <= settings.value_tolerance * max(1.0, abs(best.value))

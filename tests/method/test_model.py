@@ -34,6 +34,36 @@ def test_a_quadratic_is_recovered_exactly_from_a_poised_sample():
     assert model.misfit < 1e-9
 
 
+def test_a_determined_model_is_reused_for_the_same_samples_whatever_the_prior():
+    # a determined fit is the unique least-squares quadratic, so a prior changes it by rounding
+    # only (analytic): the model fitted with a prior serves a later request without one for the
+    # same samples and centre; a new sample, another centre or an undetermined model is refitted
+    rng = np.random.default_rng(5)
+    h = np.array([[2.0, 0.5], [0.5, 1.0]])
+    sample = Sample(2, 40)
+    for x in rng.standard_normal((14, 2)):
+        sample.add(x, 1.0 + x @ h @ x)
+    prior = np.eye(2)
+    first = fit(sample, np.zeros(2), 12, prior)
+    again = fit(sample, np.zeros(2), 12, reuse=True)
+    assert first is not None and np.isfinite(first.misfit) and again is first
+    fresh = fit(sample, np.zeros(2), 12)
+    assert fresh is not first
+    assert fresh.hessian == pytest.approx(first.hessian, abs=1e-12)
+    assert fit(sample, np.array([0.1, 0.0]), 12, reuse=True).centre[0] == 0.1
+    x = rng.standard_normal(2)
+    sample.add(x, 1.0 + x @ h @ x)
+    assert fit(sample, np.array([0.1, 0.0]), 12, reuse=True) is not first
+    few = Sample(2, 10)
+    for x in rng.standard_normal((4, 2)):
+        few.add(x, 1.0 + x @ h @ x)
+    loose = fit(few, np.zeros(2), 12, prior)
+    assert loose is not None and loose.misfit == np.inf
+    refitted = fit(few, np.zeros(2), 12, reuse=True)  # without the prior, which mattered here
+    assert refitted is not None and refitted is not loose
+    assert np.max(np.abs(refitted.hessian - loose.hessian)) > 0.1
+
+
 def test_a_sample_on_one_line_is_not_poised():
     # points on a line fix no cross term: no model (Conn, Scheinberg & Vicente 2009, ch. 3)
     sample = Sample(2, 20)
