@@ -59,6 +59,9 @@ import scipy.linalg.lapack
 LOCAL = 0.01  # sets the reach of the fit's weights (see `_nearness`)
 POISED = 1e12  # condition number of the scaled design matrix beyond which the fit is not trusted
 LARGEST = 50  # above this many variables the model is switched off (its cost outgrows its use)
+FIXED = 1e-12  # a combination of coefficients counts as fixed by the sample beyond this (`free`)
+MARGIN = 2  # `fit` with ``usable`` fits anyway when the sample leaves at most this many more free
+FAR = 8.0  # `free` tells nothing for points farther than this many radii from its first centre
 
 
 def coefficients(n: int) -> int:
@@ -80,6 +83,7 @@ class Sample:
         self.next = 0  # where the next point goes once the store is full (oldest first out)
         self.added = 0  # points ever added
         self.last: tuple[tuple[int, int, bytes], Quadratic | None] | None = None  # see `fit`
+        self.unfixed: _Unfixed | None = None  # see `free`
 
     def add(self, u: np.ndarray, value: float) -> None:
         if not math.isfinite(value):
@@ -118,6 +122,7 @@ def fit(
     prior: np.ndarray | None = None,
     *,
     reuse: bool = False,
+    usable: int | None = None,
 ) -> Quadratic | None:
     """Least-squares quadratic through the ``points`` samples nearest ``centre``.
 
@@ -134,6 +139,10 @@ def fit(
     no prior, or was determined (then the prior changes it by rounding only: the least-squares
     solution is unique), its model is returned without a new fit (a search asks again at the
     end of a cycle).
+
+    ``usable``: the most coefficients a model may leave free and still serve the caller (None:
+    any number).  When the samples leave more than ``usable + MARGIN`` free (`free`, which
+    costs a small fraction of a fit), None at once: the fit would only have said so.
     """
     n = sample.points.shape[1]
     if sample.size < n + 1:
@@ -143,6 +152,11 @@ def fit(
         last = sample.last[1]
         if last is not None and math.isfinite(last.misfit):
             return last
+    if usable is not None and sample.size <= points:
+        known = sample.unfixed.count if sample.unfixed is not None else math.inf
+        if known > usable + MARGIN and free(sample, centre) > usable + MARGIN:
+            sample.last = key, None
+            return None
     model = _fit(sample, centre, points, prior)
     sample.last = key, model
     return model
@@ -218,6 +232,73 @@ def _fit(
         misfit=misfit if determined else math.inf,
         missing=len(rows) - rank,
     )
+
+
+class _Unfixed:
+    """The quadratics that vanish on every stored point: an orthonormal basis of their
+    coefficients (columns of ``basis``) in the frame ``(u - origin) / scale``, after the first
+    ``seen`` points; ``top`` is the largest pivot met, the scale of `FIXED`."""
+
+    def __init__(
+        self, origin: np.ndarray, scale: float, basis: np.ndarray, seen: int, top: float
+    ) -> None:
+        self.origin, self.scale, self.basis, self.seen, self.top = origin, scale, basis, seen, top
+
+    @property
+    def count(self) -> int:
+        return self.basis.shape[1]
+
+
+def free(sample: Sample, centre: np.ndarray) -> float:
+    """How many coefficients of a quadratic (independent combinations of them) all the stored
+    points leave free, or ``inf`` when it cannot be told cheaply.
+
+    The count is the dimension of the quadratics that vanish on every point: the null space of
+    the design matrix of the fit, which neither the fit's centre, its radius nor its weights
+    change (they multiply the design by invertible matrices), so it is kept from one call to
+    the next and each new point only restricts it: ``k`` new points cost a QR factorization of
+    a ``k`` × (count) matrix instead of a fit (Golub & Van Loan 2013, sec. 5.4, rank-revealing
+    QR; the counts agree with the fit's: the pivots of the dependent combinations are rounding,
+    1e-16 of the largest, those of the fixed ones above 1e-8 on the benchmark's problems).
+    ``inf`` once a point was dropped (the store is full) or lies farther than `FAR` radii of the
+    first call from its centre (the basis is then ill-scaled for it).
+    """
+    if sample.added != sample.size:
+        sample.unfixed = None
+        return math.inf
+    unfixed = sample.unfixed
+    if unfixed is None:
+        u = sample.points[: sample.size] - centre
+        scale = math.sqrt(float(np.einsum("ij,ij->i", u, u).max()))
+        if not scale > 0.0:
+            return math.inf
+        features = _features(u / scale)
+        q, r, _ = scipy.linalg.qr(features.T, pivoting=True)
+        top = abs(float(r[0, 0]))
+        rank = int(np.count_nonzero(np.abs(np.diagonal(r)) > FIXED * top))
+        unfixed = _Unfixed(centre.copy(), scale, q[:, rank:], sample.size, top)
+    elif unfixed.seen < sample.size and unfixed.count > 0:
+        y = (sample.points[unfixed.seen : sample.size] - unfixed.origin) / unfixed.scale
+        if float(np.max(np.abs(y))) > FAR:
+            sample.unfixed = None
+            return math.inf
+        features = _features(y)
+        unfixed.top = max(unfixed.top, float(np.max(np.linalg.norm(features, axis=1))))
+        q, r, _ = scipy.linalg.qr((features @ unfixed.basis).T, pivoting=True)
+        rank = int(np.count_nonzero(np.abs(np.diagonal(r)) > FIXED * unfixed.top))
+        unfixed.basis = unfixed.basis @ q[:, rank:]
+    unfixed.seen = sample.size
+    sample.unfixed = unfixed
+    return float(unfixed.count)
+
+
+def _features(y: np.ndarray) -> np.ndarray:
+    """Rows ``(1, y, products of y as in the fit)``: the fit's design matrix, unweighted."""
+    n = y.shape[1]
+    rows, cols, diagonal, _ = _layout(n)
+    products = y[:, rows] * y[:, cols]
+    products[:, diagonal] *= 0.5
+    return np.hstack([np.ones((len(y), 1)), y, products])
 
 
 def _gelsy(a: np.ndarray, b: np.ndarray, cond: float) -> tuple[np.ndarray, int]:

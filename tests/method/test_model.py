@@ -12,7 +12,7 @@ from hypothesis import strategies as st
 
 import directional as dl
 from directional.method import curvature
-from directional.method.model import Quadratic, Sample, coefficients, fit, trust_step
+from directional.method.model import MARGIN, Quadratic, Sample, coefficients, fit, free, trust_step
 from directional.method.search import Settings
 from directional.records import Verdict
 from directional.testproblems import mgh
@@ -111,6 +111,80 @@ def test_a_sample_on_the_axes_leaves_the_cross_terms_free_until_a_point_off_them
     sample.add(x, 0.5 * x @ h @ x)
     model = fit(sample, np.zeros(n), 40)
     assert model is not None and model.missing == 2 and model.misfit == np.inf
+
+
+def test_the_free_count_follows_the_fits_as_points_on_lines_arrive():
+    # points on lines through the start, as a direction-set search lays them: a line fixes at
+    # most three more combinations of the coefficients (its points' quadratic features span
+    # three dimensions; analytic), so the sample leaves many free until points off the lines
+    # arrive.  The count kept from call to call (each call absorbs only the new points) equals
+    # the fit's own count of free Hessian coefficients at every stage, and a fresh count of
+    # the same points (the null space of the design does not depend on the centre)
+    rng = np.random.default_rng(3)
+    n = 4
+    sample = Sample(n, 3 * coefficients(n))
+    h = rng.standard_normal((n, n))
+    h = h @ h.T
+
+    def f(x):
+        return float(x @ h @ x + np.sin(x[0]))
+
+    base = np.zeros(n)
+    sample.add(base, f(base))
+    counts = []
+    for direction in [*np.eye(n), *rng.standard_normal((3, n))]:
+        for t in (0.3, -0.2, 0.7):
+            x = base + t * direction
+            sample.add(x, f(x))
+        base = base + 0.5 * direction
+        sample.add(base, f(base))
+        if sample.size <= n + 1:
+            continue
+        centre = sample.points[sample.size - 1]
+        model = fit(sample, centre, 10 * coefficients(n))
+        count = free(sample, centre)
+        counts.append(count)
+        fresh = Sample(n, sample.points.shape[0])
+        for x, value in zip(sample.points[: sample.size], sample.values[: sample.size]):
+            fresh.add(x, float(value))
+        assert free(fresh, np.zeros(n)) == count
+        if model is not None:
+            assert model.missing == count
+    assert counts[0] > 5 and counts[-1] == 0 and counts == sorted(counts, reverse=True)
+
+
+def test_a_fit_that_could_not_be_used_is_skipped_and_a_dropped_point_ends_the_count():
+    # with ``usable`` the fit returns None at once when the sample leaves more coefficients
+    # free than the caller can use (plus MARGIN), and fits as before otherwise; once the store
+    # has dropped a point the count cannot be kept (``inf``) and the fit runs
+    n = 3
+    sample = Sample(n, 14)
+    sample.add(np.zeros(n), 0.0)
+    for i in range(n):
+        for t in (-1.0, -0.5, 0.5, 1.0):
+            x = np.zeros(n)
+            x[i] = t
+            sample.add(x, float(x @ x + x[0] ** 3))
+    centre = np.zeros(n)
+    assert free(sample, centre) == 3  # the cross terms (as in the test of the axes above)
+    assert MARGIN == 2
+    assert fit(sample, centre, 40, usable=0) is None  # 3 > 0 + MARGIN: not fitted
+    model = fit(sample, centre, 40, usable=1)  # 3 <= 1 + MARGIN: fitted, as without ``usable``
+    assert model is not None and model.missing == 3
+    line = Sample(n, 40)
+    for t in np.linspace(-1.0, 1.0, 12):
+        x = np.array([t, 0.5 * t, 0.0])
+        line.add(x, t * t)
+    for x in np.eye(n):
+        line.add(x, 1.0)
+    # the line fixes three combinations and each point off it one more: 10 - 6 = 4 (analytic)
+    assert free(line, np.zeros(n)) == 4 == coefficients(n) - 6
+    assert fit(line, np.zeros(n), 40, usable=1) is None
+    assert fit(line, np.zeros(n), 40) is not None  # without ``usable``: the undetermined model
+    x = np.array([0.2, 0.3, 0.4])
+    sample.add(x, 1.0)
+    sample.add(-x, 1.0)  # the store of 14 is full: the oldest point was dropped
+    assert free(sample, centre) == np.inf
 
 
 def test_near_samples_decide_the_model_where_far_ones_see_higher_terms():
