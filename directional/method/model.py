@@ -25,12 +25,14 @@ search then clips it to the bounds; it never evaluates outside them.
 
 Cost.  A fit on ``p`` points costs ``O(p N²)`` with ``N`` the number of coefficients, so the search
 fits once per cycle and after each successful model step, on at most ``points`` samples (a
-multiple of ``N``), not while too few samples could determine it, and not at all above
-``LARGEST`` variables: measured on the benchmark's machine, the model adds about 20 µs of
-processor time per evaluation at n = 10, 0.3 ms at n = 30 and 3 ms at n = 50 (a fit there takes
-about 0.8 s).  It saves 3 to 11 times the evaluations on random quadratics, so a run's own time
-is no larger with it up to n = 30 even for a free objective, and at n = 50 it pays once an
-evaluation costs more than about 0.7 ms; above 50 a fit takes seconds and its memory grows as
+multiple of ``N``), not while too few samples could determine it, nor while they leave more
+coefficients free than a model step could use (`free` counts them from one fit request to the
+next at a fraction of a fit's cost), and not at all above ``LARGEST`` variables: measured on the
+benchmark's machine, the model adds about 25 µs of processor time per evaluation at n = 10,
+0.45 ms at n = 30 and 3 ms at n = 50 (a fit there takes about 0.8 s).  It saves 3 to 11 times
+the evaluations on random quadratics, so a run's own time is no larger with it up to n = 30
+even for a free objective, and at n = 50 it pays once an evaluation costs more than about
+0.7 ms; above 50 a fit takes seconds and its memory grows as
 n⁴ (benchmarks/results/model-steps.md).
 
 References
@@ -272,10 +274,9 @@ def free(sample: Sample, centre: np.ndarray) -> float:
         scale = math.sqrt(float(np.einsum("ij,ij->i", u, u).max()))
         if not scale > 0.0:
             return math.inf
-        features = _features(u / scale)
-        q, r, _ = scipy.linalg.qr(features.T, pivoting=True)
-        top = abs(float(r[0, 0]))
-        rank = int(np.count_nonzero(np.abs(np.diagonal(r)) > FIXED * top))
+        q, pivots = _pivoted_qr(_features(u / scale).T)
+        top = float(pivots[0])
+        rank = int(np.count_nonzero(pivots > FIXED * top))
         unfixed = _Unfixed(centre.copy(), scale, q[:, rank:], sample.size, top)
     elif unfixed.seen < sample.size and unfixed.count > 0:
         y = (sample.points[unfixed.seen : sample.size] - unfixed.origin) / unfixed.scale
@@ -284,12 +285,43 @@ def free(sample: Sample, centre: np.ndarray) -> float:
             return math.inf
         features = _features(y)
         unfixed.top = max(unfixed.top, float(np.max(np.linalg.norm(features, axis=1))))
-        q, r, _ = scipy.linalg.qr((features @ unfixed.basis).T, pivoting=True)
-        rank = int(np.count_nonzero(np.abs(np.diagonal(r)) > FIXED * unfixed.top))
+        q, pivots = _pivoted_qr((features @ unfixed.basis).T)
+        rank = int(np.count_nonzero(pivots > FIXED * unfixed.top))
         unfixed.basis = unfixed.basis @ q[:, rank:]
     unfixed.seen = sample.size
     sample.unfixed = unfixed
     return float(unfixed.count)
+
+
+def _pivoted_qr(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The square orthogonal factor of the QR factorization of ``a`` with column pivoting, and
+    the magnitudes of the diagonal of its triangle (non-increasing): LAPACK's geqp3 and orgqr,
+    as ``scipy.linalg.qr(a, pivoting=True)`` calls them (the same factors bit for bit), without
+    its checks and work-size queries."""
+    m, n = a.shape
+    factor, form, factor_work, form_work = _qr_routines(m, n)
+    reflectors, _, tau, _, info = factor(a, factor_work)
+    if info != 0:
+        raise ValueError(f"LAPACK geqp3 failed: {info}")
+    k = min(m, n)
+    square = np.zeros((m, m), order="F")
+    square[:, :k] = reflectors[:, :k]
+    q, _, info = form(square, tau[:k], form_work, True)
+    if info != 0:
+        raise ValueError(f"LAPACK orgqr failed: {info}")
+    return q, np.abs(np.diagonal(reflectors))
+
+
+@functools.lru_cache(maxsize=64)
+def _qr_routines(m: int, n: int) -> tuple[object, object, int, int]:
+    """LAPACK's double-precision geqp3 and orgqr and their work sizes for an ``m`` × ``n``
+    matrix and its ``m`` × ``m`` orthogonal factor (queried as `scipy.linalg.qr` does)."""
+    probe = np.empty((1, 1))
+    factor, form = scipy.linalg.lapack.get_lapack_funcs(("geqp3", "orgqr"), (probe,))
+    k = min(m, n)
+    factor_work = int(factor(np.zeros((m, n), order="F"), -1)[3][0])
+    form_work = int(form(np.zeros((m, m), order="F"), np.zeros(k), -1)[1][0])
+    return factor, form, max(factor_work, 1), max(form_work, 1)
 
 
 def _features(y: np.ndarray) -> np.ndarray:

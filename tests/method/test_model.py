@@ -187,6 +187,24 @@ def test_a_fit_that_could_not_be_used_is_skipped_and_a_dropped_point_ends_the_co
     assert free(sample, centre) == np.inf
 
 
+@pytest.mark.parametrize("rows, columns, rank", [(10, 14, 6), (14, 10, 10), (12, 12, 5)])
+def test_the_free_counts_pivoted_qr_is_scipys_bit_for_bit(rows, columns, rank):
+    # `free` calls LAPACK's geqp3 and orgqr directly; the reference is scipy.linalg.qr with
+    # column pivoting (a general-purpose library): the same orthogonal factor and the same
+    # diagonal of the triangle, on wide, tall and rank-deficient matrices
+    import scipy.linalg
+
+    from directional.method.model import _pivoted_qr
+
+    rng = np.random.default_rng(rows + 7 * columns + rank)
+    a = rng.standard_normal((rows, rank)) @ rng.standard_normal((rank, columns))
+    q, pivots = _pivoted_qr(a)
+    expected_q, expected_r, _ = scipy.linalg.qr(a, pivoting=True)
+    assert np.array_equal(q, expected_q)
+    assert np.array_equal(pivots, np.abs(np.diagonal(expected_r)))
+    assert np.count_nonzero(pivots > 1e-12 * pivots[0]) == rank
+
+
 def test_near_samples_decide_the_model_where_far_ones_see_higher_terms():
     # f = Σ cos x_i has gradient -sin c and Hessian diag(-cos c) at c (analytic).  A cluster of
     # samples about 0.03 from c fixes them to about 0.03 |f'''|; far samples (distance ~2) see
