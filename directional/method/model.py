@@ -276,11 +276,13 @@ def free(sample: Sample, centre: np.ndarray) -> float:
             return math.inf
         q, pivots = _pivoted_qr(_features(u / scale).T)
         top = float(pivots[0])
+        if not (math.isfinite(top) and top > 0.0):
+            return math.inf
         rank = int(np.count_nonzero(pivots > FIXED * top))
         unfixed = _Unfixed(centre.copy(), scale, q[:, rank:], sample.size, top)
     elif unfixed.seen < sample.size and unfixed.count > 0:
         y = (sample.points[unfixed.seen : sample.size] - unfixed.origin) / unfixed.scale
-        if float(np.max(np.abs(y))) > FAR:
+        if not float(np.max(np.abs(y))) <= FAR:  # far (or not finite): start again next time
             sample.unfixed = None
             return math.inf
         features = _features(y)
