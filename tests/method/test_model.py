@@ -12,7 +12,16 @@ from hypothesis import strategies as st
 
 import directional as dl
 from directional.method import curvature
-from directional.method.model import MARGIN, Quadratic, Sample, coefficients, fit, free, trust_step
+from directional.method.model import (
+    MARGIN,
+    SCREENED,
+    Quadratic,
+    Sample,
+    coefficients,
+    fit,
+    free,
+    trust_step,
+)
 from directional.method.search import Settings
 from directional.records import Verdict
 from directional.testproblems import mgh
@@ -156,9 +165,11 @@ def test_the_free_count_follows_the_fits_as_points_on_lines_arrive():
 def test_a_fit_that_could_not_be_used_is_skipped_and_a_dropped_point_ends_the_count():
     # with ``usable`` the fit returns None at once when the sample leaves more coefficients
     # free than the caller can use (plus MARGIN), and fits as before otherwise; once the store
-    # has dropped a point the count cannot be kept (``inf``) and the fit runs
-    n = 3
-    sample = Sample(n, 14)
+    # has dropped a point the count cannot be kept (``inf``) and the fit runs.  On the axes of
+    # R^5 every cross term is free: 5 * 4 / 2 = 10 of them (as in the test of the axes above)
+    n = SCREENED
+    assert n == 5 and MARGIN == 2
+    sample = Sample(n, coefficients(n) + 1)  # 21 points on the axes, room for one more
     sample.add(np.zeros(n), 0.0)
     for i in range(n):
         for t in (-1.0, -0.5, 0.5, 1.0):
@@ -166,25 +177,26 @@ def test_a_fit_that_could_not_be_used_is_skipped_and_a_dropped_point_ends_the_co
             x[i] = t
             sample.add(x, float(x @ x + x[0] ** 3))
     centre = np.zeros(n)
-    assert free(sample, centre) == 3  # the cross terms (as in the test of the axes above)
-    assert MARGIN == 2
-    assert fit(sample, centre, 40, usable=0) is None  # 3 > 0 + MARGIN: not fitted
-    model = fit(sample, centre, 40, usable=1)  # 3 <= 1 + MARGIN: fitted, as without ``usable``
-    assert model is not None and model.missing == 3
-    line = Sample(n, 40)
+    assert free(sample, centre) == 10
+    assert fit(sample, centre, 40, usable=7) is None  # 10 > 7 + MARGIN: not fitted
+    model = fit(sample, centre, 40, usable=8)  # 10 <= 8 + MARGIN: fitted, as without ``usable``
+    assert model is not None and model.missing == 10
+    x = np.full(n, 0.3)
+    sample.add(x, 1.0)
+    sample.add(-x, 1.0)  # the store is full: the oldest point was dropped
+    assert free(sample, centre) == np.inf
+    assert fit(sample, centre, 40, usable=0) is not None  # the count is unknown: fitted
+    # below SCREENED variables the fit runs whatever the count: a line and three points in R^3
+    # fix 3 + 3 of the 10 coefficients (a line's points span three; analytic), 4 are left
+    line = Sample(3, 40)
     for t in np.linspace(-1.0, 1.0, 12):
         x = np.array([t, 0.5 * t, 0.0])
         line.add(x, t * t)
-    for x in np.eye(n):
+    for x in np.eye(3):
         line.add(x, 1.0)
-    # the line fixes three combinations and each point off it one more: 10 - 6 = 4 (analytic)
-    assert free(line, np.zeros(n)) == 4 == coefficients(n) - 6
-    assert fit(line, np.zeros(n), 40, usable=1) is None
-    assert fit(line, np.zeros(n), 40) is not None  # without ``usable``: the undetermined model
-    x = np.array([0.2, 0.3, 0.4])
-    sample.add(x, 1.0)
-    sample.add(-x, 1.0)  # the store of 14 is full: the oldest point was dropped
-    assert free(sample, centre) == np.inf
+    assert free(line, np.zeros(3)) == 4 == coefficients(3) - 6
+    loose = fit(line, np.zeros(3), 40, usable=0)
+    assert loose is not None and loose.missing == 4
 
 
 @pytest.mark.parametrize("rows, columns, rank", [(10, 14, 6), (14, 10, 10), (12, 12, 5)])
