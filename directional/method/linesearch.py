@@ -250,9 +250,7 @@ def line_search(
             m = 0.5 * (a + b)
             if abs(x - m) <= 2.0 * tx - 0.5 * (b - a) or (not parabolic and b - a <= 4.0 * tx):
                 break
-            u, last, before_last = _brent_step(
-                points, x, a, b, tx, last, before_last, parabolic, noise
-            )
+            u, last, before_last = _brent_step(x, a, b, tx, last, before_last, vertex, c)
         if not fresh(u):
             break
         values = yield np.array([u])
@@ -381,22 +379,21 @@ def _rises_inward(x: float, vertex: float, c: float, a: float, b: float, tol: fl
 
 
 def _brent_step(
-    points: dict[float, float],
     x: float,
     a: float,
     b: float,
     tol: float,
     last: float,
     before: float,
-    parabolic: bool = True,
-    noise: float = 0.0,
+    vertex: float,
+    c: float,
 ) -> tuple[float, float, float]:
-    """One step of Brent's (1973, ch. 5) safeguarded iteration inside ``[a, b]``.
+    """One step of Brent's (1973, ch. 5) safeguarded iteration inside ``[a, b]``, given the
+    vertex and curvature of the parabola through the best points (nan for none).
 
     Returns the new point and the updated last and before-last step lengths.
     """
     m = 0.5 * (a + b)
-    vertex, c = _model(points, x, noise) if parabolic else (math.nan, math.nan)
     if abs(before) > tol and c > 0.0 and math.isfinite(vertex):
         step = vertex - x
         if abs(step) < 0.5 * abs(before) and a < vertex < b:

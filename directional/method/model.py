@@ -25,12 +25,14 @@ search then clips it to the bounds; it never evaluates outside them.
 
 Cost.  A fit on ``p`` points costs ``O(p N²)`` with ``N`` the number of coefficients, so the search
 fits once per cycle and after each successful model step, on at most ``points`` samples (a
-multiple of ``N``), not while too few samples could determine it, and not at all above
-``LARGEST`` variables: measured on the benchmark's machine, the model adds about 20 µs of
-processor time per evaluation at n = 10, 0.3 ms at n = 30 and 3 ms at n = 50 (a fit there takes
-about 0.8 s).  It saves 3 to 11 times the evaluations on random quadratics, so a run's own time
-is no larger with it up to n = 30 even for a free objective, and at n = 50 it pays once an
-evaluation costs more than about 0.7 ms; above 50 a fit takes seconds and its memory grows as
+multiple of ``N``), not while too few samples could determine it, nor while they leave more
+coefficients free than a model step could use (`free` counts them from one fit request to the
+next at a fraction of a fit's cost), and not at all above ``LARGEST`` variables: measured on the
+benchmark's machine, the model adds about 25 µs of processor time per evaluation at n = 10,
+0.45 ms at n = 30 and 3 ms at n = 50 (a fit there takes about 0.8 s).  It saves 3 to 11 times
+the evaluations on random quadratics, so a run's own time is no larger with it up to n = 30
+even for a free objective, and at n = 50 it pays once an evaluation costs more than about
+0.7 ms; above 50 a fit takes seconds and its memory grows as
 n⁴ (benchmarks/results/model-steps.md).
 
 References
@@ -59,6 +61,10 @@ import scipy.linalg.lapack
 LOCAL = 0.01  # sets the reach of the fit's weights (see `_nearness`)
 POISED = 1e12  # condition number of the scaled design matrix beyond which the fit is not trusted
 LARGEST = 50  # above this many variables the model is switched off (its cost outgrows its use)
+FIXED = 1e-12  # a combination of coefficients counts as fixed by the sample beyond this (`free`)
+MARGIN = 2  # `fit` with ``usable`` fits anyway when the sample leaves at most this many more free
+FAR = 8.0  # `free` tells nothing for points farther than this many radii from its first centre
+SCREENED = 5  # `fit` with ``usable`` counts with `free` from this many variables on (see `fit`)
 
 
 def coefficients(n: int) -> int:
@@ -79,6 +85,8 @@ class Sample:
         self.size = 0
         self.next = 0  # where the next point goes once the store is full (oldest first out)
         self.added = 0  # points ever added
+        self.last: tuple[tuple[int, int, bytes], Quadratic | None] | None = None  # see `fit`
+        self.unfixed: _Unfixed | None = None  # see `free`
 
     def add(self, u: np.ndarray, value: float) -> None:
         if not math.isfinite(value):
@@ -111,7 +119,13 @@ class Quadratic:
 
 
 def fit(
-    sample: Sample, centre: np.ndarray, points: int, prior: np.ndarray | None = None
+    sample: Sample,
+    centre: np.ndarray,
+    points: int,
+    prior: np.ndarray | None = None,
+    *,
+    reuse: bool = False,
+    usable: int | None = None,
 ) -> Quadratic | None:
     """Least-squares quadratic through the ``points`` samples nearest ``centre``.
 
@@ -123,10 +137,45 @@ def fit(
     sample leaves to the prior.  None when fewer than
     ``n + 1`` samples or samples that do not fix the linear part (scaled condition beyond
     `POISED`).
+
+    ``reuse``: when the last fit of ``sample`` had the same samples, centre and ``points`` and
+    its model was determined, that model is returned without a new fit, whatever the prior it
+    was fitted with (a determined least-squares fit is unique: the prior changes it by rounding
+    only); a search asks again at the end of a cycle.
+
+    ``usable``: the most coefficients a model may leave free and still serve the caller (None:
+    any number).  When the samples leave more than ``usable + MARGIN`` free (`free`, which
+    costs a fraction of a fit), None at once: the fit would only have said so.  Not below
+    `SCREENED` variables, where the counts cost more than the fits they spare (measured on the
+    overhead benchmark's quadratics, 4000 evaluations: none spared at n = 2 and 3; at n = 4, 59
+    fits of 0.14 ms spared for 11 ms of counting; at n = 5, 85 of 0.16 ms for 11 ms).
     """
     n = sample.points.shape[1]
     if sample.size < n + 1:
         return None
+    key = (sample.added, points, centre.tobytes())
+    if reuse and sample.last is not None and sample.last[0] == key:
+        last = sample.last[1]
+        if last is not None and math.isfinite(last.misfit):
+            return last
+    if usable is not None and n >= SCREENED and sample.size <= points:
+        # a count kept from before only falls as points arrive: at or below the limit, fit
+        known = sample.unfixed.count if sample.unfixed is not None else math.inf
+        if known > usable + MARGIN:
+            count = free(sample, centre)
+            if math.isfinite(count) and count > usable + MARGIN:  # inf: not known, fit
+                sample.last = key, None
+                return None
+    model = _fit(sample, centre, points, prior)
+    sample.last = key, model
+    return model
+
+
+def _fit(
+    sample: Sample, centre: np.ndarray, points: int, prior: np.ndarray | None
+) -> Quadratic | None:
+    """`fit` itself, with at least ``n + 1`` samples."""
+    n = sample.points.shape[1]
     u = sample.points[: sample.size] - centre
     distance = np.einsum("ij,ij->i", u, u)
     values = sample.values[: sample.size]
@@ -141,30 +190,34 @@ def fit(
     d = u / radius
     rows, cols, diagonal, weight = _layout(n)
     # each sample's equation is weighted by its nearness (see `_nearness`)
-    near = _nearness(distance)[:, None]
-    products = d[:, rows] * d[:, cols]
-    products *= _halves(n)  # 0.5 on the diagonal, 1.0 (exact) elsewhere: no masked copy
-    products *= near
+    near = _nearness(distance)
+    products = d[:, rows]
+    products *= d[:, cols]
+    products[:, diagonal] *= 0.5  # ½ hᵢᵢ sᵢ²: the other columns' factor is 1 (exact)
+    products *= near[:, None]
     linear = np.empty((len(d), n + 1))
-    linear[:, 0] = 1.0
-    linear[:, 1:] = d
-    linear *= near
-    scaled_prior = np.zeros(len(rows))
-    if prior is not None:
+    linear[:, 0] = near  # 1 · near
+    np.multiply(d, near[:, None], out=linear[:, 1:])
+    scaled = (values - offset) / span * near
+    if prior is None:
+        scaled_prior = np.zeros(len(rows))
+        target = scaled  # less a product with zeros: the same values (``scaled`` >= 0)
+    else:
         scaled_prior = prior[rows, cols] * radius**2 / span
-    scaled = (values - offset) / span * near[:, 0]
-    target = scaled - products @ scaled_prior
+        target = scaled - products @ scaled_prior
     try:
         basis, triangle = np.linalg.qr(linear)
         singular = np.linalg.svd(triangle, compute_uv=False)
         if singular[-1] <= singular[0] / POISED:
             return None
-        # the part of the data the linear terms cannot explain fixes the change of the Hessian
-        unweighted = products / weight
-        rest = unweighted - basis @ (basis.T @ unweighted)
         if len(d) == n + 1:  # the linear part interpolates: nothing is left (rest is rounding)
             change, rank = np.zeros(len(rows)), 0
         else:
+            # the part of the data the linear terms cannot explain fixes the change of the
+            # Hessian; laid out by columns, as LAPACK reads it, so it is not copied again
+            unweighted = products / weight
+            rest = np.empty(unweighted.shape, order="F")
+            np.subtract(unweighted, basis @ (basis.T @ unweighted), out=rest)
             # a complete orthogonal factorization (LAPACK gelsy) gives the same minimum-norm
             # solution as an SVD at a quarter of its cost (Golub & Van Loan 2013, sec. 5.5)
             change, rank = _gelsy(rest, target - basis @ (basis.T @ target), 1.0 / POISED)
@@ -177,9 +230,8 @@ def fit(
     misfit = span * float(np.abs(linear @ line - residual).max())
     if not (np.isfinite(h_coefficients).all() and np.isfinite(line).all()):
         return None
-    h = np.zeros((n, n))
-    h[rows, cols] = h_coefficients
-    h = h + h.T - np.diag(np.diag(h))
+    # the symmetric matrix from its upper triangle (+ 0.0: a zero is +0.0, as h + hᵀ - diag made it)
+    h = h_coefficients[_symmetric(n)] + 0.0
     return Quadratic(
         centre=centre.copy(),
         value=offset + span * float(line[0]),
@@ -191,6 +243,107 @@ def fit(
     )
 
 
+class _Unfixed:
+    """The quadratics that vanish on every stored point: an orthonormal basis of their
+    coefficients (columns of ``basis``) in the frame ``(u - origin) / scale``, after the first
+    ``seen`` points; ``top`` is the largest pivot met, the scale of `FIXED`."""
+
+    def __init__(
+        self, origin: np.ndarray, scale: float, basis: np.ndarray, seen: int, top: float
+    ) -> None:
+        self.origin, self.scale, self.basis, self.seen, self.top = origin, scale, basis, seen, top
+
+    @property
+    def count(self) -> int:
+        return self.basis.shape[1]
+
+
+def free(sample: Sample, centre: np.ndarray) -> float:
+    """How many coefficients of a quadratic (independent combinations of them) all the stored
+    points leave free, or ``inf`` when it cannot be told cheaply.
+
+    The count is the dimension of the quadratics that vanish on every point: the null space of
+    the design matrix of the fit, which neither the fit's centre, its radius nor its weights
+    change (they multiply the design by invertible matrices), so it is kept from one call to
+    the next and each new point only restricts it: ``k`` new points cost a QR factorization of
+    a ``k`` × (count) matrix instead of a fit (Golub & Van Loan 2013, sec. 5.4, QR with column
+    pivoting).  Where the fit's linear part is poised the count is the fit's ``missing``: on the
+    random quadratics of the overhead benchmark (n = 10; 147 fit requests) the pivots of the
+    combinations counted free are rounding (below 1e-16 of the largest), those counted fixed
+    3.5e-9 or more, and every count equals the fit's.
+    ``inf`` once a point was dropped (the store is full) or lies farther than `FAR` radii of the
+    first call from its centre (the basis is then ill-scaled for it).
+    """
+    if sample.added != sample.size:
+        sample.unfixed = None
+        return math.inf
+    unfixed = sample.unfixed
+    if unfixed is None:
+        u = sample.points[: sample.size] - centre
+        scale = math.sqrt(float(np.einsum("ij,ij->i", u, u).max()))
+        if not scale > 0.0:
+            return math.inf
+        q, pivots = _pivoted_qr(_features(u / scale).T)
+        top = float(pivots[0])
+        if not (math.isfinite(top) and top > 0.0):
+            return math.inf
+        rank = int(np.count_nonzero(pivots > FIXED * top))
+        unfixed = _Unfixed(centre.copy(), scale, q[:, rank:], sample.size, top)
+    elif unfixed.seen < sample.size and unfixed.count > 0:
+        y = (sample.points[unfixed.seen : sample.size] - unfixed.origin) / unfixed.scale
+        if not float(np.max(np.abs(y))) <= FAR:  # far (or not finite): start again next time
+            sample.unfixed = None
+            return math.inf
+        features = _features(y)
+        unfixed.top = max(unfixed.top, float(np.max(np.linalg.norm(features, axis=1))))
+        q, pivots = _pivoted_qr((features @ unfixed.basis).T)
+        rank = int(np.count_nonzero(pivots > FIXED * unfixed.top))
+        unfixed.basis = unfixed.basis @ q[:, rank:]
+    unfixed.seen = sample.size
+    sample.unfixed = unfixed
+    return float(unfixed.count)
+
+
+def _pivoted_qr(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The square orthogonal factor of the QR factorization of ``a`` with column pivoting, and
+    the magnitudes of the diagonal of its triangle (non-increasing): LAPACK's geqp3 and orgqr,
+    as ``scipy.linalg.qr(a, pivoting=True)`` calls them (the same factors bit for bit), without
+    its checks and work-size queries."""
+    m, n = a.shape
+    factor, form, factor_work, form_work = _qr_routines(m, n)
+    reflectors, _, tau, _, info = factor(a, factor_work)
+    if info != 0:
+        raise ValueError(f"LAPACK geqp3 failed: {info}")
+    k = min(m, n)
+    square = np.zeros((m, m), order="F")
+    square[:, :k] = reflectors[:, :k]
+    q, _, info = form(square, tau[:k], form_work, True)
+    if info != 0:
+        raise ValueError(f"LAPACK orgqr failed: {info}")
+    return q, np.abs(np.diagonal(reflectors))
+
+
+@functools.lru_cache(maxsize=64)
+def _qr_routines(m: int, n: int) -> tuple[object, object, int, int]:
+    """LAPACK's double-precision geqp3 and orgqr and their work sizes for an ``m`` × ``n``
+    matrix and its ``m`` × ``m`` orthogonal factor (queried as `scipy.linalg.qr` does)."""
+    probe = np.empty((1, 1))
+    factor, form = scipy.linalg.lapack.get_lapack_funcs(("geqp3", "orgqr"), (probe,))
+    k = min(m, n)
+    factor_work = int(factor(np.zeros((m, n), order="F"), -1)[3][0])
+    form_work = int(form(np.zeros((m, m), order="F"), np.zeros(k), -1)[1][0])
+    return factor, form, max(factor_work, 1), max(form_work, 1)
+
+
+def _features(y: np.ndarray) -> np.ndarray:
+    """Rows ``(1, y, products of y as in the fit)``: the fit's design matrix, unweighted."""
+    n = y.shape[1]
+    rows, cols, diagonal, _ = _layout(n)
+    products = y[:, rows] * y[:, cols]
+    products[:, diagonal] *= 0.5
+    return np.hstack([np.ones((len(y), 1)), y, products])
+
+
 def _gelsy(a: np.ndarray, b: np.ndarray, cond: float) -> tuple[np.ndarray, int]:
     """The minimum-norm least-squares solution of ``a x = b`` and the rank, by LAPACK's gelsy:
     the routine, arguments and work size of ``scipy.linalg.lstsq(a, b, cond,
@@ -200,7 +353,9 @@ def _gelsy(a: np.ndarray, b: np.ndarray, cond: float) -> tuple[np.ndarray, int]:
     routine, lwork = _gelsy_routine(m, n, cond)
     if m < n:  # LAPACK writes the n unknowns over b
         b = np.concatenate((b, np.zeros(n - m)))
-    _, x, _, rank, info = routine(a, b, np.zeros((n, 1), dtype=np.int32), cond, lwork, False, False)
+    # ``a`` is overwritten when it is laid out by columns (then it is not copied): the fit's is
+    # a scratch array
+    _, x, _, rank, info = routine(a, b, np.zeros((n, 1), dtype=np.int32), cond, lwork, True, False)
     if info < 0:
         raise ValueError(f"illegal value in argument {-info} of LAPACK gelsy")
     return x[:n], int(rank)
@@ -251,11 +406,15 @@ def _layout(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
 
 
 @functools.cache
-def _halves(n: int) -> np.ndarray:
-    """Per column of the Hessian's upper triangle: ½ on the diagonal (``½ hᵢᵢ sᵢ²``), else 1."""
-    halves = np.where(_layout(n)[2], 0.5, 1.0)
-    halves.flags.writeable = False
-    return halves
+def _symmetric(n: int) -> np.ndarray:
+    """For each entry ``(i, j)`` of an ``n`` × ``n`` symmetric matrix, the index of its
+    coefficient among the upper triangle's (`_layout`).  Cached, like `_layout`."""
+    rows, cols, _, _ = _layout(n)
+    index = np.empty((n, n), dtype=np.intp)
+    index[rows, cols] = np.arange(len(rows))
+    index[cols, rows] = np.arange(len(rows))
+    index.flags.writeable = False
+    return index
 
 
 def _median(x: np.ndarray) -> float:
@@ -299,9 +458,11 @@ def trust_step(model: Quadratic, radius: float) -> np.ndarray:
         rest = math.sqrt(max(radius**2 - float(s @ s), 0.0))
         s[0] += rest
         return vectors @ s
+    minus = -g  # step(mid) and its length inline: the same operations, in fewer calls
     for _ in range(100):
         mid = math.sqrt(lo * hi) if lo > 0.0 else 0.5 * (lo + hi)
-        if _length(step(mid)) > radius:
+        s = minus / (eigenvalues + mid)
+        if math.sqrt(s.dot(s)) > radius:
             lo = mid
         else:
             hi = mid

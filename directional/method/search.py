@@ -677,7 +677,12 @@ def _model_step(
     n = space.size
     if best.sample.size < coefficients(n) and trust.hessian is None and not GUESSES:
         return directions, False, False  # the fit could not be determined: it would not be used
-    model = fit(best.sample, best.u, int(FITTED * coefficients(n)), trust.hessian)
+    # the most coefficients a model may leave free and still be stepped on (`_nearly`): a sample
+    # that leaves more is not fitted (`model.fit`)
+    usable = None if trust.hessian is not None or GUESSES else (
+        int(min(NEARLY * coefficients(n), MODEL_STEPS)) if best.noise == 0.0 else 0
+    )
+    model = fit(best.sample, best.u, int(FITTED * coefficients(n)), trust.hessian, usable=usable)
     # a model the samples do not determine is stepped on only after a model predicted well, or
     # when it is nearly determined (`_nearly`)
     nearly = model is not None and _nearly(model, best, n)
@@ -752,7 +757,8 @@ def _rounding_only(settings: Settings, best: _Tracker) -> bool:
     if best.sample is None:
         return False
     n = best.sample.points.shape[1]
-    model = fit(best.sample, best.u, int(FITTED * coefficients(n)))
+    # the cycle's last model step fitted the same samples, as a rule: its model serves
+    model = fit(best.sample, best.u, int(FITTED * coefficients(n)), reuse=True)
     if model is None:
         return False
     return model.misfit <= settings.value_tolerance * max(1.0, abs(best.value))

@@ -12,7 +12,16 @@ from hypothesis import strategies as st
 
 import directional as dl
 from directional.method import curvature
-from directional.method.model import Quadratic, Sample, coefficients, fit, trust_step
+from directional.method.model import (
+    MARGIN,
+    SCREENED,
+    Quadratic,
+    Sample,
+    coefficients,
+    fit,
+    free,
+    trust_step,
+)
 from directional.method.search import Settings
 from directional.records import Verdict
 from directional.testproblems import mgh
@@ -32,6 +41,36 @@ def test_a_quadratic_is_recovered_exactly_from_a_poised_sample():
     assert model.gradient == pytest.approx(g, abs=1e-9)
     assert model.hessian == pytest.approx(h, abs=1e-9)
     assert model.misfit < 1e-9
+
+
+def test_a_determined_model_is_reused_for_the_same_samples_whatever_the_prior():
+    # a determined fit is the unique least-squares quadratic, so a prior changes it by rounding
+    # only (analytic): the model fitted with a prior serves a later request without one for the
+    # same samples and centre; a new sample, another centre or an undetermined model is refitted
+    rng = np.random.default_rng(5)
+    h = np.array([[2.0, 0.5], [0.5, 1.0]])
+    sample = Sample(2, 40)
+    for x in rng.standard_normal((14, 2)):
+        sample.add(x, 1.0 + x @ h @ x)
+    prior = np.eye(2)
+    first = fit(sample, np.zeros(2), 12, prior)
+    again = fit(sample, np.zeros(2), 12, reuse=True)
+    assert first is not None and np.isfinite(first.misfit) and again is first
+    fresh = fit(sample, np.zeros(2), 12)
+    assert fresh is not first
+    assert fresh.hessian == pytest.approx(first.hessian, abs=1e-12)
+    assert fit(sample, np.array([0.1, 0.0]), 12, reuse=True).centre[0] == 0.1
+    x = rng.standard_normal(2)
+    sample.add(x, 1.0 + x @ h @ x)
+    assert fit(sample, np.array([0.1, 0.0]), 12, reuse=True) is not first
+    few = Sample(2, 10)
+    for x in rng.standard_normal((4, 2)):
+        few.add(x, 1.0 + x @ h @ x)
+    loose = fit(few, np.zeros(2), 12, prior)
+    assert loose is not None and loose.misfit == np.inf
+    refitted = fit(few, np.zeros(2), 12, reuse=True)  # without the prior, which mattered here
+    assert refitted is not None and refitted is not loose
+    assert np.max(np.abs(refitted.hessian - loose.hessian)) > 0.1
 
 
 def test_a_sample_on_one_line_is_not_poised():
@@ -81,6 +120,101 @@ def test_a_sample_on_the_axes_leaves_the_cross_terms_free_until_a_point_off_them
     sample.add(x, 0.5 * x @ h @ x)
     model = fit(sample, np.zeros(n), 40)
     assert model is not None and model.missing == 2 and model.misfit == np.inf
+
+
+def test_the_free_count_follows_the_fits_as_points_on_lines_arrive():
+    # points on lines through the start, as a direction-set search lays them: a line fixes at
+    # most three more combinations of the coefficients (its points' quadratic features span
+    # three dimensions; analytic), so the sample leaves many free until points off the lines
+    # arrive.  The count kept from call to call (each call absorbs only the new points) equals
+    # the fit's own count of free Hessian coefficients at every stage, and a fresh count of
+    # the same points (the null space of the design does not depend on the centre)
+    rng = np.random.default_rng(3)
+    n = 4
+    sample = Sample(n, 3 * coefficients(n))
+    h = rng.standard_normal((n, n))
+    h = h @ h.T
+
+    def f(x):
+        return float(x @ h @ x + np.sin(x[0]))
+
+    base = np.zeros(n)
+    sample.add(base, f(base))
+    counts = []
+    for direction in [*np.eye(n), *rng.standard_normal((3, n))]:
+        for t in (0.3, -0.2, 0.7):
+            x = base + t * direction
+            sample.add(x, f(x))
+        base = base + 0.5 * direction
+        sample.add(base, f(base))
+        if sample.size <= n + 1:
+            continue
+        centre = sample.points[sample.size - 1]
+        model = fit(sample, centre, 10 * coefficients(n))
+        count = free(sample, centre)
+        counts.append(count)
+        fresh = Sample(n, sample.points.shape[0])
+        for x, value in zip(sample.points[: sample.size], sample.values[: sample.size]):
+            fresh.add(x, float(value))
+        assert free(fresh, np.zeros(n)) == count
+        if model is not None:
+            assert model.missing == count
+    assert counts[0] > 5 and counts[-1] == 0 and counts == sorted(counts, reverse=True)
+
+
+def test_a_fit_that_could_not_be_used_is_skipped_and_a_dropped_point_ends_the_count():
+    # with ``usable`` the fit returns None at once when the sample leaves more coefficients
+    # free than the caller can use (plus MARGIN), and fits as before otherwise; once the store
+    # has dropped a point the count cannot be kept (``inf``) and the fit runs.  On the axes of
+    # R^5 every cross term is free: 5 * 4 / 2 = 10 of them (as in the test of the axes above)
+    n = SCREENED
+    assert n == 5 and MARGIN == 2
+    sample = Sample(n, coefficients(n) + 1)  # 21 points on the axes, room for one more
+    sample.add(np.zeros(n), 0.0)
+    for i in range(n):
+        for t in (-1.0, -0.5, 0.5, 1.0):
+            x = np.zeros(n)
+            x[i] = t
+            sample.add(x, float(x @ x + x[0] ** 3))
+    centre = np.zeros(n)
+    assert free(sample, centre) == 10
+    assert fit(sample, centre, 40, usable=7) is None  # 10 > 7 + MARGIN: not fitted
+    model = fit(sample, centre, 40, usable=8)  # 10 <= 8 + MARGIN: fitted, as without ``usable``
+    assert model is not None and model.missing == 10
+    x = np.full(n, 0.3)
+    sample.add(x, 1.0)
+    sample.add(-x, 1.0)  # the store is full: the oldest point was dropped
+    assert free(sample, centre) == np.inf
+    assert fit(sample, centre, 40, usable=0) is not None  # the count is unknown: fitted
+    # below SCREENED variables the fit runs whatever the count: a line and three points in R^3
+    # fix 3 + 3 of the 10 coefficients (a line's points span three; analytic), 4 are left
+    line = Sample(3, 40)
+    for t in np.linspace(-1.0, 1.0, 12):
+        x = np.array([t, 0.5 * t, 0.0])
+        line.add(x, t * t)
+    for x in np.eye(3):
+        line.add(x, 1.0)
+    assert free(line, np.zeros(3)) == 4 == coefficients(3) - 6
+    loose = fit(line, np.zeros(3), 40, usable=0)
+    assert loose is not None and loose.missing == 4
+
+
+@pytest.mark.parametrize("rows, columns, rank", [(10, 14, 6), (14, 10, 10), (12, 12, 5)])
+def test_the_free_counts_pivoted_qr_is_scipys_bit_for_bit(rows, columns, rank):
+    # `free` calls LAPACK's geqp3 and orgqr directly; the reference is scipy.linalg.qr with
+    # column pivoting (a general-purpose library): the same orthogonal factor and the same
+    # diagonal of the triangle, on wide, tall and rank-deficient matrices
+    import scipy.linalg
+
+    from directional.method.model import _pivoted_qr
+
+    rng = np.random.default_rng(rows + 7 * columns + rank)
+    a = rng.standard_normal((rows, rank)) @ rng.standard_normal((rank, columns))
+    q, pivots = _pivoted_qr(a)
+    expected_q, expected_r, _ = scipy.linalg.qr(a, pivoting=True)
+    assert np.array_equal(q, expected_q)
+    assert np.array_equal(pivots, np.abs(np.diagonal(expected_r)))
+    assert np.count_nonzero(pivots > 1e-12 * pivots[0]) == rank
 
 
 def test_near_samples_decide_the_model_where_far_ones_see_higher_terms():
