@@ -171,7 +171,8 @@ class Log:
     def add(self, evaluation: Evaluation, *, ranked: bool = True) -> None:
         """Log ``evaluation``; ``ranked`` False leaves it out of the best (one replicate)."""
         self.evaluations.append(evaluation)
-        if ranked and evaluation.status == _OK and (  # as `rank`, without a call
+        status = evaluation.status  # a `Status`, or its text when read from a journal
+        if ranked and (status is _OK or status == _OK) and (  # as `rank`, without a call
             self.best is None or evaluation.value < self.best.value
         ):
             self.best = evaluation
@@ -511,7 +512,7 @@ class Driver:
                 continue
             task.batch, task.serial = batch, task.serial + 1
             rows = len(batch.points)
-            if rows == 1 and self._alone and not task.journaled and not self._retry:
+            if self._alone and not task.journaled and not self._retry:
                 batch = self._at_once(task, batch)
                 continue
             task.values, task.answered = [math.inf] * rows, [False] * rows
@@ -590,38 +591,53 @@ class Driver:
         return fresh
 
     def _at_once(self, task: _Task, batch: Batch) -> Batch | Spent | None:
-        """The one point of ``batch``, asked by the only search of a run in process, answered
-        here; the search's next request, or None (it waits or has ended).
+        """The points of ``batch``, asked by the only search of a run in process, answered here;
+        the search's next request, or None (it waits or has ended).
 
         The steps of `_ask`, `_fill`, `_finish` and `_advance`, in their order, without the
-        queue and the rows' bookkeeping: nobody else waits, so the point would be the next one
-        evaluated anyway.
+        queue and the rows' bookkeeping: nobody else waits, so the rows not known would be the
+        next ones evaluated anyway, in the order of the batch.  As in `_ask`, every row is
+        counted before any is evaluated, and the rows before a budget halt are evaluated first.
         """
-        x = batch.points[0]
-        key = x.tobytes()
-        try:
-            fresh = self._admit(
-                task, key, self.budget if batch.limit is None else min(self.budget, batch.limit)
-            )
-        except Halt as halt:
-            return self._halt(task, halt)
-        value = self._cache.get(key)
-        if value is None:
-            halt = self._run_limit()
+        points = batch.points
+        rows = len(points)
+        raw = points.tobytes()  # the rows' keys, as `_ask` makes them (the batch is C-ordered)
+        size = len(raw) // rows
+        limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
+        asked: list[tuple[bytes, bool, float | None]] = []
+        over = None
+        for row in range(rows):
+            key = raw[row * size:(row + 1) * size]
+            try:
+                fresh = self._admit(task, key, limit)
+            except Halt as halt:
+                over = halt
+                break
+            value = self._cache.get(key)  # None: to evaluate, or a repeat of such a row
+            if value is not None and not fresh:
+                self.log.cache_hits += 1
+            asked.append((key, fresh, value))
+        values = []
+        for row, (key, fresh, value) in enumerate(asked):
+            if value is None:
+                value = self._cache.get(key)  # made for an earlier row of this batch
+            if value is None:
+                halt = self._run_limit()
+                if halt is not None:
+                    return self._halt(task, halt)
+                point = points[row].copy()
+                evaluation = self._record(point, batch.purpose, task.ident, *self._here(point))
+                if evaluation is None:  # Ctrl-C: `_interrupt` has halted the search
+                    return None
+                self._keep(key, evaluation)
+                value = evaluation.value
+            values.append(value)
+            halt = self._check(task, batch, row, value, fresh)
             if halt is not None:
                 return self._halt(task, halt)
-            point = x.copy()
-            evaluation = self._record(point, batch.purpose, task.ident, *self._here(point))
-            if evaluation is None:  # Ctrl-C: `_interrupt` has halted the search
-                return None
-            self._keep(key, evaluation)
-            value = evaluation.value
-        elif not fresh:
-            self.log.cache_hits += 1
-        halt = self._check(task, batch, 0, value, fresh)
-        if halt is not None:
-            return self._halt(task, halt)
-        return self._send(task, np.array([value]))
+        if over is not None:
+            return self._halt(task, over)
+        return self._send(task, np.array(values))
 
     def _replicate(self, key: bytes, x: np.ndarray, purpose: str, task: _Task, row: int) -> None:
         """Wait on the mean of point ``x``'s runs; queue those neither made nor on their way."""
@@ -752,9 +768,10 @@ class Driver:
         """
         if self.interrupted or self._interrupts.pending:
             return Halt(Stop.INTERRUPTED, self._interrupts.reason)
-        need = 1 if pending is None or pending.group is None else self.replicates - pending.replicate
-        if self.total is not None and len(self.log.evaluations) + len(self._flying) + need > self.total:
-            return Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
+        if self.total is not None:
+            need = 1 if pending is None or pending.group is None else self.replicates - pending.replicate
+            if len(self.log.evaluations) + len(self._flying) + need > self.total:
+                return Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
         if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
             return Halt(Stop.BUDGET, f"the time limit of {self.time_limit:g} s has passed")
         return None
@@ -874,11 +891,12 @@ class Driver:
         never logged, and every search is halted (`_interrupt`).
         """
         owner = self._tasks[search]
+        status = status if type(status) is Status else _status(status)
         evaluation = _evaluation(  # index is `spent`
-            len(self.log.evaluations), point, value, _status(status), detail, purpose, started,
-            seconds, search, owner.sequence,
+            len(self.log.evaluations), point, value, status, detail, purpose, started, seconds,
+            search, owner.sequence,
         )
-        if status == _INTERRUPTED:
+        if status is _INTERRUPTED:
             self._notify(evaluation)
             self._interrupt()
             return None
