@@ -10,7 +10,10 @@ budget rule, one log and one set of observers.  The points of every batch go to 
 in flight, and their results are taken back in the order they complete.  A search receives its
 values only when its whole batch is back, in the order of the batch, so every search sees
 exactly the values it would see alone: the outcome is the same whatever the executor, the
-number of workers or the order of completion.
+number of workers or the order of completion.  The only search of a run in process (no
+executor, one run per point, nothing to replay) skips the queue: each batch is answered at once,
+row by row, with the same steps in the same order as through the queue, which is the common
+case and saves most of the driver's time per evaluation.
 
 For each point a search asks for:
 
