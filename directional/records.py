@@ -123,12 +123,24 @@ class Batch:
     purpose: str = Purpose.LINE
     limit: int | None = None
 
-    def __post_init__(self) -> None:
-        points = np.array(self.points, dtype=float, copy=True)
-        if points.ndim != 2 or points.shape[0] == 0:
-            raise ValueError(f"a batch needs a (k, n) array with k >= 1, got shape {points.shape!r}")
-        points.setflags(write=False)
-        object.__setattr__(self, "points", points)
+    def __init__(
+        self, *, points: object, purpose: str = Purpose.LINE, limit: int | None = None
+    ) -> None:
+        # Written out, not the dataclass's own: that one sets each field through
+        # `object.__setattr__` (then the points again), and a search makes a batch for nearly
+        # every evaluation.  The fields' own setters do the same for half the work.
+        array = np.array(points, dtype=float, copy=True)
+        if array.ndim != 2 or array.shape[0] == 0:
+            raise ValueError(f"a batch needs a (k, n) array with k >= 1, got shape {array.shape!r}")
+        array.setflags(write=False)
+        _set_points(self, array)
+        _set_purpose(self, purpose)
+        _set_limit(self, limit)
+
+
+_set_points, _set_purpose, _set_limit = (
+    Batch.__dict__[name].__set__ for name in ("points", "purpose", "limit")
+)
 
 
 Request = Batch | Spent | Spread  # what a generator of a run yields: points, or a question

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import concurrent.futures as cf
-import dataclasses
 import math
 from collections.abc import Callable, Generator, Sequence
 from typing import Any
@@ -139,8 +138,10 @@ def minimize(
         settled, settings, noted = driver.run(minimization(options))
         outcome = settled.outcome
         book.finish(outcome.stop, outcome.reason, replayed=driver.replayed)
-        found = solution(options.space, driver.log, outcome, settings.point_tolerance)
-        found = dataclasses.replace(found, noise=settings.noise or None)
+        found = solution(
+            options.space, driver.log, outcome, settings.point_tolerance,
+            noise=settings.noise or None,
+        )
         found = settled_solution(found, settled, (*noted, *book.notes))
         return with_replicates(found, driver.log.evaluations, options.replicates)
 

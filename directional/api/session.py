@@ -83,8 +83,11 @@ def session(
             yield driver, book
 
 
-def solution(space: Space, log: Log, outcome: Outcome, point_tolerance: float) -> Solution:
-    """The `Solution` of one search from the driver's log and the search's outcome (unchecked).
+def solution(
+    space: Space, log: Log, outcome: Outcome, point_tolerance: float, *, noise: float | None = None
+) -> Solution:
+    """The `Solution` of one search from the driver's log and the search's outcome (unchecked);
+    ``noise`` is the level the search worked above (`Solution.noise`).
 
     Raises
     ------
@@ -130,6 +133,7 @@ def solution(space: Space, log: Log, outcome: Outcome, point_tolerance: float) -
         upper=space.upper.copy(),
         reason=_with_last_error(outcome, log.evaluations),
         history=tuple(log.evaluations),
+        noise=noise,
     )
 
 

@@ -10,7 +10,10 @@ budget rule, one log and one set of observers.  The points of every batch go to 
 in flight, and their results are taken back in the order they complete.  A search receives its
 values only when its whole batch is back, in the order of the batch, so every search sees
 exactly the values it would see alone: the outcome is the same whatever the executor, the
-number of workers or the order of completion.
+number of workers or the order of completion.  The only search of a run in process (no
+executor, one run per point, nothing to replay) skips the queue: each batch is answered at once,
+row by row, with the same steps in the same order as through the queue, which is the common
+case and saves most of the driver's time per evaluation.
 
 For each point a search asks for:
 
@@ -92,7 +95,7 @@ import time
 import traceback
 from collections.abc import Callable, Generator, Iterable, Mapping, Sequence
 from concurrent.futures.process import BrokenProcessPool
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field, fields, replace
 from typing import Any
 
 import numpy as np
@@ -110,6 +113,8 @@ Observer = Callable[["Evaluation"], None]
 DIED = "worker process died"
 HALTS_IN_A_ROW = 10_000  # a generator halted this often with nothing evaluated has a bug
 RETRIED = (Status.FAILED, Status.TIMED_OUT)  # stored statuses that a resume with ``retry`` redoes
+# read once: looking a member up on its enum class costs about 0.2 µs, a few times per evaluation
+_OK, _INTERRUPTED = Status.OK, Status.INTERRUPTED
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -128,6 +133,36 @@ class Evaluation:
     sequence: int = 0  # its place among that search's evaluations
 
 
+def _setters(record: type) -> tuple[Callable[[object, object], None], ...]:
+    """The setters of a frozen slotted dataclass's fields, in their order."""
+    return tuple(record.__dict__[f.name].__set__ for f in fields(record))
+
+
+def _evaluation(
+    index: int, point: np.ndarray, value: float, status: str, detail: str, purpose: str,
+    started: float, seconds: float, search: int, sequence: int,
+    *, _new: Callable[[type], Any] = object.__new__, _set: tuple = _setters(Evaluation),
+) -> Evaluation:
+    """``Evaluation(index=index, ...)``, made without the frozen dataclass's ``__init__``.
+
+    That ``__init__`` sets each field through ``object.__setattr__``, more than twice the work of
+    the fields' own setters; the driver makes one record per call of the objective.
+    """
+    made = _new(Evaluation)
+    set0, set1, set2, set3, set4, set5, set6, set7, set8, set9 = _set
+    set0(made, index)
+    set1(made, point)
+    set2(made, value)
+    set3(made, status)
+    set4(made, detail)
+    set5(made, purpose)
+    set6(made, started)
+    set7(made, seconds)
+    set8(made, search)
+    set9(made, sequence)
+    return made
+
+
 @dataclass(slots=True, kw_only=True)
 class Log:
     """Everything the driver did: the evaluations in order and the best one."""
@@ -139,7 +174,8 @@ class Log:
     def add(self, evaluation: Evaluation, *, ranked: bool = True) -> None:
         """Log ``evaluation``; ``ranked`` False leaves it out of the best (one replicate)."""
         self.evaluations.append(evaluation)
-        if ranked and evaluation.status == Status.OK and (  # as `rank`, without a call
+        status = evaluation.status  # a `Status`, or its text when read from a journal
+        if ranked and (status is _OK or status == _OK) and (  # as `rank`, without a call
             self.best is None or evaluation.value < self.best.value
         ):
             self.best = evaluation
@@ -192,7 +228,7 @@ def call(objective: Objective, x: np.ndarray) -> tuple[float, str, str]:
         return math.inf, str(status), str(detail)
     if math.isnan(value) or value == math.inf:
         return math.inf, Status.FAILED, f"objective returned {value!r}"
-    return value, Status.OK, ""
+    return value, _OK, ""
 
 
 def evaluate(objective: Objective, x: np.ndarray) -> tuple[float, str, str, float, float]:
@@ -219,7 +255,7 @@ def describe(error: BaseException) -> str:
 
 def _status(text: str) -> str:
     """A `Status` where the text is one (an external program's error may carry its own)."""
-    if isinstance(text, Status):
+    if type(text) is Status:  # no enum with members has subclasses
         return text
     try:
         return Status(text)
@@ -322,6 +358,7 @@ class Driver:
     _replicated: dict[bytes, list[float]] = field(default_factory=dict)  # the runs of each point
     _owned: list[cf.Executor] = field(default_factory=list)
     _clock_start: float = field(default_factory=time.monotonic)
+    _alone: bool = False  # this `run_all` drives one search, in process, one run per point
 
     def __post_init__(self) -> None:
         if self.executor is None:
@@ -420,6 +457,7 @@ class Driver:
             As `run`.
         """
         tasks = [self._task(ident, search) for ident, search in searches.items()]
+        self._alone = len(tasks) == 1 and self.executor is None and self.replicates == 1
         try:
             with self._interrupts:
                 for task in tasks:
@@ -477,6 +515,9 @@ class Driver:
                 continue
             task.batch, task.serial = batch, task.serial + 1
             rows = len(batch.points)
+            if self._alone and not task.journaled and not self._retry:
+                batch = self._at_once(task, batch)
+                continue
             task.values, task.answered = [math.inf] * rows, [False] * rows
             task.fresh, task.taken, task.halt = [], 0, None
             try:
@@ -518,23 +559,17 @@ class Driver:
                 "was written for other settings or by another version of directional"
             )
         limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
-        k = self.replicates
-        seen, cache, queued = task.seen, self._cache, self._pending
+        queued = self._pending
         for row, (x, key) in enumerate(zip(batch.points, keys)):
-            fresh = key not in seen
-            if fresh and (len(seen) * k >= limit or (len(seen) + 1) * k > self.budget):
-                raise Halt(Stop.BUDGET, f"the budget of {limit} evaluations is spent")
+            fresh = self._admit(task, key, limit)
             task.fresh.append(fresh)
-            if task.journaled:
-                task.journaled.discard(key)
-            seen.add(key)
-            if key in cache:
+            if key in self._cache:
                 if not fresh:
                     self.log.cache_hits += 1
-                self._answer(task, row, cache[key])
+                self._answer(task, row, self._cache[key])
             elif key in queued:
                 queued[key].waiters.append((task.ident, task.serial, row))
-            elif k > 1:
+            elif self.replicates > 1:
                 self._replicate(key, x, batch.purpose, task, row)
             else:
                 queued[key] = _Pending(
@@ -542,6 +577,70 @@ class Driver:
                     search=task.ident, waiters=[(task.ident, task.serial, row)],
                 )
                 self._queue.append(key)
+
+    def _admit(self, task: _Task, key: bytes, limit: int) -> bool:
+        """Count the point ``key`` as asked by ``task``; whether it is new to that search.
+
+        Raises `Halt` (BUDGET) instead for a point new to the search once it has asked for
+        ``limit`` points, or when the point's runs would pass the budget.
+        """
+        seen, k = task.seen, self.replicates
+        fresh = key not in seen
+        if fresh and (len(seen) * k >= limit or (len(seen) + 1) * k > self.budget):
+            raise Halt(Stop.BUDGET, f"the budget of {limit} evaluations is spent")
+        if task.journaled:
+            task.journaled.discard(key)
+        seen.add(key)
+        return fresh
+
+    def _at_once(self, task: _Task, batch: Batch) -> Batch | Spent | None:
+        """The points of ``batch``, asked by the only search of a run in process, answered here;
+        the search's next request, or None (it waits or has ended).
+
+        The steps of `_ask`, `_fill`, `_finish` and `_advance`, in their order, without the
+        queue and the rows' bookkeeping: nobody else waits, so the rows not known would be the
+        next ones evaluated anyway, in the order of the batch.  As in `_ask`, every row is
+        counted before any is evaluated, and the rows before a budget halt are evaluated first.
+        """
+        points = batch.points
+        rows = len(points)
+        raw = points.tobytes()  # the rows' keys, as `_ask` makes them (the batch is C-ordered)
+        size = len(raw) // rows
+        limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
+        asked: list[tuple[bytes, bool, float | None]] = []
+        over = None
+        for row in range(rows):
+            key = raw[row * size:(row + 1) * size]
+            try:
+                fresh = self._admit(task, key, limit)
+            except Halt as halt:
+                over = halt
+                break
+            value = self._cache.get(key)  # None: to evaluate, or a repeat of such a row
+            if value is not None and not fresh:
+                self.log.cache_hits += 1
+            asked.append((key, fresh, value))
+        values = []
+        for row, (key, fresh, value) in enumerate(asked):
+            if value is None:
+                value = self._cache.get(key)  # made for an earlier row of this batch
+            if value is None:
+                halt = self._run_limit()
+                if halt is not None:
+                    return self._halt(task, halt)
+                point = points[row].copy()
+                evaluation = self._record(point, batch.purpose, task.ident, *self._here(point))
+                if evaluation is None:  # Ctrl-C: `_interrupt` has halted the search
+                    return None
+                self._keep(key, evaluation)
+                value = evaluation.value
+            values.append(value)
+            halt = self._check(task, batch, row, value, fresh)
+            if halt is not None:
+                return self._halt(task, halt)
+        if over is not None:
+            return self._halt(task, over)
+        return self._send(task, np.array(values))
 
     def _replicate(self, key: bytes, x: np.ndarray, purpose: str, task: _Task, row: int) -> None:
         """Wait on the mean of point ``x``'s runs; queue those neither made nor on their way."""
@@ -593,30 +692,39 @@ class Driver:
         while task.taken < len(task.fresh) and task.answered[task.taken]:
             row = task.taken
             task.taken += 1
-            value = task.values[row]
-            if value == -math.inf:
-                x = batch.points[row].tolist()
-                return self._halt(task, Halt(
-                    Stop.STALLED,
-                    f"the objective returned -inf at {x!r}: it is unbounded below there",
-                ))
-            if not task.fresh[row]:
-                continue
-            task.failures_in_a_row = 0 if value < math.inf else task.failures_in_a_row + 1
-            if task.failures_in_a_row >= self.stall_after:  # at once, not at the next request
-                made = self._made.get(batch.points[row].tobytes())
-                last = (made.detail or made.status) if made is not None else "failed"
-                return self._halt(task, Halt(
-                    Stop.STALLED,
-                    f"the last {task.failures_in_a_row} evaluations all failed; last error: {last}",
-                ))
+            halt = self._check(task, batch, row, task.values[row], task.fresh[row])
+            if halt is not None:
+                return self._halt(task, halt)
         if task.taken < len(task.fresh):
             return None  # waiting on a row
         if task.halt is not None:
             return self._halt(task, task.halt)
+        return self._send(task, np.array(task.values))
+
+    def _check(self, task: _Task, batch: Batch, row: int, value: float, fresh: bool) -> Halt | None:
+        """Take the value of ``row``: the `Halt` (STALLED) that it calls for, if any."""
+        if value == -math.inf:
+            x = batch.points[row].tolist()
+            return Halt(
+                Stop.STALLED, f"the objective returned -inf at {x!r}: it is unbounded below there"
+            )
+        if not fresh:
+            return None
+        task.failures_in_a_row = 0 if value < math.inf else task.failures_in_a_row + 1
+        if task.failures_in_a_row >= self.stall_after:  # at once, not at the next request
+            made = self._made.get(batch.points[row].tobytes())
+            last = (made.detail or made.status) if made is not None else "failed"
+            return Halt(
+                Stop.STALLED,
+                f"the last {task.failures_in_a_row} evaluations all failed; last error: {last}",
+            )
+        return None
+
+    def _send(self, task: _Task, values: np.ndarray) -> Batch | Spent | None:
+        """Send a whole batch's values; the search's next request, or None when it has ended."""
         task.batch, task.halts_in_a_row = None, 0
         try:
-            return task.search.send(np.array(task.values))
+            return task.search.send(values)
         except StopIteration as done:
             task.ended, task.result = True, done.value
             return None
@@ -663,9 +771,10 @@ class Driver:
         """
         if self.interrupted or self._interrupts.pending:
             return Halt(Stop.INTERRUPTED, self._interrupts.reason)
-        need = 1 if pending is None or pending.group is None else self.replicates - pending.replicate
-        if self.total is not None and len(self.log.evaluations) + len(self._flying) + need > self.total:
-            return Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
+        if self.total is not None:
+            need = 1 if pending is None or pending.group is None else self.replicates - pending.replicate
+            if len(self.log.evaluations) + len(self._flying) + need > self.total:
+                return Halt(Stop.BUDGET, f"the total budget of {self.total} evaluations is spent")
         if self.time_limit is not None and time.monotonic() - self._clock_start > self.time_limit:
             return Halt(Stop.BUDGET, f"the time limit of {self.time_limit:g} s has passed")
         return None
@@ -712,17 +821,21 @@ class Driver:
             self._flying[future] = key
 
     def _in_process(self, pending: _Pending) -> None:
-        """Call the objective here; a Ctrl-C cuts it (the evaluation is then `interrupted`)."""
+        """Call the objective here for ``pending`` and take the result."""
+        self._finish(pending, *self._here(pending.point))
+
+    def _here(self, point: np.ndarray) -> tuple[float, str, str, float, float]:
+        """Call the objective here: ``(value, status, detail, started, seconds)`` as `evaluate`;
+        a Ctrl-C cuts it (the status is then `interrupted`)."""
         started = time.time()
         tick = time.perf_counter()
         try:
-            with self._interrupts.raising():
-                value, status, detail = call(self.objective, pending.point)
+            value, status, detail = self._interrupts.calling(call, self.objective, point)
         except KeyboardInterrupt:
-            value, status, detail = math.inf, Status.INTERRUPTED, self._interrupts.reason
-        if status != Status.OK and self._interrupts.pending:  # failed because of the Ctrl-C
-            value, status = math.inf, Status.INTERRUPTED
-        self._finish(pending, value, status, detail, started, time.perf_counter() - tick)
+            value, status, detail = math.inf, _INTERRUPTED, self._interrupts.reason
+        if status != _OK and self._interrupts.pending:  # failed because of the Ctrl-C
+            value, status = math.inf, _INTERRUPTED
+        return value, status, detail, started, time.perf_counter() - tick
 
     def _collect(self, future: cf.Future) -> None:
         key = self._flying[future]
@@ -745,24 +858,11 @@ class Driver:
         seconds: float,
     ) -> None:
         del self._pending[pending.key]
-        owner = self._tasks[pending.search]
-        evaluation = Evaluation(
-            index=len(self.log.evaluations),  # `spent`
-            point=pending.point,
-            value=value,
-            status=_status(status),
-            detail=detail,
-            purpose=pending.purpose,
-            started=started,
-            seconds=seconds,
-            search=pending.search,
-            sequence=owner.sequence,
+        evaluation = self._record(
+            pending.point, pending.purpose, pending.search, value, status, detail, started, seconds
         )
-        if status == Status.INTERRUPTED:  # reported, to be made again on resume; never logged
-            self._notify(evaluation)
-            self._interrupt()
+        if evaluation is None:
             return
-        owner.sequence += 1
         if pending.group is not None:  # one run of a replicated point
             self.log.add(evaluation, ranked=False)
             self._made[pending.group] = evaluation
@@ -776,17 +876,43 @@ class Driver:
             self._retry.discard(pending.key)
             for ident, _, _ in pending.waiters:
                 self._tasks[ident].journaled.clear()
-        self.log.add(evaluation)
-        self._cache[pending.key] = value
-        self._made[pending.key] = evaluation
-        for observer in self.observers:  # `_notify`, inline: once per evaluation
-            observer(evaluation)
+        self._keep(pending.key, evaluation)
         for ident, serial, row in pending.waiters:
             task = self._tasks[ident]
             if task.batch is None or task.serial != serial:
                 continue  # that search was halted meanwhile
             self._answer(task, row, value)
             self._take(task, self._advance(task))
+
+    def _record(
+        self, point: np.ndarray, purpose: str, search: int, value: float, status: str,
+        detail: str, started: float, seconds: float,
+    ) -> Evaluation | None:
+        """The `Evaluation` of a call that has ended, numbered in the search that asked first.
+
+        None for one that Ctrl-C cut: it is reported to the observers (made again on resume),
+        never logged, and every search is halted (`_interrupt`).
+        """
+        owner = self._tasks[search]
+        status = status if type(status) is Status else _status(status)
+        evaluation = _evaluation(  # index is `spent`
+            len(self.log.evaluations), point, value, status, detail, purpose, started, seconds,
+            search, owner.sequence,
+        )
+        if status is _INTERRUPTED:
+            self._notify(evaluation)
+            self._interrupt()
+            return None
+        owner.sequence += 1
+        return evaluation
+
+    def _keep(self, key: bytes, evaluation: Evaluation) -> None:
+        """Log, cache and report a new evaluation of the point ``key``."""
+        self.log.add(evaluation)
+        self._cache[key] = evaluation.value
+        self._made[key] = evaluation
+        for observer in self.observers:  # `_notify`, inline: once per evaluation
+            observer(evaluation)
 
     def _notify(self, evaluation: Evaluation) -> None:
         for observer in self.observers:

@@ -15,7 +15,11 @@ from __future__ import annotations
 
 import signal
 import threading
+from collections.abc import Callable
 from types import FrameType
+from typing import TypeVar
+
+T = TypeVar("T")
 
 
 def _stopping_signals() -> tuple[int, ...]:
@@ -99,6 +103,19 @@ class Interrupts:
         """A stretch where a stopping signal raises `KeyboardInterrupt` at once (a context
         manager; already pending, it raises on entry)."""
         return _Raising(self._root)
+
+    def calling(self, function: Callable[..., T], *args: object) -> T:
+        """``function(*args)`` inside a `raising` stretch; the same as ``with raising():``,
+        without making a context manager (the driver calls the objective so, once per
+        evaluation)."""
+        root = self._root
+        if root._pending:
+            raise KeyboardInterrupt
+        outer, root._inside = root._inside, True
+        try:
+            return function(*args)
+        finally:
+            root._inside = outer
 
     def _handle(self, signum: int, frame: FrameType | None) -> None:
         self._pending = True

@@ -10,10 +10,13 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from directional.errors import JournalError
 from directional.records import SPENT, Batch, Halt, Stop
 from directional.run.driver import Driver, Evaluation
+from directional.run.executors import InProcess
 
 
 class Counting:
@@ -135,3 +138,45 @@ def test_stored_evaluations_replay_by_point_and_a_divergence_names_the_first_una
     assert objective.calls == 1 and driver.replayed == 3 and driver.spent == 4
     with pytest.raises(JournalError, match="search 0, evaluation 1: the journal holds the point"):
         Driver(objective=Counting(), budget=10, stored=stored).run(run(0, 9))
+
+
+def _asking(requests):
+    """A search that asks for ``requests`` (lists of numbers), goes on after each halt, and
+    returns what it was sent: the values, or the halt's stop and reason."""
+    heard = []
+    for rows in requests:
+        try:
+            values = yield Batch(points=np.array([[float(v)] for v in rows]), limit=None)
+            heard.append(values.tolist())
+        except Halt as halt:
+            heard.append((halt.stop, halt.reason))
+    return heard
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    requests=st.lists(st.lists(st.sampled_from([0, 1, 2, 3, 4, 5, 6, -1, -2]), min_size=1,
+                               max_size=4), min_size=1, max_size=12),
+    budget=st.integers(min_value=1, max_value=12),
+    stall_after=st.integers(min_value=1, max_value=4),
+)
+def test_one_search_in_process_is_driven_as_through_the_queue(requests, budget, stall_after):
+    """The only search of a run in process is answered without the queue (`Driver._at_once`);
+    the same search through an executor, one evaluation at a time, goes through the queue.
+    Both must evaluate the same points in the same order, send the same values and halts, and
+    log the same records and cache hits.  Points -1 fail, -2 are -inf (common practice, no
+    source: the module docstring's rules, checked against each other)."""
+
+    def objective(x):
+        if x[0] == -1.0:
+            raise RuntimeError("no value here")
+        return -math.inf if x[0] == -2.0 else float(x[0]) ** 2
+
+    def drive(**executor):
+        driver = Driver(objective=objective, budget=budget, stall_after=stall_after, **executor)
+        heard = driver.run(_asking(requests))
+        log = [(e.index, e.point.tolist(), e.value, e.status, e.detail, e.sequence)
+               for e in driver.log.evaluations]
+        return heard, log, driver.log.cache_hits, driver.spent
+
+    assert drive() == drive(executor=InProcess(), workers=1)
