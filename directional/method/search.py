@@ -477,22 +477,35 @@ def _line(
         listen=best.hearing,
         worth=best.worth,
     )
+    evaluated: dict[float, np.ndarray] = {}  # t -> its point, so the minimum's is not made again
     try:
         ts = next(search)
         while True:
-            # a float times a vector costs less than a numpy scalar times it (the same product)
-            us = base + ts[:, None] * d if len(ts) > 1 else (base + float(ts[0]) * d)[None, :]
-            values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
-            for u, value in zip(us, values.tolist()):
+            if len(ts) == 1:  # the rule: one point, without the loop over rows
+                # a float times a vector costs less than a numpy scalar times it (the same product)
+                t = float(ts[0])
+                u = base + t * d
+                values = yield Batch(points=space.to_user(u[None, :]), purpose=Purpose.LINE)
+                value = float(values[0])
                 best.answered += math.isfinite(value)
                 best.seen(u, value)
+                evaluated[t] = u
+            else:
+                us = base + ts[:, None] * d
+                values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
+                for t, u, value in zip(ts.tolist(), us, values.tolist()):
+                    best.answered += math.isfinite(value)
+                    best.seen(u, value)
+                    evaluated[t] = u
             ts = search.send(values)
     except StopIteration as stop:
         result: LineResult = stop.value
     if math.isfinite(result.heard) and result.value != 0.0:  # the noise follows |f| from here
         best.heard = result.heard / abs(result.value)
     if result.value <= best.value or best.noise > 0.0:  # noisy: the fitted minimum, even if higher
-        best.u, best.value = base + result.point * d, result.value
+        # base + t d, the same product and sum as where it was evaluated
+        u = evaluated.get(result.point)
+        best.u, best.value = base + result.point * d if u is None else u, result.value
     if abs(result.point) >= 0.5 * FARTHEST:
         raise _Endless
     return result
