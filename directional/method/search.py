@@ -110,9 +110,9 @@ import numpy as np
 
 from directional.errors import ProblemError
 from directional.method.directions import (
+    DEGENERATE,
     DirectionSet,
     condition,
-    degenerate,
     powell_accepts,
     principal_axes,
     principal_axes_of_estimate,
@@ -201,6 +201,7 @@ class _Tracker:
         self.heard = 0.0  # before it: the noise level relative to |f| a line's points showed
         self.hearing = False  # whether line searches read their own points' table
         self.worth = 0.0  # the least decrease worth another evaluation in a line search
+        self.conditioned: tuple[np.ndarray, float] | None = None  # see `_condition`
 
     def seen(self, u: np.ndarray, value: float) -> None:
         """Take note of an evaluation: the new best point if it is lower (without noise), a
@@ -302,7 +303,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             resolved = worked_at <= settings.point_tolerance
             crawl = moved <= settings.point_tolerance and resolved
             # how far the set is from orthogonal, for the two resets below (once per cycle)
-            skew = math.inf if ending else condition(directions.vectors)
+            skew = math.inf if ending else _condition(best, directions.vectors)
             if crawl and not ending and not fresh and skew > SKEWED:
                 # A calm cycle along a nearly dependent set proves nothing: it may have missed a
                 # valley that no direction points along.  Nor does one that still lowers the
@@ -407,7 +408,7 @@ def _cycle(
         directions = yield from _replace(
             space, settings, best, directions, overall / length, length, f0, largest, largest_drop
         )
-    if degenerate(directions):
+    if _condition(best, directions.vectors) > DEGENERATE:  # `directions.degenerate`
         directions = principal_axes_of_estimate(directions) or principal_axes(space.size, FIRST_STEP)
     moved = float(np.max(np.abs(best.u - u0)))
     return directions, moved, f0 - best.value
@@ -633,6 +634,18 @@ def _probe(
         best.answered += math.isfinite(value)
         best.seen(u, value)
     return values.tolist()
+
+
+def _condition(best: _Tracker, vectors: np.ndarray) -> float:
+    """`directions.condition` of ``vectors``, kept with the set it was computed for (the
+    arrays of a set are never changed in place): the end of a cycle and the loop after it ask
+    about the same set, and an SVD costs more than the rest of a line search at n = 10."""
+    known = best.conditioned
+    if known is not None and known[0] is vectors:
+        return known[1]
+    value = condition(vectors)
+    best.conditioned = vectors, value
+    return value
 
 
 def _resolution(settings: Settings, moved: float) -> float:
