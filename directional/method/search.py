@@ -389,19 +389,26 @@ def _cycle(
     u0, f0 = best.u.copy(), best.value
     largest, largest_drop = 0, 0.0
     last = 0.0  # the move of the cycle's last line search
+    # what the line searches measure, as `DirectionSet.measured` records it, on the cycle's own
+    # copies: one set is built per cycle instead of one per line search
+    curvatures, steps = directions.curvatures.copy(), directions.steps.copy()
     for i, d in enumerate(directions.vectors):
         before = best.value
         # plain floats: the line search's scalar arithmetic is then Python's, not numpy's (the
         # same doubles, a fraction of the time)
-        known_curvature = float(directions.curvatures[i]) if settings.reuse_curvature else math.nan
-        step = float(directions.steps[i])
-        if math.isnan(directions.curvatures[i]):  # nothing measured here: the last move is
+        measured = float(curvatures[i])
+        known_curvature = measured if settings.reuse_curvature else math.nan
+        step = float(steps[i])
+        if math.isnan(measured):  # nothing measured here: the last move is
             step = max(step, min(last, SEEDED * step))  # a better guess of the scale
         result = yield from _line(space, settings, best, d, step, known_curvature)
         last = abs(result.point)
-        directions = directions.measured(i, result.curvature, _next_step(result, settings))
+        if math.isfinite(result.curvature) and result.curvature > 0.0:
+            curvatures[i] = result.curvature
+        steps[i] = _next_step(result, settings)
         if before - best.value > largest_drop:
             largest, largest_drop = i, before - best.value
+    directions = DirectionSet(vectors=directions.vectors, curvatures=curvatures, steps=steps)
     overall = best.u - u0
     length = float(np.linalg.norm(overall))
     if settings.replace_directions and length > settings.line_tolerance:
