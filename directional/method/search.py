@@ -437,13 +437,14 @@ def _replace(
     if hi < length:
         return directions  # the extrapolated point is infeasible: keep the set
     fn = best.value
-    values = yield Batch(points=space.to_user(best.u + length * d)[None, :], purpose=Purpose.EXTRAPOLATE)
+    extrapolated = best.u + length * d
+    values = yield Batch(points=space.to_user(extrapolated)[None, :], purpose=Purpose.EXTRAPOLATE)
     fe = float(values[0])
     if not powell_accepts(f0, fn, fe, largest_drop):
-        best.seen(best.u + length * d, fe)
+        best.seen(extrapolated, fe)
         return directions
     if best.sample is not None:
-        best.sample.add(best.u + length * d, fe)
+        best.sample.add(extrapolated, fe)
     known = {-length: f0, 0.0: fn, length: fe}
     result = yield from _line(space, settings, best, d, length, math.nan, known=known)
     return replaced(directions, largest, d, result.curvature, _next_step(result, settings))
