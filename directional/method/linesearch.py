@@ -109,6 +109,11 @@ def parabola(t: Iterable[float], f: Iterable[float]) -> tuple[float, float]:
     (x, w, v), (fx, fw, fv) = tuple(t), tuple(f)
     if not (math.isfinite(fx) and math.isfinite(fw) and math.isfinite(fv)):
         return math.nan, math.nan
+    return _vertex(x, w, v, fx, fw, fv)
+
+
+def _vertex(x: float, w: float, v: float, fx: float, fw: float, fv: float) -> tuple[float, float]:
+    """`parabola` of finite values, from plain floats (the line search's inner loop)."""
     if x == w or x == v or w == v:
         return math.nan, math.nan
     r = (x - w) * (fx - fv)
@@ -306,7 +311,7 @@ def _model(points: dict[float, float], x: float, noise: float = 0.0) -> tuple[fl
     if len(finite) < 3:
         return math.nan, math.nan
     (fx, tx), (fw, tw), (fv, tv) = finite[:3]
-    return parabola((tx, tw, tv), (fx, fw, fv))
+    return _vertex(tx, tw, tv, fx, fw, fv)
 
 
 def fitted_parabola(

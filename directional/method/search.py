@@ -110,9 +110,9 @@ import numpy as np
 
 from directional.errors import ProblemError
 from directional.method.directions import (
+    DEGENERATE,
     DirectionSet,
     condition,
-    degenerate,
     powell_accepts,
     principal_axes,
     principal_axes_of_estimate,
@@ -201,6 +201,7 @@ class _Tracker:
         self.heard = 0.0  # before it: the noise level relative to |f| a line's points showed
         self.hearing = False  # whether line searches read their own points' table
         self.worth = 0.0  # the least decrease worth another evaluation in a line search
+        self.conditioned: tuple[np.ndarray, float] | None = None  # see `_condition`
 
     def seen(self, u: np.ndarray, value: float) -> None:
         """Take note of an evaluation: the new best point if it is lower (without noise), a
@@ -302,7 +303,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             resolved = worked_at <= settings.point_tolerance
             crawl = moved <= settings.point_tolerance and resolved
             # how far the set is from orthogonal, for the two resets below (once per cycle)
-            skew = math.inf if ending else condition(directions.vectors)
+            skew = math.inf if ending else _condition(best, directions.vectors)
             if crawl and not ending and not fresh and skew > SKEWED:
                 # A calm cycle along a nearly dependent set proves nothing: it may have missed a
                 # valley that no direction points along.  Nor does one that still lowers the
@@ -388,26 +389,33 @@ def _cycle(
     u0, f0 = best.u.copy(), best.value
     largest, largest_drop = 0, 0.0
     last = 0.0  # the move of the cycle's last line search
+    # what the line searches measure, as `DirectionSet.measured` records it, on the cycle's own
+    # copies: one set is built per cycle instead of one per line search
+    curvatures, steps = directions.curvatures.copy(), directions.steps.copy()
     for i, d in enumerate(directions.vectors):
         before = best.value
         # plain floats: the line search's scalar arithmetic is then Python's, not numpy's (the
         # same doubles, a fraction of the time)
-        known_curvature = float(directions.curvatures[i]) if settings.reuse_curvature else math.nan
-        step = float(directions.steps[i])
-        if math.isnan(directions.curvatures[i]):  # nothing measured here: the last move is
+        measured = float(curvatures[i])
+        known_curvature = measured if settings.reuse_curvature else math.nan
+        step = float(steps[i])
+        if math.isnan(measured):  # nothing measured here: the last move is
             step = max(step, min(last, SEEDED * step))  # a better guess of the scale
         result = yield from _line(space, settings, best, d, step, known_curvature)
         last = abs(result.point)
-        directions = directions.measured(i, result.curvature, _next_step(result, settings))
+        if math.isfinite(result.curvature) and result.curvature > 0.0:
+            curvatures[i] = result.curvature
+        steps[i] = _next_step(result, settings)
         if before - best.value > largest_drop:
             largest, largest_drop = i, before - best.value
+    directions = DirectionSet(vectors=directions.vectors, curvatures=curvatures, steps=steps)
     overall = best.u - u0
     length = float(np.linalg.norm(overall))
     if settings.replace_directions and length > settings.line_tolerance:
         directions = yield from _replace(
             space, settings, best, directions, overall / length, length, f0, largest, largest_drop
         )
-    if degenerate(directions):
+    if _condition(best, directions.vectors) > DEGENERATE:  # `directions.degenerate`
         directions = principal_axes_of_estimate(directions) or principal_axes(space.size, FIRST_STEP)
     moved = float(np.max(np.abs(best.u - u0)))
     return directions, moved, f0 - best.value
@@ -429,13 +437,14 @@ def _replace(
     if hi < length:
         return directions  # the extrapolated point is infeasible: keep the set
     fn = best.value
-    values = yield Batch(points=space.to_user(best.u + length * d)[None, :], purpose=Purpose.EXTRAPOLATE)
+    extrapolated = best.u + length * d
+    values = yield Batch(points=space.to_user(extrapolated)[None, :], purpose=Purpose.EXTRAPOLATE)
     fe = float(values[0])
     if not powell_accepts(f0, fn, fe, largest_drop):
-        best.seen(best.u + length * d, fe)
+        best.seen(extrapolated, fe)
         return directions
     if best.sample is not None:
-        best.sample.add(best.u + length * d, fe)
+        best.sample.add(extrapolated, fe)
     known = {-length: f0, 0.0: fn, length: fe}
     result = yield from _line(space, settings, best, d, length, math.nan, known=known)
     return replaced(directions, largest, d, result.curvature, _next_step(result, settings))
@@ -477,22 +486,35 @@ def _line(
         listen=best.hearing,
         worth=best.worth,
     )
+    evaluated: dict[float, np.ndarray] = {}  # t -> its point, so the minimum's is not made again
     try:
         ts = next(search)
         while True:
-            # a float times a vector costs less than a numpy scalar times it (the same product)
-            us = base + ts[:, None] * d if len(ts) > 1 else (base + float(ts[0]) * d)[None, :]
-            values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
-            for u, value in zip(us, values.tolist()):
+            if len(ts) == 1:  # the rule: one point, without the loop over rows
+                # a float times a vector costs less than a numpy scalar times it (the same product)
+                t = float(ts[0])
+                u = base + t * d
+                values = yield Batch(points=space.to_user(u[None, :]), purpose=Purpose.LINE)
+                value = float(values[0])
                 best.answered += math.isfinite(value)
                 best.seen(u, value)
+                evaluated[t] = u
+            else:
+                us = base + ts[:, None] * d
+                values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
+                for t, u, value in zip(ts.tolist(), us, values.tolist()):
+                    best.answered += math.isfinite(value)
+                    best.seen(u, value)
+                    evaluated[t] = u
             ts = search.send(values)
     except StopIteration as stop:
         result: LineResult = stop.value
     if math.isfinite(result.heard) and result.value != 0.0:  # the noise follows |f| from here
         best.heard = result.heard / abs(result.value)
     if result.value <= best.value or best.noise > 0.0:  # noisy: the fitted minimum, even if higher
-        best.u, best.value = base + result.point * d, result.value
+        # base + t d, the same product and sum as where it was evaluated
+        u = evaluated.get(result.point)
+        best.u, best.value = base + result.point * d if u is None else u, result.value
     if abs(result.point) >= 0.5 * FARTHEST:
         raise _Endless
     return result
@@ -620,6 +642,18 @@ def _probe(
         best.answered += math.isfinite(value)
         best.seen(u, value)
     return values.tolist()
+
+
+def _condition(best: _Tracker, vectors: np.ndarray) -> float:
+    """`directions.condition` of ``vectors``, kept with the set it was computed for (the
+    arrays of a set are never changed in place): the end of a cycle and the loop after it ask
+    about the same set, and an SVD costs more than the rest of a line search at n = 10."""
+    known = best.conditioned
+    if known is not None and known[0] is vectors:
+        return known[1]
+    value = condition(vectors)
+    best.conditioned = vectors, value
+    return value
 
 
 def _resolution(settings: Settings, moved: float) -> float:
