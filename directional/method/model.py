@@ -25,7 +25,7 @@ search then clips it to the bounds; it never evaluates outside them.
 
 Cost.  A fit on ``p`` points costs ``O(p N²)`` with ``N`` the number of coefficients, so the search
 fits once per cycle and after each successful model step whose point the model did not predict
-well (after one it did, `recentred` moves the model to the new point at ``O(p n²)``), on at most
+well (after one it did, `refreshed` moves the model to the new point at ``O(p n²)``), on at most
 ``points`` samples (a multiple of ``N``), not while too few samples could determine it, nor
 while they leave more coefficients free than a model step could use (`free` counts them from
 one fit request to the next at a fraction of a fit's cost), and not at all above ``LARGEST``
@@ -115,58 +115,10 @@ class Quadratic:
     radius: float
     misfit: float  # largest weighted residual (objective units); inf when not determined
     missing: int = 0  # Hessian coefficients (combinations of them) the sample leaves free
-    fitted: bool = True  # False: carried over from a fit (`recentred`, `refreshed`)
+    fitted: bool = True  # False: carried over from a fit (`refreshed`)
 
     def predict(self, s: np.ndarray) -> float:
         return float(self.value + self.gradient @ s + 0.5 * s @ self.hessian @ s)
-
-
-def recentred(model: Quadratic, u: np.ndarray, sample: Sample, points: int) -> Quadratic:
-    """The same quadratic seen from ``u``, with its misfit measured there.
-
-    The centre moves to ``u`` (as a rule the point the model's step just added to ``sample``),
-    the gradient becomes
-    ``g + H (u - centre)`` and the value the model's prediction at ``u``; the Hessian stays.  The
-    radius and the misfit are those `fit` would report for these coefficients: over the
-    ``points`` samples nearest ``u``, weighted by their nearness to it (a least-squares refit
-    would misfit them no more, in the weighted sum of squares).  A model that has just
-    predicted the value at ``u`` well has little to learn from it: a refit with it would change
-    the coefficients by about the error there times the point's leverage, so a search may step
-    on from ``u`` without a fit, as trust-region methods that update their model one point at a
-    time do (Powell 2004; Conn, Scheinberg & Vicente 2009, ch. 10).  The cost is that of the
-    residuals, ``O(p n²)``, against ``O(p N²)`` for a fit.  A model that was not determined stays
-    so (infinite misfit).
-
-    >>> sample = Sample(1, 10)
-    >>> for x in (-1.0, 0.0, 1.0, 2.0):
-    ...     sample.add(np.array([x]), (x - 2.0) ** 2)
-    >>> q = Quadratic(centre=np.zeros(1), value=4.0, gradient=np.array([-4.0]),
-    ...               hessian=np.array([[2.0]]), radius=1.0, misfit=0.0)
-    >>> r = recentred(q, np.array([2.0]), sample, 4)
-    >>> r.centre, r.gradient, r.value, r.misfit, r.radius
-    (array([2.]), array([0.]), 0.0, 0.0, 3.0)
-    """
-    s = u - model.centre
-    gradient = model.gradient + model.hessian @ s
-    value = model.predict(s)
-    v = sample.points[: sample.size] - u
-    distance = np.einsum("ij,ij->i", v, v)
-    values = sample.values[: sample.size]
-    if sample.size > points:
-        chosen = np.argpartition(distance, points - 1)[:points]
-        v, values, distance = v[chosen], values[chosen], distance[chosen]
-    predicted = value + v @ gradient + 0.5 * np.einsum("ij,ij->i", v @ model.hessian, v)
-    misfit = float(np.max(_nearness(distance) * np.abs(values - predicted)))
-    return Quadratic(
-        centre=u.copy(),
-        value=value,
-        gradient=gradient,
-        hessian=model.hessian,
-        radius=math.sqrt(float(distance.max())),
-        misfit=misfit if math.isfinite(model.misfit) else math.inf,
-        missing=model.missing,
-        fitted=False,
-    )
 
 
 def refreshed(
@@ -178,9 +130,13 @@ def refreshed(
     weighs them, fix the linear part by least squares while the second derivatives, which
     change slowly from one point to the next, are kept (the idea of the updates of Powell 2004,
     which change the model least).  ``O(p n²)`` against ``O(p N²)`` for a fit; the misfit,
-    radius and poisedness test are `fit`'s.  A search that has moved less than its tolerances
-    since the model was fitted may ask it whether the point is settled.  None where the linear
-    part is not poised; a model that was not determined stays so (infinite misfit).
+    radius and poisedness test are `fit`'s.  A model that has just predicted the value at its
+    step's point well has little to learn from it (a refit would change the coefficients by
+    about the error there times the point's leverage), so a search may step on from there
+    with it, as trust-region methods that update their model one point at a time do (Powell
+    2004; Conn, Scheinberg & Vicente 2009, ch. 10); and a search that has moved less than its
+    tolerances since the model was fitted may ask it whether the point is settled.  None where
+    the linear part is not poised; a model that was not determined stays so (infinite misfit).
 
     >>> sample = Sample(1, 10)
     >>> for x in (-1.0, 0.0, 1.0, 2.0, 3.0):

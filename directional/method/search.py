@@ -32,8 +32,9 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   next model steps' points fix them).  Its minimizer
   inside a trust region, clipped to the bounds, is evaluated; while such steps succeed (actual
   decrease at least half the predicted) more follow (after a step whose decrease was within
-  ``AGREED`` of the predicted, on the same model seen from the new point, without a refit,
-  unless only a fit's verdict may end the search), and a convex model that predicted well
+  ``AGREED`` of the predicted, on the same Hessian with the value and gradient fitted again at
+  the new point, without a full refit, unless only a fit's verdict may end the search), and a
+  convex model that predicted well
   replaces the direction set by its eigenvectors with their eigenvalues as known curvatures, so
   that the next cycle's line searches are along conjugate directions.  The trust radius halves
   after a poor step, doubles after a good one, and is never less than the last cycle's reach.
@@ -129,7 +130,6 @@ from directional.method.model import (
     coefficients,
     fit,
     keep,
-    recentred,
     refreshed,
     trust_step,
 )
@@ -150,7 +150,7 @@ SETTLE_MISFIT = 1e-3  # a model may end the search when it misfits its sample by
 NEARLY = 0.04  # a model leaving at most this share of its coefficients free (and at most
 # MODEL_STEPS of them) is stepped on: each step's point fixes about one more
 AGREED = 0.001  # a model step whose actual decrease is within this share of the predicted is
-# followed by a step on the same model re-centred, not on a refit (`model.recentred`)
+# followed by a step on the same Hessian, not on a refit (`model.refreshed`)
 GUESSES = False  # True: step on undetermined models too (measured: more evaluations wasted on MGH)
 FITTED = 2.0  # the model is fitted to this many times as many points as it has coefficients
 EPSILON = float(np.finfo(float).eps)
@@ -771,8 +771,8 @@ def _model_step(
     trust.hessian = model.hessian if ratio >= 0.5 else None
     if abs(ratio - 1.0) <= AGREED and math.isfinite(model.misfit) and best.noise == 0.0:
         # the step's point agrees with the model: the next step is taken on the same model,
-        # seen from that point, instead of a refit (`model.recentred`)
-        trust.ahead = recentred(model, target, best.sample, int(FITTED * coefficients(n)))
+        # its linear part fitted again at that point, instead of a full refit (`model.refreshed`)
+        trust.ahead = refreshed(model, best.sample, target, points)
     settled = convex and ratio > 0.0 and length <= settings.point_tolerance and predicted <= floor
     if ratio >= 0.5 and convex:
         directions = DirectionSet(
