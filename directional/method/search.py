@@ -710,7 +710,7 @@ def _model_step(
     model, trust.ahead = (None if fresh else trust.ahead), None
     ahead = model is not None and np.array_equal(model.centre, best.u)
     verdict = False  # the model is only asked whether the point is settled
-    if not ahead and decisive and not fresh and trust.carried is not None:
+    if not ahead and decisive and not fresh and trust.carried is not None and best.noise == 0.0:
         # the cycle moved less than the tolerances: the last model with its linear part fitted
         # again here may say the point is settled without a fit (`model.refreshed`)
         model = refreshed(trust.carried, best.sample, best.u, points)
