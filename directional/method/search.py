@@ -703,6 +703,11 @@ def _model_step(
     lies within the point tolerance and its predicted decrease within the value tolerance), and
     whether another model step may pay (this one succeeded, or completed a nearly determined
     model further).
+
+    No fit is made when the last step agreed with its model (``trust.ahead``, see `AGREED`), nor,
+    when the search moved less than its tolerances so far (``decisive``: the verdict may end it),
+    when the last model stepped on (``trust.carried``), refreshed at the point, calls the point
+    settled; ``fresh`` asks for a fit whatever they say (`model.refreshed` for both).
     """
     assert best.sample is not None
     n = space.size
