@@ -31,7 +31,10 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   used only after a model step succeeded, or when it leaves so few coefficients free that the
   next model steps' points fix them).  Its minimizer
   inside a trust region, clipped to the bounds, is evaluated; while such steps succeed (actual
-  decrease at least half the predicted) more follow, and a convex model that predicted well
+  decrease at least half the predicted) more follow (after a step whose decrease was within
+  ``AGREED`` of the predicted, on the same Hessian with the value and gradient fitted again at
+  the new point, without a full refit, unless only a fit's verdict may end the search), and a
+  convex model that predicted well
   replaces the direction set by its eigenvectors with their eigenvalues as known curvatures, so
   that the next cycle's line searches are along conjugate directions.  The trust radius halves
   after a poor step, doubles after a good one, and is never less than the last cycle's reach.
@@ -49,7 +52,8 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   resolution, so the resolution falls a hundredfold per cycle at most); or
   after one such cycle when a model that fixes every coefficient, fits its sample to within
   ``SETTLE_MISFIT`` and is convex puts its minimizer within the point tolerance with a predicted
-  decrease within the value tolerance.
+  decrease within the value tolerance (the last model stepped on, its value and gradient
+  fitted again at the point, is asked first: a fit only when it does not say so).
   The driver ends it early by throwing `records.Halt` (budget, time, interrupt); it then returns
   its best point with that reason.
 - Plateaus.  Before it stops, a direction whose last parabola saw nothing but rounding (``FLAT``),
@@ -119,7 +123,16 @@ from directional.method.directions import (
     replaced,
 )
 from directional.method.linesearch import LineResult, line_search
-from directional.method.model import LARGEST, Quadratic, Sample, coefficients, fit, trust_step
+from directional.method.model import (
+    LARGEST,
+    Quadratic,
+    Sample,
+    coefficients,
+    fit,
+    keep,
+    refreshed,
+    trust_step,
+)
 from directional.method.noise import INTERRUPTED, NoiseLevel, estimate, floored, noise_like
 from directional.method.space import Space
 from directional.records import Batch, Halt, Outcome, Purpose, Stop
@@ -136,6 +149,8 @@ MODEL_STEPS = 8  # at most this many model steps in a row, while each is a succe
 SETTLE_MISFIT = 1e-3  # a model may end the search when it misfits its sample by less (relative)
 NEARLY = 0.04  # a model leaving at most this share of its coefficients free (and at most
 # MODEL_STEPS of them) is stepped on: each step's point fixes about one more
+AGREED = 0.001  # a model step whose actual decrease is within this share of the predicted is
+# followed by a step on the same Hessian, not on a refit (`model.refreshed`)
 GUESSES = False  # True: step on undetermined models too (measured: more evaluations wasted on MGH)
 FITTED = 2.0  # the model is fitted to this many times as many points as it has coefficients
 EPSILON = float(np.finfo(float).eps)
@@ -218,6 +233,8 @@ class _Trust:
     def __init__(self) -> None:
         self.radius = math.nan
         self.hessian: np.ndarray | None = None  # the last model's, for the least-change fit
+        self.ahead: Quadratic | None = None  # the model for the row's next step, when no fit
+        self.carried: Quadratic | None = None  # the last determined model stepped on
 
 
 def powell(space: Space, settings: Settings, start: np.ndarray | None = None) -> Search:
@@ -263,11 +280,19 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 # the model may go at least as far as the line searches just went
                 trust.radius = max(trust.radius, float(np.linalg.norm(best.u - begun)))
                 for _ in range(MODEL_STEPS):
+                    # whether the model's verdict may end the search (the cycle and the row
+                    # so far moved less than the tolerances): then it comes from a fit
+                    decisive = max(moved, float(np.max(np.abs(best.u - before[0])))) <= (
+                        settings.point_tolerance
+                    ) and dropped + before[1] - best.value <= settings.value_tolerance * max(
+                        1.0, abs(best.value)
+                    )
                     directions, settled, gained = yield from _model_step(
-                        space, settings, best, directions, trust
+                        space, settings, best, directions, trust, decisive
                     )
                     if settled or not gained:
                         break
+                trust.ahead = None  # the next row's model is fitted to the cycle's points too
                 moved = max(moved, float(np.max(np.abs(best.u - before[0]))))
                 dropped += before[1] - best.value
             small = moved <= settings.point_tolerance and dropped <= (
@@ -697,7 +722,13 @@ def _outcome(
 
 
 def _model_step(
-    space: Space, settings: Settings, best: _Tracker, directions: DirectionSet, trust: _Trust
+    space: Space,
+    settings: Settings,
+    best: _Tracker,
+    directions: DirectionSet,
+    trust: _Trust,
+    decisive: bool = False,
+    fresh: bool = False,
 ) -> Generator[Batch, np.ndarray, tuple[DirectionSet, bool, bool]]:
     """Fit the quadratic model around the best point and evaluate its trust-region minimizer.
 
@@ -706,17 +737,32 @@ def _model_step(
     lies within the point tolerance and its predicted decrease within the value tolerance), and
     whether another model step may pay (this one succeeded, or completed a nearly determined
     model further).
+
+    No fit is made when the last step agreed with its model (``trust.ahead``, see `AGREED`), nor,
+    when the search moved less than its tolerances so far (``decisive``: the verdict may end it),
+    when the last model stepped on (``trust.carried``), refreshed at the point, calls the point
+    settled; ``fresh`` asks for a fit whatever they say (`model.refreshed` for both).
     """
     assert best.sample is not None
     n = space.size
-    if best.sample.size < coefficients(n) and trust.hessian is None and not GUESSES:
-        return directions, False, False  # the fit could not be determined: it would not be used
-    # the most coefficients a model may leave free and still be stepped on (`_nearly`): a sample
-    # that leaves more is not fitted (`model.fit`)
-    usable = None if trust.hessian is not None or GUESSES else (
-        int(min(NEARLY * coefficients(n), MODEL_STEPS)) if best.noise == 0.0 else 0
-    )
-    model = fit(best.sample, best.u, int(FITTED * coefficients(n)), trust.hessian, usable=usable)
+    points = int(FITTED * coefficients(n))
+    model, trust.ahead = (None if fresh else trust.ahead), None
+    ahead = model is not None and np.array_equal(model.centre, best.u)
+    verdict = False  # the model is only asked whether the point is settled
+    if not ahead and decisive and not fresh and trust.carried is not None and best.noise == 0.0:
+        # the cycle moved less than the tolerances: the last model with its linear part fitted
+        # again here may say the point is settled without a fit (`model.refreshed`)
+        model = refreshed(trust.carried, best.sample, best.u, points)
+        ahead = verdict = model is not None
+    if not ahead:
+        if best.sample.size < coefficients(n) and trust.hessian is None and not GUESSES:
+            return directions, False, False  # the fit could not be determined: it would not be used
+        # the most coefficients a model may leave free and still be stepped on (`_nearly`): a
+        # sample that leaves more is not fitted (`model.fit`)
+        usable = None if trust.hessian is not None or GUESSES else (
+            int(min(NEARLY * coefficients(n), MODEL_STEPS)) if best.noise == 0.0 else 0
+        )
+        model = fit(best.sample, best.u, points, trust.hessian, usable=usable)
     # a model the samples do not determine is stepped on only after a model predicted well, or
     # when it is nearly determined (`_nearly`)
     nearly = model is not None and _nearly(model, best, n)
@@ -738,7 +784,16 @@ def _model_step(
     # only a model that fixes every coefficient (finite misfit) may help end the search
     convex = bool(eigenvalues[0] > 0.0) and model.misfit <= max(floor, SETTLE_MISFIT * abs(best.value))
     if float(np.max(np.abs(s))) <= settings.line_tolerance or not predicted > 0.0:
+        if ahead and decisive and not (convex and predicted <= floor):
+            # the verdict may end the search: a fit to the samples nearest the point gives it
+            return (yield from _model_step(space, settings, best, directions, trust, decisive, True))
+        if verdict:
+            keep(best.sample, best.u, points, model)  # for `_rounding_only`
         return directions, convex and predicted <= floor, False
+    if verdict:  # the refreshed model would step: the step is a fit's
+        return (yield from _model_step(space, settings, best, directions, trust, decisive, True))
+    if math.isfinite(model.misfit):
+        trust.carried = model
     before = best.value
     values = yield Batch(points=space.to_user(target)[None, :], purpose="model")
     value = float(values[0])
@@ -753,6 +808,10 @@ def _model_step(
     elif ratio < 0.25:
         trust.radius = 0.5 * length
     trust.hessian = model.hessian if ratio >= 0.5 else None
+    if abs(ratio - 1.0) <= AGREED and math.isfinite(model.misfit) and best.noise == 0.0:
+        # the step's point agrees with the model: the next step is taken on the same model,
+        # its linear part fitted again at that point, instead of a full refit (`model.refreshed`)
+        trust.ahead = refreshed(model, best.sample, target, points)
     settled = convex and ratio > 0.0 and length <= settings.point_tolerance and predicted <= floor
     if ratio >= 0.5 and convex:
         directions = DirectionSet(
@@ -793,6 +852,10 @@ def _rounding_only(settings: Settings, best: _Tracker) -> bool:
     n = best.sample.points.shape[1]
     # the cycle's last model step fitted the same samples, as a rule: its model serves
     model = fit(best.sample, best.u, int(FITTED * coefficients(n)), reuse=True)
+    if model is not None and not model.fitted:  # a fit may yet find a closer quadratic
+        if model.misfit <= settings.value_tolerance * max(1.0, abs(best.value)):
+            return True
+        model = fit(best.sample, best.u, int(FITTED * coefficients(n)))
     if model is None:
         return False
     return model.misfit <= settings.value_tolerance * max(1.0, abs(best.value))
