@@ -150,12 +150,7 @@ def refreshed(
     n = sample.points.shape[1]
     if sample.size < n + 1:
         return None
-    u = sample.points[: sample.size] - centre
-    distance = np.einsum("ij,ij->i", u, u)
-    values = sample.values[: sample.size]
-    if sample.size > points:
-        chosen = np.argpartition(distance, points - 1)[:points]
-        u, values, distance = u[chosen], values[chosen], distance[chosen]
+    u, values, distance = _nearest(sample, centre, points)
     radius = math.sqrt(float(distance.max()))
     if not radius > 0.0:
         return None
@@ -247,17 +242,26 @@ def keep(sample: Sample, centre: np.ndarray, points: int, model: Quadratic) -> N
     sample.last = (sample.added, points, centre.tobytes()), model
 
 
-def _fit(
-    sample: Sample, centre: np.ndarray, points: int, prior: np.ndarray | None
-) -> Quadratic | None:
-    """`fit` itself, with at least ``n + 1`` samples."""
-    n = sample.points.shape[1]
+def _nearest(
+    sample: Sample, centre: np.ndarray, points: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The ``points`` samples nearest ``centre`` (all of them when there are no more): their
+    offsets from it, their values and their squared distances, in no particular order."""
     u = sample.points[: sample.size] - centre
     distance = np.einsum("ij,ij->i", u, u)
     values = sample.values[: sample.size]
     if sample.size > points:
         chosen = np.argpartition(distance, points - 1)[:points]
         u, values, distance = u[chosen], values[chosen], distance[chosen]
+    return u, values, distance
+
+
+def _fit(
+    sample: Sample, centre: np.ndarray, points: int, prior: np.ndarray | None
+) -> Quadratic | None:
+    """`fit` itself, with at least ``n + 1`` samples."""
+    n = sample.points.shape[1]
+    u, values, distance = _nearest(sample, centre, points)
     radius = math.sqrt(float(distance.max()))
     offset = float(values.min())
     span = float(values.max()) - offset
