@@ -30,7 +30,8 @@ def test_box_from_a_hundred_times_its_start_is_not_called_a_minimum_on_its_plate
     # the same function from (0, 1000, 2000) (MGH 1981 take starts 10 and 100 times out): the
     # start itself lies on the plateau x2 > 100, where the values along x2 are equal to the last
     # bit.  The search does not probe a direction it never moved along (a parameter the
-    # objective ignores looks the same: MGH 34), so it stops at the plateau's 0.0756; the
+    # objective ignores looks the same: MGH 34), so it stops at the plateau's 0.0756 (the least
+    # value with the x2 term gone, as this search measures it: not a published figure); the
     # default check must then say the point is flat, not a minimum.
     p = mgh.problem(12)
     sol = dl.minimize(p, 100.0 * np.asarray(p.start), budget=100 * (p.n + 1))
