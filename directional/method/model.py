@@ -54,7 +54,7 @@ from __future__ import annotations
 
 import functools
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.linalg
@@ -116,6 +116,8 @@ class Quadratic:
     misfit: float  # largest weighted residual (objective units); inf when not determined
     missing: int = 0  # Hessian coefficients (combinations of them) the sample leaves free
     fitted: bool = True  # False: carried over from a fit (`refreshed`)
+    # the Hessian's eigendecomposition once `eigen` made it; models sharing a Hessian share it
+    spectrum: list[np.ndarray] = field(default_factory=list, repr=False, compare=False)
 
     def predict(self, s: np.ndarray) -> float:
         return float(self.value + self.gradient @ s + 0.5 * s @ self.hessian @ s)
@@ -160,15 +162,16 @@ def refreshed(
     linear = np.empty((len(u), n + 1))
     linear[:, 0] = near
     np.multiply(u / radius, near[:, None], out=linear[:, 1:])
+    weighted = (rest - offset) * near
     try:
-        basis, triangle = np.linalg.qr(linear)
-        singular = np.linalg.svd(triangle, compute_uv=False)
+        basis, triangle = _qr(linear)
+        singular = _singular_values(triangle)
         if singular[-1] <= singular[0] / POISED:
             return None
-        line = np.linalg.solve(triangle, basis.T @ ((rest - offset) * near))
+        line = _solve(triangle, basis.T @ weighted)
     except np.linalg.LinAlgError:
         return None
-    misfit = float(np.max(np.abs(linear @ line - (rest - offset) * near)))
+    misfit = float(np.max(np.abs(linear @ line - weighted)))
     if not (np.isfinite(line).all() and math.isfinite(misfit)):
         return None
     return Quadratic(
@@ -180,6 +183,7 @@ def refreshed(
         misfit=misfit if math.isfinite(model.misfit) else math.inf,
         missing=model.missing,
         fitted=False,
+        spectrum=model.spectrum,
     )
 
 
@@ -268,12 +272,12 @@ def _fit(
     if not (radius > 0.0 and span > 0.0):
         return None
     d = u / radius
-    rows, cols, diagonal, weight = _layout(n)
+    rows, cols, _, weight = _layout(n)
     # each sample's equation is weighted by its nearness (see `_nearness`)
     near = _nearness(distance)
     products = d[:, rows]
     products *= d[:, cols]
-    products[:, diagonal] *= 0.5  # ½ hᵢᵢ sᵢ²: the other columns' factor is 1 (exact)
+    products *= _halves(n)  # ½ hᵢᵢ sᵢ²: the other columns' factor is 1 (exact)
     products *= near[:, None]
     linear = np.empty((len(d), n + 1))
     linear[:, 0] = near  # 1 · near
@@ -286,8 +290,8 @@ def _fit(
         scaled_prior = prior[rows, cols] * radius**2 / span
         target = scaled - products @ scaled_prior
     try:
-        basis, triangle = np.linalg.qr(linear)
-        singular = np.linalg.svd(triangle, compute_uv=False)
+        basis, triangle = _qr(linear)
+        singular = _singular_values(triangle)
         if singular[-1] <= singular[0] / POISED:
             return None
         if len(d) == n + 1:  # the linear part interpolates: nothing is left (rest is rounding)
@@ -305,7 +309,7 @@ def _fit(
         return None
     h_coefficients = scaled_prior + change / weight
     residual = scaled - products @ h_coefficients
-    line = np.linalg.solve(triangle, basis.T @ residual)  # the linear part, by the same QR
+    line = _solve(triangle, basis.T @ residual)  # the linear part, by the same QR
     determined = rank == len(rows) and len(d) >= coefficients(n)
     misfit = span * float(np.abs(linear @ line - residual).max())
     if not (np.isfinite(h_coefficients).all() and np.isfinite(line).all()):
@@ -418,10 +422,14 @@ def _qr_routines(m: int, n: int) -> tuple[object, object, int, int]:
 def _features(y: np.ndarray) -> np.ndarray:
     """Rows ``(1, y, products of y as in the fit)``: the fit's design matrix, unweighted."""
     n = y.shape[1]
-    rows, cols, diagonal, _ = _layout(n)
-    products = y[:, rows] * y[:, cols]
-    products[:, diagonal] *= 0.5
-    return np.hstack([np.ones((len(y), 1)), y, products])
+    rows, cols, _, _ = _layout(n)
+    out = np.empty((len(y), 1 + n + len(rows)))
+    out[:, 0] = 1.0
+    out[:, 1 : n + 1] = y
+    products = out[:, n + 1 :]
+    np.multiply(y[:, rows], y[:, cols], out=products)
+    products *= _halves(n)
+    return out
 
 
 def _gelsy(a: np.ndarray, b: np.ndarray, cond: float) -> tuple[np.ndarray, int]:
@@ -497,6 +505,118 @@ def _symmetric(n: int) -> np.ndarray:
     return index
 
 
+@functools.cache
+def _halves(n: int) -> np.ndarray:
+    """The factor of each product column of the fit's design (`_layout`'s order): ½ on the
+    diagonal (½ hᵢᵢ sᵢ²), 1 elsewhere, so one multiplication scales them all (by 1: exactly)."""
+    _, _, diagonal, _ = _layout(n)
+    halves = np.where(diagonal, 0.5, 1.0)
+    halves.flags.writeable = False
+    return halves
+
+
+# numpy's small dense linear algebra (qr, svd, solve, eigh) calls LAPACK through general
+# machinery that costs more than the work itself at the model's sizes (about 4 to 10 µs a call
+# at n = 10).  The helpers below call the same LAPACK routines with the same arguments and work
+# sizes through scipy (a test holds each equal to numpy's bit for bit on random matrices; the
+# two packages ship their own OpenBLAS builds, which is what that test watches).
+
+
+@functools.lru_cache(maxsize=64)
+def _reduced_qr_routines(m: int, k: int) -> tuple[object, object, int, int]:
+    """LAPACK's geqrf and orgqr for an ``m`` × ``k`` matrix (``m >= k``) and their work sizes."""
+    probe = np.empty((1, 1))
+    factor, form = scipy.linalg.lapack.get_lapack_funcs(("geqrf", "orgqr"), (probe,))
+    factor_work = int(factor(np.zeros((m, k), order="F"), lwork=-1)[2][0])
+    form_work = int(form(np.zeros((m, k), order="F"), np.zeros(k), lwork=-1)[1][0])
+    return factor, form, max(factor_work, 1), max(form_work, 1)
+
+
+def _qr(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``numpy.linalg.qr(a)`` (reduced; ``a`` has at least as many rows as columns) bit for bit:
+    the orthonormal ``m`` × ``k`` factor and the upper triangle."""
+    m, k = a.shape
+    factor, form, factor_work, form_work = _reduced_qr_routines(m, k)
+    reflectors, tau, _, info = factor(a, factor_work)
+    if info != 0:
+        raise np.linalg.LinAlgError(f"LAPACK geqrf failed: {info}")
+    triangle = np.ascontiguousarray(np.triu(reflectors[:k]))
+    basis, _, info = form(reflectors, tau, form_work, True)
+    if info != 0:
+        raise np.linalg.LinAlgError(f"LAPACK orgqr failed: {info}")
+    # laid out by rows, as numpy returns them: the products that follow read them so
+    return np.ascontiguousarray(basis), triangle
+
+
+@functools.lru_cache(maxsize=64)
+def _svd_routine(k: int) -> tuple[object, int]:
+    routine, query = scipy.linalg.lapack.get_lapack_funcs(
+        ("gesdd", "gesdd_lwork"), (np.empty((1, 1)),)
+    )
+    work, info = query(k, k, compute_uv=0)
+    if info != 0:
+        raise np.linalg.LinAlgError(f"LAPACK gesdd's work size query failed: {info}")
+    return routine, max(int(work), 1)
+
+
+def _singular_values(a: np.ndarray) -> np.ndarray:
+    """``numpy.linalg.svd(a, compute_uv=False)`` of a square matrix, bit for bit (gesdd)."""
+    routine, work = _svd_routine(a.shape[0])
+    _, singular, _, info = routine(a, 0, 0, work)
+    if info != 0:
+        raise np.linalg.LinAlgError("SVD did not converge")
+    return singular
+
+
+def _solve(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``numpy.linalg.solve(a, b)`` for one right-hand side, bit for bit (gesv)."""
+    _, _, x, info = _solve_routine()(a, b)
+    if info > 0:
+        raise np.linalg.LinAlgError("Singular matrix")
+    if info < 0:
+        raise ValueError(f"illegal value in argument {-info} of LAPACK gesv")
+    return x
+
+
+@functools.cache
+def _solve_routine() -> object:
+    return scipy.linalg.lapack.get_lapack_funcs("gesv", (np.empty((1, 1)),))
+
+
+@functools.lru_cache(maxsize=64)
+def _eigh_routine(n: int) -> tuple[object, int, int]:
+    routine, query = scipy.linalg.lapack.get_lapack_funcs(
+        ("syevd", "syevd_lwork"), (np.empty((1, 1)),)
+    )
+    work, iwork, info = query(n, compute_v=1, lower=1)
+    if info != 0:
+        raise np.linalg.LinAlgError(f"LAPACK syevd's work size query failed: {info}")
+    return routine, max(int(work), 1), max(int(iwork), 1)
+
+
+def eigen(model: Quadratic) -> tuple[np.ndarray, np.ndarray]:
+    """The eigenvalues (ascending) and eigenvectors (columns) of ``model``'s Hessian:
+    ``numpy.linalg.eigh``'s bit for bit (LAPACK syevd on the lower triangle), made once per
+    Hessian and kept with the model (read-only); a model `refreshed` from it shares them.
+
+    >>> q = Quadratic(centre=np.zeros(2), value=0.0, gradient=np.zeros(2),
+    ...               hessian=np.diag([3.0, 1.0]), radius=1.0, misfit=0.0)
+    >>> eigen(q)[0]
+    array([1., 3.])
+    """
+    if not model.spectrum:
+        n = len(model.hessian)
+        routine, work, iwork = _eigh_routine(n)
+        eigenvalues, vectors, info = routine(model.hessian, 1, 1, work, iwork)
+        if info != 0:
+            raise np.linalg.LinAlgError("Eigenvalues did not converge")
+        vectors = np.ascontiguousarray(vectors)  # by rows, as numpy's (the products read it so)
+        eigenvalues.flags.writeable = False
+        vectors.flags.writeable = False
+        model.spectrum[:] = [eigenvalues, vectors]
+    return model.spectrum[0], model.spectrum[1]
+
+
 def _median(x: np.ndarray) -> float:
     """``numpy.median`` of a non-empty 1-d array, bit for bit, without its general machinery:
     the middle order statistic, or the mean of the two middle ones; nan when ``x`` holds one."""
@@ -519,7 +639,7 @@ def trust_step(model: Quadratic, radius: float) -> np.ndarray:
     >>> trust_step(q, 10.0), trust_step(q, 1.0).round(6)
     (array([2., 0.]), array([1., 0.]))
     """
-    eigenvalues, vectors = np.linalg.eigh(model.hessian)
+    eigenvalues, vectors = eigen(model)
     g = vectors.T @ model.gradient
 
     def step(shift: float) -> np.ndarray:

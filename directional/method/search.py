@@ -128,6 +128,7 @@ from directional.method.model import (
     Quadratic,
     Sample,
     coefficients,
+    eigen,
     fit,
     keep,
     refreshed,
@@ -779,7 +780,7 @@ def _model_step(
     target = np.clip(best.u + s, space.lower_u, space.upper_u)
     s = target - best.u
     predicted = -(model.gradient @ s + 0.5 * s @ model.hessian @ s)
-    eigenvalues, vectors = np.linalg.eigh(model.hessian)
+    eigenvalues, vectors = eigen(model)  # trust_step's: made once per Hessian
     floor = settings.value_tolerance * max(1.0, abs(best.value))
     # only a model that fixes every coefficient (finite misfit) may help end the search
     convex = bool(eigenvalues[0] > 0.0) and model.misfit <= max(floor, SETTLE_MISFIT * abs(best.value))

@@ -516,3 +516,37 @@ def test_the_fits_gelsy_call_is_scipys_lstsq_bit_for_bit(rows, columns, rank):
     )
     assert found == expected_rank == rank
     assert x.tobytes() == expected.tobytes()
+
+
+@pytest.mark.parametrize("n", [2, 5, 10, 31, 50])
+def test_the_models_lapack_calls_are_numpys_bit_for_bit(n):
+    # the fit, `refreshed` and the trust step call LAPACK's geqrf/orgqr, gesdd, gesv and syevd
+    # directly; the reference is numpy.linalg (a general-purpose library): the same numbers to
+    # the last bit and the same memory layout (the products that follow read the factors by
+    # rows, and a product's rounding depends on the layout), for the model's sizes (n + 1
+    # columns, one to three times as many rows; an n × n Hessian)
+    from directional.method.model import _qr, _singular_values, _solve, eigen
+
+    rng = np.random.default_rng(n)
+    for rows in (n + 1, 2 * n + 3, 3 * (n + 1)):
+        a = rng.standard_normal((rows, n + 1)) * 10.0 ** rng.uniform(-3, 3, n + 1)
+        basis, triangle = _qr(a)
+        expected_basis, expected_triangle = np.linalg.qr(a)
+        for got, expected in ((basis, expected_basis), (triangle, expected_triangle)):
+            assert got.tobytes() == expected.tobytes() and got.strides == expected.strides
+        singular = _singular_values(triangle)
+        assert singular.tobytes() == np.linalg.svd(triangle, compute_uv=False).tobytes()
+        b = rng.standard_normal(n + 1)
+        assert _solve(triangle, b).tobytes() == np.linalg.solve(triangle, b).tobytes()
+    h = rng.standard_normal((n, n)) * 10.0 ** rng.uniform(-4, 4)
+    h = h + h.T
+    model = Quadratic(centre=np.zeros(n), value=0.0, gradient=np.zeros(n), hessian=h,
+                      radius=1.0, misfit=0.0)
+    eigenvalues, vectors = eigen(model)
+    expected_values, expected_vectors = np.linalg.eigh(h)
+    assert eigenvalues.tobytes() == expected_values.tobytes()
+    assert vectors.tobytes() == expected_vectors.tobytes()
+    assert vectors.strides == expected_vectors.strides
+    assert eigen(model)[1] is vectors  # made once, kept with the model
+    with pytest.raises(np.linalg.LinAlgError):
+        _solve(np.zeros((n + 1, n + 1)), np.ones(n + 1))  # singular, as numpy says
