@@ -93,14 +93,16 @@ class Sample:
     def add(self, u: np.ndarray, value: float) -> None:
         if not math.isfinite(value):
             return
-        capacity = len(self.values)
-        i = self.size if self.size < capacity else self.next
-        self.points[i] = u
-        self.values[i] = value
-        if self.size < capacity:
-            self.size += 1
+        size, capacity = self.size, len(self.values)
+        if size < capacity:
+            self.points[size] = u
+            self.values[size] = value
+            self.size = size + 1
         else:
-            self.next = (self.next + 1) % capacity
+            i = self.next
+            self.points[i] = u
+            self.values[i] = value
+            self.next = (i + 1) % capacity
         self.added += 1
 
 
@@ -171,7 +173,7 @@ def refreshed(
         line = _solve(triangle, basis.T @ weighted)
     except np.linalg.LinAlgError:
         return None
-    misfit = float(np.max(np.abs(linear @ line - weighted)))
+    misfit = float(np.abs(linear @ line - weighted).max())
     if not (np.isfinite(line).all() and math.isfinite(misfit)):
         return None
     return Quadratic(
@@ -375,7 +377,7 @@ def free(sample: Sample, centre: np.ndarray) -> float:
         unfixed = _Unfixed(centre.copy(), scale, q[:, rank:], sample.size, top)
     elif unfixed.seen < sample.size and unfixed.count > 0:
         y = (sample.points[unfixed.seen : sample.size] - unfixed.origin) / unfixed.scale
-        if not float(np.max(np.abs(y))) <= FAR:  # far (or not finite): start again next time
+        if not float(np.abs(y).max()) <= FAR:  # far (or not finite): start again next time
             sample.unfixed = None
             return math.inf
         features = _features(y)
@@ -540,12 +542,21 @@ def _qr(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     reflectors, tau, _, info = factor(a, factor_work)
     if info != 0:
         raise np.linalg.LinAlgError(f"LAPACK geqrf failed: {info}")
-    triangle = np.ascontiguousarray(np.triu(reflectors[:k]))
+    triangle = np.ascontiguousarray(reflectors[:k])
+    triangle[_below(k)] = 0.0  # numpy.triu's zeros (+0.0)
     basis, _, info = form(reflectors, tau, form_work, True)
     if info != 0:
         raise np.linalg.LinAlgError(f"LAPACK orgqr failed: {info}")
     # laid out by rows, as numpy returns them: the products that follow read them so
     return np.ascontiguousarray(basis), triangle
+
+
+@functools.lru_cache(maxsize=64)
+def _below(k: int) -> tuple[np.ndarray, np.ndarray]:
+    """The indices of the strictly lower triangle of a ``k`` × ``k`` matrix."""
+    rows, cols = np.tril_indices(k, -1)
+    rows.flags.writeable = cols.flags.writeable = False
+    return rows, cols
 
 
 @functools.lru_cache(maxsize=64)
@@ -646,23 +657,26 @@ def trust_step(model: Quadratic, radius: float) -> np.ndarray:
         return -g / (eigenvalues + shift)
 
     low = max(0.0, -float(eigenvalues[0]))
-    tiny = 1e-12 * max(1.0, float(np.max(np.abs(eigenvalues))))
+    tiny = 1e-12 * max(1.0, float(np.abs(eigenvalues).max()))
     if low == 0.0 and eigenvalues[0] > tiny:
         s = step(0.0)
         if _length(s) <= radius:
             return vectors @ s
     # the boundary solution: |s(λ)| = radius, |s| falls as λ grows (bisection on a log scale)
     lo, hi = low + tiny, low + tiny + _length(g) / radius + tiny
-    if _length(step(lo)) <= radius:  # the hard case: g has no part along the lowest vector
-        s = step(lo)
+    s = step(lo)
+    if _length(s) <= radius:  # the hard case: g has no part along the lowest vector
         rest = math.sqrt(max(radius**2 - float(s @ s), 0.0))
         s[0] += rest
         return vectors @ s
-    minus = -g  # step(mid) and its length inline: the same operations, in fewer calls
+    # step(mid) and its length inline, in one scratch vector: the same operations, in fewer
+    # calls and no new arrays (the bisection takes about 45 of them)
+    minus, add, divide, dot, sqrt = -g, np.add, np.divide, s.dot, math.sqrt
     for _ in range(100):
-        mid = math.sqrt(lo * hi) if lo > 0.0 else 0.5 * (lo + hi)
-        s = minus / (eigenvalues + mid)
-        if math.sqrt(s.dot(s)) > radius:
+        mid = sqrt(lo * hi) if lo > 0.0 else 0.5 * (lo + hi)
+        add(eigenvalues, mid, out=s)
+        divide(minus, s, out=s)
+        if sqrt(dot(s)) > radius:
             lo = mid
         else:
             hi = mid

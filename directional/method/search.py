@@ -784,7 +784,7 @@ def _model_step(
     floor = settings.value_tolerance * max(1.0, abs(best.value))
     # only a model that fixes every coefficient (finite misfit) may help end the search
     convex = bool(eigenvalues[0] > 0.0) and model.misfit <= max(floor, SETTLE_MISFIT * abs(best.value))
-    if float(np.max(np.abs(s))) <= settings.line_tolerance or not predicted > 0.0:
+    if float(np.abs(s).max()) <= settings.line_tolerance or not predicted > 0.0:
         if ahead and decisive and not (convex and predicted <= floor):
             # the verdict may end the search: a fit to the samples nearest the point gives it
             return (yield from _model_step(space, settings, best, directions, trust, decisive, True))
@@ -803,7 +803,7 @@ def _model_step(
     if best.noise > 0.0 and value < before:
         best.u, best.value = target, value
     ratio = (before - value) / predicted if math.isfinite(value) else -math.inf
-    length = float(np.linalg.norm(s))
+    length = math.sqrt(s.dot(s))  # numpy.linalg.norm's arithmetic
     if ratio >= 0.75 and length >= 0.5 * trust.radius:
         trust.radius = 2.0 * trust.radius
     elif ratio < 0.25:
