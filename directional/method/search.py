@@ -748,7 +748,7 @@ def _model_step(
     n = space.size
     points = int(FITTED * coefficients(n))
     model, trust.ahead = (None if fresh else trust.ahead), None
-    ahead = model is not None and np.array_equal(model.centre, best.u)
+    ahead = model is not None and bool((model.centre == best.u).all())  # numpy.array_equal's test
     verdict = False  # the model is only asked whether the point is settled
     if not ahead and decisive and not fresh and trust.carried is not None and best.noise == 0.0:
         # the cycle moved less than the tolerances: the last model with its linear part fitted
@@ -775,7 +775,7 @@ def _model_step(
         trust.radius = model.radius
     with np.errstate(all="ignore"):  # a model of values near overflow gives no usable step
         s = trust_step(model, trust.radius)
-    if not np.all(np.isfinite(s)):
+    if not np.isfinite(s).all():
         return directions, False, False
     target = np.clip(best.u + s, space.lower_u, space.upper_u)
     s = target - best.u
