@@ -30,8 +30,8 @@ well (after one it did, `refreshed` moves the model to the new point at ``O(p n�
 while they leave more coefficients free than a model step could use (`free` counts them from
 one fit request to the next at a fraction of a fit's cost), and not at all above ``LARGEST``
 variables: measured on the
-benchmark's machine, the model adds about 25 µs of processor time per evaluation at n = 10,
-0.45 ms at n = 30 and 3 ms at n = 50 (a fit there takes about 0.8 s).  It saves 3 to 11 times
+benchmark's machine, the model adds about 20 µs of processor time per evaluation at n = 10,
+0.3 ms at n = 30 and 3 ms at n = 50 (a fit there takes about 0.8 s).  It saves 3 to 11 times
 the evaluations on random quadratics, so a run's own time is no larger with it up to n = 30
 even for a free objective, and at n = 50 it pays once an evaluation costs more than about
 0.7 ms; above 50 a fit takes seconds and its memory grows as
