@@ -122,7 +122,7 @@ from directional.method.directions import (
     principal_axes_of_estimate,
     replaced,
 )
-from directional.method.linesearch import LineResult, line_search
+from directional.method.linesearch import Found, line_search_floats
 from directional.method.model import (
     LARGEST,
     Quadratic,
@@ -483,7 +483,7 @@ def _line(
     step: float,
     curvature: float,
     known: dict[float, float] | None = None,
-) -> Generator[Batch, np.ndarray, LineResult]:
+) -> Generator[Batch, np.ndarray, Found]:
     """Line search from the current point along ``d``; moves ``best`` to its minimum."""
     base = best.u
     lo, hi = space.segment(base, d)
@@ -497,7 +497,7 @@ def _line(
     heard = best.heard * abs(best.value) if best.noise == 0.0 else 0.0
     if heard > 0.0 and curvature > 0.0:  # as above, without the longer probes
         tolerance = max(tolerance, 0.25 * math.sqrt(NOISE_REACH * heard / curvature))
-    search = line_search(
+    search = line_search_floats(
         known if known is not None else {0.0: best.value},
         lo,
         hi,
@@ -517,23 +517,26 @@ def _line(
         while True:
             if len(ts) == 1:  # the rule: one point, without the loop over rows
                 # a float times a vector costs less than a numpy scalar times it (the same product)
-                t = float(ts[0])
+                t = ts[0]
                 u = base + t * d
-                values = yield Batch(points=space.to_user(u[None, :]), purpose=Purpose.LINE)
+                # mapped as a vector, then made a row: numpy's broadcasting would double the cost
+                values = yield Batch(points=space.to_user(u)[None, :], purpose=Purpose.LINE)
                 value = float(values[0])
                 best.answered += math.isfinite(value)
                 best.seen(u, value)
                 evaluated[t] = u
+                ts = search.send([value])
             else:
-                us = base + ts[:, None] * d
+                us = base + np.array(ts)[:, None] * d
                 values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
-                for t, u, value in zip(ts.tolist(), us, values.tolist()):
+                floats = values.tolist()
+                for t, u, value in zip(ts, us, floats):
                     best.answered += math.isfinite(value)
                     best.seen(u, value)
                     evaluated[t] = u
-            ts = search.send(values)
+                ts = search.send(floats)
     except StopIteration as stop:
-        result: LineResult = stop.value
+        result: Found = stop.value
     if math.isfinite(result.heard) and result.value != 0.0:  # the noise follows |f| from here
         best.heard = result.heard / abs(result.value)
     if result.value <= best.value or best.noise > 0.0:  # noisy: the fitted minimum, even if higher
@@ -701,7 +704,7 @@ def _expected(dropped: float, before: float) -> float:
     return min(dropped, dropped * dropped / before)
 
 
-def _next_step(result: LineResult, settings: Settings) -> float:
+def _next_step(result: Found, settings: Settings) -> float:
     """Probe length for the next search along the same direction: the last move, not too small."""
     return max(abs(result.point), 100.0 * settings.line_tolerance)
 
