@@ -279,7 +279,12 @@ def line_search_floats(
         i = _best(ts, fs)
         x = ts[i]
         tx = tolerance + relative * abs(x)
-        vertex, c = _model(points, x, noise) if parabolic else (math.nan, math.nan)
+        if not parabolic:
+            vertex, c = math.nan, math.nan
+        elif noise == 0.0 and math.isfinite(sum(fs)):  # `_model`, every value finite
+            vertex, c = _lowest_parabola(ts, fs)
+        else:
+            vertex, c = _model(points, x, noise)
         if heard > 0.0 and c > 0.0:  # no finer than a change of a quarter of the level
             tx = max(tx, math.sqrt(0.5 * heard / c))
         if not exact and c > 0.0 and (
@@ -344,6 +349,9 @@ def _unheard(points: dict[float, float], t0: float, noise: float) -> bool:
 def _best(ts: list[float], fs: list[float]) -> int:
     """Index of the lowest value; among equal values the point nearest the base ``t = 0``, so that
     a flat stretch is never mistaken for a descent."""
+    lowest = min(fs)
+    if fs.count(lowest) == 1:  # no tie (and not nan, which equals nothing): the one index
+        return fs.index(lowest)
     # the index breaks no tie the key leaves (equal keys: the first, as min with a key keeps)
     return min(zip(fs, map(abs, ts), range(len(ts))))[2]
 
@@ -369,6 +377,15 @@ def _model(points: dict[float, float], x: float, noise: float = 0.0) -> tuple[fl
     if len(finite) < 3:
         return math.nan, math.nan
     (fx, tx), (fw, tw), (fv, tv) = finite[:3]
+    return _vertex(tx, tw, tv, fx, fw, fv)
+
+
+def _lowest_parabola(ts: list[float], fs: list[float]) -> tuple[float, float]:
+    """`_model` without noise, of finite values ``fs`` at the sorted points ``ts``: the parabola
+    through the three lowest (the same order of (value, t) pairs, so the same three)."""
+    if len(ts) < 3:
+        return math.nan, math.nan
+    (fx, tx), (fw, tw), (fv, tv) = sorted(zip(fs, ts))[:3]
     return _vertex(tx, tw, tv, fx, fw, fv)
 
 
@@ -480,6 +497,8 @@ def _result(
     i = ts.index(x) if x is not None else _best(ts, fs)
     if noise > 0.0:
         i = _lowest_fitted(points, ts, i)
+    elif math.isfinite(sum(fs)):  # `_model` of finite values
+        return _found(ts, fs, i, _lowest_parabola(ts, fs)[1], spent)
     _, c = _model(points, ts[i], noise)
     return _found(ts, fs, i, c, spent)
 

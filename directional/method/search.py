@@ -415,25 +415,27 @@ def _cycle(
     largest, largest_drop = 0, 0.0
     last = 0.0  # the move of the cycle's last line search
     # what the line searches measure, as `DirectionSet.measured` records it, on the cycle's own
-    # copies: one set is built per cycle instead of one per line search
-    curvatures, steps = directions.curvatures.copy(), directions.steps.copy()
+    # lists of plain floats (the line search's scalar arithmetic is then Python's, not numpy's:
+    # the same doubles, a fraction of the time): one set is built per cycle, not one per line
+    curvatures, steps = directions.curvatures.tolist(), directions.steps.tolist()
+    reuse = settings.reuse_curvature
+    shortest = 100.0 * settings.line_tolerance  # `_next_step`
     for i, d in enumerate(directions.vectors):
         before = best.value
-        # plain floats: the line search's scalar arithmetic is then Python's, not numpy's (the
-        # same doubles, a fraction of the time)
-        measured = float(curvatures[i])
-        known_curvature = measured if settings.reuse_curvature else math.nan
-        step = float(steps[i])
+        measured = curvatures[i]
+        step = steps[i]
         if math.isnan(measured):  # nothing measured here: the last move is
             step = max(step, min(last, SEEDED * step))  # a better guess of the scale
-        result = yield from _line(space, settings, best, d, step, known_curvature)
+        result = yield from _line(space, settings, best, d, step, measured if reuse else math.nan)
         last = abs(result.point)
         if math.isfinite(result.curvature) and result.curvature > 0.0:
             curvatures[i] = result.curvature
-        steps[i] = _next_step(result, settings)
+        steps[i] = max(last, shortest)
         if before - best.value > largest_drop:
             largest, largest_drop = i, before - best.value
-    directions = DirectionSet(vectors=directions.vectors, curvatures=curvatures, steps=steps)
+    directions = DirectionSet(
+        vectors=directions.vectors, curvatures=np.array(curvatures), steps=np.array(steps)
+    )
     overall = best.u - u0
     length = float(np.linalg.norm(overall))
     if settings.replace_directions and length > settings.line_tolerance:
@@ -442,7 +444,7 @@ def _cycle(
         )
     if _condition(best, directions.vectors) > DEGENERATE:  # `directions.degenerate`
         directions = principal_axes_of_estimate(directions) or principal_axes(space.size, FIRST_STEP)
-    moved = float(np.max(np.abs(best.u - u0)))
+    moved = float(np.abs(best.u - u0).max())  # np.max's result, without its dispatch
     return directions, moved, f0 - best.value
 
 
@@ -486,8 +488,11 @@ def _line(
 ) -> Generator[Batch, np.ndarray, Found]:
     """Line search from the current point along ``d``; moves ``best`` to its minimum."""
     base = best.u
-    lo, hi = space.segment(base, d)
-    lo, hi = max(lo, -FARTHEST), min(hi, FARTHEST)
+    if space.unbounded:  # what the general case gives, without its calls
+        lo, hi = -FARTHEST, FARTHEST
+    else:
+        lo, hi = space.segment(base, d)
+        lo, hi = max(lo, -FARTHEST), min(hi, FARTHEST)
     tolerance = best.resolution
     if best.noise > 0.0 and curvature > 0.0:
         # probe far enough that the value changes by several noise levels; resolve no finer
