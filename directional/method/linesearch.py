@@ -75,6 +75,7 @@ EPSILON = float(np.finfo(float).eps)
 FITTED = 5  # a noisy line's parabola is fitted to this many points nearest the best (at least 4)
 HEARD = 3.0  # a noisy probe tells something when it changes the value by this many noise levels
 WIDEN = 10.0  # an unheard noisy probe is repeated this many times farther out
+assert LINE_POINTS > 3  # `_settled`: three points never make a line's own table
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -265,8 +266,14 @@ def line_search_floats(
             if worth > 0.0 and noise == 0.0 and _promise(t0, f0, t1, f1, curvature) <= worth:
                 return _result(points, None, spent)  # the probe is as good as the caller needs
             values = yield [t2]
-            points[t2] = values[0]
+            points[t2] = f2 = values[0]
             spent += 1
+            if noise == 0.0 and not exact and spent < limit and len(points) == 3:
+                # the loop's first verdict, on the three points as they are (the usual end of
+                # a line along which the curvature was known)
+                found = _settled(t0, f0, t1, f1, t2, f2, tolerance, relative, heard, worth, spent)
+                if found is not None:
+                    return found
 
     last = before_last = math.inf  # Brent's d and e: the last step and the one before
     while spent < limit:
@@ -317,6 +324,39 @@ def line_search_floats(
         points[u] = values[0]
         spent += 1
     return _result(points, None, spent, noise)
+
+
+def _settled(
+    t0: float, f0: float, t1: float, f1: float, t2: float, f2: float,
+    tolerance: float, relative: float, heard: float, worth: float, spent: int,
+) -> Found | None:
+    """What the refining loop's first pass returns on exactly these three points (without noise,
+    parabolic, not exact) when it stops there at once: the lowest, with the parabola through the
+    three putting its vertex within the resolution or promising no more than ``worth``.  None
+    when the loop has to decide: it goes on, or a value is not finite, or two are equal (ties,
+    which the loop breaks by the distance from the base)."""
+    if not (math.isfinite(f0 + f1 + f2) and f0 != f1 and f1 != f2 and f0 != f2):
+        return None
+    # sorted by value, as `_lowest_parabola` sorts them (the values differ)
+    (fx, x), (fw, w), (fv, v) = sorted(((f0, t0), (f1, t1), (f2, t2)))
+    vertex, c = _vertex(x, w, v, fx, fw, fv)
+    if not c > 0.0:
+        return None
+    tx = tolerance + relative * abs(x)
+    if heard > 0.0:  # no finer than a change of a quarter of the level
+        tx = max(tx, math.sqrt(0.5 * heard / c))
+    if not (abs(vertex - x) <= tx or 0.5 * c * (vertex - x) ** 2 <= worth):
+        return None
+    # the bracket: the evaluated neighbours of x (x itself at an end), as `_found` takes them
+    if w < x:
+        lo = max(w, v) if v < x else w
+    else:
+        lo = v if v < x else x
+    if w > x:
+        hi = min(w, v) if v > x else w
+    else:
+        hi = v if v > x else x
+    return Found(x, fx, lo, hi, c, spent)
 
 
 def _fresh(points: dict[float, float], t: float, half: float) -> bool:
