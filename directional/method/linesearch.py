@@ -537,6 +537,8 @@ def _result(
     i = ts.index(x) if x is not None else _best(ts, fs)
     if noise > 0.0:
         i = _lowest_fitted(points, ts, i)
+    elif len(ts) < 3:  # no parabola through fewer than three points (`_model`)
+        return _found(ts, fs, i, math.nan, spent)
     elif math.isfinite(sum(fs)):  # `_model` of finite values
         return _found(ts, fs, i, _lowest_parabola(ts, fs)[1], spent)
     _, c = _model(points, ts[i], noise)

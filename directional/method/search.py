@@ -138,6 +138,7 @@ from directional.method.space import Space
 from directional.records import Batch, Halt, Outcome, Purpose, Stop
 
 Search = Generator[Batch, np.ndarray, Outcome]
+LINE = Purpose.LINE  # read once: the enum member is looked up on its class at every use
 
 FIRST_STEP = 0.1  # first probe along an axis, in scaled units (a tenth of the problem's size)
 SKEWED = 1e3  # condition of the direction set beyond which a calm cycle is not trusted
@@ -525,7 +526,7 @@ def _line(
                 t = ts[0]
                 u = base + t * d
                 # mapped as a vector, then made a row: numpy's broadcasting would double the cost
-                values = yield Batch(points=space.to_user(u)[None, :], purpose=Purpose.LINE)
+                values = yield Batch(points=space.to_user(u)[None, :], purpose=LINE)
                 value = float(values[0])
                 best.answered += math.isfinite(value)
                 best.seen(u, value)
