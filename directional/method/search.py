@@ -279,11 +279,11 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             if sample is not None:
                 before = best.u.copy(), best.value
                 # the model may go at least as far as the line searches just went
-                trust.radius = max(trust.radius, float(np.linalg.norm(best.u - begun)))
+                trust.radius = max(trust.radius, _length(best.u - begun))
                 for _ in range(MODEL_STEPS):
                     # whether the model's verdict may end the search (the cycle and the row
                     # so far moved less than the tolerances): then it comes from a fit
-                    decisive = max(moved, float(np.max(np.abs(best.u - before[0])))) <= (
+                    decisive = max(moved, float(np.abs(best.u - before[0]).max())) <= (
                         settings.point_tolerance
                     ) and dropped + before[1] - best.value <= settings.value_tolerance * max(
                         1.0, abs(best.value)
@@ -294,7 +294,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                     if settled or not gained:
                         break
                 trust.ahead = None  # the next row's model is fitted to the cycle's points too
-                moved = max(moved, float(np.max(np.abs(best.u - before[0]))))
+                moved = max(moved, float(np.abs(best.u - before[0]).max()))
                 dropped += before[1] - best.value
             small = moved <= settings.point_tolerance and dropped <= (
                 settings.value_tolerance * max(1.0, abs(best.value))
@@ -358,7 +358,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 # singular function, MGH 13, and Brown and Dennis, MGH 16, from 10 times their
                 # starts miss 20 (n + 1) evaluations at a relative decrease of 1e-7)
                 axes = principal_axes_of_estimate(directions)
-                if axes is not None and np.max(axes.curvatures) <= SPREAD * np.min(axes.curvatures):
+                if axes is not None and axes.curvatures.max() <= SPREAD * axes.curvatures.min():
                     directions = axes
             if not ending:
                 fresh = fresh and small
@@ -438,14 +438,14 @@ def _cycle(
         vectors=directions.vectors, curvatures=np.array(curvatures), steps=np.array(steps)
     )
     overall = best.u - u0
-    length = float(np.linalg.norm(overall))
+    length = _length(overall)
     if settings.replace_directions and length > settings.line_tolerance:
         directions = yield from _replace(
             space, settings, best, directions, overall / length, length, f0, largest, largest_drop
         )
     if _condition(best, directions.vectors) > DEGENERATE:  # `directions.degenerate`
         directions = principal_axes_of_estimate(directions) or principal_axes(space.size, FIRST_STEP)
-    moved = float(np.abs(best.u - u0).max())  # np.max's result, without its dispatch
+    moved = float(np.abs(best.u - u0).max())  # np.max's reduction, without its dispatch
     return directions, moved, f0 - best.value
 
 
@@ -688,6 +688,12 @@ def _condition(best: _Tracker, vectors: np.ndarray) -> float:
     value = condition(vectors)
     best.conditioned = vectors, value
     return value
+
+
+def _length(v: np.ndarray) -> float:
+    """`numpy.linalg.norm` of a vector bit for bit (the square root of its dot product with
+    itself, as numpy computes it), without its checks (asked once or twice a cycle)."""
+    return math.sqrt(float(v.dot(v)))
 
 
 def _resolution(settings: Settings, moved: float) -> float:
