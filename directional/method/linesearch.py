@@ -3,7 +3,9 @@
 Theory of operation.  The search is a generator over the line parameter ``t``: it yields arrays of
 ``t`` values to evaluate and receives their objective values (``+inf`` for a failed evaluation).
 All points it has seen are kept, sorted, so the bracket around the best point is always its two
-evaluated neighbours.
+evaluated neighbours.  `line_search_floats` is the same generator on lists of plain floats and
+returns a tuple (`Found`): the direction-set search runs that one, without a numpy array per
+point and a record per line.
 
 1. Probe.  From the known points (at least the base point ``t = 0``), one step of the size the
    caller suggests, to both sides at once (one batch) when the curvature is unknown and the
@@ -100,7 +102,8 @@ LineSearch = Generator[np.ndarray, np.ndarray, LineResult]
 
 class Found(NamedTuple):
     """`LineResult` as a plain tuple, what `line_search_floats` returns: the search ends a line
-    search every two evaluations or so, and a tuple costs a third of the frozen record."""
+    search every two evaluations or so, and a named tuple takes a fraction of the frozen record's
+    time to make (about 0.3 against 1 µs, measured on a loaded machine)."""
 
     point: float
     value: float
