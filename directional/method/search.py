@@ -122,7 +122,7 @@ from directional.method.directions import (
     principal_axes_of_estimate,
     replaced,
 )
-from directional.method.linesearch import LineResult, line_search
+from directional.method.linesearch import Found, line_search_floats
 from directional.method.model import (
     LARGEST,
     Quadratic,
@@ -139,6 +139,7 @@ from directional.method.space import Space
 from directional.records import Batch, Halt, Outcome, Purpose, Stop
 
 Search = Generator[Batch, np.ndarray, Outcome]
+LINE = Purpose.LINE  # read once: the enum member is looked up on its class at every use
 
 FIRST_STEP = 0.1  # first probe along an axis, in scaled units (a tenth of the problem's size)
 SKEWED = 1e3  # condition of the direction set beyond which a calm cycle is not trusted
@@ -279,11 +280,11 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             if sample is not None:
                 before = best.u.copy(), best.value
                 # the model may go at least as far as the line searches just went
-                trust.radius = max(trust.radius, float(np.linalg.norm(best.u - begun)))
+                trust.radius = max(trust.radius, _length(best.u - begun))
                 for _ in range(MODEL_STEPS):
                     # whether the model's verdict may end the search (the cycle and the row
                     # so far moved less than the tolerances): then it comes from a fit
-                    decisive = max(moved, float(np.max(np.abs(best.u - before[0])))) <= (
+                    decisive = max(moved, float(np.abs(best.u - before[0]).max())) <= (
                         settings.point_tolerance
                     ) and dropped + before[1] - best.value <= settings.value_tolerance * max(
                         1.0, abs(best.value)
@@ -294,7 +295,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                     if settled or not gained:
                         break
                 trust.ahead = None  # the next row's model is fitted to the cycle's points too
-                moved = max(moved, float(np.max(np.abs(best.u - before[0]))))
+                moved = max(moved, float(np.abs(best.u - before[0]).max()))
                 dropped += before[1] - best.value
             small = moved <= settings.point_tolerance and dropped <= (
                 settings.value_tolerance * max(1.0, abs(best.value))
@@ -358,7 +359,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
                 # singular function, MGH 13, and Brown and Dennis, MGH 16, from 10 times their
                 # starts miss 20 (n + 1) evaluations at a relative decrease of 1e-7)
                 axes = principal_axes_of_estimate(directions)
-                if axes is not None and np.max(axes.curvatures) <= SPREAD * np.min(axes.curvatures):
+                if axes is not None and axes.curvatures.max() <= SPREAD * axes.curvatures.min():
                     directions = axes
             if not ending:
                 fresh = fresh and small
@@ -416,34 +417,36 @@ def _cycle(
     largest, largest_drop = 0, 0.0
     last = 0.0  # the move of the cycle's last line search
     # what the line searches measure, as `DirectionSet.measured` records it, on the cycle's own
-    # copies: one set is built per cycle instead of one per line search
-    curvatures, steps = directions.curvatures.copy(), directions.steps.copy()
+    # lists of plain floats (the line search's scalar arithmetic is then Python's, not numpy's:
+    # the same doubles, a fraction of the time): one set is built per cycle, not one per line
+    curvatures, steps = directions.curvatures.tolist(), directions.steps.tolist()
+    reuse = settings.reuse_curvature
+    shortest = 100.0 * settings.line_tolerance  # `_next_step`
     for i, d in enumerate(directions.vectors):
         before = best.value
-        # plain floats: the line search's scalar arithmetic is then Python's, not numpy's (the
-        # same doubles, a fraction of the time)
-        measured = float(curvatures[i])
-        known_curvature = measured if settings.reuse_curvature else math.nan
-        step = float(steps[i])
+        measured = curvatures[i]
+        step = steps[i]
         if math.isnan(measured):  # nothing measured here: the last move is
             step = max(step, min(last, SEEDED * step))  # a better guess of the scale
-        result = yield from _line(space, settings, best, d, step, known_curvature)
+        result = yield from _line(space, settings, best, d, step, measured if reuse else math.nan)
         last = abs(result.point)
         if math.isfinite(result.curvature) and result.curvature > 0.0:
             curvatures[i] = result.curvature
-        steps[i] = _next_step(result, settings)
+        steps[i] = max(last, shortest)
         if before - best.value > largest_drop:
             largest, largest_drop = i, before - best.value
-    directions = DirectionSet(vectors=directions.vectors, curvatures=curvatures, steps=steps)
+    directions = DirectionSet(
+        vectors=directions.vectors, curvatures=np.array(curvatures), steps=np.array(steps)
+    )
     overall = best.u - u0
-    length = float(np.linalg.norm(overall))
+    length = _length(overall)
     if settings.replace_directions and length > settings.line_tolerance:
         directions = yield from _replace(
             space, settings, best, directions, overall / length, length, f0, largest, largest_drop
         )
     if _condition(best, directions.vectors) > DEGENERATE:  # `directions.degenerate`
         directions = principal_axes_of_estimate(directions) or principal_axes(space.size, FIRST_STEP)
-    moved = float(np.max(np.abs(best.u - u0)))
+    moved = float(np.abs(best.u - u0).max())  # np.max's reduction, without its dispatch
     return directions, moved, f0 - best.value
 
 
@@ -484,11 +487,14 @@ def _line(
     step: float,
     curvature: float,
     known: dict[float, float] | None = None,
-) -> Generator[Batch, np.ndarray, LineResult]:
+) -> Generator[Batch, np.ndarray, Found]:
     """Line search from the current point along ``d``; moves ``best`` to its minimum."""
     base = best.u
-    lo, hi = space.segment(base, d)
-    lo, hi = max(lo, -FARTHEST), min(hi, FARTHEST)
+    if space.unbounded:  # what the general case gives, without its calls
+        lo, hi = -FARTHEST, FARTHEST
+    else:
+        lo, hi = space.segment(base, d)
+        lo, hi = max(lo, -FARTHEST), min(hi, FARTHEST)
     tolerance = best.resolution
     if best.noise > 0.0 and curvature > 0.0:
         # probe far enough that the value changes by several noise levels; resolve no finer
@@ -498,7 +504,7 @@ def _line(
     heard = best.heard * abs(best.value) if best.noise == 0.0 else 0.0
     if heard > 0.0 and curvature > 0.0:  # as above, without the longer probes
         tolerance = max(tolerance, 0.25 * math.sqrt(NOISE_REACH * heard / curvature))
-    search = line_search(
+    search = line_search_floats(
         known if known is not None else {0.0: best.value},
         lo,
         hi,
@@ -518,23 +524,26 @@ def _line(
         while True:
             if len(ts) == 1:  # the rule: one point, without the loop over rows
                 # a float times a vector costs less than a numpy scalar times it (the same product)
-                t = float(ts[0])
+                t = ts[0]
                 u = base + t * d
-                values = yield Batch(points=space.to_user(u[None, :]), purpose=Purpose.LINE)
+                # mapped as a vector, then made a row: numpy's broadcasting would double the cost
+                values = yield Batch(points=space.to_user(u)[None, :], purpose=LINE)
                 value = float(values[0])
                 best.answered += math.isfinite(value)
                 best.seen(u, value)
                 evaluated[t] = u
+                ts = search.send([value])
             else:
-                us = base + ts[:, None] * d
+                us = base + np.array(ts)[:, None] * d
                 values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
-                for t, u, value in zip(ts.tolist(), us, values.tolist()):
+                floats = values.tolist()
+                for t, u, value in zip(ts, us, floats):
                     best.answered += math.isfinite(value)
                     best.seen(u, value)
                     evaluated[t] = u
-            ts = search.send(values)
+                ts = search.send(floats)
     except StopIteration as stop:
-        result: LineResult = stop.value
+        result: Found = stop.value
     if math.isfinite(result.heard) and result.value != 0.0:  # the noise follows |f| from here
         best.heard = result.heard / abs(result.value)
     if result.value <= best.value or best.noise > 0.0:  # noisy: the fitted minimum, even if higher
@@ -682,6 +691,12 @@ def _condition(best: _Tracker, vectors: np.ndarray) -> float:
     return value
 
 
+def _length(v: np.ndarray) -> float:
+    """`numpy.linalg.norm` of a vector bit for bit (the square root of its dot product with
+    itself, as numpy computes it), without its checks (asked once or twice a cycle)."""
+    return math.sqrt(float(v.dot(v)))
+
+
 def _resolution(settings: Settings, moved: float) -> float:
     """Line-search resolution for the next cycle: a hundredth of the last cycle's move, never
     finer than the final resolution.  Far from the minimum a line search need not be exact
@@ -702,7 +717,7 @@ def _expected(dropped: float, before: float) -> float:
     return min(dropped, dropped * dropped / before)
 
 
-def _next_step(result: LineResult, settings: Settings) -> float:
+def _next_step(result: Found, settings: Settings) -> float:
     """Probe length for the next search along the same direction: the last move, not too small."""
     return max(abs(result.point), 100.0 * settings.line_tolerance)
 

@@ -37,12 +37,18 @@ class Space:
     # whose sum with a zero step would lose its sign).  They change no result, only the work.
     unbounded: bool = field(init=False, repr=False, compare=False)
     direct: bool = field(init=False, repr=False, compare=False)
+    # ... and a map that is the identity but for the sign of a zero (every start 0.0, every
+    # scale 1, no bound): ``origin + scale * u`` is then ``u + 0.0`` bit for bit
+    identity: bool = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         unbounded = bool((self.lower == -np.inf).all() and (self.upper == np.inf).all())
         negative_zero = bool(((self.start == 0.0) & np.signbit(self.start)).any())
         object.__setattr__(self, "unbounded", unbounded)
         object.__setattr__(self, "direct", not self.log.any() and not negative_zero)
+        zero = bool((self.origin == 0.0).all() and not np.signbit(self.origin).any())
+        identity = unbounded and self.direct and zero and bool((self.scale == 1.0).all())
+        object.__setattr__(self, "identity", identity)
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -55,6 +61,8 @@ class Space:
     def to_user(self, u: np.ndarray) -> np.ndarray:
         """Map scaled points (shape (..., n)) to user coordinates, clipped to the bounds."""
         u = np.asarray(u, dtype=float)
+        if self.identity:  # 1 * u is u, and 0.0 + u is u + 0.0 (which turns -0.0 into 0.0)
+            return u + 0.0
         x = self.origin + self.scale * u
         if self.direct:  # x is the start bit for bit where u is 0, and lies inside the bounds
             return x if self.unbounded else np.minimum(np.maximum(x, self.lower), self.upper)

@@ -162,3 +162,73 @@ def test_a_level_heard_before_ends_the_next_line_early():
     assert len(seen) <= 6
     assert math.isnan(result.heard)  # nothing more to hear: it stopped before the table
     assert abs(result.point - 0.3) < 0.1
+
+
+def _drive_floats(f, search):
+    """`drive` for `line_search_floats`: lists of t out, lists of values in."""
+    seen = []
+    try:
+        ts = next(search)
+        while True:
+            seen.extend(ts)
+            ts = search.send([f(t) for t in ts])
+    except StopIteration as done:
+        return done.value, seen
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    minimum=st.floats(-3.0, 3.0),
+    height=st.floats(0.1, 10.0),
+    cubic=st.sampled_from([0.0, 0.05, -0.3, 2.0]),
+    guess=st.sampled_from([math.nan, 0.3, 1.0, 1.7]),
+    step=st.floats(0.01, 2.0),
+    worth=st.sampled_from([0.0, 1e-9, 1e-4, 1e-1]),
+    rounded=st.booleans(),
+)
+def test_the_shortcuts_take_the_general_loops_decisions(
+    minimum, height, cubic, guess, step, worth, rounded
+):
+    # The three-point verdict (`_settled`), the lowest value without ties (`_best`) and the
+    # parabola of finite values (`_lowest_parabola`) only save work: with each replaced by the
+    # general computation, the same points are evaluated and the same result returned (common
+    # practice, no source).  Values rounded to a coarse grid make ties.
+    from unittest import mock
+
+    from directional.method import linesearch
+
+    def f(t):
+        value = height * (t - minimum) ** 2 + cubic * (t - minimum) ** 3
+        return round(value, 2) if rounded else value
+
+    def run():
+        curvature = 2.0 * height * guess  # nan: unknown, else a guess off by the factor
+        return _drive_floats(f, linesearch.line_search_floats(
+            {0.0: f(0.0)}, -5.0, 5.0, step=step, tolerance=1e-7, curvature=curvature,
+            worth=worth, limit=40,
+        ))
+
+    def general_best(ts, fs):
+        return min(zip(fs, map(abs, ts), range(len(ts))))[2]
+
+    def general_parabola(ts, fs):
+        return linesearch._model(dict(zip(ts, fs)), 0.0)
+
+    fast = run()
+    with (
+        mock.patch.object(linesearch, "_settled", lambda *args: None),
+        mock.patch.object(linesearch, "_best", general_best),
+        mock.patch.object(linesearch, "_lowest_parabola", general_parabola),
+    ):
+        slow = run()
+    assert fast == slow
+
+
+@given(st.lists(st.sampled_from([0.0, -0.0, 1.0, 2.0, math.inf, math.nan, -1.5]), min_size=1, max_size=8))
+def test_the_lowest_value_is_the_general_ones(values):
+    # `_best` skips the keyed minimum when the lowest value is unique; with ties, infinities and
+    # nan it must pick what the keyed minimum picks (common practice, no source)
+    from directional.method import linesearch
+
+    ts = [0.5 * k - 1.0 for k in range(len(values))]
+    assert linesearch._best(ts, values) == min(zip(values, map(abs, ts), range(len(ts))))[2]

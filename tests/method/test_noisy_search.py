@@ -11,7 +11,7 @@ import pytest
 
 import directional as dl
 from directional.method import noise
-from directional.method.linesearch import fitted_parabola, line_search
+from directional.method.linesearch import fitted_parabola, line_search, line_search_floats
 from directional.method.search import Settings, powell
 from directional.method.space import build_space
 from directional.records import Batch, Halt, Stop
@@ -206,11 +206,11 @@ def _record_heard(monkeypatch) -> list[float]:
     heard: list[float] = []
 
     def listened(*args, **kwargs):
-        result = yield from line_search(*args, **kwargs)
+        result = yield from line_search_floats(*args, **kwargs)
         heard.append(result.heard)
         return result
 
-    monkeypatch.setattr(module, "line_search", listened)
+    monkeypatch.setattr(module, "line_search_floats", listened)
     return heard
 
 
