@@ -44,7 +44,13 @@ three best points puts its vertex within the tolerance of the best point: the ne
 below the tolerance, so it is not taken (this is what makes a line search on a quadratic cost two
 new evaluations).  Also, given ``worth`` (the least decrease the caller can still use), as soon
 as the parabola promises less than that below the best value: with a known curvature this can be
-right after the first probe, so that a line costs one evaluation.
+right after the first probe, so that a line costs one evaluation.  Conversely, given ``ample``
+(a decrease the caller would not leave behind), a vertex closer to the best point than the
+resolution is still evaluated when its parabola promises more than that: the resolution is a
+length, and a valley narrower than it can hold most of the decrease (along the first variable
+of Powell's badly scaled function, Moré, Garbow & Hillstrom 1981, no. 3, the valley is about
+1e-5 wide, a hundredth of the resolution the direction-set search works to after its first
+cycle).
 
 References
 ----------
@@ -144,6 +150,8 @@ def line_search(
     heard: float = 0.0,
     listen: bool = True,
     worth: float = 0.0,
+    ample: float = 0.0,
+    finest: float = 0.0,
 ) -> LineSearch:
     """Search ``[lower, upper]`` for a minimum, as a generator (see the module docstring).
 
@@ -156,7 +164,10 @@ def line_search(
     level an earlier line's points showed; 0 for none) only limits the resolution; ``listen``
     False leaves the line's own table unread (the caller said the values have no noise).
     ``worth`` (without noise; 0 for none) is the least decrease worth another evaluation: the
-    search stops when its parabola promises less.
+    search stops when its parabola promises less.  ``ample`` (without noise; 0 for none) is a
+    decrease the resolution may not hide: a vertex within the resolution of the best point whose
+    parabola promises more than ``ample`` below it is evaluated all the same, unless it lies
+    within ``finest / 2`` of a point already evaluated.
     """
     points = {float(t): float(v) for t, v in known.items()}
     spent = 0
@@ -232,6 +243,17 @@ def line_search(
         vertex, c = _model(points, x, noise) if parabolic else (math.nan, math.nan)
         if heard > 0.0 and c > 0.0:  # no finer than a change of a quarter of the level
             tx = max(tx, math.sqrt(0.5 * heard / c))
+        if (
+            ample > 0.0 and noise == 0.0 and heard == 0.0 and c > 0.0 and abs(vertex - x) <= tx
+            and 0.5 * c * (vertex - x) ** 2 > ample and lower <= vertex <= upper
+            and all(abs(vertex - t) > 0.5 * finest for t in points)
+        ):
+            # the vertex lies within the resolution, but the parabola promises more there than
+            # the caller's ``ample``: the resolution hides a narrow valley; evaluate the vertex
+            values = yield np.array([vertex])
+            points[vertex] = float(values[0])
+            spent += 1
+            continue
         if not exact and c > 0.0 and (
             abs(vertex - x) <= tx or (noise == 0.0 and 0.5 * c * (vertex - x) ** 2 <= worth)
         ):

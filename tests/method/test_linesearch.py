@@ -110,6 +110,25 @@ def test_a_line_stops_when_the_parabola_promises_less_than_it_is_worth(worth, co
     assert result.point == pytest.approx(point, abs=1e-12)
 
 
+@pytest.mark.parametrize("ample, count, point", [(0.0, 2, 0.0), (2.0, 2, 0.0), (0.5, 3, 1e-5)])
+def test_a_valley_narrower_than_the_resolution_is_not_hidden_when_it_promises_enough(
+    ample, count, point
+):
+    # f = 1 + 1e10 (t - 1e-5)^2 (analytic): the probes at +-0.1 give the parabola exactly, its
+    # vertex 1e-5 lies within the resolution 0.01 of the base point and promises 1.0 below
+    # f(0) = 2.  Without ``ample``, or with more than it promises, the line stays at 0; with
+    # ample 0.5 it evaluates the vertex, the minimum.
+    f = lambda t: 1.0 + 1e10 * (t - 1e-5) ** 2  # noqa: E731
+    result, seen = drive(
+        f,
+        line_search({0.0: f(0.0)}, -10.0, 10.0, step=0.1, tolerance=0.01, ample=ample,
+                    finest=1e-9),
+    )
+    assert len(seen) == count
+    assert result.point == pytest.approx(point, abs=1e-12)
+    assert result.value == pytest.approx(f(point), rel=1e-9)
+
+
 @settings(max_examples=60, deadline=None)
 @given(
     lower=st.floats(-50, 0),
