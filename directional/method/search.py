@@ -16,7 +16,8 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   ends after its first probe.  Conversely, a vertex closer than the line's resolution is still
   evaluated when its parabola promises more than the whole last cycle gained: the resolution
   (a hundredth of the last cycle's move) hid the valley of Powell's badly scaled function (Moré,
-  Garbow & Hillstrom 1981, no. 3), 1e-5 wide along its first variable, for a cycle more.
+  Garbow & Hillstrom 1981, no. 3), 1e-5 wide along its first variable, for two cycles: the
+  parabola along it put its vertex 1.1e-5 from the point, promising 98 % of the value.
 - At the end of a cycle the point extrapolated as far again along the cycle's overall step is
   evaluated.  If Powell's (1964) test accepts, the overall step becomes a new direction: it is
   line-searched (the three points on it are already known) and replaces the direction of largest
