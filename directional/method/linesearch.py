@@ -46,7 +46,13 @@ three best points puts its vertex within the tolerance of the best point: the ne
 below the tolerance, so it is not taken (this is what makes a line search on a quadratic cost two
 new evaluations).  Also, given ``worth`` (the least decrease the caller can still use), as soon
 as the parabola promises less than that below the best value: with a known curvature this can be
-right after the first probe, so that a line costs one evaluation.
+right after the first probe, so that a line costs one evaluation.  Conversely, given ``ample``
+(a decrease the caller would not leave behind), a vertex closer to the best point than the
+resolution is still evaluated when its parabola promises more than that: the resolution is a
+length, and a valley narrower than it can hold most of the decrease (along the first variable
+of Powell's badly scaled function, Moré, Garbow & Hillstrom 1981, no. 3, the valley is about
+1e-5 wide, a hundredth of the resolution the direction-set search works to after its first
+cycle).
 
 References
 ----------
@@ -168,6 +174,8 @@ def line_search(
     heard: float = 0.0,
     listen: bool = True,
     worth: float = 0.0,
+    ample: float = 0.0,
+    finest: float = 0.0,
 ) -> LineSearch:
     """Search ``[lower, upper]`` for a minimum, as a generator (see the module docstring).
 
@@ -180,7 +188,10 @@ def line_search(
     level an earlier line's points showed; 0 for none) only limits the resolution; ``listen``
     False leaves the line's own table unread (the caller said the values have no noise).
     ``worth`` (without noise; 0 for none) is the least decrease worth another evaluation: the
-    search stops when its parabola promises less.
+    search stops when its parabola promises less.  ``ample`` (without noise; 0 for none) is a
+    decrease the resolution may not hide: a vertex within the resolution of the best point whose
+    parabola promises more than ``ample`` below it is evaluated all the same, unless it lies
+    within ``finest / 2`` of a point already evaluated.
 
     It yields arrays of ``t`` and receives arrays of values; `line_search_floats` is the same
     search on lists of plain floats.
@@ -189,7 +200,7 @@ def line_search(
         {float(t): float(v) for t, v in known.items()}, float(lower), float(upper), step=step,
         tolerance=tolerance, relative=relative, curvature=curvature, start=float(start),
         growth=growth, limit=limit, exact=exact, parabolic=parabolic, noise=noise, heard=heard,
-        listen=listen, worth=worth,
+        listen=listen, worth=worth, ample=ample, finest=finest,
     )
     try:
         ts = next(search)
@@ -219,6 +230,8 @@ def line_search_floats(
     heard: float = 0.0,
     listen: bool = True,
     worth: float = 0.0,
+    ample: float = 0.0,
+    finest: float = 0.0,
 ) -> Generator[list[float], list[float], Found]:
     """`line_search` on plain floats: yields lists of ``t``, receives lists of their values (as
     Python floats) and returns a `Found`.  ``points`` (``t`` to value, floats) is taken over and
@@ -274,7 +287,9 @@ def line_search_floats(
             if noise == 0.0 and not exact and spent < limit and len(points) == 3:
                 # the loop's first verdict, on the three points as they are (the usual end of
                 # a line along which the curvature was known)
-                found = _settled(t0, f0, t1, f1, t2, f2, tolerance, relative, heard, worth, spent)
+                found = _settled(
+                    t0, f0, t1, f1, t2, f2, tolerance, relative, heard, worth, ample, spent
+                )
                 if found is not None:
                     return found
 
@@ -297,6 +312,17 @@ def line_search_floats(
             vertex, c = _model(points, x, noise)
         if heard > 0.0 and c > 0.0:  # no finer than a change of a quarter of the level
             tx = max(tx, math.sqrt(0.5 * heard / c))
+        if (
+            ample > 0.0 and noise == 0.0 and heard == 0.0 and c > 0.0 and abs(vertex - x) <= tx
+            and 0.5 * c * (vertex - x) ** 2 > ample and lower <= vertex <= upper
+            and all(abs(vertex - t) > 0.5 * finest for t in points)
+        ):
+            # the vertex lies within the resolution, but the parabola promises more there than
+            # the caller's ``ample``: the resolution hides a narrow valley; evaluate the vertex
+            values = yield [vertex]
+            points[vertex] = values[0]
+            spent += 1
+            continue
         if not exact and c > 0.0 and (
             abs(vertex - x) <= tx or (noise == 0.0 and 0.5 * c * (vertex - x) ** 2 <= worth)
         ):
@@ -331,13 +357,14 @@ def line_search_floats(
 
 def _settled(
     t0: float, f0: float, t1: float, f1: float, t2: float, f2: float,
-    tolerance: float, relative: float, heard: float, worth: float, spent: int,
+    tolerance: float, relative: float, heard: float, worth: float, ample: float, spent: int,
 ) -> Found | None:
     """What the refining loop's first pass returns on exactly these three points (without noise,
     parabolic, not exact) when it stops there at once: the lowest, with the parabola through the
     three putting its vertex within the resolution or promising no more than ``worth``.  None
     when the loop has to decide: it goes on, or a value is not finite, or two are equal (ties,
-    which the loop breaks by the distance from the base)."""
+    which the loop breaks by the distance from the base, or a vertex within the resolution that
+    promises more than ``ample``, which the loop may evaluate)."""
     if not (math.isfinite(f0 + f1 + f2) and f0 != f1 and f1 != f2 and f0 != f2):
         return None
     # sorted by value, as `_lowest_parabola` sorts them (the values differ)
@@ -349,6 +376,8 @@ def _settled(
     if heard > 0.0:  # no finer than a change of a quarter of the level
         tx = max(tx, math.sqrt(0.5 * heard / c))
     if not (abs(vertex - x) <= tx or 0.5 * c * (vertex - x) ** 2 <= worth):
+        return None
+    if ample > 0.0 and heard == 0.0 and 0.5 * c * (vertex - x) ** 2 > ample:
         return None
     # the bracket: the evaluated neighbours of x (x itself at an end), as `_found` takes them
     if w < x:

@@ -13,7 +13,11 @@ scaled coordinates of `space.Space`, starting from the principal axes.
   its parabola promises more than ``WORTH`` of the decrease the cycle is expected to bring (the
   last cycle's, shrunk at the rate of the last two): far from the minimum a point a little off
   the line's minimum costs the next cycle nothing, and with a known curvature such a line often
-  ends after its first probe.
+  ends after its first probe.  Conversely, a vertex closer than the line's resolution is still
+  evaluated when its parabola promises more than the whole last cycle gained: the resolution
+  (a hundredth of the last cycle's move) hid the valley of Powell's badly scaled function (Moré,
+  Garbow & Hillstrom 1981, no. 3), 1e-5 wide along its first variable, for two cycles: the
+  parabola along it put its vertex 1.1e-5 from the point, promising 98 % of the value.
 - At the end of a cycle the point extrapolated as far again along the cycle's overall step is
   evaluated.  If Powell's (1964) test accepts, the overall step becomes a new direction: it is
   line-searched (the three points on it are already known) and replaces the direction of largest
@@ -218,6 +222,7 @@ class _Tracker:
         self.heard = 0.0  # before it: the noise level relative to |f| a line's points showed
         self.hearing = False  # whether line searches read their own points' table
         self.worth = 0.0  # the least decrease worth another evaluation in a line search
+        self.ample = 0.0  # the last cycle's decrease: more is not left to the resolution
         self.conditioned: tuple[np.ndarray, float] | None = None  # see `_condition`
 
     def seen(self, u: np.ndarray, value: float) -> None:
@@ -273,6 +278,7 @@ def powell(space: Space, settings: Settings, start: np.ndarray | None = None) ->
             worked_at = best.resolution
             directions, moved, dropped = yield from _cycle(space, settings, best, directions)
             best.worth, last_drop = WORTH * _expected(dropped, last_drop), dropped
+            best.ample = dropped  # a vertex promising more is never hidden by the resolution
             if best.answered == 0:
                 reason = "every evaluation of a whole cycle failed: the best point is walled in"
                 return _outcome(best, Stop.STALLED, cycles, directions, reason)
@@ -517,6 +523,8 @@ def _line(
         heard=heard,
         listen=best.hearing,
         worth=best.worth,
+        ample=best.ample,
+        finest=settings.line_tolerance,
     )
     evaluated: dict[float, np.ndarray] = {}  # t -> its point, so the minimum's is not made again
     try:

@@ -110,6 +110,25 @@ def test_a_line_stops_when_the_parabola_promises_less_than_it_is_worth(worth, co
     assert result.point == pytest.approx(point, abs=1e-12)
 
 
+@pytest.mark.parametrize("ample, count, point", [(0.0, 2, 0.0), (2.0, 2, 0.0), (0.5, 3, 1e-5)])
+def test_a_valley_narrower_than_the_resolution_is_not_hidden_when_it_promises_enough(
+    ample, count, point
+):
+    # f = 1 + 1e10 (t - 1e-5)^2 (analytic): the probes at +-0.1 give the parabola exactly, its
+    # vertex 1e-5 lies within the resolution 0.01 of the base point and promises 1.0 below
+    # f(0) = 2.  Without ``ample``, or with more than it promises, the line stays at 0; with
+    # ample 0.5 it evaluates the vertex, the minimum.
+    f = lambda t: 1.0 + 1e10 * (t - 1e-5) ** 2  # noqa: E731
+    result, seen = drive(
+        f,
+        line_search({0.0: f(0.0)}, -10.0, 10.0, step=0.1, tolerance=0.01, ample=ample,
+                    finest=1e-9),
+    )
+    assert len(seen) == count
+    assert result.point == pytest.approx(point, abs=1e-12)
+    assert result.value == pytest.approx(f(point), rel=1e-9)
+
+
 @settings(max_examples=60, deadline=None)
 @given(
     lower=st.floats(-50, 0),
@@ -185,9 +204,11 @@ def _drive_floats(f, search):
     step=st.floats(0.01, 2.0),
     worth=st.sampled_from([0.0, 1e-9, 1e-4, 1e-1]),
     rounded=st.booleans(),
+    tolerance=st.sampled_from([1e-7, 0.05]),
+    ample=st.sampled_from([0.0, 1e-6, 1e-2, 1.0]),
 )
 def test_the_shortcuts_take_the_general_loops_decisions(
-    minimum, height, cubic, guess, step, worth, rounded
+    minimum, height, cubic, guess, step, worth, rounded, tolerance, ample
 ):
     # The three-point verdict (`_settled`), the lowest value without ties (`_best`) and the
     # parabola of finite values (`_lowest_parabola`) only save work: with each replaced by the
@@ -204,8 +225,8 @@ def test_the_shortcuts_take_the_general_loops_decisions(
     def run():
         curvature = 2.0 * height * guess  # nan: unknown, else a guess off by the factor
         return _drive_floats(f, linesearch.line_search_floats(
-            {0.0: f(0.0)}, -5.0, 5.0, step=step, tolerance=1e-7, curvature=curvature,
-            worth=worth, limit=40,
+            {0.0: f(0.0)}, -5.0, 5.0, step=step, tolerance=tolerance, curvature=curvature,
+            worth=worth, limit=40, ample=ample, finest=1e-9,
         ))
 
     def general_best(ts, fs):
