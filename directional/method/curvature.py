@@ -276,11 +276,12 @@ def record(
     noise: float = math.nan,
 ) -> Curvature:
     """A `Curvature` record in search coordinates from a Hessian in scaled coordinates."""
-    inverse = 1.0 / np.outer(scale, scale)
+    inverse = 1.0 / (scale[:, None] * scale)  # `np.outer`'s products, without its wrapper
     hessian = scaled * inverse
     hessian = 0.5 * (hessian + hessian.T)
     eigenvalues, eigenvectors = np.linalg.eigh(hessian)
-    top, low = np.max(np.abs(eigenvalues)), np.min(np.abs(eigenvalues))
+    magnitudes = np.abs(eigenvalues)
+    top, low = magnitudes.max(), magnitudes.min()
     return Curvature(
         hessian=hessian,
         error=None if error is None else error * inverse,
@@ -314,7 +315,7 @@ def free_record(space: Space, scaled: np.ndarray | None) -> Curvature | None:
         return None
     all_free = np.ones(space.size, dtype=bool)
     d = equilibration(scaled)
-    margin = FREE_FLAT * float(np.max(np.abs(np.linalg.eigvalsh(scaled / np.outer(d, d)))))
+    margin = FREE_FLAT * float(np.abs(np.linalg.eigvalsh(scaled / (d[:, None] * d))).max())
     return record(scaled, None, space.scale, "free", names=labels(space, all_free), margin=margin)
 
 
