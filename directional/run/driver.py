@@ -605,53 +605,88 @@ class Driver:
         queue and the rows' bookkeeping: nobody else waits, so the rows not known would be the
         next ones evaluated anyway, in the order of the batch.  As in `_ask`, every row is
         counted before any is evaluated, and the rows before a budget halt are evaluated first.
-        The limits of the whole run (`_run_limit`) and the stall check (`_check`) are asked only
-        where they can halt: a run limit or a stopping signal exists, a value is infinite or
-        follows a failure.
+        A batch of one point (most of them: a line search's next point) takes the same steps
+        without the rows' lists (`_one`).  The stall check (`_check`) is asked only where it can
+        halt: the value is infinite, or the point is not new to the search, or it follows a
+        failure (a finite value of a new point after a success leaves the failure count at 0).
         """
         points = batch.points
         rows = len(points)
+        limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
+        if rows == 1:
+            return self._one(task, batch, limit)
         raw = points.tobytes()  # the rows' keys, as `_ask` makes them (the batch is C-ordered)
         size = len(raw) // rows
-        limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
-        cache = self._cache
         asked: list[tuple[bytes, bool, float | None]] = []
         over = None
         for row in range(rows):
-            key = raw if rows == 1 else raw[row * size:(row + 1) * size]
+            key = raw[row * size:(row + 1) * size]
             try:
                 fresh = self._admit(task, key, limit)
             except Halt as halt:
                 over = halt
                 break
-            value = cache.get(key)  # None: to evaluate, or a repeat of such a row
+            value = self._cache.get(key)  # None: to evaluate, or a repeat of such a row
             if value is not None and not fresh:
                 self.log.cache_hits += 1
             asked.append((key, fresh, value))
         values = []
-        interrupts, limited = self._interrupts, self._limited
         for row, (key, fresh, value) in enumerate(asked):
             if value is None:
-                value = cache.get(key)  # made for an earlier row of this batch
+                value = self._cache.get(key)  # made for an earlier row of this batch
             if value is None:
-                if limited or self.interrupted or interrupts.pending:
-                    halt = self._run_limit()
-                    if halt is not None:
-                        return self._halt(task, halt)
-                point = points[row].copy()
-                evaluation = self._record(point, batch.purpose, task.ident, self._here(point))
-                if evaluation is None:  # Ctrl-C: `_interrupt` has halted the search
+                try:
+                    value = self._made_here(task, key, points[row], batch.purpose)
+                except Halt as halt:
+                    return self._halt(task, halt)
+                if value is None:  # Ctrl-C: `_interrupt` has halted the search
                     return None
-                self._keep(key, evaluation)
-                value = evaluation.value
             values.append(value)
             if not (fresh and -math.inf < value < math.inf and not task.failures_in_a_row):
-                halt = self._check(task, batch, row, value, fresh)
+                halt = self._check(task, batch, row, value, fresh)  # only where it can halt
                 if halt is not None:
                     return self._halt(task, halt)
         if over is not None:
             return self._halt(task, over)
         return self._send(task, np.array(values))
+
+    def _one(self, task: _Task, batch: Batch, limit: int) -> Batch | Spent | None:
+        """`_at_once` for a batch of one point."""
+        key = batch.points.tobytes()
+        try:
+            fresh = self._admit(task, key, limit)
+            value = self._cache.get(key)
+            if value is None:
+                value = self._made_here(task, key, batch.points[0], batch.purpose)
+                if value is None:  # Ctrl-C: `_interrupt` has halted the search
+                    return None
+            elif not fresh:
+                self.log.cache_hits += 1
+        except Halt as halt:  # past the budget, or a limit of the whole run
+            return self._halt(task, halt)
+        if not (fresh and -math.inf < value < math.inf and not task.failures_in_a_row):
+            halt = self._check(task, batch, 0, value, fresh)
+            if halt is not None:
+                return self._halt(task, halt)
+        return self._send(task, np.array([value]))
+
+    def _made_here(self, task: _Task, key: bytes, point: np.ndarray, purpose: str) -> float | None:
+        """The value of the point ``key`` (``point``, a row of a batch of ``task``), evaluated
+        here, logged and cached; None when Ctrl-C cut it (`_interrupt` has halted the search).
+
+        Raises `Halt` instead when a limit of the whole run is met (`_run_limit`), asked only
+        where one can be: the run has a total budget or a time limit, or was interrupted.
+        """
+        if self._limited or self.interrupted or self._interrupts.pending:
+            halt = self._run_limit()
+            if halt is not None:
+                raise halt
+        point = point.copy()
+        evaluation = self._record(point, purpose, task.ident, self._here(point))
+        if evaluation is None:
+            return None
+        self._keep(key, evaluation)
+        return evaluation.value
 
     def _replicate(self, key: bytes, x: np.ndarray, purpose: str, task: _Task, row: int) -> None:
         """Wait on the mean of point ``x``'s runs; queue those neither made nor on their way."""
