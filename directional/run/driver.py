@@ -359,8 +359,12 @@ class Driver:
     _owned: list[cf.Executor] = field(default_factory=list)
     _clock_start: float = field(default_factory=time.monotonic)
     _alone: bool = False  # this `run_all` drives one search, in process, one run per point
+    _limited: bool = False  # a limit of the whole run (total budget, time) to check
 
     def __post_init__(self) -> None:
+        if self.stall_after < 1:
+            raise ValueError(f"stall_after must be at least 1, got {self.stall_after!r}")
+        self._limited = self.total is not None or self.time_limit is not None
         if self.executor is None:
             self.workers = 1
         elif self.workers is None:  # a pool's own size, where it has one (not Dask's executor)
@@ -601,12 +605,18 @@ class Driver:
         queue and the rows' bookkeeping: nobody else waits, so the rows not known would be the
         next ones evaluated anyway, in the order of the batch.  As in `_ask`, every row is
         counted before any is evaluated, and the rows before a budget halt are evaluated first.
+        A batch of one point (most of them: a line search's next point) takes the same steps
+        without the rows' lists (`_one`).  The stall check (`_check`) is asked only where it can
+        halt: the value is infinite, or the point is not new to the search, or it follows a
+        failure (a finite value of a new point after a success leaves the failure count at 0).
         """
         points = batch.points
         rows = len(points)
+        limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
+        if rows == 1:
+            return self._one(task, batch, limit)
         raw = points.tobytes()  # the rows' keys, as `_ask` makes them (the batch is C-ordered)
         size = len(raw) // rows
-        limit = self.budget if batch.limit is None else min(self.budget, batch.limit)
         asked: list[tuple[bytes, bool, float | None]] = []
         over = None
         for row in range(rows):
@@ -625,22 +635,58 @@ class Driver:
             if value is None:
                 value = self._cache.get(key)  # made for an earlier row of this batch
             if value is None:
-                halt = self._run_limit()
+                try:
+                    value = self._made_here(task, key, points[row], batch.purpose)
+                except Halt as halt:
+                    return self._halt(task, halt)
+                if value is None:  # Ctrl-C: `_interrupt` has halted the search
+                    return None
+            values.append(value)
+            if not (fresh and -math.inf < value < math.inf and not task.failures_in_a_row):
+                halt = self._check(task, batch, row, value, fresh)  # only where it can halt
                 if halt is not None:
                     return self._halt(task, halt)
-                point = points[row].copy()
-                evaluation = self._record(point, batch.purpose, task.ident, *self._here(point))
-                if evaluation is None:  # Ctrl-C: `_interrupt` has halted the search
-                    return None
-                self._keep(key, evaluation)
-                value = evaluation.value
-            values.append(value)
-            halt = self._check(task, batch, row, value, fresh)
-            if halt is not None:
-                return self._halt(task, halt)
         if over is not None:
             return self._halt(task, over)
         return self._send(task, np.array(values))
+
+    def _one(self, task: _Task, batch: Batch, limit: int) -> Batch | Spent | None:
+        """`_at_once` for a batch of one point."""
+        key = batch.points.tobytes()
+        try:
+            fresh = self._admit(task, key, limit)
+            value = self._cache.get(key)
+            if value is None:
+                value = self._made_here(task, key, batch.points[0], batch.purpose)
+                if value is None:  # Ctrl-C: `_interrupt` has halted the search
+                    return None
+            elif not fresh:
+                self.log.cache_hits += 1
+        except Halt as halt:  # past the budget, or a limit of the whole run
+            return self._halt(task, halt)
+        if not (fresh and -math.inf < value < math.inf and not task.failures_in_a_row):
+            halt = self._check(task, batch, 0, value, fresh)
+            if halt is not None:
+                return self._halt(task, halt)
+        return self._send(task, np.array([value]))
+
+    def _made_here(self, task: _Task, key: bytes, point: np.ndarray, purpose: str) -> float | None:
+        """The value of the point ``key`` (``point``, a row of a batch of ``task``), evaluated
+        here, logged and cached; None when Ctrl-C cut it (`_interrupt` has halted the search).
+
+        Raises `Halt` instead when a limit of the whole run is met (`_run_limit`), asked only
+        where one can be: the run has a total budget or a time limit, or was interrupted.
+        """
+        if self._limited or self.interrupted or self._interrupts.pending:
+            halt = self._run_limit()
+            if halt is not None:
+                raise halt
+        point = point.copy()
+        evaluation = self._record(point, purpose, task.ident, self._here(point))
+        if evaluation is None:
+            return None
+        self._keep(key, evaluation)
+        return evaluation.value
 
     def _replicate(self, key: bytes, x: np.ndarray, purpose: str, task: _Task, row: int) -> None:
         """Wait on the mean of point ``x``'s runs; queue those neither made nor on their way."""
@@ -822,7 +868,7 @@ class Driver:
 
     def _in_process(self, pending: _Pending) -> None:
         """Call the objective here for ``pending`` and take the result."""
-        self._finish(pending, *self._here(pending.point))
+        self._finish(pending, self._here(pending.point))
 
     def _here(self, point: np.ndarray) -> tuple[float, str, str, float, float]:
         """Call the objective here: ``(value, status, detail, started, seconds)`` as `evaluate`;
@@ -841,28 +887,26 @@ class Driver:
         key = self._flying[future]
         pending = self._pending[key]
         try:
-            value, status, detail, started, seconds = future.result()
+            result = future.result()
         except BrokenProcessPool:
             self._broken()
             return
         except ObjectiveError:
             raise
         except Exception as error:  # the executor's failure, not the objective's
-            value, status, started, seconds = math.inf, Status.FAILED, time.time(), 0.0
             detail = f"the executor failed: {describe(error)}"
+            result = math.inf, Status.FAILED, detail, time.time(), 0.0
         del self._flying[future]
-        self._finish(pending, value, status, detail, started, seconds)
+        self._finish(pending, result)
 
-    def _finish(
-        self, pending: _Pending, value: float, status: str, detail: str, started: float,
-        seconds: float,
-    ) -> None:
+    def _finish(self, pending: _Pending, result: tuple[float, str, str, float, float]) -> None:
+        """Take the ``result`` of a call, ``(value, status, detail, started, seconds)`` as
+        `evaluate` gives it, for the point ``pending``."""
         del self._pending[pending.key]
-        evaluation = self._record(
-            pending.point, pending.purpose, pending.search, value, status, detail, started, seconds
-        )
+        evaluation = self._record(pending.point, pending.purpose, pending.search, result)
         if evaluation is None:
             return
+        value = evaluation.value
         if pending.group is not None:  # one run of a replicated point
             self.log.add(evaluation, ranked=False)
             self._made[pending.group] = evaluation
@@ -885,15 +929,17 @@ class Driver:
             self._take(task, self._advance(task))
 
     def _record(
-        self, point: np.ndarray, purpose: str, search: int, value: float, status: str,
-        detail: str, started: float, seconds: float,
+        self, point: np.ndarray, purpose: str, search: int,
+        result: tuple[float, str, str, float, float],
     ) -> Evaluation | None:
-        """The `Evaluation` of a call that has ended, numbered in the search that asked first.
+        """The `Evaluation` of a call that has ended (its ``result`` as `evaluate` gives it),
+        numbered in the search that asked first.
 
         None for one that Ctrl-C cut: it is reported to the observers (made again on resume),
         never logged, and every search is halted (`_interrupt`).
         """
         owner = self._tasks[search]
+        value, status, detail, started, seconds = result
         status = status if type(status) is Status else _status(status)
         evaluation = _evaluation(  # index is `spent`
             len(self.log.evaluations), point, value, status, detail, purpose, started, seconds,
@@ -947,7 +993,7 @@ class Driver:
         alone = len(flying) == 1
         for pending in flying:
             if alone or pending.suspect:
-                self._finish(pending, math.inf, Status.FAILED, DIED, time.time(), 0.0)
+                self._finish(pending, (math.inf, Status.FAILED, DIED, time.time(), 0.0))
             else:
                 pending.suspect = True
                 self._queue.appendleft(pending.key)

@@ -416,3 +416,32 @@ def test_summary_shows_verdict_active_bounds_and_condition():
     assert "on a bound: x0" in text
     # curvatures 200 and 2 of the free parameters: condition number 100 (analytic)
     assert "condition number 100" in text
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    n=st.integers(min_value=1, max_value=6),
+    seed=st.integers(min_value=0, max_value=2**32 - 1),
+    zeros=st.booleans(),
+)
+def test_equilibration_brings_every_row_maximum_to_one(n, seed, zeros):
+    """Ruiz (2001): after the scaling the largest entry of every nonzero row of |H| / (d dᵀ) is
+    1, to the iteration's tolerance, whatever the scales of the entries; a zero row keeps 1.  And
+    the sweeps are the plain ones, ``max(|H| / outer(d, d))`` row by row, bit for bit."""
+    rng = np.random.default_rng(seed)
+    h = rng.standard_normal((n, n)) * 10.0 ** rng.uniform(-6, 6, (n, n))
+    h = h + h.T
+    if zeros:
+        h[0, :] = h[:, 0] = 0.0
+    d = curvature.equilibration(h)
+    rows = np.max(np.abs(h) / np.outer(d, d), axis=1)
+    nonzero = np.any(h != 0.0, axis=1)
+    assert np.allclose(rows[nonzero], 1.0, rtol=1e-5)
+    assert np.all(d[~nonzero] == 1.0)
+    plain = np.ones(n)
+    for _ in range(60):
+        step = np.sqrt(np.where((m := np.max(np.abs(h) / np.outer(plain, plain), axis=1)) > 0, m, 1))
+        plain = plain * step
+        if np.all(np.abs(step - 1.0) <= 1e-6):
+            break
+    assert np.array_equal(d, plain)

@@ -159,13 +159,15 @@ def _asking(requests):
                                max_size=4), min_size=1, max_size=12),
     budget=st.integers(min_value=1, max_value=12),
     stall_after=st.integers(min_value=1, max_value=4),
+    total=st.none() | st.integers(min_value=1, max_value=12),
 )
-def test_one_search_in_process_is_driven_as_through_the_queue(requests, budget, stall_after):
+def test_one_search_in_process_is_driven_as_through_the_queue(requests, budget, stall_after, total):
     """The only search of a run in process is answered without the queue (`Driver._at_once`);
     the same search through an executor, one evaluation at a time, goes through the queue.
     Both must evaluate the same points in the same order, send the same values and halts, and
-    log the same records and cache hits.  Points -1 fail, -2 are -inf (common practice, no
-    source: the module docstring's rules, checked against each other)."""
+    log the same records and cache hits, with and without a total budget for the run.  Points
+    -1 fail, -2 are -inf (common practice, no source: the module docstring's rules, checked
+    against each other)."""
 
     def objective(x):
         if x[0] == -1.0:
@@ -173,7 +175,9 @@ def test_one_search_in_process_is_driven_as_through_the_queue(requests, budget, 
         return -math.inf if x[0] == -2.0 else float(x[0]) ** 2
 
     def drive(**executor):
-        driver = Driver(objective=objective, budget=budget, stall_after=stall_after, **executor)
+        driver = Driver(
+            objective=objective, budget=budget, stall_after=stall_after, total=total, **executor
+        )
         heard = driver.run(_asking(requests))
         log = [(e.index, e.point.tolist(), e.value, e.status, e.detail, e.sequence)
                for e in driver.log.evaluations]
