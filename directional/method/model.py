@@ -381,7 +381,10 @@ def free(sample: Sample, centre: np.ndarray) -> float:
             sample.unfixed = None
             return math.inf
         features = _features(y)
-        unfixed.top = max(unfixed.top, float(np.max(np.linalg.norm(features, axis=1))))
+        # the rows' lengths as numpy.linalg.norm(features, axis=1) computes them, without its
+        # dispatch (the same arithmetic: the square root of the sums of the squares)
+        lengths = np.sqrt(np.add.reduce(features * features, axis=1))
+        unfixed.top = max(unfixed.top, float(lengths.max()))
         q, pivots = _pivoted_qr((features @ unfixed.basis).T)
         rank = int(np.count_nonzero(pivots > FIXED * unfixed.top))
         unfixed.basis = unfixed.basis @ q[:, rank:]
@@ -425,12 +428,15 @@ def _features(y: np.ndarray) -> np.ndarray:
     """Rows ``(1, y, products of y as in the fit)``: the fit's design matrix, unweighted."""
     n = y.shape[1]
     rows, cols, _, _ = _layout(n)
+    # the products are made in a contiguous array and copied in: the same values, written
+    # into the strided columns of ``out`` once instead of three times
+    products = y[:, rows]
+    products *= y[:, cols]
+    products *= _halves(n)
     out = np.empty((len(y), 1 + n + len(rows)))
     out[:, 0] = 1.0
     out[:, 1 : n + 1] = y
-    products = out[:, n + 1 :]
-    np.multiply(y[:, rows], y[:, cols], out=products)
-    products *= _halves(n)
+    out[:, n + 1 :] = products
     return out
 
 
