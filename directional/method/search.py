@@ -534,8 +534,8 @@ def _line(
                 # a float times a vector costs less than a numpy scalar times it (the same product)
                 t = ts[0]
                 u = base + t * d
-                # mapped as a vector, then made a row: numpy's broadcasting would double the cost
-                values = yield Batch(points=space.to_user(u)[None, :], purpose=LINE)
+                # mapped as a vector (a new one nobody else holds), made the batch's row uncopied
+                values = yield Batch.row(space.to_user(u), LINE)
                 value = float(values[0])
                 best.answered += math.isfinite(value)
                 best.seen(u, value)
