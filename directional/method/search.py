@@ -527,6 +527,9 @@ def _line(
         finest=settings.line_tolerance,
     )
     evaluated: dict[float, np.ndarray] = {}  # t -> its point, so the minimum's is not made again
+    # read once per line: nothing else runs while the line's generators wait (`_Tracker.seen`)
+    to_user, row, send, isfinite = space.to_user, Batch.row, search.send, math.isfinite
+    sample, quiet = best.sample, best.noise == 0.0
     try:
         ts = next(search)
         while True:
@@ -534,13 +537,16 @@ def _line(
                 # a float times a vector costs less than a numpy scalar times it (the same product)
                 t = ts[0]
                 u = base + t * d
-                # mapped as a vector, then made a row: numpy's broadcasting would double the cost
-                values = yield Batch(points=space.to_user(u)[None, :], purpose=LINE)
+                # mapped as a vector (a new one nobody else holds), made the batch's row uncopied
+                values = yield row(to_user(u), LINE)
                 value = float(values[0])
-                best.answered += math.isfinite(value)
-                best.seen(u, value)
+                best.answered += isfinite(value)
+                if value < best.value and quiet:  # `best.seen(u, value)`, written out
+                    best.u, best.value = u, value
+                if sample is not None:
+                    sample.add(u, value)
                 evaluated[t] = u
-                ts = search.send([value])
+                ts = send([value])
             else:
                 us = base + np.array(ts)[:, None] * d
                 values = yield Batch(points=space.to_user(us), purpose=Purpose.LINE)
