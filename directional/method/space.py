@@ -103,17 +103,20 @@ def space_from_parameters(parameters: Sequence[Parameter]) -> Space:
     if len(parameters) == 0:
         raise ProblemError("start must name at least one parameter, got none")
     names = [p.name for p in parameters]
-    doubled = sorted({n for n in names if names.count(n) > 1})
-    if doubled:
+    if len(set(names)) < len(names):
+        doubled = sorted({n for n in names if names.count(n) > 1})
         raise ProblemError(f"parameter names must be unique, {doubled[0]!r} appears twice")
     start = np.array([p.start for p in parameters])
     lower = np.array([p.lower for p in parameters])
     upper = np.array([p.upper for p in parameters])
     log = np.array([p.scale == "log" for p in parameters])
-    with np.errstate(divide="ignore"):
-        ylo = np.where(log, np.log(np.where(log, lower, 1.0)), lower)
-        yhi = np.where(log, np.log(np.where(log, upper, 1.0)), upper)
-    origin = np.where(log, np.log(np.where(log, start, 1.0)), start)
+    if log.any():
+        with np.errstate(divide="ignore"):
+            ylo = np.where(log, np.log(np.where(log, lower, 1.0)), lower)
+            yhi = np.where(log, np.log(np.where(log, upper, 1.0)), upper)
+        origin = np.where(log, np.log(np.where(log, start, 1.0)), start)
+    else:  # what the selections above give when no parameter is log-scaled, without the logs
+        ylo, yhi, origin = lower, upper, start.copy()
     width = yhi - ylo
     scale = np.where(
         np.isfinite(width), width, np.where(origin != 0.0, np.abs(origin), 1.0)

@@ -86,8 +86,9 @@ class Interrupts:
             self._root = owner._root
             return self
         self._root = self
-        for signum in STOPPING:
-            if _untouched(signum, signal.getsignal(signum)):
+        for signum in STOPPING:  # SIGINT's handler was just read (each read makes an enum)
+            handler = current if signum == signal.SIGINT else signal.getsignal(signum)
+            if _untouched(signum, handler):
                 self._previous[signum] = signal.signal(signum, self._handle)
         return self
 

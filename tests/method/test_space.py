@@ -113,3 +113,40 @@ def test_bad_arguments_name_the_culprit(start, bounds, names, message):
 
 def test_docstring_examples():
     assert doctest.testmod(space_module).failed == 0
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    st.lists(
+        st.tuples(  # no start so small that a unit scale of |start| overflows the division
+            st.one_of(st.sampled_from([0.0, -0.0]), st.floats(1e-6, 1e6), st.floats(-1e6, -1e-6)),
+            st.one_of(st.none(), st.floats(0.0, 1e3)),
+            st.one_of(st.none(), st.floats(1e-3, 1e3)),
+        ),
+        min_size=1,
+        max_size=6,
+    )
+)
+def test_linear_parameters_skip_the_logs_with_the_same_bits(rows):
+    """With no log-scaled parameter the space is built without the log selections; every field
+    must be what the general selections give, bit for bit (a start of -0.0 included)."""
+    parameters = [
+        dl.Parameter(f"p{i}", start, -math.inf if below is None else start - below,
+                     math.inf if above is None else start + above)
+        for i, (start, below, above) in enumerate(rows)
+    ]
+    space = space_from_parameters(parameters)
+    start = np.array([p.start for p in parameters])
+    lower = np.array([p.lower for p in parameters])
+    upper = np.array([p.upper for p in parameters])
+    log = np.zeros(len(parameters), dtype=bool)
+    with np.errstate(divide="ignore"):
+        ylo = np.where(log, np.log(np.where(log, lower, 1.0)), lower)
+        yhi = np.where(log, np.log(np.where(log, upper, 1.0)), upper)
+    origin = np.where(log, np.log(np.where(log, start, 1.0)), start)
+    width = yhi - ylo
+    scale = np.where(np.isfinite(width), width, np.where(origin != 0.0, np.abs(origin), 1.0))
+    for got, expected in ((space.origin, origin), (space.scale, scale),
+                          (space.lower_u, (ylo - origin) / scale),
+                          (space.upper_u, (yhi - origin) / scale)):
+        assert got.tobytes() == expected.tobytes()
