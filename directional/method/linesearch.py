@@ -71,7 +71,7 @@ from __future__ import annotations
 import math
 from collections.abc import Generator, Iterable
 from dataclasses import dataclass
-from typing import NamedTuple
+from typing import Any, NamedTuple
 
 import numpy as np
 
@@ -157,50 +157,18 @@ def _vertex(x: float, w: float, v: float, fx: float, fw: float, fv: float) -> tu
 
 
 def line_search(
-    known: dict[float, float],
-    lower: float,
-    upper: float,
-    *,
-    step: float,
-    tolerance: float,
-    relative: float = 0.0,
-    curvature: float = math.nan,
-    start: float = 0.0,
-    growth: float = 100.0,
-    limit: int = 60,
-    exact: bool = False,
-    parabolic: bool = True,
-    noise: float = 0.0,
-    heard: float = 0.0,
-    listen: bool = True,
-    worth: float = 0.0,
-    ample: float = 0.0,
-    finest: float = 0.0,
+    known: dict[float, float], lower: float, upper: float, **options: Any
 ) -> LineSearch:
     """Search ``[lower, upper]`` for a minimum, as a generator (see the module docstring).
 
-    ``known`` maps ``t`` to already-known values (the base point, usually); when it is empty,
-    ``start`` is evaluated first.  ``tolerance + relative * |t|`` is the resolution in ``t``.
-    ``limit`` caps the evaluations this line search spends.  ``parabolic=False`` turns every
-    parabolic step into a golden-section one (an ablation for the benchmarks, not for users).
-    ``noise`` (the values' standard deviation, 0 for rounding only) makes the parabolas
-    least-squares fits and the returned point the lowest on the fitted parabola.  ``heard`` (a
-    level an earlier line's points showed; 0 for none) only limits the resolution; ``listen``
-    False leaves the line's own table unread (the caller said the values have no noise).
-    ``worth`` (without noise; 0 for none) is the least decrease worth another evaluation: the
-    search stops when its parabola promises less.  ``ample`` (without noise; 0 for none) is a
-    decrease the resolution may not hide: a vertex within the resolution of the best point whose
-    parabola promises more than ``ample`` below it is evaluated all the same, unless it lies
-    within ``finest / 2`` of a point already evaluated.
-
-    It yields arrays of ``t`` and receives arrays of values; `line_search_floats` is the same
-    search on lists of plain floats.
+    ``known`` maps ``t`` to already-known values (the base point, usually); the keywords are
+    `line_search_floats`'s (``step`` and ``tolerance`` required).  It yields arrays of ``t``,
+    receives arrays of values and returns a `LineResult`: `line_search_floats` on numpy arrays.
     """
+    if "start" in options:
+        options["start"] = float(options["start"])
     search = line_search_floats(
-        {float(t): float(v) for t, v in known.items()}, float(lower), float(upper), step=step,
-        tolerance=tolerance, relative=relative, curvature=curvature, start=float(start),
-        growth=growth, limit=limit, exact=exact, parabolic=parabolic, noise=noise, heard=heard,
-        listen=listen, worth=worth, ample=ample, finest=finest,
+        {float(t): float(v) for t, v in known.items()}, float(lower), float(upper), **options
     )
     try:
         ts = next(search)
@@ -233,10 +201,25 @@ def line_search_floats(
     ample: float = 0.0,
     finest: float = 0.0,
 ) -> Generator[list[float], list[float], Found]:
-    """`line_search` on plain floats: yields lists of ``t``, receives lists of their values (as
-    Python floats) and returns a `Found`.  ``points`` (``t`` to value, floats) is taken over and
-    filled with every point evaluated.  The direction-set search runs this one: a numpy array
-    per point and a record per line cost more than the arithmetic."""
+    """Search ``[lower, upper]`` for a minimum on plain floats: yields lists of ``t``, receives
+    lists of their values (as Python floats) and returns a `Found`.  The direction-set search
+    runs this one (a numpy array per point and a record per line cost more than the arithmetic);
+    `line_search` is the same search on numpy arrays.
+
+    ``points`` (``t`` to value, floats; the base point, usually) is taken over and filled with
+    every point evaluated; when it is empty, ``start`` is evaluated first.  ``tolerance +
+    relative * |t|`` is the resolution in ``t``.  ``limit`` caps the evaluations this line search
+    spends.  ``parabolic=False`` turns every parabolic step into a golden-section one (an
+    ablation for the benchmarks, not for users).  ``noise`` (the values' standard deviation, 0
+    for rounding only) makes the parabolas least-squares fits and the returned point the lowest
+    on the fitted parabola.  ``heard`` (a level an earlier line's points showed; 0 for none) only
+    limits the resolution; ``listen`` False leaves the line's own table unread (the caller said
+    the values have no noise).  ``worth`` (without noise; 0 for none) is the least decrease worth
+    another evaluation: the search stops when its parabola promises less.  ``ample`` (without
+    noise; 0 for none) is a decrease the resolution may not hide: a vertex within the resolution
+    of the best point whose parabola promises more than ``ample`` below it is evaluated all the
+    same, unless it lies within ``finest / 2`` of a point already evaluated.
+    """
     spent = 0
     if not points:
         values = yield [start]

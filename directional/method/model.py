@@ -526,8 +526,8 @@ def _halves(n: int) -> np.ndarray:
 # numpy's small dense linear algebra (qr, svd, solve, eigh) calls LAPACK through general
 # machinery that costs more than the work itself at the model's sizes (about 4 to 10 µs a call
 # at n = 10).  The helpers below call the same LAPACK routines with the same arguments and work
-# sizes through scipy (a test holds each equal to numpy's bit for bit on random matrices; the
-# two packages ship their own OpenBLAS builds, which is what that test watches).
+# sizes through scipy (bit for bit with numpy where the two packages' LAPACK builds agree, as
+# here; a test holds them to numpy's results to rounding, since each package ships its own).
 
 
 @functools.lru_cache(maxsize=64)

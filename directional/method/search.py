@@ -427,7 +427,6 @@ def _cycle(
     # the same doubles, a fraction of the time): one set is built per cycle, not one per line
     curvatures, steps = directions.curvatures.tolist(), directions.steps.tolist()
     reuse = settings.reuse_curvature
-    shortest = 100.0 * settings.line_tolerance  # `_next_step`
     for i, d in enumerate(directions.vectors):
         before = best.value
         measured = curvatures[i]
@@ -438,7 +437,7 @@ def _cycle(
         last = abs(result.point)
         if math.isfinite(result.curvature) and result.curvature > 0.0:
             curvatures[i] = result.curvature
-        steps[i] = max(last, shortest)
+        steps[i] = _next_step(result, settings)
         if before - best.value > largest_drop:
             largest, largest_drop = i, before - best.value
     directions = DirectionSet(
@@ -527,9 +526,8 @@ def _line(
         finest=settings.line_tolerance,
     )
     evaluated: dict[float, np.ndarray] = {}  # t -> its point, so the minimum's is not made again
-    # read once per line: nothing else runs while the line's generators wait (`_Tracker.seen`)
+    # read once per line: nothing else runs while the line's generators wait
     to_user, row, send, isfinite = space.to_user, Batch.row, search.send, math.isfinite
-    sample, quiet = best.sample, best.noise == 0.0
     try:
         ts = next(search)
         while True:
@@ -541,10 +539,7 @@ def _line(
                 values = yield row(to_user(u), LINE)
                 value = float(values[0])
                 best.answered += isfinite(value)
-                if value < best.value and quiet:  # `best.seen(u, value)`, written out
-                    best.u, best.value = u, value
-                if sample is not None:
-                    sample.add(u, value)
+                best.seen(u, value)
                 evaluated[t] = u
                 ts = send([value])
             else:
