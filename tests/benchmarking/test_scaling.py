@@ -85,3 +85,22 @@ def test_quadratic_count_reaches_the_reduction():
     (count,) = scaling.quadratics([3], [0])
     assert count.n == 3 and math.isfinite(count.reached)
     assert count.reached <= count.spent
+
+
+def test_the_overhead_replay_evaluates_the_points_of_the_run_once_more_in_order():
+    # the objective's time is measured on the very points the run asked for (common practice,
+    # no source): a copy of each, so a caller that reuses its array does not change them
+    calls = []
+
+    def objective(x: np.ndarray) -> float:
+        calls.append(x.tolist())
+        return float(x @ x)
+
+    tally = scaling._Tally(objective)
+    x = np.array([1.0, 2.0])
+    assert tally(x) == 5.0
+    x[0] = 3.0  # the caller reuses its array
+    assert tally(x) == 13.0
+    seconds, cpu_seconds = tally.replay()
+    assert calls == [[1.0, 2.0], [3.0, 2.0], [1.0, 2.0], [3.0, 2.0]]
+    assert seconds >= 0.0 and cpu_seconds >= 0.0
