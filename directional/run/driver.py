@@ -34,7 +34,9 @@ to the same limits):
   log, so nothing computed is lost;
 - STALLED: at once when a point of the search's batch, taken in batch order, is ``-inf`` (the
   objective is unbounded below) or is the ``stall_after``-th failure in a row of that search;
-  the rest of the batch is not evaluated;
+  the rest of the batch is not evaluated; and before the `REPEATS_IN_A_ROW`-th point in a row
+  that the search had asked for before (answered from the cache, they cost nothing and count
+  against no budget: a search going round in a circle over known values);
 - INTERRUPTED: Ctrl-C (see below).
 
 A partial batch is never sent back.  A generator may yield `records.SPENT` instead of a batch:
@@ -112,6 +114,7 @@ Observer = Callable[["Evaluation"], None]
 
 DIED = "worker process died"
 HALTS_IN_A_ROW = 10_000  # a generator halted this often with nothing evaluated has a bug
+REPEATS_IN_A_ROW = 10_000  # a search asking only for points it has asked for goes in a circle
 RETRIED = (Status.FAILED, Status.TIMED_OUT)  # stored statuses that a resume with ``retry`` redoes
 # read once: looking a member up on its enum class costs about 0.2 µs, a few times per evaluation
 _OK, _INTERRUPTED = Status.OK, Status.INTERRUPTED
@@ -280,6 +283,7 @@ class _Task:
     journaled: set[bytes] = field(default_factory=set)  # its own points in the journal, unasked
     sequence: int = 0  # of the next evaluation made for this search
     failures_in_a_row: int = 0
+    repeats_in_a_row: int = 0  # points asked in a row that the search had asked for before
     halts_in_a_row: int = 0
     ended: bool = False
     result: Any = None
@@ -586,12 +590,24 @@ class Driver:
         """Count the point ``key`` as asked by ``task``; whether it is new to that search.
 
         Raises `Halt` (BUDGET) instead for a point new to the search once it has asked for
-        ``limit`` points, or when the point's runs would pass the budget.
+        ``limit`` points, or when the point's runs would pass the budget; and `Halt` (STALLED)
+        for the `REPEATS_IN_A_ROW`-th point in a row that the search had asked for before.  Such
+        points cost nothing and do not count against the budget, so a search whose known values
+        lead it back to where it was would otherwise never end.
         """
         seen, k = task.seen, self.replicates
         fresh = key not in seen
-        if fresh and (len(seen) * k >= limit or (len(seen) + 1) * k > self.budget):
-            raise Halt(Stop.BUDGET, f"the budget of {limit} evaluations is spent")
+        if fresh:
+            if len(seen) * k >= limit or (len(seen) + 1) * k > self.budget:
+                raise Halt(Stop.BUDGET, f"the budget of {limit} evaluations is spent")
+            task.repeats_in_a_row = 0
+        else:
+            task.repeats_in_a_row += 1
+            if task.repeats_in_a_row >= REPEATS_IN_A_ROW:
+                raise Halt(Stop.STALLED, (
+                    f"the search asked for {REPEATS_IN_A_ROW} points in a row that it had asked "
+                    "for before: the values it knows lead it round in a circle"
+                ))
         if task.journaled:
             task.journaled.discard(key)
         seen.add(key)

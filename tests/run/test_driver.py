@@ -122,6 +122,32 @@ def test_minus_infinity_halts_at_once_and_the_rest_of_the_batch_is_not_evaluated
     assert objective.calls == 2
 
 
+@pytest.mark.parametrize("executor", [{}, {"executor": InProcess(), "workers": 1}])
+def test_a_search_going_round_in_a_circle_over_known_points_is_halted(executor):
+    """Points a search asked for before are answered from the cache and cost no budget: a search
+    whose known values lead it back where it was would never end.  The driver halts it at the
+    `REPEATS_IN_A_ROW`-th such point in a row; a new point in between starts the count again."""
+    from directional.run.driver import REPEATS_IN_A_ROW
+
+    def circle():
+        try:
+            yield points(1, 2)
+            for i in range(REPEATS_IN_A_ROW - 1):  # one short of the limit, then a new point
+                yield points(1 + i % 2)
+            yield points(3)
+            while True:
+                yield points(1)
+        except Halt as halt:
+            return halt
+
+    objective = Counting()
+    driver = Driver(objective=objective, budget=100, **executor)
+    halt = driver.run(circle())
+    assert halt.stop is Stop.STALLED and "round in a circle" in halt.reason
+    assert objective.calls == driver.spent == 3  # nothing evaluated twice, nothing lost
+    assert driver.log.cache_hits == 2 * (REPEATS_IN_A_ROW - 1)  # the halting one is not asked
+
+
 def test_stored_evaluations_replay_by_point_and_a_divergence_names_the_first_unasked():
     stored = [
         Evaluation(index=i, point=np.array([float(i)]), value=float(i), status="ok", sequence=i)
