@@ -168,6 +168,7 @@ QUIET = 2  # a noisy search stops after this many cycles in a row that promise l
 HEARD = 10.0  # a noisy model is believed when its sample's values span this many noise levels
 WINDOW = 3  # without a believable model, a noisy search judges the gain of this many cycles
 FITS = 5.0  # a noisy model is believed when its largest residual is below this many noise levels
+BEYOND = 1e3  # nor when its step promises more than this many times its sample's span of values
 SQUARE = 10.0  # a noisy search counts a quiet cycle only along directions this well conditioned
 FLAT = 100.0  # a direction whose parabola saw value differences below this many roundings is flat
 TRAVELLED = 1.0  # ... or one never curved upward along which the point moved this far (scaled)
@@ -959,6 +960,12 @@ def _regression(best: _Tracker) -> tuple[Quadratic, np.ndarray] | None:
     with np.errstate(all="ignore"):
         s = trust_step(model, model.radius)
     if not np.all(np.isfinite(s)):
+        return None
+    # inside the region its sample spans, a quadratic that promises a thousand times more than
+    # the sample's values differ by is extrapolating along what the sample leaves (nearly)
+    # undetermined (common practice, no source); believed, one kept a search cycling over known
+    # points for ever, promising a decrease of 4e7 on values of about 1e-3
+    if -(model.gradient @ s + 0.5 * s @ model.hessian @ s) > BEYOND * float(np.ptp(nearest)):
         return None
     return model, s
 

@@ -242,3 +242,49 @@ def test_rounding_only_means_no_line_listens(monkeypatch):
 
     assert heard_levels(notice=False) == []
     assert heard_levels() != []
+
+
+def _noisy_sample(points, minimizer, seed):
+    """A model's store of noisy values of |x - minimizer|² (analytic; the noise, sigma 1e-3, is
+    invented and seeded) at the given points, the origin first."""
+    from directional.method.model import Sample, coefficients
+
+    rng = np.random.default_rng(seed)
+    sample = Sample(2, 3 * coefficients(2))
+    for p in points:
+        d = np.asarray(p, dtype=float) - minimizer
+        sample.add(np.asarray(p, dtype=float), float(d @ d + 1e-3 * rng.standard_normal()))
+    return sample
+
+
+def test_a_noisy_model_promising_far_more_than_its_sample_spans_is_not_believed():
+    # Points on the two axes and three a hair (1e-9) off them: the cross term is fixed by
+    # noise over 1e-9 (an indefinite Hessian), and the model's step inside its sample promises
+    # about a million times the span of the values.  Believed, such a
+    # promise kept a noisy search cycling over known points for ever (explore on a process pool
+    # hung); the search now judges by its cycles' gains instead (common practice, no source).
+    from directional.method import search
+
+    axes = [(s * r, 0.0) for r in (0.1, 0.2, 0.3) for s in (1, -1)]
+    axes += [(0.0, s * r) for r in (0.1, 0.2, 0.3) for s in (1, -1)]
+    sample = _noisy_sample([(0.0, 0.0), *axes, (0.1, 1e-9), (-0.1, -1e-9), (1e-9, 0.1)],
+                           np.zeros(2), seed=1)
+    best = search._Tracker(np.zeros(2), float(sample.values[0]), 1e-3, sample, noise=1e-3)
+    assert search._regression(best) is None
+    assert search._promise(build_space(np.zeros(2)), best, [1.0, 1.0, 1.0, 1.0]) == 0.0
+
+
+def test_a_noisy_model_on_a_spread_sample_is_believed_and_points_at_the_minimum():
+    # the same function, minimum at (0.05, 0) (analytic), on 30 points spread over a disc of
+    # radius 0.3: the rule above leaves a sound model alone
+    from directional.method import search
+
+    rng = np.random.default_rng(2)
+    spread = [(0.0, 0.0), *(0.3 * rng.uniform(-1.0, 1.0, size=(29, 2)))]
+    sample = _noisy_sample(spread, np.array([0.05, 0.0]), seed=3)
+    best = search._Tracker(np.zeros(2), float(sample.values[0]), 1e-3, sample, noise=1e-3)
+    found = search._regression(best)
+    assert found is not None
+    model, step = found
+    # a step of 0.05 fitted through noise of 1e-3 on 12 values: within half its length
+    assert np.linalg.norm(step - [0.05, 0.0]) < 0.025
