@@ -180,10 +180,10 @@ class _Tally:
     """An objective wrapped for the overhead runs: it keeps a copy of each point it is asked
     for, and nothing else per call; `replay` then times the objective on those points.
 
-    A clock read costs a good part of a microsecond (the processor-time clock is a system call),
-    as much as a cheap objective itself: read around each call, as `Recorder` does, it would be
-    counted to the optimizer.  The copy kept per call is counted to the optimizer instead, a
-    small overstatement on the safe side.
+    A clock read costs up to a good part of a microsecond (the processor-time clock is a system
+    call), a sizeable share of a cheap objective's own time: read around each call, as `Recorder`
+    does, part of it would be counted to the optimizer.  The copy kept per call is counted to the
+    optimizer instead, a small overstatement on the safe side.
 
     >>> tally = _Tally(lambda x: float(x @ x))
     >>> tally(np.array([3.0, 4.0])), len(tally.points)
