@@ -284,16 +284,44 @@ def quadratic_target(counts: Sequence[Count]) -> list[tuple[str, str, bool, str]
     return out
 
 
+# The overhead targets (µs per evaluation at n = 10 and 100) and Nelder–Mead's time in the run
+# they were set against (RESULTS.md of commit a1aa388: directional 85.4 µs at n = 10, Nelder–Mead
+# 24.2 µs at n = 10 and 29.3 µs at n = 100).  Nelder–Mead's loop has not changed since, so a
+# target is judged as that multiple of its time in the same run: the speed of this shared machine
+# drifts by a third or more between runs, and the same code has measured 43 and 63 µs at n = 10
+# an hour apart (common practice, no source: compare ratios measured in one run).
+OVERHEAD_TARGETS = ((10, 30e-6, 24.2e-6), (100, 300e-6, 29.3e-6))
+
+
 def overhead_target(rows: Sequence[Overhead]) -> list[tuple[str, str, bool, str]]:
+    """The overhead targets, judged against Nelder–Mead's time in the same run where it was
+    timed, else as absolute times."""
     out = []
-    for n, limit in ((10, 30e-6), (100, 300e-6)):
+    for n, limit, reference in OVERHEAD_TARGETS:
         mine = [r for r in rows if r.solver == "directional" and r.n == n]
-        if mine:
-            t = mine[0].cpu_per_evaluation
-            out.append((f"overhead at n = {n} ≤ {limit * 1e6:.0f} µs per evaluation",
-                        f"{t * 1e6:.0f} µs processor time ({mine[0].per_evaluation * 1e6:.0f} µs "
-                        "wall)", t <= limit, f"{mine[0].evaluations} evaluations"))
+        if not mine:
+            continue
+        t = mine[0].cpu_per_evaluation
+        measured = f"{t * 1e6:.0f} µs processor time ({mine[0].per_evaluation * 1e6:.0f} µs wall)"
+        yardstick = _nelder_mead(rows, n)
+        if yardstick is None:
+            met, basis = t <= limit, f"{mine[0].evaluations} evaluations"
+        else:
+            ratio, allowed = t / yardstick, limit / reference
+            measured += f"; {ratio:.2f} × Nelder–Mead in the same run"
+            met = ratio <= allowed
+            basis = (f"{mine[0].evaluations} evaluations; the target is {allowed:.2f} × "
+                     f"Nelder–Mead ({limit * 1e6:.0f} against its {reference * 1e6:.1f} µs in "
+                     "the run that set it)")
+        out.append((f"overhead at n = {n} ≤ {limit * 1e6:.0f} µs per evaluation", measured, met,
+                    basis))
     return out
+
+
+def _nelder_mead(rows: Sequence[Overhead], n: int) -> float | None:
+    """Nelder–Mead's processor time per evaluation at ``n`` in ``rows``, if it was timed."""
+    found = [r.cpu_per_evaluation for r in rows if r.solver == "Nelder-Mead" and r.n == n]
+    return found[0] if found and found[0] > 0.0 else None
 
 
 def line_target(rows: Sequence[LineCount], order: float, pairs: int) -> list[
@@ -333,11 +361,16 @@ def quadratic_table(counts: Sequence[Count]) -> list[str]:
 
 
 def overhead_table(rows: Sequence[Overhead]) -> list[str]:
+    out = []
+    for r in rows:
+        yardstick = _nelder_mead(rows, r.n)
+        ratio = "—" if yardstick is None else f"{r.cpu_per_evaluation / yardstick:.2f}"
+        out.append([r.solver, r.n, r.evaluations, r.runs, f"{r.cpu_per_evaluation * 1e6:.1f}",
+                    ratio, f"{r.per_evaluation * 1e6:.1f}",
+                    f"{r.objective_per_evaluation * 1e6:.1f}"])
     return table(["solver", "n", "evaluations", "runs", "optimizer µs per evaluation (processor)",
-                  "(wall)", "objective µs per evaluation (wall)"],
-                 [[r.solver, r.n, r.evaluations, r.runs, f"{r.cpu_per_evaluation * 1e6:.1f}",
-                   f"{r.per_evaluation * 1e6:.1f}", f"{r.objective_per_evaluation * 1e6:.1f}"]
-                  for r in rows])
+                  "× Nelder–Mead (processor)", "(wall)", "objective µs per evaluation (wall)"],
+                 out)
 
 
 def line_table(rows: Sequence[LineCount], orders: dict[str, tuple[float, int]]) -> list[str]:
