@@ -36,6 +36,7 @@ class Plan:
     quadratic_seeds: tuple[int, ...]
     overhead_sizes: tuple[int, ...]
     overhead_evaluations: int
+    overhead_rounds: int  # each overhead row is the fastest of this many
     line_functions: int  # how many of the line-search test functions
 
 
@@ -43,17 +44,20 @@ PLANS = {
     "full": Plan(
         name="full", problems=None, factors=(1.0, 10.0, 100.0), units=100,
         quadratic_sizes=(2, 3, 5, 10, 20, 30, 50), quadratic_seeds=(0, 1, 2, 3, 4),
-        overhead_sizes=(2, 10, 30, 100), overhead_evaluations=4000, line_functions=7,
+        overhead_sizes=(2, 10, 30, 100), overhead_evaluations=4000, overhead_rounds=3,
+        line_functions=7,
     ),
     "quick": Plan(
         name="quick", problems=None, factors=(1.0, 10.0), units=100,
         quadratic_sizes=(2, 5, 10, 20), quadratic_seeds=(0,),
-        overhead_sizes=(2, 10, 30), overhead_evaluations=1500, line_functions=7,
+        overhead_sizes=(2, 10, 30), overhead_evaluations=1500, overhead_rounds=1,
+        line_functions=7,
     ),
     "smoke": Plan(
         name="smoke", problems=(1, 7, 13), factors=(1.0,), units=20,
         quadratic_sizes=(2, 5), quadratic_seeds=(0,),
-        overhead_sizes=(2, 10), overhead_evaluations=200, line_functions=2,
+        overhead_sizes=(2, 10), overhead_evaluations=200, overhead_rounds=1,
+        line_functions=2,
     ),
 }
 
@@ -102,7 +106,8 @@ def main(argv: list[str] | None = None) -> int:
     quadratics = scaling.quadratics(plan.quadratic_sizes, plan.quadratic_seeds)
     quadratics.append(scaling.rosenbrock())
     say("scaling: optimizer overhead")
-    overhead = scaling.overhead(plan.overhead_sizes, plan.overhead_evaluations)
+    overhead = scaling.overhead(plan.overhead_sizes, plan.overhead_evaluations,
+                                rounds=plan.overhead_rounds)
     say("scaling: line search")
     functions = scaling.line_functions()[: plan.line_functions]
     line = scaling.line_counts(functions)
@@ -299,7 +304,9 @@ def _scaling_section(quadratics, overhead, line, orders, order, order_pairs) -> 
         "baseline, unchanged since the targets were set) is the yardstick: the machine's speed "
         "drifts between runs by a third or more, so each row is also given as a multiple of "
         "Nelder–Mead's time at the same n in this run, and the targets are judged that way "
-        "(30 µs at n = 10 was 1.24 times Nelder–Mead's time in the run that set it).",
+        "(30 µs at n = 10 was 1.24 times Nelder–Mead's time in the run that set it). The full "
+        "run times the solvers one after another in three rounds at each size, and each row is "
+        "its fastest round, the least disturbed by other work on the machine.",
         "",
         *writeup.overhead_table(overhead),
         "",

@@ -127,3 +127,10 @@ def test_the_overhead_target_is_judged_against_nelder_mead_in_the_same_run():
     table = "\n".join(writeup.overhead_table(fast))
     assert "| directional | 10 | 4000 | 1 | 29.0 | 2.42 |" in table
     assert "| Nelder-Mead | 10 | 4000 | 1 | 12.0 | 1.00 |" in table
+
+
+def test_overhead_rounds_give_one_row_per_solver_and_size():
+    rows = scaling.overhead([2], 30, nelder_mead=False, rounds=2)
+    assert [r.solver for r in rows] == ["directional", "driver + search", "search alone",
+                                        "search alone, no model", "driver alone"]
+    assert all(r.n == 2 and r.evaluations >= 30 for r in rows)
