@@ -289,7 +289,7 @@ def quadratic_target(counts: Sequence[Count]) -> list[tuple[str, str, bool, str]
 # 24.2 µs at n = 10 and 29.3 µs at n = 100).  Nelder–Mead's loop has not changed since, so a
 # target is judged as that multiple of its time in the same run: the speed of this shared machine
 # drifts by a third or more between runs, and the same code has measured 43 and 63 µs at n = 10
-# an hour apart (common practice, no source: compare ratios measured in one run).
+# minutes apart (common practice, no source: compare ratios measured in one run).
 OVERHEAD_TARGETS = ((10, 30e-6, 24.2e-6), (100, 300e-6, 29.3e-6))
 
 
